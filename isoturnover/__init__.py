@@ -1,0 +1,50 @@
+"""isoturnover: turnover rates, half-lives and pool fractions from diet-switch experiments.
+
+The public API is flat: ``import isoturnover as iso`` and use ``iso.TurnoverModel``,
+``iso.read_samples``, ``iso.DietHistory`` and the others listed in ``__all__``.
+"""
+
+from __future__ import annotations
+
+from importlib.metadata import PackageNotFoundError
+from importlib.metadata import version as _version
+
+from . import isotopes
+from .diet import DietHistory
+from .errors import (
+    BoundWarning,
+    ConvergenceWarning,
+    DataError,
+    DataWarning,
+    DesignWarning,
+    FitError,
+    GoodnessOfFitWarning,
+    IdentifiabilityWarning,
+    IsoturnoverError,
+    IsoturnoverWarning,
+    ScaleError,
+    UnknownIsotopeError,
+)
+
+try:
+    __version__ = _version("isoturnover")
+except PackageNotFoundError:  # pragma: no cover - running from a source tree
+    __version__ = "0+unknown"
+
+__all__ = [
+    "__version__",
+    "isotopes",
+    "DietHistory",
+    "IsoturnoverError",
+    "DataError",
+    "FitError",
+    "UnknownIsotopeError",
+    "ScaleError",
+    "IsoturnoverWarning",
+    "DataWarning",
+    "ConvergenceWarning",
+    "BoundWarning",
+    "IdentifiabilityWarning",
+    "DesignWarning",
+    "GoodnessOfFitWarning",
+]

@@ -1,0 +1,204 @@
+"""Piecewise-constant diet histories.
+
+A :class:`DietHistory` is the sequence of diets an animal ate: an initial diet (eaten long
+enough before the first switch for the tissue to be at equilibrium with it, unless the model
+says otherwise) and a list of changes ``(time, value)``. Between switch times the diet is
+constant, so the kinetic models solve it exactly from switch to switch.
+
+A diet value may be unknown (``None`` or NaN): the model then fits the tissue's plateau for
+that diet instead of computing it from the diet value and the separation.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Sequence
+
+import numpy as np
+
+from .errors import DataError
+
+__all__ = ["DietHistory"]
+
+
+def _as_value(v, what: str) -> float:
+    """A diet value: a finite float, or NaN for unknown."""
+    if v is None:
+        return math.nan
+    try:
+        x = float(v)
+    except (TypeError, ValueError):
+        raise DataError(f"{what}: diet value must be a number or None (unknown), got {v!r}") from None
+    if math.isinf(x):
+        raise DataError(f"{what}: diet value must be finite or None (unknown), got {v!r}")
+    return x
+
+
+class DietHistory:
+    """A piecewise-constant diet history.
+
+    Parameters
+    ----------
+    initial : float or None
+        Value of the diet eaten before the first change (δ in ‰ on the isotope's scale).
+        ``None`` means unknown (its tissue plateau is then fitted).
+    changes : sequence of (time, value)
+        Each change: the time the new diet begins (in the samples' time unit, from the
+        experiment's time origin) and its value (``None`` for unknown). Times must be finite
+        and strictly increasing.
+    isotope : str, optional
+        Isotope code the values refer to (``"d13C"``, ...), for labels and checks.
+    label : str, optional
+        Free text (a group name, say) used in summaries.
+
+    Examples
+    --------
+    >>> d = DietHistory(-26.0, changes=[(0.0, -12.0), (120.0, -26.0)])
+    >>> d.value_at([-1.0, 0.0, 130.0]).tolist()
+    [-26.0, -12.0, -26.0]
+    >>> d.switch_times.tolist()
+    [0.0, 120.0]
+    """
+
+    def __init__(
+        self,
+        initial,
+        changes: Iterable[Sequence] = (),
+        *,
+        isotope: str | None = None,
+        label: str | None = None,
+    ):
+        init = _as_value(initial, "initial")
+        times: list[float] = []
+        values: list[float] = [init]
+        for i, ch in enumerate(changes):
+            try:
+                t, v = ch
+            except (TypeError, ValueError):
+                raise DataError(
+                    f"changes[{i}]: each change must be a pair (time, value), got {ch!r}"
+                ) from None
+            try:
+                tf = float(t)
+            except (TypeError, ValueError):
+                raise DataError(f"changes[{i}]: time must be a number, got {t!r}") from None
+            if not math.isfinite(tf):
+                raise DataError(f"changes[{i}]: time must be finite, got {t!r}")
+            if times and tf <= times[-1]:
+                raise DataError(
+                    f"changes[{i}]: switch times must be strictly increasing; "
+                    f"{tf!r} follows {times[-1]!r}"
+                )
+            times.append(tf)
+            values.append(_as_value(v, f"changes[{i}]"))
+        self._times = np.asarray(times, dtype=float)
+        self._values = np.asarray(values, dtype=float)
+        self.isotope = isotope
+        self.label = label
+
+    # -- constructors -------------------------------------------------------------------
+    @classmethod
+    def step(cls, before, after, at: float = 0.0, **kwargs) -> DietHistory:
+        """One switch from diet ``before`` to diet ``after`` at time ``at``."""
+        return cls(before, changes=[(at, after)], **kwargs)
+
+    @classmethod
+    def from_table(cls, frame, *, time_column: str = "start", value_column: str = "value",
+                   isotope: str | None = None, label: str | None = None) -> DietHistory:
+        """Build a history from rows of ``start, value`` (one group and isotope).
+
+        The earliest row is the initial diet (its start time only orders it); every later row
+        is a change. A blank value means the diet's value is unknown and its plateau is fitted.
+        """
+        if time_column not in frame.columns or value_column not in frame.columns:
+            raise DataError(
+                f"diet table needs columns {time_column!r} and {value_column!r}; "
+                f"got {list(frame.columns)}"
+            )
+        starts = np.asarray(frame[time_column], dtype=float)
+        if starts.size == 0:
+            raise DataError("diet table is empty: at least the initial diet is needed")
+        vals = list(frame[value_column])
+        order = np.argsort(starts, kind="stable")
+        if np.any(np.diff(starts[order]) == 0):
+            dup = starts[order][:-1][np.diff(starts[order]) == 0]
+            raise DataError(f"diet table: repeated start time(s) {dup.tolist()}")
+        if np.any(np.diff(starts) < 0):
+            raise DataError(
+                f"diet table: start times are not sorted ({starts.tolist()}); "
+                "sort the rows by start time"
+            )
+        if isotope is None and "isotope" in frame.columns and len(frame):
+            isotope = str(frame["isotope"].iloc[0])
+        return cls(vals[0], changes=list(zip(starts[1:], vals[1:])), isotope=isotope,
+                   label=label)
+
+    # -- properties -----------------------------------------------------------------------
+    @property
+    def initial(self) -> float:
+        """Value of the initial diet (NaN when unknown)."""
+        return float(self._values[0])
+
+    @property
+    def switch_times(self) -> np.ndarray:
+        """Times at which the diet changes, shape (n_changes,)."""
+        return self._times.copy()
+
+    @property
+    def values(self) -> np.ndarray:
+        """Diet values, the initial first, shape (n_changes + 1,); NaN where unknown."""
+        return self._values.copy()
+
+    @property
+    def known(self) -> np.ndarray:
+        """Boolean mask of the diets whose value is known, shape (n_changes + 1,)."""
+        return np.isfinite(self._values)
+
+    @property
+    def n_diets(self) -> int:
+        """Number of diet periods (changes + 1)."""
+        return int(self._values.size)
+
+    @property
+    def changes(self) -> list[tuple[float, float | None]]:
+        """The changes as ``(time, value)`` pairs (``None`` for unknown values)."""
+        return [
+            (float(t), None if not np.isfinite(v) else float(v))
+            for t, v in zip(self._times, self._values[1:])
+        ]
+
+    def period_index(self, t) -> np.ndarray:
+        """Index of the diet period in force at each time (0 = initial diet).
+
+        A new diet is in force from its start time on (``t >= start``).
+        """
+        return np.searchsorted(self._times, np.asarray(t, dtype=float), side="right")
+
+    def value_at(self, t) -> np.ndarray:
+        """Diet value in force at each time ``t`` (vectorised; NaN where unknown)."""
+        return self._values[self.period_index(t)]
+
+    # -- serialisation ----------------------------------------------------------------------
+    def to_dict(self) -> dict:
+        """A JSON-safe description (unknown values as ``None``)."""
+        init = None if not np.isfinite(self._values[0]) else float(self._values[0])
+        return {"initial": init, "changes": [list(c) for c in self.changes],
+                "isotope": self.isotope, "label": self.label}
+
+    @classmethod
+    def from_dict(cls, d: dict) -> DietHistory:
+        return cls(d["initial"], changes=[tuple(c) for c in d["changes"]],
+                   isotope=d.get("isotope"), label=d.get("label"))
+
+    def __eq__(self, other) -> bool:
+        if not isinstance(other, DietHistory):
+            return NotImplemented
+        return (np.array_equal(self._times, other._times)
+                and np.array_equal(self._values, other._values, equal_nan=True))
+
+    def __repr__(self) -> str:
+        def fmt(v):
+            return "unknown" if not np.isfinite(v) else f"{v:g}"
+        parts = [f"initial={fmt(self._values[0])}"]
+        parts += [f"t={t:g}: {fmt(v)}" for t, v in zip(self._times, self._values[1:])]
+        return f"DietHistory({', '.join(parts)})"
