@@ -1,0 +1,587 @@
+r"""Forward models of tissue isotope values and their exact Jacobians.
+
+Pure numpy: no lmfit, no pandas. Everything the fitting, uncertainty and planning modules
+evaluate comes through :class:`TurnoverKinetics`.
+
+The science (see DESIGN §2). A tissue is a mixture of ``n`` pools with fractions :math:`f_i`,
+each relaxing first-order toward the value set by the diet in force,
+
+.. math::
+
+    \frac{d\delta_i}{dt} = (k_i + g(t))\,(\delta_{in}(t) - \delta_i), \qquad
+    \delta = \sum_i f_i \delta_i ,
+
+where :math:`g = d\ln W/dt` is the specific growth rate when a growth curve is given
+(growth dilution; Hesslein et al. 1993) and zero otherwise. The equation is linear in δ, so
+the response to a piecewise-constant input is the superposition of its responses to the
+steps at the switch times :math:`s_j`. For a unit step at :math:`s` the old material left in
+pool i at :math:`t > s` is
+
+.. math::
+
+    \Phi_i(s, t) = \frac{W(s)}{W(t)}\, e^{-k_i (t - s)}
+
+(:math:`e^{-(k_i + k_g)(t-s)}` for exponential growth, :math:`e^{-k_i(t-s)}` without growth),
+so with tissue equilibrium values :math:`L_0, L_1, \dots, L_m` for the successive diets
+
+.. math::
+
+    \delta(t) = L_0 + \sum_{j=1}^{m} (L_j - L_{j-1})
+                 \Big(1 - \sum_i f_i \Phi_i(s_j, t)\Big) H(t - s_j).
+
+The precursor–product chain replaces :math:`\sum_i f_i\Phi_i` by the two-step response
+:math:`\Phi_c(\tau) = (k_1 e^{-k_2\tau} - k_2 e^{-k_1\tau})/(k_1 - k_2)`, evaluated in the
+stable form :math:`e^{-k_2\tau}\,(1 + k_2\tau\,\psi((k_1-k_2)\tau))` with
+:math:`\psi(x) = (1 - e^{-x})/x`, exact through the removable singularity at
+:math:`k_1 = k_2` (where it is :math:`e^{-k\tau}(1 + k\tau)`).
+
+A lag shifts every switch time by ``lag``. On the atom-fraction scale the pools mix in atom
+fraction :math:`x = R/(1+R)` and the tissue value is returned as δ.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .diet import DietHistory
+from .errors import DataError, ScaleError
+
+__all__ = [
+    "TurnoverKinetics",
+    "remaining_parallel",
+    "remaining_chain",
+    "MAX_POOLS",
+]
+
+MAX_POOLS = 4
+_STRUCTURES = ("parallel", "chain")
+_SEPARATIONS = ("difference", "epsilon")
+_SCALES = ("delta", "atom_fraction")
+_INITIALS = ("equilibrium", "free")
+# Elements with two stable isotopes: x = R/(1+R) is exact (Coplen 2011 definitions).
+_TWO_ISOTOPE_CODES = ("d13C", "d15N", "d2H")
+
+
+def _choice(name: str, value, allowed) -> str:
+    if not isinstance(value, str) or value not in allowed:
+        raise ValueError(
+            f"'{name}' must be one of {', '.join(repr(a) for a in allowed)}; got {value!r}"
+        )
+    return value
+
+
+# ----------------------------------------------------------------------------------------
+# Step responses (fraction of the old value remaining after a unit step at time 0)
+# ----------------------------------------------------------------------------------------
+def _psi(x):
+    """psi(x) = (1 - exp(-x)) / x for x >= 0, exact near 0 (series)."""
+    x = np.asarray(x, dtype=float)
+    small = np.abs(x) < 1e-2
+    xs = np.where(small, 1.0, x)
+    out = np.where(small, 0.0, -np.expm1(-xs) / xs)
+    if np.any(small):
+        z = x[small] if x.ndim else x
+        # psi = sum_n (-x)^n / (n+1)!
+        ser = 1 - z / 2 + z**2 / 6 - z**3 / 24 + z**4 / 120 - z**5 / 720 + z**6 / 5040
+        if x.ndim:
+            out = out.copy()
+            out[small] = ser
+        else:
+            out = np.asarray(ser)
+    return out
+
+
+def _dpsi(x):
+    """psi'(x) = (e^{-x}(1 + x) - 1)/x^2, exact near 0 (series)."""
+    x = np.asarray(x, dtype=float)
+    small = np.abs(x) < 1e-2
+    xs = np.where(small, 1.0, x)
+    out = np.where(small, 0.0, (np.exp(-xs) * (1 + xs) - 1) / xs**2)
+    if np.any(small):
+        z = x[small] if x.ndim else x
+        # psi' = sum_{n>=1} n (-1)^n x^{n-1} / (n+1)!
+        ser = -1 / 2 + z / 3 - z**2 / 8 + z**3 / 30 - z**4 / 144 + z**5 / 840 - z**6 / 5760
+        if x.ndim:
+            out = out.copy()
+            out[small] = ser
+        else:
+            out = np.asarray(ser)
+    return out
+
+
+def _chain_terms(tau, ka, kb):
+    """Chain response Phi and its partials (d/dka, d/dkb, d/dtau) for tau >= 0.
+
+    Symmetric in (ka, kb); computed with the larger rate first so the stable form never
+    overflows.
+    """
+    swap = kb > ka
+    a, b = (kb, ka) if swap else (ka, kb)
+    x = (a - b) * tau
+    eb = np.exp(-b * tau)
+    ps = _psi(x)
+    dps = _dpsi(x)
+    phi = eb * (1 + b * tau * ps)
+    d_a = eb * b * tau * tau * dps
+    d_b = eb * tau * (-1 - b * tau * ps + ps - b * tau * dps)
+    d_tau = -a * b * tau * eb * ps
+    if swap:
+        d_a, d_b = d_b, d_a
+    return phi, d_a, d_b, d_tau
+
+
+def remaining_parallel(tau, rates, fractions):
+    r"""Fraction of the change still to come, :math:`1 - F = \sum_i f_i e^{-k_i \tau}`.
+
+    Parameters
+    ----------
+    tau : array-like
+        Time since a single step switch (negative values give 1).
+    rates, fractions : array-like of shape (n_pools,)
+        Rates (per time unit) and fractions summing to 1.
+    """
+    tau = np.maximum(np.asarray(tau, dtype=float), 0.0)
+    k = np.asarray(rates, dtype=float).reshape(-1, *([1] * tau.ndim))
+    f = np.asarray(fractions, dtype=float).reshape(-1, *([1] * tau.ndim))
+    return np.sum(f * np.exp(-k * tau), axis=0)
+
+
+def remaining_chain(tau, k1, k2):
+    r"""Precursor–product chain: :math:`1 - F = (k_1 e^{-k_2\tau} - k_2 e^{-k_1\tau})/(k_1-k_2)`."""
+    tau = np.maximum(np.asarray(tau, dtype=float), 0.0)
+    return _chain_terms(tau, float(k1), float(k2))[0]
+
+
+# ----------------------------------------------------------------------------------------
+# Atom-fraction scale
+# ----------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class _AtomScale:
+    """Exact δ ↔ atom fraction for a two-isotope element: x = R/(1+R), R = Rs(1 + δ/1000)."""
+
+    rs: float
+
+    def to_x(self, d):
+        r = self.rs * (1.0 + np.asarray(d, dtype=float) / 1000.0)
+        return r / (1.0 + r)
+
+    def dx_dd(self, d):
+        r = self.rs * (1.0 + np.asarray(d, dtype=float) / 1000.0)
+        return (self.rs / 1000.0) / (1.0 + r) ** 2
+
+    def to_delta(self, x):
+        x = np.asarray(x, dtype=float)
+        return 1000.0 * (x / (1.0 - x) / self.rs - 1.0)
+
+    def dd_dx(self, x):
+        x = np.asarray(x, dtype=float)
+        return 1000.0 / (self.rs * (1.0 - x) ** 2)
+
+
+def _atom_scale(isotope, reference_ratio=None) -> _AtomScale:
+    if isotope is None:
+        raise ScaleError("scale='atom_fraction' needs the isotope (isotope='d15N', say); got None")
+    if isotope not in _TWO_ISOTOPE_CODES:
+        raise ScaleError(
+            f"scale='atom_fraction' is exact only for the two-isotope elements "
+            f"({', '.join(_TWO_ISOTOPE_CODES)}); got isotope={isotope!r}. Oxygen and sulfur have "
+            "further minor isotopes whose abundances a tracer need not follow; use "
+            "scale='delta' for natural-abundance work with these elements"
+        )
+    if reference_ratio is None:
+        from .isotopes import reference_ratio as _ref
+
+        reference_ratio = _ref(isotope)
+    return _AtomScale(float(reference_ratio))
+
+
+# ----------------------------------------------------------------------------------------
+# Growth hook
+# ----------------------------------------------------------------------------------------
+def _growth_log_mass(growth, t):
+    if hasattr(growth, "log_mass"):
+        return np.asarray(growth.log_mass(t), dtype=float)
+    return np.log(np.asarray(growth.predict(t), dtype=float))
+
+
+def _growth_rate(growth, t):
+    if hasattr(growth, "rate"):
+        return np.asarray(growth.rate(t), dtype=float)
+    h = 1e-5 * max(1.0, float(np.max(np.abs(t))) if np.size(t) else 1.0)
+    return (_growth_log_mass(growth, t + h) - _growth_log_mass(growth, t - h)) / (2 * h)
+
+
+# ----------------------------------------------------------------------------------------
+# The model
+# ----------------------------------------------------------------------------------------
+class TurnoverKinetics:
+    """Tissue δ under a diet history, with its Jacobian in natural parameters.
+
+    Parameters
+    ----------
+    pools : int, default=1
+        Number of parallel pools (1–4). Ignored for the chain (two steps).
+    structure : {"parallel", "chain"}
+    diet : DietHistory or None
+        ``None``: one step switch at t = 0 from ``delta0`` to ``delta_eq``.
+    separation : {"difference", "epsilon"}
+        How a known diet value becomes the tissue's equilibrium value:
+        ``diet + discrimination`` or ``(1000 + diet)(1 + epsilon/1000) − 1000``.
+    per_diet_separation : bool, default=False
+        One separation per distinct diet value instead of one shared by all diets.
+    lag : bool, default=False
+        Fit a pure delay between each diet switch and the tissue's response.
+    initial : {"equilibrium", "free"}
+        ``"equilibrium"``: the tissue starts at equilibrium with the first diet.
+        ``"free"``: every pool holds ``delta0`` at the first switch (animals not at
+        equilibrium when switched); before the first switch the model returns ``delta0``.
+    scale : {"delta", "atom_fraction"}
+        Mixing scale of the pools; results are always δ (‰).
+    isotope : str, optional
+        Isotope code; needed for ``scale="atom_fraction"``.
+    growth : None, "exponential" or a growth curve
+        ``"exponential"`` adds the parameter ``k_growth`` (W = W0 e^{k_growth t});
+        an object with ``predict(t)`` (mass; ``log_mass(t)`` and ``rate(t)`` used when
+        present) gives the dilution factor W(s)/W(t). Rates ``k1…kn`` are then catabolic.
+    reference_ratio : float, optional
+        Override of the isotope's reference ratio on the atom-fraction scale.
+
+    Attributes
+    ----------
+    param_names : tuple of str
+        Names of the natural parameters, in the order of ``theta`` and of the Jacobian's
+        columns.
+    """
+
+    def __init__(
+        self,
+        pools: int = 1,
+        *,
+        structure: str = "parallel",
+        diet: DietHistory | None = None,
+        separation: str = "difference",
+        per_diet_separation: bool = False,
+        lag: bool = False,
+        initial: str = "equilibrium",
+        scale: str = "delta",
+        isotope: str | None = None,
+        growth=None,
+        reference_ratio: float | None = None,
+    ):
+        self.structure = _choice("structure", structure, _STRUCTURES)
+        if self.structure == "chain":
+            pools = 2
+        if isinstance(pools, bool) or not isinstance(pools, (int, np.integer)) or not (
+            1 <= pools <= MAX_POOLS
+        ):
+            raise ValueError(f"'pools' must be an integer from 1 to {MAX_POOLS}; got {pools!r}")
+        self.pools = int(pools)
+        if diet is not None and not isinstance(diet, DietHistory):
+            raise TypeError(f"'diet' must be a DietHistory or None; got {type(diet).__name__}")
+        self.diet = diet
+        self.separation = _choice("separation", separation, _SEPARATIONS)
+        self.per_diet_separation = bool(per_diet_separation)
+        self.lag = bool(lag)
+        self.initial = _choice("initial", initial, _INITIALS)
+        self.scale = _choice("scale", scale, _SCALES)
+        self.isotope = isotope
+        self._atom = _atom_scale(isotope, reference_ratio) if self.scale == "atom_fraction" else None
+        if isinstance(growth, str):
+            if growth != "exponential":
+                raise ValueError(
+                    f"'growth' must be None, 'exponential' or a growth curve with predict(t); "
+                    f"got {growth!r}"
+                )
+            self.growth_kind = "exponential"
+        elif growth is None:
+            self.growth_kind = None
+        else:
+            if not hasattr(growth, "predict"):
+                raise TypeError(
+                    "'growth' must be None, 'exponential' or a growth curve with predict(t); "
+                    f"got {type(growth).__name__}"
+                )
+            self.growth_kind = "curve"
+        if self.growth_kind is not None and self.structure == "chain":
+            raise ValueError("growth dilution is available for structure='parallel' only")
+        self.growth = growth
+        self._build()
+
+    # -- parameter layout -------------------------------------------------------------------
+    def _build(self):
+        names: list[str] = []
+        diet = self.diet
+        sep_name = "discrimination" if self.separation == "difference" else "epsilon"
+        if diet is None:
+            self.switch_times = np.array([0.0])
+            names += ["delta0", "delta_eq"]
+            self._level_spec = [("param", 0), ("param", 1)]
+            self.n_levels = 2
+        else:
+            if diet.n_diets < 2:
+                raise DataError("the diet history has no change; a turnover fit needs at least one")
+            self.switch_times = diet.switch_times
+            vals = diet.values
+            known = diet.known
+            used = list(range(diet.n_diets)) if self.initial == "equilibrium" else list(
+                range(1, diet.n_diets)
+            )
+            spec: list = [None] * diet.n_diets
+            if self.initial == "free":
+                names.append("delta0")
+                spec[0] = ("param", 0)
+            # plateau parameters for unknown diets
+            for j in used:
+                if not known[j]:
+                    spec[j] = ("param", len(names))
+                    names.append(f"plateau_{j}")
+            # separation parameters for known diets
+            known_used = [j for j in used if known[j]]
+            if known_used:
+                if self.per_diet_separation:
+                    uniq: list[float] = []
+                    for j in known_used:
+                        if vals[j] not in uniq:
+                            uniq.append(vals[j])
+                    first = {v: len(names) + i for i, v in enumerate(uniq)}
+                    names += [f"{sep_name}_{i}" for i in range(len(uniq))]
+                    for j in known_used:
+                        spec[j] = ("diet", float(vals[j]), first[vals[j]])
+                else:
+                    idx = len(names)
+                    names.append(sep_name)
+                    for j in known_used:
+                        spec[j] = ("diet", float(vals[j]), idx)
+            self._level_spec = spec
+            self.n_levels = diet.n_diets
+        self.n_level_params = len(names)
+        if self.structure == "chain":
+            self._k_index = [len(names), len(names) + 1]
+            names += ["k1", "k2"]
+            self._f_index = []
+        else:
+            self._k_index = list(range(len(names), len(names) + self.pools))
+            names += [f"k{i + 1}" for i in range(self.pools)]
+            self._f_index = list(range(len(names), len(names) + self.pools))
+            names += [f"f{i + 1}" for i in range(self.pools)]
+        self._lag_index = None
+        if self.lag:
+            self._lag_index = len(names)
+            names.append("lag")
+        self._kg_index = None
+        if self.growth_kind == "exponential":
+            self._kg_index = len(names)
+            names.append("k_growth")
+        self.param_names = tuple(names)
+        self.n_params = len(names)
+
+    @property
+    def separation_names(self) -> tuple[str, ...]:
+        return tuple(n for n in self.param_names if n.startswith(("discrimination", "epsilon")))
+
+    # -- levels ---------------------------------------------------------------------------
+    def levels(self, theta) -> np.ndarray:
+        """Tissue equilibrium value (δ, ‰) for each diet period, shape (n_levels,).
+
+        With ``initial="free"`` the first entry is ``delta0``, the state at the first switch.
+        """
+        return self._levels(np.asarray(theta, dtype=float))[0]
+
+    def _levels(self, theta):
+        L = np.empty(self.n_levels)
+        dL = np.zeros((self.n_levels, self.n_params))  # d L_j / d theta
+        eps = self.separation == "epsilon"
+        for j, sp in enumerate(self._level_spec):
+            if sp[0] == "param":
+                L[j] = theta[sp[1]]
+                dL[j, sp[1]] = 1.0
+            else:
+                _, v, idx = sp
+                if eps:
+                    L[j] = (1000.0 + v) * (1.0 + theta[idx] / 1000.0) - 1000.0
+                    dL[j, idx] = (1000.0 + v) / 1000.0
+                else:
+                    L[j] = v + theta[idx]
+                    dL[j, idx] = 1.0
+        return L, dL
+
+    # -- evaluation -----------------------------------------------------------------------
+    def evaluate(self, t, theta, jacobian: bool = False):
+        """Tissue δ at times ``t`` (and the Jacobian), without input checks.
+
+        Parameters
+        ----------
+        t : ndarray of shape (n,)
+        theta : ndarray of shape (n_params,)
+            Natural parameters in the order of :attr:`param_names`.
+        jacobian : bool
+            Also return d δ / d theta, shape (n, n_params).
+        """
+        t = np.asarray(t, dtype=float)
+        theta = np.asarray(theta, dtype=float)
+        L, dL = self._levels(theta)
+        lag = theta[self._lag_index] if self._lag_index is not None else 0.0
+        s = self.switch_times + lag  # (m,)
+        tau = t[None, :] - s[:, None]  # (m, n)
+        on = tau > 0
+        taup = np.where(on, tau, 0.0)
+        if self._atom is not None:
+            Lw = self._atom.to_x(L)
+            dLw = self._atom.dx_dd(L)[:, None] * dL
+        else:
+            Lw, dLw = L, dL
+        step = np.diff(Lw)  # (m,) size of each step on the working scale
+        k = theta[self._k_index]
+        want = jacobian
+        if self.structure == "chain":
+            phi, d_a, d_b, d_tau = _chain_terms(taup, k[0], k[1])
+            E = np.where(on, phi, 0.0)  # (m, n)
+            R = on - E  # response to each step
+            y = Lw[0] + step @ R
+            if not want:
+                return self._out(y, None)
+            J = np.zeros((t.size, self.n_params))
+            J[:, self._k_index[0]] = -(step @ np.where(on, d_a, 0.0))
+            J[:, self._k_index[1]] = -(step @ np.where(on, d_b, 0.0))
+            if self._lag_index is not None:
+                # dE/ds = -dPhi/dtau
+                J[:, self._lag_index] = step @ np.where(on, d_tau, 0.0)
+        else:
+            f = theta[self._f_index]
+            kk = k.copy()
+            G = None
+            if self.growth_kind == "exponential":
+                kk = kk + theta[self._kg_index]
+            elif self.growth_kind == "curve":
+                lw_t = _growth_log_mass(self.growth, t)
+                lw_s = _growth_log_mass(self.growth, s)
+                G = np.exp(np.where(on, lw_s[:, None] - lw_t[None, :], 0.0))
+            Ei = np.exp(-kk[:, None, None] * taup[None, :, :])  # (p, m, n)
+            if G is not None:
+                Ei = Ei * G[None]
+            Ei = np.where(on[None], Ei, 0.0)
+            E = np.tensordot(f, Ei, axes=1)  # (m, n)
+            R = on - E
+            y = Lw[0] + step @ R
+            if not want:
+                return self._out(y, None)
+            J = np.zeros((t.size, self.n_params))
+            # d y / d f_i = - sum_j step_j E_ij
+            SE = np.tensordot(Ei, step, axes=([1], [0]))  # (p, n)
+            J[:, self._f_index] = -SE.T
+            # d y / d k_i = sum_j step_j f_i tau_j E_ij
+            STE = np.tensordot(Ei * taup[None], step, axes=([1], [0]))  # (p, n)
+            J[:, self._k_index] = (f[:, None] * STE).T
+            if self._kg_index is not None:
+                J[:, self._kg_index] = f @ STE
+            if self._lag_index is not None:
+                g_s = kk.copy()[:, None] * np.ones((1, s.size))  # (p, m)
+                if self.growth_kind == "curve":
+                    g_s = g_s + _growth_rate(self.growth, s)[None, :]
+                # dE_ij/ds_j = (k_i + g(s_j)) E_ij ; dR/ds = -sum_i f_i dE_ij/ds_j
+                dEds = np.einsum("i,ij,ijn->jn", f, g_s, Ei)
+                J[:, self._lag_index] = -(step @ dEds)
+        # level derivatives: y = Lw0 + sum_j (Lw_j - Lw_{j-1}) R_j
+        m = step.size
+        coef = np.empty((self.n_levels, t.size))
+        coef[0] = 1.0 - R[0]
+        if m > 1:
+            coef[1:m] = R[: m - 1] - R[1:m]
+        coef[m] = R[m - 1]
+        J += coef.T @ dLw
+        return self._out(y, J)
+
+    def _out(self, y, J):
+        if self._atom is None:
+            return y if J is None else (y, J)
+        d = self._atom.to_delta(y)
+        if J is None:
+            return d
+        return d, J * self._atom.dd_dx(y)[:, None]
+
+    # -- checked public evaluation ------------------------------------------------------------
+    def check_theta(self, theta) -> np.ndarray:
+        """Validate a natural parameter vector; return it as a float array."""
+        theta = np.asarray(theta, dtype=float)
+        if theta.shape != (self.n_params,):
+            raise ValueError(
+                f"'theta' must have {self.n_params} values ({', '.join(self.param_names)}); "
+                f"got shape {theta.shape}"
+            )
+        if not np.all(np.isfinite(theta)):
+            bad = [n for n, v in zip(self.param_names, theta) if not math.isfinite(v)]
+            raise ValueError(f"parameters must be finite; got non-finite {', '.join(bad)}")
+        k = theta[self._k_index]
+        if np.any(k <= 0):
+            raise ValueError(f"rates must be positive; got {dict(zip(self.rate_names, k))}")
+        if self._f_index:
+            f = theta[self._f_index]
+            if np.any(f < 0) or abs(f.sum() - 1.0) > 1e-12:
+                raise ValueError(
+                    f"pool fractions must be non-negative and sum to 1 (to 1e-12); got "
+                    f"{f.tolist()} (sum {f.sum():.15g})"
+                )
+        return theta
+
+    @property
+    def rate_names(self) -> tuple[str, ...]:
+        return tuple(self.param_names[i] for i in self._k_index)
+
+    @property
+    def fraction_names(self) -> tuple[str, ...]:
+        return tuple(self.param_names[i] for i in self._f_index)
+
+    def predict(self, t, theta, jacobian: bool = False):
+        """Checked version of :meth:`evaluate`: validates ``t`` and ``theta``.
+
+        ``theta`` may be an array in :attr:`param_names` order or a mapping name → value.
+        """
+        if isinstance(theta, dict) or hasattr(theta, "valuesdict"):
+            d = theta.valuesdict() if hasattr(theta, "valuesdict") else theta
+            missing = [n for n in self.param_names if n not in d]
+            if missing:
+                raise ValueError(f"parameters missing: {', '.join(missing)}")
+            theta = np.array([float(d[n]) for n in self.param_names])
+        theta = self.check_theta(theta)
+        t = np.asarray(t, dtype=float)
+        if t.ndim != 1:
+            t = np.atleast_1d(t).ravel()
+        if not np.all(np.isfinite(t)):
+            raise ValueError(f"'t' must be finite; got {int((~np.isfinite(t)).sum())} "
+                             "non-finite value(s)")
+        if self.growth_kind == "curve" and self._f_index:
+            self.check_mass_loss(theta, t)
+        return self.evaluate(t, theta, jacobian=jacobian)
+
+    def check_mass_loss(self, theta, t):
+        """Mass loss is allowed only while k_d + d ln W/dt >= 0 for every pool (DESIGN §2)."""
+        k_min = float(np.min(np.asarray(theta)[self._k_index]))
+        lo = min(float(np.min(t)), float(self.switch_times[0]))
+        hi = float(np.max(t))
+        grid = np.linspace(lo, hi, 201)
+        g = _growth_rate(self.growth, grid)
+        worst = float(np.min(k_min + g))
+        if worst < -1e-12:
+            at = float(grid[int(np.argmin(k_min + g))])
+            raise ValueError(
+                f"the growth curve loses mass faster than the slowest pool turns over: "
+                f"k_d + d ln W/dt = {worst:.4g} < 0 at t = {at:.4g}; the pool model does not "
+                "hold there"
+            )
+
+    def remaining(self, tau, theta):
+        """1 − F after a single unit step (no growth curve, no lag) for these parameters."""
+        theta = np.asarray(theta, dtype=float)
+        k = theta[self._k_index]
+        if self.structure == "chain":
+            return remaining_chain(tau, k[0], k[1])
+        if self._kg_index is not None:
+            k = k + theta[self._kg_index]
+        return remaining_parallel(tau, k, theta[self._f_index])
+
+    def __repr__(self):
+        return (f"TurnoverKinetics(structure={self.structure!r}, pools={self.pools}, "
+                f"params={self.param_names})")
