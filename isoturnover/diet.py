@@ -28,7 +28,9 @@ def _as_value(v, what: str) -> float:
     try:
         x = float(v)
     except (TypeError, ValueError):
-        raise DataError(f"{what}: diet value must be a number or None (unknown), got {v!r}") from None
+        raise DataError(
+            f"{what}: diet value must be a number or None (unknown), got {v!r}"
+        ) from None
     if math.isinf(x):
         raise DataError(f"{what}: diet value must be finite or None (unknown), got {v!r}")
     return x

@@ -288,7 +288,9 @@ class TurnoverKinetics:
         self.initial = _choice("initial", initial, _INITIALS)
         self.scale = _choice("scale", scale, _SCALES)
         self.isotope = isotope
-        self._atom = _atom_scale(isotope, reference_ratio) if self.scale == "atom_fraction" else None
+        self._atom = (
+            _atom_scale(isotope, reference_ratio) if self.scale == "atom_fraction" else None
+        )
         if isinstance(growth, str):
             if growth != "exponential":
                 raise ValueError(
