@@ -519,6 +519,15 @@ class TurnoverKinetics:
         k = theta[self._k_index]
         if np.any(k <= 0):
             raise ValueError(f"rates must be positive; got {dict(zip(self.rate_names, k))}")
+        if self._kg_index is not None:
+            # DESIGN §2: mass loss only while k_d + d ln W/dt >= 0; here d ln W/dt = k_growth
+            kg = float(theta[self._kg_index])
+            if float(np.min(k)) + kg < 0:
+                raise ValueError(
+                    f"k_growth = {kg:.4g}: the animal loses mass faster than the slowest pool "
+                    f"turns over (k_d + k_growth = {float(np.min(k)) + kg:.4g} < 0); the pool "
+                    "model does not hold there"
+                )
         if self._f_index:
             f = theta[self._f_index]
             if np.any(f < 0) or abs(f.sum() - 1.0) > 1e-12:
@@ -554,7 +563,7 @@ class TurnoverKinetics:
         if not np.all(np.isfinite(t)):
             raise ValueError(f"'t' must be finite; got {int((~np.isfinite(t)).sum())} "
                              "non-finite value(s)")
-        if self.growth_kind == "curve" and self._f_index:
+        if self.growth_kind == "curve" and self._f_index and t.size:
             self.check_mass_loss(theta, t)
         return self.evaluate(t, theta, jacobian=jacobian)
 
