@@ -25,6 +25,8 @@ from .errors import (
     ScaleError,
     UnknownIsotopeError,
 )
+from .model import TurnoverModel
+from .results import TurnoverFit, load_fit
 
 try:
     __version__ = _version("isoturnover")
@@ -35,6 +37,9 @@ __all__ = [
     "__version__",
     "isotopes",
     "DietHistory",
+    "TurnoverModel",
+    "TurnoverFit",
+    "load_fit",
     "IsoturnoverError",
     "DataError",
     "FitError",

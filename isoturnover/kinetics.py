@@ -461,21 +461,24 @@ class TurnoverKinetics:
                 lw_t = _growth_log_mass(self.growth, t)
                 lw_s = _growth_log_mass(self.growth, s)
                 G = np.exp(np.where(on, lw_s[:, None] - lw_t[None, :], 0.0))
-            Ei = np.exp(-kk[:, None, None] * taup[None, :, :])  # (p, m, n)
+            Ei = np.exp(-kk[:, None, None] * taup[None, :, :])  # (p, m, n), fresh array
             if G is not None:
                 Ei = Ei * G[None]
-            Ei = np.where(on[None], Ei, 0.0)
-            E = np.tensordot(f, Ei, axes=1)  # (m, n)
-            R = on - E
-            y = Lw[0] + step @ R
+            Ei *= on[None]
+            p_, m_, n_ = Ei.shape
+            # S_i = sum_j step_j E_ij  (p, n): the pools' responses to the diet history
+            SE = (step @ Ei.transpose(1, 0, 2).reshape(m_, p_ * n_)).reshape(p_, n_)
+            y = Lw[0] + step @ on - f @ SE
             if not want:
                 return self._out(y, None)
+            E = (f @ Ei.reshape(p_, m_ * n_)).reshape(m_, n_)
+            R = on - E
             J = np.zeros((t.size, self.n_params))
             # d y / d f_i = - sum_j step_j E_ij
-            SE = np.tensordot(Ei, step, axes=([1], [0]))  # (p, n)
             J[:, self._f_index] = -SE.T
             # d y / d k_i = sum_j step_j f_i tau_j E_ij
-            STE = np.tensordot(Ei * taup[None], step, axes=([1], [0]))  # (p, n)
+            STE = (step @ (Ei * taup[None]).transpose(1, 0, 2).reshape(m_, p_ * n_)).reshape(
+                p_, n_)
             J[:, self._k_index] = (f[:, None] * STE).T
             if self._kg_index is not None:
                 J[:, self._kg_index] = f @ STE

@@ -1,0 +1,945 @@
+r"""TurnoverModel: parameters, starting values and the least-squares fit.
+
+The model stores its configuration; :meth:`TurnoverModel.fit` validates the data, builds
+the kinetic model (:mod:`isoturnover.kinetics`), chooses deterministic starting values and
+returns a new :class:`~isoturnover.results.TurnoverFit`. Nothing the caller passes is
+modified.
+
+Internal parametrisation (the optimizer's coordinates; users only see natural names):
+
+* rates on the log scale with the pools ordered by construction: one anchor pool has
+  coordinate :math:`\ln k_a`, the others are reached through positive log-rate gaps
+  :math:`\ln k_i - \ln k_{i+1} = e^{w_i}`, so pools cannot swap labels (fastest first);
+* fractions by stick-breaking: :math:`f_b = \operatorname{logistic}(v_0)`, the remaining
+  fractions share :math:`1 - f_b` by further logistic sticks;
+* plateaus, separations, ``delta0``, ``delta_eq``, ``k_growth`` as themselves; ``lag`` as
+  itself with the bound ``lag >= 0``.
+
+Profiling a rate or a fraction re-anchors the block at that pool, so the profiled
+parameter is a single coordinate and the others stay ordered.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.optimize import least_squares
+
+from .diet import DietHistory
+from .errors import FitError
+from .kinetics import MAX_POOLS, TurnoverKinetics
+
+__all__ = ["TurnoverModel", "LOSSES"]
+
+LOSSES = ("linear", "soft_l1", "huber")
+_LOGIT_LIMIT = 30.0  # |logit f| beyond this is a fraction at 0 or 1 (f < 1e-13)
+
+
+def _logistic(v):
+    return 1.0 / (1.0 + math.exp(-v)) if v >= 0 else math.exp(v) / (1.0 + math.exp(v))
+
+
+def _logit(f):
+    f = min(max(f, 1e-12), 1 - 1e-12)
+    return math.log(f / (1 - f))
+
+
+# ----------------------------------------------------------------------------------------
+# Internal coordinates
+# ----------------------------------------------------------------------------------------
+class _Coordinates:
+    """Map between the optimizer's coordinates z and the natural parameters theta.
+
+    Parameters
+    ----------
+    kin : TurnoverKinetics
+    fixed : dict name -> value (natural)
+    rate_anchor, fraction_anchor : int or None
+        Pool index (0 = fastest) whose rate / fraction is a coordinate of its own.
+    """
+
+    def __init__(self, kin: TurnoverKinetics, fixed: dict, rate_anchor=None,
+                 fraction_anchor=None):
+        self.kin = kin
+        names = kin.param_names
+        self.fixed = dict(fixed)
+        k_idx = list(kin._k_index)
+        f_idx = list(kin._f_index)
+        n = len(k_idx)
+        self.n_pools = n
+        fixed_k = [i for i, j in enumerate(k_idx) if names[j] in fixed]
+        fixed_f = [i for i, j in enumerate(f_idx) if names[j] in fixed]
+        if len(fixed_k) not in (0, 1, n):
+            raise FitError(
+                f"fix one rate or all of them; got fixed rates "
+                f"{', '.join(names[k_idx[i]] for i in fixed_k)}"
+            )
+        if f_idx and len(fixed_f) not in (0, 1, n - 1, n):
+            raise FitError(
+                f"fix one pool fraction or all of them; got fixed fractions "
+                f"{', '.join(names[f_idx[i]] for i in fixed_f)}"
+            )
+        if fixed_k and len(fixed_k) < n:
+            rate_anchor = fixed_k[0]
+        if rate_anchor is None:
+            rate_anchor = n - 1
+        self.rate_anchor = rate_anchor
+        self.rates_fixed = len(fixed_k) == n
+        self.u_fixed = len(fixed_k) >= 1
+        if f_idx:
+            nf = len(f_idx)
+            if len(fixed_f) >= nf - 1:
+                self.fractions_fixed = True
+                fvals = np.zeros(nf)
+                given = {i: float(fixed[names[f_idx[i]]]) for i in fixed_f}
+                for i, v in given.items():
+                    fvals[i] = v
+                if len(given) == nf - 1:
+                    missing = next(i for i in range(nf) if i not in given)
+                    fvals[missing] = 1.0 - sum(given.values())
+                if np.any(fvals < 0) or abs(fvals.sum() - 1) > 1e-9:
+                    raise FitError(
+                        f"fixed pool fractions must be non-negative and sum to 1; got "
+                        f"{fvals.tolist()}"
+                    )
+                self.fixed_fractions = fvals
+                self.fraction_anchor = 0
+                self.v0_fixed = True
+            else:
+                self.fractions_fixed = False
+                if fixed_f:
+                    fraction_anchor = fixed_f[0]
+                if fraction_anchor is None:
+                    fraction_anchor = 0
+                self.fraction_anchor = fraction_anchor
+                self.v0_fixed = len(fixed_f) == 1
+        else:
+            self.fractions_fixed = True
+            self.fixed_fractions = np.zeros(0)
+            self.fraction_anchor = 0
+            self.v0_fixed = True
+        self.k_idx, self.f_idx = k_idx, f_idx
+        # identity coordinates
+        other = [j for j in range(kin.n_params) if j not in k_idx and j not in f_idx]
+        self.id_free = [j for j in other if names[j] not in fixed]
+        self.id_fixed = [j for j in other if names[j] in fixed]
+        # order of stick-breaking: anchor first, the others in pool order
+        nf = len(f_idx)
+        self.stick_order = [self.fraction_anchor] + [
+            i for i in range(nf) if i != self.fraction_anchor
+        ]
+        # coordinate layout
+        labels = [names[j] for j in self.id_free]
+        if not self.rates_fixed:
+            if not self.u_fixed:
+                labels.append(f"log_{names[k_idx[rate_anchor]]}")
+            labels += [f"log_gap_{i + 1}_{i + 2}" for i in range(n - 1)]
+        if not self.fractions_fixed:
+            if not self.v0_fixed:
+                labels.append(f"logit_{names[f_idx[self.fraction_anchor]]}")
+            labels += [f"stick_{i}" for i in range(1, nf - 1)]
+        self.labels = labels
+        self.size = len(labels)
+        self._n_id = len(self.id_free)
+        self._n_rate = 0 if self.rates_fixed else (n - 1 + (0 if self.u_fixed else 1))
+        self._n_frac = 0 if self.fractions_fixed else (nf - 2 + (0 if self.v0_fixed else 1))
+        # bounds: lag >= 0
+        lo = np.full(self.size, -np.inf)
+        for c, j in enumerate(self.id_free):
+            if names[j] == "lag":
+                lo[c] = 0.0
+        self.lower = lo
+        self.has_bounds = bool(np.any(np.isfinite(lo)))
+        # fixed natural values
+        self._theta_fixed = np.zeros(kin.n_params)
+        for nm, v in fixed.items():
+            self._theta_fixed[names.index(nm)] = float(v)
+
+    # -- forward map --------------------------------------------------------------------
+    def theta(self, z, jac=False):
+        kin = self.kin
+        th = self._theta_fixed.copy()
+        A = np.zeros((kin.n_params, self.size)) if jac else None
+        c = 0
+        for j in self.id_free:
+            th[j] = z[c]
+            if jac:
+                A[j, c] = 1.0
+            c += 1
+        n = self.n_pools
+        # rates
+        if not self.rates_fixed:
+            a = self.rate_anchor
+            if self.u_fixed:
+                u = math.log(self._theta_fixed[self.k_idx[a]])
+                cu = None
+            else:
+                u = z[c]
+                cu = c
+                c += 1
+            g = np.exp(z[c:c + n - 1])  # gaps between pool i and i+1
+            cg = c
+            c += n - 1
+            lk = np.empty(n)
+            lk[a] = u
+            for i in range(a - 1, -1, -1):
+                lk[i] = lk[i + 1] + g[i]
+            for i in range(a + 1, n):
+                lk[i] = lk[i - 1] - g[i - 1]
+            k = np.exp(lk)
+            th[self.k_idx] = k
+            if jac:
+                for i in range(n):
+                    row = self.k_idx[i]
+                    if cu is not None:
+                        A[row, cu] = k[i]
+                    for l_ in range(n - 1):
+                        if i <= l_ < a:
+                            A[row, cg + l_] = k[i] * g[l_]
+                        elif a <= l_ < i:
+                            A[row, cg + l_] = -k[i] * g[l_]
+        # fractions
+        if self.f_idx:
+            if self.fractions_fixed:
+                th[self.f_idx] = self.fixed_fractions
+            else:
+                nf = len(self.f_idx)
+                order = self.stick_order
+                vs = []
+                if self.v0_fixed:
+                    f0 = self._theta_fixed[self.f_idx[order[0]]]
+                    vs.append(("fixed", f0))
+                else:
+                    vs.append(("coord", c))
+                    c += 1
+                for _ in range(nf - 2):
+                    vs.append(("coord", c))
+                    c += 1
+                rem = 1.0
+                drem = np.zeros(self.size)
+                fvals = np.empty(nf)
+                dF = np.zeros((nf, self.size)) if jac else None
+                for pos in range(nf - 1):
+                    kind, val = vs[pos]
+                    if kind == "fixed":
+                        # first stick fixed: f = val directly
+                        s = val / rem if rem > 0 else 0.0
+                        fvals[order[pos]] = val
+                        if jac:
+                            dF[order[pos]] = 0.0
+                        rem_new = rem - val
+                        if jac:
+                            drem = drem.copy()
+                        rem = rem_new
+                        continue
+                    s = _logistic(z[val])
+                    fi = rem * s
+                    fvals[order[pos]] = fi
+                    if jac:
+                        dfi = drem * s
+                        dfi[val] += rem * s * (1 - s)
+                        dF[order[pos]] = dfi
+                        drem = drem - dfi
+                    rem = rem - fi
+                fvals[order[nf - 1]] = rem
+                if jac:
+                    dF[order[nf - 1]] = drem
+                th[self.f_idx] = fvals
+                if jac:
+                    A[self.f_idx] = dF
+        return (th, A) if jac else th
+
+    # -- inverse map (starting values) ----------------------------------------------------
+    def z_from_theta(self, th):
+        th = np.asarray(th, dtype=float)
+        z = []
+        for j in self.id_free:
+            z.append(th[j])
+        n = self.n_pools
+        if not self.rates_fixed:
+            k = np.maximum(th[self.k_idx], 1e-300)
+            lk = np.log(k)
+            if not self.u_fixed:
+                z.append(lk[self.rate_anchor])
+            for i in range(n - 1):
+                gap = lk[i] - lk[i + 1]
+                z.append(math.log(max(gap, 1e-8)))
+        if self.f_idx and not self.fractions_fixed:
+            f = np.clip(th[self.f_idx], 1e-12, 1.0)
+            f = f / f.sum()
+            order = self.stick_order
+            rem = 1.0
+            for pos in range(len(order) - 1):
+                fi = f[order[pos]]
+                if pos == 0 and self.v0_fixed:
+                    rem -= self._theta_fixed[self.f_idx[order[0]]]
+                    continue
+                s = fi / rem if rem > 1e-300 else 0.5
+                z.append(_logit(min(max(s, 1e-12), 1 - 1e-12)))
+                rem -= fi
+        z = np.asarray(z, dtype=float)
+        if self.has_bounds:
+            z = np.maximum(z, self.lower)
+        return z
+
+
+# ----------------------------------------------------------------------------------------
+# The least-squares problem
+# ----------------------------------------------------------------------------------------
+@dataclass
+class _Solution:
+    z: np.ndarray
+    theta: np.ndarray
+    cost: float  # sum of squared weighted residuals (linear loss) at the solution
+    status: int
+    nfev: int
+    message: str
+    success: bool
+    jac_z: np.ndarray | None = None
+    extra: dict = field(default_factory=dict)
+
+
+class _Problem:
+    """Residuals r = w (y − model) of one data series for a given coordinate map."""
+
+    def __init__(self, kin: TurnoverKinetics, t, y, w, loss="linear", f_scale=1.0):
+        self.kin = kin
+        self.t = np.asarray(t, dtype=float)
+        self.y = np.asarray(y, dtype=float)
+        self.w = np.asarray(w, dtype=float)
+        self.loss = loss
+        self.f_scale = f_scale
+
+    def solve(self, coords: _Coordinates, z0, *, tol=1e-14, max_nfev=None) -> _Solution:
+        kin, t, y, w = self.kin, self.t, self.y, self.w
+        cache = {}
+
+        def _eval(z):
+            key = z.tobytes()
+            if cache.get("key") != key:
+                th, A = coords.theta(z, jac=True)
+                yy, J = kin.evaluate(t, th, jacobian=True)
+                cache["key"] = key
+                cache["r"] = w * (y - yy)
+                cache["J"] = -(w[:, None] * (J @ A))
+            return cache
+
+        def fun(z):
+            return _eval(z)["r"]
+
+        def jac(z):
+            return _eval(z)["J"]
+
+        z0 = np.asarray(z0, dtype=float)
+        if coords.size == 0:
+            r = fun(z0)
+            th = coords.theta(z0)
+            return _Solution(z0, th, float(r @ r), 1, 1, "nothing to fit", True,
+                             np.zeros((t.size, 0)))
+        use_lm = (not coords.has_bounds) and self.loss == "linear" and t.size >= coords.size
+        if max_nfev is None:
+            max_nfev = 200 * (coords.size + 1)
+        with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
+            try:
+                if use_lm:
+                    res = least_squares(fun, z0, jac=jac, method="lm", xtol=tol, ftol=tol,
+                                        gtol=tol, max_nfev=max_nfev, x_scale="jac")
+                else:
+                    bounds = (coords.lower, np.full(coords.size, np.inf))
+                    z0b = np.clip(z0, coords.lower + 1e-12 * (np.isfinite(coords.lower)),
+                                  np.inf)
+                    res = least_squares(fun, z0b, jac=jac, method="trf", bounds=bounds,
+                                        xtol=max(tol, 1e-15), ftol=max(tol, 1e-15),
+                                        gtol=max(tol, 1e-15), max_nfev=max_nfev,
+                                        loss=self.loss, f_scale=self.f_scale, x_scale="jac")
+            except (ValueError, FloatingPointError, np.linalg.LinAlgError) as e:
+                return _Solution(z0, coords.theta(z0), math.inf, -1, 0, f"solver error: {e}",
+                                 False)
+        z = res.x
+        r = fun(z)
+        cost = float(r @ r)
+        ok = bool(res.status > 0) and np.isfinite(cost)
+        return _Solution(z, coords.theta(z), cost, int(res.status), int(res.nfev),
+                         str(res.message), ok, jac(z).copy())
+
+
+# ----------------------------------------------------------------------------------------
+# Starting values
+# ----------------------------------------------------------------------------------------
+def _rate_grid(t, switch0, size=12):
+    tau = t - switch0
+    pos = np.sort(tau[tau > 0])
+    if pos.size == 0:
+        span, first = max(np.ptp(t), 1.0), max(np.ptp(t), 1.0) / 10
+    else:
+        span = float(pos[-1])
+        first = float(pos[0]) if pos.size == 1 else float(min(pos[0], np.min(np.diff(pos))
+                                                              if np.any(np.diff(pos) > 0)
+                                                              else pos[0]))
+        first = max(first, span * 1e-4)
+    lo, hi = 0.2 / span, 5.0 / first
+    if hi <= lo * 1.5:
+        hi = lo * 50
+    return np.geomspace(lo, hi, size)
+
+
+def _step_linear_starts(t, y, w, kin, fixed, n_keep):
+    """Step switch without diet: for rate combinations on a grid, solve the linear part.
+
+    y = a + sum_i b_i exp(-k_i t), with a = delta_eq and b_i = (delta0 - delta_eq) f_i, is
+    linear in (a, b) for given rates; the weighted least-squares solution under the
+    equality constraints that fixed values impose (a = delta_eq, a + sum b = delta0) is
+    computed for every grid combination at once. Returns up to ``n_keep`` natural parameter
+    vectors, best first (combinations with all fractions positive ranked first).
+    """
+    from itertools import combinations
+
+    n = kin.pools
+    names = kin.param_names
+    grid = _rate_grid(t, 0.0, size=12 if n <= 2 else 9)
+    combos = np.array(list(combinations(range(grid.size - 1, -1, -1), n)), dtype=int)
+    K = np.sort(grid[combos], axis=1)[:, ::-1]  # fastest first
+    for i in range(n):
+        if f"k{i + 1}" in fixed:
+            K[:, i] = fixed[f"k{i + 1}"]
+    if n > 1:
+        K = K[np.all(np.diff(K, axis=1) < 0, axis=1)]
+    K = np.unique(K, axis=0)
+    if K.size == 0:
+        return []
+    tp = np.maximum(t, 0.0)
+    E = np.exp(-K[:, :, None] * tp[None, None, :])  # (c, n, nt)
+    X = np.concatenate([np.ones((K.shape[0], 1, t.size)), E], axis=1).transpose(0, 2, 1)
+    q = n + 1
+    rows, rhs = [], []
+    if "delta_eq" in fixed:
+        rows.append(np.eye(q)[0])
+        rhs.append(fixed["delta_eq"])
+    if "delta0" in fixed:
+        rows.append(np.ones(q))
+        rhs.append(fixed["delta0"])
+    if rows:
+        Cm, d = np.array(rows), np.array(rhs)
+        u_p = np.linalg.lstsq(Cm, d, rcond=None)[0]
+        _, sv, vt = np.linalg.svd(Cm)
+        N = vt[len(rows):].T  # null space (q, r)
+    else:
+        u_p, N = np.zeros(q), np.eye(q)
+    XN = X @ N  # (c, nt, r)
+    res0 = y[None, :] - X @ u_p  # (c, nt)
+    XNw = XN * w[None, :, None]
+    G = np.einsum("cti,ctj->cij", XNw, XNw)
+    h = np.einsum("cti,ct->ci", XNw, res0 * w[None, :])
+    G = G + np.eye(G.shape[1])[None] * (1e-12 * np.trace(G, axis1=1, axis2=2)[:, None, None]
+                                        + 1e-300)
+    v = np.linalg.solve(G, h[..., None])[..., 0]
+    U = u_p[None, :] + v @ N.T  # (c, q)
+    rss = np.sum((w[None, :] * (y[None, :] - np.einsum("ctq,cq->ct", X, U))) ** 2, axis=1)
+    a_, b_ = U[:, 0], U[:, 1:]
+    tot = b_.sum(axis=1)
+    good = np.isfinite(rss) & (tot != 0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        F = b_ / tot[:, None]
+    valid = np.all(F > 0, axis=1)
+    order = np.lexsort((rss, ~valid))
+    thetas = []
+    for c in order:
+        if not good[c]:
+            continue
+        f = F[c]
+        if not valid[c]:
+            f = np.clip(f, 0.02, None)
+            f = f / f.sum()
+        th = np.zeros(kin.n_params)
+        th[names.index("delta0")] = a_[c] + tot[c]
+        th[names.index("delta_eq")] = a_[c]
+        th[kin._k_index] = K[c]
+        th[kin._f_index] = f
+        thetas.append(th)
+        if len(thetas) >= 8 * n_keep:
+            break
+    return _distinct(thetas, kin, n_keep)
+
+
+def _distinct(thetas, kin, n_keep):
+    out = []
+    for th in thetas:
+        lk = np.log(th[kin._k_index])
+        if all(np.max(np.abs(lk - np.log(o[kin._k_index]))) > 0.3 for o in out):
+            out.append(th)
+        if len(out) >= n_keep:
+            break
+    return out
+
+
+def _general_starts(t, y, w, kin, fixed, n_keep):
+    """Any diet history: rates on a grid (equal or fixed fractions), levels by linear LS."""
+    from itertools import combinations
+
+    n = kin.pools
+    names = kin.param_names
+    switch0 = float(kin.switch_times[0])
+    grid = _rate_grid(t, switch0, size=10 if n <= 2 else 8)
+    level_idx = list(range(kin.n_level_params))
+    free_lv = [j for j in level_idx if names[j] not in fixed]
+    th0 = np.zeros(kin.n_params)
+    for nm, v in fixed.items():
+        th0[names.index(nm)] = v
+    if kin._lag_index is not None and "lag" not in fixed:
+        th0[kin._lag_index] = 0.0
+    if kin._kg_index is not None and "k_growth" not in fixed:
+        th0[kin._kg_index] = 0.0
+    fixed_k = {i: fixed[names[kin._k_index[i]]] for i in range(n)
+               if names[kin._k_index[i]] in fixed}
+    ffix = [names[j] in fixed for j in kin._f_index]
+    cands = []
+    for combo in combinations(range(grid.size - 1, -1, -1), n):
+        ks = np.sort(grid[list(combo)])[::-1]
+        for i, v in fixed_k.items():
+            ks[i] = v
+        if n > 1 and np.any(np.diff(ks) >= 0):
+            continue
+        th = th0.copy()
+        th[kin._k_index] = ks
+        if kin._f_index:
+            if all(ffix):
+                pass
+            else:
+                th[kin._f_index] = 1.0 / n
+                for i, j in enumerate(kin._f_index):
+                    if ffix[i]:
+                        th[j] = fixed[names[j]]
+                free = [j for i, j in enumerate(kin._f_index) if not ffix[i]]
+                rest = 1.0 - sum(th[j] for i, j in enumerate(kin._f_index) if ffix[i])
+                for j in free:
+                    th[j] = rest / len(free)
+        for j in free_lv:
+            th[j] = 0.0
+        with np.errstate(all="ignore"):
+            y0, J = kin.evaluate(t, th, jacobian=True)
+        if free_lv:
+            X = J[:, free_lv]
+            sol, *_ = np.linalg.lstsq(X * w[:, None], (y - y0) * w, rcond=None)
+            th[free_lv] = sol
+            with np.errstate(all="ignore"):
+                yy = kin.evaluate(t, th)
+        else:
+            yy = y0
+        rss = float(np.sum((w * (y - yy)) ** 2))
+        if np.isfinite(rss):
+            cands.append((rss, th))
+    cands.sort(key=lambda c: c[0])
+    return _distinct([c[1] for c in cands], kin, n_keep)
+
+
+# ----------------------------------------------------------------------------------------
+# The user-facing model
+# ----------------------------------------------------------------------------------------
+class TurnoverModel:
+    r"""A turnover model for one tissue's isotope series.
+
+    The constructor only stores the configuration; :meth:`fit` does the work and returns a
+    new :class:`~isoturnover.results.TurnoverFit`.
+
+    Parameters
+    ----------
+    pools : int, default=1
+        Number of parallel pools (1–4). Pool fractions describe the shape of the curve;
+        they need not be physical compartments.
+    structure : {"parallel", "chain"}, default="parallel"
+        ``"chain"``: a precursor–product chain of two first-order steps (S-shaped response),
+        rates ``k1 >= k2``.
+    growth : None, "exponential" or a growth curve, default=None
+        Growth dilution. With a curve (a fitted :func:`~isoturnover.fit_growth` result or
+        any object with ``predict(t)``), rates ``k1…kn`` are catabolic rates and the growth
+        term comes from the curve. ``"exponential"`` adds ``k_growth``, which needs masses
+        in :meth:`fit` (``masses=(t, mass)``) or a fixed value.
+    lag : bool, default=False
+        Fit a pure delay ``lag >= 0`` between each diet switch and the response.
+    diet : DietHistory, optional
+        The diet history. Without one the model is one step switch at t = 0 from
+        ``delta0`` to ``delta_eq``.
+    separation : {"difference", "epsilon"}, default="difference"
+        Tissue equilibrium value ``diet + discrimination`` or
+        ``(1000 + diet)(1 + epsilon/1000) − 1000``.
+    scale : {"delta", "atom_fraction"}, default="delta"
+        Pools mix in δ (natural abundance) or in atom fraction (enriched tracers).
+    isotope : str, optional
+        Isotope code (``"d13C"``…); needed for ``scale="atom_fraction"``.
+    initial : {"equilibrium", "free"}, default="equilibrium"
+        Tissue at equilibrium with the first diet, or ``delta0`` fitted at the first switch.
+    per_diet_separation : bool, default=False
+        One separation per distinct diet value.
+
+    Examples
+    --------
+    >>> import numpy as np, isoturnover as iso
+    >>> t = np.array([0, 2, 4, 7, 10, 14, 21, 28, 42, 56, 70.0])
+    >>> y = -12.0 + (-25.0 + 12.0) * np.exp(-np.log(2) / 9.0 * t)
+    >>> fit = iso.TurnoverModel(pools=1).fit(t, y + 0.001 * np.sin(t))
+    >>> round(float(fit.half_lives(method="asymptotic")["half_life"].iloc[0]), 2)
+    9.0
+    """
+
+    def __init__(self, pools=1, *, structure="parallel", growth=None, lag=False, diet=None,
+                 separation="difference", scale="delta", isotope=None, initial="equilibrium",
+                 per_diet_separation=False):
+        self.pools = pools
+        self.structure = structure
+        self.growth = growth
+        self.lag = lag
+        self.diet = diet
+        self.separation = separation
+        self.scale = scale
+        self.isotope = isotope
+        self.initial = initial
+        self.per_diet_separation = per_diet_separation
+        self._kin = None
+
+    # -- configuration ------------------------------------------------------------------
+    def config(self) -> dict:
+        """The configuration as a JSON-safe dict (growth curves as their own dicts)."""
+        g = self.growth
+        if g is not None and not isinstance(g, str):
+            g = {"curve": g.to_dict()} if hasattr(g, "to_dict") else {"curve": repr(g)}
+        return {
+            "pools": int(self.pools) if not isinstance(self.pools, bool) else self.pools,
+            "structure": self.structure,
+            "growth": g,
+            "lag": bool(self.lag),
+            "diet": None if self.diet is None else self.diet.to_dict(),
+            "separation": self.separation,
+            "scale": self.scale,
+            "isotope": self.isotope,
+            "initial": self.initial,
+            "per_diet_separation": bool(self.per_diet_separation),
+        }
+
+    @property
+    def kinetics(self) -> TurnoverKinetics:
+        """The kinetic model for this configuration (built once, then reused)."""
+        if self._kin is None:
+            pools = self.pools
+            if self.structure == "parallel" and (
+                isinstance(pools, bool) or not isinstance(pools, (int, np.integer))
+                or not 1 <= pools <= MAX_POOLS
+            ):
+                raise ValueError(
+                    f"'pools' must be an integer from 1 to {MAX_POOLS}; got {pools!r}"
+                )
+            if self.diet is not None and not isinstance(self.diet, DietHistory):
+                raise TypeError(
+                    f"'diet' must be a DietHistory or None; got {type(self.diet).__name__}"
+                )
+            self._kin = TurnoverKinetics(
+                pools if self.structure == "parallel" else 2,
+                structure=self.structure, diet=self.diet, separation=self.separation,
+                per_diet_separation=self.per_diet_separation, lag=self.lag,
+                initial=self.initial, scale=self.scale, isotope=self.isotope,
+                growth=self.growth,
+            )
+        return self._kin
+
+    @property
+    def param_names(self) -> tuple[str, ...]:
+        return self.kinetics.param_names
+
+    def describe(self) -> str:
+        """One line naming the model structure."""
+        kin = self.kinetics
+        if kin.structure == "chain":
+            s = "precursor–product chain (2 steps)"
+        else:
+            s = f"{kin.pools} pool{'s' if kin.pools > 1 else ''}"
+        extra = []
+        if self.diet is None:
+            extra.append("step switch at t = 0")
+        else:
+            extra.append(f"diet history with {len(self.diet.switch_times)} switch(es)")
+            extra.append(f"{self.separation} form")
+        if self.lag:
+            extra.append("lag")
+        if self.initial == "free":
+            extra.append("free initial state")
+        if self.scale == "atom_fraction":
+            extra.append("mixing in atom fraction")
+        if kin.growth_kind == "exponential":
+            extra.append("exponential growth dilution")
+        elif kin.growth_kind == "curve":
+            extra.append("growth dilution from a growth curve")
+        return f"{s}; " + ", ".join(extra)
+
+    def __repr__(self):
+        args = [f"pools={self.pools!r}"]
+        for k in ("structure", "growth", "lag", "diet", "separation", "scale", "isotope",
+                  "initial"):
+            v = getattr(self, k)
+            default = {"structure": "parallel", "growth": None, "lag": False, "diet": None,
+                       "separation": "difference", "scale": "delta", "isotope": None,
+                       "initial": "equilibrium"}[k]
+            if v != default:
+                args.append(f"{k}={v!r}")
+        return f"TurnoverModel({', '.join(args)})"
+
+    # -- fitting ----------------------------------------------------------------------------
+    def fit(self, t_or_frame, y=None, sigma=None, *, absolute_sigma=False, fixed=None,
+            init=None, loss="linear", masses=None, time_unit=None, label=None,
+            warn=True):
+        """Fit the model to one series.
+
+        Parameters
+        ----------
+        t_or_frame : array-like of shape (n,) or DataFrame
+            Sampling times (in the experiment's time unit, from the first switch), or a
+            samples table (see :func:`~isoturnover.read_samples`) holding one subject,
+            tissue and isotope — or several subjects with one sample each (destructive
+            sampling; the residual variance then holds the between-animal scatter).
+            Analytic replicates (same subject and time) are averaged first.
+        y : array-like of shape (n,), optional
+            Tissue δ values (‰). Not used with a frame.
+        sigma : array-like of shape (n,) or float, optional
+            Analytic 1σ of each value. Relative weights unless ``absolute_sigma``.
+        absolute_sigma : bool, default=False
+            Treat ``sigma`` as known: no rescaling of the covariance by the residual
+            variance, and a χ² goodness-of-fit p-value.
+        fixed : dict, optional
+            Natural parameters held at given values, e.g. ``{"delta0": 0.0}``.
+        init : dict, optional
+            Starting values for natural parameters (otherwise automatic, multi-start).
+        loss : {"linear", "soft_l1", "huber"}, default="linear"
+            Robust losses down-weight outliers (scale from the median absolute deviation
+            of a first, linear fit).
+        masses : tuple (t_mass, mass), optional
+            Body masses for ``growth="exponential"``: masses and δ are fitted jointly,
+            each block weighted by its own residual variance.
+        time_unit : str, optional
+            Label of the time unit (``"d"`` by default, or the frame's ``attrs``).
+        label : str, optional
+            Name of the series used in summaries and tables.
+        warn : bool, default=True
+            Issue trust warnings through :mod:`warnings` (they are always on the result).
+
+        Returns
+        -------
+        TurnoverFit
+        """
+        from .results import TurnoverFit
+
+        data = _prepare_data(t_or_frame, y, sigma, time_unit)
+        if loss not in LOSSES:
+            raise ValueError(
+                f"'loss' must be one of {', '.join(repr(x) for x in LOSSES)}; got {loss!r}"
+            )
+        if absolute_sigma and data["sigma"] is None:
+            raise ValueError("absolute_sigma=True needs 'sigma' (the known analytic sd)")
+        kin = self.kinetics
+        fixed = _check_names(fixed, kin, "fixed")
+        init = _check_names(init, kin, "init")
+        if kin.growth_kind == "exponential" and masses is None and "k_growth" not in fixed:
+            raise ValueError(
+                "growth='exponential' needs body masses (masses=(t_mass, mass)) or a fixed "
+                "'k_growth' (fixed={'k_growth': ...}); without them growth and catabolic "
+                "turnover cannot be told apart"
+            )
+        if masses is not None and kin.growth_kind != "exponential":
+            raise ValueError(
+                "'masses' is used with growth='exponential' (joint fit); for other growth "
+                "curves fit them first with iso.fit_growth and pass the result as growth="
+            )
+        n_free = _Coordinates(kin, fixed).size
+        if n_free > data["t"].size:
+            raise ValueError(
+                f"the model has {n_free} free parameters but only {data['t'].size} time "
+                "points; fix parameters or use fewer pools"
+            )
+        engine = _Engine(kin, data, absolute_sigma=absolute_sigma, loss=loss, masses=masses)
+        sol, starts_tried = engine.fit_best(fixed, init)
+        fit = TurnoverFit._from_engine(self, engine, sol, fixed=fixed, init=init,
+                                       starts_tried=starts_tried, label=label)
+        if warn:
+            for wmsg in fit.warnings:
+                warnings.warn(wmsg.message, wmsg.category, stacklevel=2)
+        return fit
+
+
+def _check_names(d, kin, what):
+    if d is None:
+        return {}
+    if not isinstance(d, dict):
+        raise TypeError(f"'{what}' must be a dict of parameter name -> value; got "
+                        f"{type(d).__name__}")
+    out = {}
+    for k, v in d.items():
+        if k not in kin.param_names:
+            import difflib
+
+            near = difflib.get_close_matches(str(k), kin.param_names, n=1)
+            hint = f" (did you mean {near[0]!r}?)" if near else ""
+            raise ValueError(
+                f"'{what}' has unknown parameter {k!r}{hint}; this model's parameters are "
+                f"{', '.join(kin.param_names)}"
+            )
+        try:
+            fv = float(v)
+        except (TypeError, ValueError):
+            raise ValueError(f"'{what}[{k!r}]' must be a number; got {v!r}") from None
+        if not math.isfinite(fv):
+            raise ValueError(f"'{what}[{k!r}]' must be finite; got {v!r}")
+        if k in kin.rate_names and fv <= 0:
+            raise ValueError(f"'{what}[{k!r}]' is a rate and must be positive; got {v!r}")
+        if k in kin.fraction_names and not 0 <= fv <= 1:
+            raise ValueError(f"'{what}[{k!r}]' is a pool fraction in [0, 1]; got {v!r}")
+        if k == "lag" and fv < 0:
+            raise ValueError(f"'{what}['lag']' must be >= 0; got {v!r}")
+        out[k] = fv
+    return out
+
+
+def _as_1d(name, a, n=None):
+    try:
+        arr = np.asarray(a, dtype=float)
+    except (TypeError, ValueError):
+        raise ValueError(f"'{name}' must be numeric; got {a!r:.60}") from None
+    if arr.ndim == 0 and n is not None:
+        arr = np.full(n, float(arr))
+    arr = np.atleast_1d(arr)
+    if arr.ndim != 1:
+        raise ValueError(f"'{name}' must be one-dimensional; got shape {arr.shape}")
+    if n is not None and arr.size != n:
+        raise ValueError(f"'{name}' has {arr.size} values but 't' has {n}; lengths must match")
+    bad = ~np.isfinite(arr)
+    if np.any(bad):
+        i = int(np.argmax(bad))
+        raise ValueError(
+            f"'{name}' must be finite; got {arr[i]!r} at position {i} "
+            f"({int(bad.sum())} non-finite value(s))"
+        )
+    return arr.copy()
+
+
+def _prepare_data(t_or_frame, y, sigma, time_unit):
+    """Arrays (t, y, sigma) from arrays or a samples frame; never mutates the input."""
+    import pandas as pd
+
+    info = {"source": "arrays", "n_replicates": None, "design": "series", "subjects": None,
+            "tissue": None, "isotope": None}
+    if isinstance(t_or_frame, pd.DataFrame):
+        if y is not None or sigma is not None:
+            raise ValueError("with a samples frame, do not pass 'y' or 'sigma' (taken from "
+                             "the frame's 'value' and 'sd' columns)")
+        from .data import frame_series
+
+        fs = frame_series(t_or_frame)
+        t, yv, sd = fs["t"], fs["y"], fs["sd"]
+        info.update({k: v for k, v in fs.items() if k not in ("t", "y", "sd")})
+        info["source"] = "frame"
+        if time_unit is None:
+            time_unit = t_or_frame.attrs.get("time_unit", "d")
+    else:
+        if y is None:
+            raise ValueError("'y' is required when 't' is an array")
+        t = _as_1d("t", t_or_frame)
+        yv = _as_1d("y", y, t.size)
+        sd = None if sigma is None else _as_1d("sigma", sigma, t.size)
+    if sd is not None and np.any(sd <= 0):
+        i = int(np.argmax(sd <= 0))
+        raise ValueError(f"'sigma' must be > 0; got {sd[i]!r} at position {i}")
+    if t.size < 2:
+        raise ValueError(f"at least 2 time points are needed; got {t.size}")
+    order = np.argsort(t, kind="stable")
+    return {"t": t[order], "y": yv[order], "sigma": None if sd is None else sd[order],
+            "time_unit": time_unit or "d", "info": info, "order": order}
+
+
+class _Engine:
+    """Fits one data series; also used by profiles, bootstraps and simulations."""
+
+    def __init__(self, kin, data, *, absolute_sigma=False, loss="linear", masses=None):
+        self.kin = kin
+        self.data = data
+        self.t, self.y, self.sigma = data["t"], data["y"], data["sigma"]
+        self.w = np.ones_like(self.t) if self.sigma is None else 1.0 / self.sigma
+        self.absolute_sigma = bool(absolute_sigma)
+        self.loss = loss
+        self.f_scale = 1.0
+        self.masses = masses
+        self._coords_cache = {}
+        self.problem = _Problem(kin, self.t, self.y, self.w, loss="linear")
+
+    def coords(self, fixed, rate_anchor=None, fraction_anchor=None):
+        key = (tuple(sorted(fixed)), rate_anchor, fraction_anchor)
+        c = self._coords_cache.get(key)
+        if c is None:
+            c = _Coordinates(self.kin, fixed, rate_anchor, fraction_anchor)
+            self._coords_cache[key] = c
+        else:
+            c._theta_fixed = np.zeros(self.kin.n_params)
+            for nm, v in fixed.items():
+                c._theta_fixed[self.kin.param_names.index(nm)] = float(v)
+            c.fixed = dict(fixed)
+            if c.f_idx and c.fractions_fixed:
+                c2 = _Coordinates(self.kin, fixed, rate_anchor, fraction_anchor)
+                c.fixed_fractions = c2.fixed_fractions
+        return c
+
+    def start_thetas(self, fixed, init, n_keep):
+        kin = self.kin
+        if kin.diet is None and kin.structure == "parallel" and kin.growth_kind is None \
+                and not kin.lag and kin.scale == "delta" and not any(
+                    kin.param_names[j] in fixed for j in kin._f_index):
+            starts = _step_linear_starts(self.t, self.y, self.w, kin, fixed, n_keep)
+        else:
+            starts = _general_starts(self.t, self.y, self.w, kin, fixed, n_keep)
+        if kin._lag_index is not None and "lag" not in fixed:
+            for th in starts:
+                th[kin._lag_index] = 0.0
+        if init:
+            base = starts[0].copy() if starts else np.zeros(kin.n_params)
+            for nm, v in init.items():
+                base[kin.param_names.index(nm)] = v
+            if kin._f_index:
+                f = base[kin._f_index]
+                if np.all(f > 0) and abs(f.sum() - 1) > 1e-9:
+                    base[kin._f_index] = f / f.sum()
+            starts = [base] + starts
+        return starts
+
+    def fit_best(self, fixed, init):
+        kin = self.kin
+        coords = self.coords(fixed)
+        n_keep = 1 if kin.pools == 1 else 4
+        if kin.structure == "chain":
+            n_keep = 4
+        starts = self.start_thetas(fixed, init, n_keep)
+        if not starts:
+            raise FitError("no usable starting values could be found for this series")
+        best = None
+        tried = 0
+        for th in starts:
+            z0 = coords.z_from_theta(th)
+            sol = self.problem.solve(coords, z0)
+            tried += 1
+            if best is None or (sol.success and (not best.success or sol.cost < best.cost)) \
+                    or (not best.success and sol.cost < best.cost):
+                best = sol
+        if self.loss != "linear" and coords.size:
+            # robust refit, scale from the linear fit's residuals (MAD)
+            r = self.problem.w * (self.y - kin.evaluate(self.t, best.theta))
+            mad = 1.4826 * float(np.median(np.abs(r - np.median(r))))
+            self.f_scale = mad if mad > 0 else 1.0
+            rob = _Problem(kin, self.t, self.y, self.w, loss=self.loss, f_scale=self.f_scale)
+            sol = rob.solve(coords, best.z)
+            # the cost reported is the plain weighted RSS at the robust solution
+            sol.extra["robust"] = True
+            best = sol
+        best.extra["coords"] = coords
+        return best, tried
+
+    def refit(self, fixed, z0, coords=None, tol=1e-12):
+        """A warm-started fit with some parameters fixed (profiles, bootstraps)."""
+        if coords is None:
+            coords = self.coords(fixed)
+        return self.problem.solve(coords, z0, tol=tol)

@@ -1,0 +1,1062 @@
+r"""TurnoverFit: the result of one fit — tables, intervals, derived quantities, summary.
+
+Error model (DESIGN §3). The weighted residuals are :math:`r_i = w_i (y_i - \hat y_i)` with
+:math:`w_i = 1/\sigma_i` when ``sigma`` is given and 1 otherwise; ``rss`` is
+:math:`\sum r_i^2`. Unless ``absolute_sigma`` the residual variance is estimated,
+:math:`s^2 = \mathrm{rss}/(n - p)`, and the covariance is :math:`s^2 (J^T J)^{-1}`; with
+``absolute_sigma`` it is :math:`(J^T J)^{-1}` and ``rss`` is the χ² statistic.
+
+Information criteria (Gaussian likelihood, constants dropped; ``k`` counts the free
+parameters plus the residual variance when it is estimated):
+
+.. math::
+
+    \mathrm{AIC} = n\ln(\mathrm{rss}/n) + 2k, \quad
+    \mathrm{AICc} = \mathrm{AIC} + \frac{2k(k+1)}{n-k-1}, \quad
+    \mathrm{BIC} = n\ln(\mathrm{rss}/n) + k\ln n
+
+and with known σ :math:`\mathrm{AIC} = \chi^2 + 2k` (same corrections). Only differences
+between fits of the same data mean anything.
+
+Profile likelihood intervals: with σ estimated, the set of values c of a parameter for
+which :math:`(\mathrm{rss}(c) - \mathrm{rss})/s^2 \le F_{1, n-p}(\text{level})`; with σ known,
+:math:`\Delta\chi^2 \le \chi^2_1(\text{level})`. ``rss(c)`` is minimised over all other
+parameters. A bound the data do not close is reported as ``open`` (±inf for unbounded
+parameters and half-lives, 0 or 1 for fractions, 0 for a rate), never as a search limit.
+"""
+
+from __future__ import annotations
+
+import html
+import json
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from scipy import optimize, stats
+
+from .errors import (
+    BoundWarning,
+    ConvergenceWarning,
+    DesignWarning,
+    GoodnessOfFitWarning,
+    IdentifiabilityWarning,
+)
+
+__all__ = ["TurnoverFit", "load_fit", "TrustNote", "Summary", "METHODS"]
+
+METHODS = ("profile", "asymptotic")
+LN2 = math.log(2.0)
+STATUSES = ("ok", "open", "at_bound", "failed", "fixed", "not_available")
+
+
+@dataclass(frozen=True)
+class TrustNote:
+    """A reason to be careful with a fit: a warning category, a short code, a message."""
+
+    code: str
+    category: type
+    message: str
+
+    def to_dict(self):
+        return {"code": self.code, "category": self.category.__name__, "message": self.message}
+
+
+_CATEGORIES = {c.__name__: c for c in (BoundWarning, ConvergenceWarning, DesignWarning,
+                                        GoodnessOfFitWarning, IdentifiabilityWarning)}
+
+
+def _check_level(level):
+    try:
+        lv = float(level)
+    except (TypeError, ValueError):
+        raise ValueError(f"'level' must be a number between 0 and 1; got {level!r}") from None
+    if not 0 < lv < 1:
+        raise ValueError(f"'level' must be between 0 and 1 (0.95 for 95 %); got {level!r}")
+    return lv
+
+
+def _check_method(method, allowed=METHODS):
+    if method not in allowed:
+        raise ValueError(
+            f"'method' must be one of {', '.join(repr(m) for m in allowed)}; got {method!r}"
+        )
+    return method
+
+
+def _unit_word(u):
+    return {"d": "days", "h": "hours", "w": "weeks", "min": "minutes", "y": "years"}.get(u, u)
+
+
+class TurnoverFit:
+    """Result of :meth:`TurnoverModel.fit <isoturnover.TurnoverModel.fit>`.
+
+    Attributes
+    ----------
+    params : lmfit.Parameters
+        Natural parameters (``delta0``, ``delta_eq``, ``k1``…, ``f1``…, ``lag``,
+        ``discrimination``/``epsilon``, ``plateau_j``, ``k_growth``) with values, standard
+        errors and correlations; fixed ones have ``vary=False``.
+    nobs, nvarys : int
+        Number of time points fitted (replicates averaged) and of free parameters.
+    rss : float
+        Sum of squared weighted residuals (χ² when ``absolute_sigma``).
+    aic, aicc, bic : float
+        Information criteria (formulas in the module docstring).
+    s2 : float
+        Residual variance (1 when σ is known).
+    converged : bool
+        The optimizer converged *and* the covariance could be computed.
+    warnings : list of TrustNote
+        Trust signals; each also appears as a numbered note in :meth:`summary`.
+    residuals : ndarray
+        y − fitted, in ‰ (unweighted).
+    time_unit : str
+        Unit of time of the data (labels of rates and half-lives).
+    rate_kind : {"incorporation", "catabolic"}
+        Without a growth model rates lump growth and catabolic turnover (incorporation
+        rates); with one they are catabolic rates.
+    """
+
+    # ------------------------------------------------------------------------------
+    @classmethod
+    def _from_engine(cls, model, engine, sol, *, fixed, init, starts_tried, label):
+        self = cls.__new__(cls)
+        self.model = model
+        self.kinetics = engine.kin
+        self._engine = engine
+        self._sol = sol
+        self._coords = sol.extra["coords"]
+        self.fixed = dict(fixed)
+        self.init = dict(init)
+        self.t = engine.t.copy()
+        self.y = engine.y.copy()
+        self.sigma = None if engine.sigma is None else engine.sigma.copy()
+        self.absolute_sigma = engine.absolute_sigma
+        self.loss = engine.loss
+        self.f_scale = engine.f_scale
+        self.time_unit = engine.data["time_unit"]
+        self.data_info = dict(engine.data["info"])
+        self.label = label
+        self.starts_tried = starts_tried
+        self._theta = np.asarray(sol.theta, dtype=float)
+        self.nfev = sol.nfev
+        self.message = sol.message
+        self._optimizer_ok = bool(sol.success)
+        self._finish(jac_z=sol.jac_z)
+        return self
+
+    def _finish(self, jac_z):
+        kin = self.kinetics
+        n = self.t.size
+        p = self._coords.size
+        self.nobs = n
+        self.nvarys = p
+        self.rss = float(np.sum(self._wres() ** 2))
+        self.dof = n - p
+        self.s2 = (self.rss / self.dof if self.dof > 0 else math.nan)
+        if self.absolute_sigma:
+            self.s2 = 1.0
+        # covariance in internal coordinates, then natural
+        self._cov_ok = False
+        cov_z = np.full((p, p), np.nan)
+        if p and jac_z is not None and np.all(np.isfinite(jac_z)) and self.dof > 0:
+            u, sv, vt = np.linalg.svd(jac_z, full_matrices=False)
+            if sv.size and sv[-1] > sv[0] * 1e-10:
+                cov_z = (vt.T / sv**2) @ vt * self.s2
+                self._cov_ok = bool(np.all(np.isfinite(cov_z)))
+        self._cov_z = cov_z
+        _, A = self._coords.theta(self._coords.z_from_theta(self._theta) if False else
+                                  self._sol.z, jac=True)
+        self._A = A
+        self.covar = A @ cov_z @ A.T if p else np.zeros((kin.n_params, kin.n_params))
+        if p and not self._cov_ok:
+            self.covar = np.full((kin.n_params, kin.n_params), np.nan)
+        for j, nm in enumerate(kin.param_names):
+            if nm in self.fixed:
+                self.covar[j, :] = 0.0
+                self.covar[:, j] = 0.0
+        self.converged = bool(self._optimizer_ok and (self._cov_ok or p == 0))
+        k = p + (0 if self.absolute_sigma else 1)
+        self.n_criteria_params = k
+        if self.absolute_sigma:
+            base = self.rss
+        else:
+            base = n * math.log(self.rss / n) if self.rss > 0 else -math.inf
+        self.aic = base + 2 * k
+        self.aicc = self.aic + (2 * k * (k + 1) / (n - k - 1) if n - k - 1 > 0 else math.nan)
+        self.bic = base + k * math.log(n)
+        self.redchi = self.rss / self.dof if self.dof > 0 else math.nan
+        self.chisqr_pvalue = (float(stats.chi2.sf(self.rss, self.dof))
+                              if self.absolute_sigma and self.dof > 0 else None)
+        self.rate_kind = "catabolic" if kin.growth_kind is not None else "incorporation"
+        self._profile_cache = {}
+        self._params = None
+        self.warnings = self._trust_notes()
+
+    # -- basic quantities ---------------------------------------------------------------
+    def _wres(self):
+        w = 1.0 / self.sigma if self.sigma is not None else 1.0
+        return w * (self.y - self.kinetics.evaluate(self.t, self._theta))
+
+    @property
+    def values(self) -> dict:
+        """Natural parameter values, name → float."""
+        return dict(zip(self.kinetics.param_names, self._theta.tolist()))
+
+    @property
+    def stderr(self) -> dict:
+        d = np.sqrt(np.clip(np.diag(self.covar), 0, None))
+        return dict(zip(self.kinetics.param_names, d.tolist()))
+
+    @property
+    def residuals(self) -> np.ndarray:
+        """y − fitted (‰), in time order."""
+        return self.y - self.best_fit
+
+    @property
+    def best_fit(self) -> np.ndarray:
+        return self.kinetics.evaluate(self.t, self._theta)
+
+    @property
+    def data_fingerprint(self) -> str:
+        """SHA-1 of the fitted data (times, values, weights): equal for fits of the same data."""
+        import hashlib
+
+        h = hashlib.sha1()
+        for a in (self.t, self.y, np.ones_like(self.t) if self.sigma is None else self.sigma):
+            h.update(np.ascontiguousarray(a, dtype=float).tobytes())
+        return h.hexdigest()
+
+    def predict(self, t) -> np.ndarray:
+        """Fitted tissue δ (‰) at times ``t`` (in :attr:`time_unit`)."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        if not np.all(np.isfinite(t)):
+            raise ValueError("'t' must be finite")
+        return self.kinetics.evaluate(t.ravel(), self._theta).reshape(t.shape)
+
+    @property
+    def params(self):
+        """Natural parameters as :class:`lmfit.Parameters` (built on first access)."""
+        if self._params is None:
+            self._params = self._make_params()
+        return self._params
+
+    def _make_params(self):
+        import lmfit
+
+        kin = self.kinetics
+        ps = lmfit.Parameters()
+        se = self.stderr
+        names = kin.param_names
+        for j, nm in enumerate(names):
+            vary = nm not in self.fixed
+            mn, mx = -np.inf, np.inf
+            if nm in kin.rate_names:
+                mn = 0.0
+            elif nm in kin.fraction_names:
+                mn, mx = 0.0, 1.0
+            elif nm == "lag":
+                mn = 0.0
+            v = float(self._theta[j])
+            ps.add(nm, value=min(max(v, mn), mx), vary=vary, min=mn, max=mx)
+            if vary:
+                ps[nm].stderr = se[nm] if np.isfinite(se[nm]) else None
+        if self._cov_ok:
+            c = self.covar
+            d = np.sqrt(np.diag(c))
+            for i, a in enumerate(names):
+                if a in self.fixed or not d[i] > 0:
+                    continue
+                ps[a].correl = {b: float(c[i, j] / (d[i] * d[j])) for j, b in enumerate(names)
+                                if j != i and b not in self.fixed and d[j] > 0}
+        return ps
+
+    # -- trust signals --------------------------------------------------------------------
+    def _trust_notes(self):
+        kin = self.kinetics
+        notes = []
+        v = self.values
+        names = kin.param_names
+        n_pools = len(kin.rate_names)
+        tau = self.t - float(kin.switch_times[0])
+        pos = np.sort(tau[tau > 0])
+        span = float(pos[-1]) if pos.size else 0.0
+        if not self._optimizer_ok:
+            notes.append(TrustNote("not_converged", ConvergenceWarning,
+                                   f"the optimizer did not converge ({self.message})"))
+        elif self.nvarys and not self._cov_ok:
+            notes.append(TrustNote(
+                "singular", IdentifiabilityWarning,
+                "the covariance matrix is singular: some parameters are not determined by "
+                "these data (standard errors not available)"))
+        # at bounds
+        if "lag" in v and "lag" not in self.fixed and v["lag"] <= 1e-9 * max(span, 1.0):
+            notes.append(TrustNote("at_bound", BoundWarning,
+                                   "lag is at its lower bound 0: the data show no delay; "
+                                   "consider a model without lag"))
+        first = float(pos[0]) if pos.size else math.nan
+        for nm in kin.rate_names:
+            if nm in self.fixed:
+                continue
+            k = v[nm]
+            if pos.size and k * first > 20:
+                notes.append(TrustNote(
+                    "at_bound", BoundWarning,
+                    f"{nm} = {k:.4g} per {self.time_unit}: the pool is complete before the first "
+                    f"sample after the switch (t = {first:g}); its rate is only a lower limit"))
+            if span > 0 and k * span < 0.01:
+                notes.append(TrustNote(
+                    "at_bound", BoundWarning,
+                    f"{nm} = {k:.4g} per {self.time_unit}: the pool barely moves within the "
+                    "sampling period; its rate is not determined"))
+        if kin.structure == "parallel" and n_pools > 1:
+            k = np.array([v[nm] for nm in kin.rate_names])
+            for i in range(n_pools - 1):
+                if k[i] / k[i + 1] < 1.5:
+                    notes.append(TrustNote(
+                        "pools_close", IdentifiabilityWarning,
+                        f"pools {i + 1} and {i + 2} have rates within a factor 1.5 "
+                        f"({k[i]:.4g} and {k[i + 1]:.4g}): too close to separate; fewer pools "
+                        "describe these data as well"))
+            for nm in kin.fraction_names:
+                if v[nm] < 0.02 and nm not in self.fixed:
+                    notes.append(TrustNote(
+                        "tiny_pool", IdentifiabilityWarning,
+                        f"{nm} = {v[nm]:.3g} (< 0.02): a pool this small is not supported by "
+                        "the data; fewer pools describe them as well"))
+        if self._cov_ok and self.nvarys > 1:
+            c = self.covar
+            d = np.sqrt(np.diag(c))
+            free = [j for j, nm in enumerate(names) if nm not in self.fixed and d[j] > 0]
+            # the last fraction is determined by the others; its correlation is by construction
+            skip = set()
+            if kin._f_index and n_pools > 1:
+                skip.add(kin._f_index[-1])
+            worst = None
+            for a in free:
+                for b in free:
+                    if b <= a or a in skip or b in skip:
+                        continue
+                    r = c[a, b] / (d[a] * d[b])
+                    if abs(r) > 0.99 and (worst is None or abs(r) > abs(worst[2])):
+                        worst = (names[a], names[b], r)
+            if worst:
+                notes.append(TrustNote(
+                    "correlation", IdentifiabilityWarning,
+                    f"{worst[0]} and {worst[1]} are correlated at {worst[2]:+.3f}: the data "
+                    "hardly separate them"))
+        n_after = int(np.sum(tau > 0))
+        if n_after < self.nvarys + 2:
+            notes.append(TrustNote(
+                "few_points", DesignWarning,
+                f"only {n_after} sample(s) after the switch for {self.nvarys} free parameters "
+                f"(at least {self.nvarys + 2} advised)"))
+        if span > 0:
+            slow = self._slowest_rate()
+            if slow > 0 and span < 2 * LN2 / slow:
+                notes.append(TrustNote(
+                    "plateau_not_reached", DesignWarning,
+                    f"the last sample ({span:.4g} {_unit_word(self.time_unit)} after the first "
+                    f"switch) comes before two half-lives of the slowest pool "
+                    f"({2 * LN2 / slow:.4g} {_unit_word(self.time_unit)}): the new plateau is "
+                    "extrapolated and the slow half-life is poorly bounded"))
+        if self.absolute_sigma and self.dof > 0 and self.redchi > 4:
+            notes.append(TrustNote(
+                "chi2_high", GoodnessOfFitWarning,
+                f"χ²/dof = {self.redchi:.3g} with σ treated as known: the scatter between time "
+                "points is far above the analytic sd (usual for living animals); the "
+                "intervals are too narrow — refit with absolute_sigma=False"))
+        return notes
+
+    def _slowest_rate(self):
+        v = self.values
+        kin = self.kinetics
+        ks = [v[nm] for nm in kin.rate_names]
+        if kin.structure == "chain":
+            # the chain needs about as long as its two half-lives together
+            return 1.0 / (1.0 / ks[0] + 1.0 / ks[1])
+        if kin._kg_index is not None:
+            ks = [k + v["k_growth"] for k in ks]
+        return float(min(ks))
+
+    # -- intervals ------------------------------------------------------------------------
+    def _crit(self, level):
+        if self.absolute_sigma:
+            return float(stats.chi2.ppf(level, 1))
+        return float(stats.f.ppf(level, 1, max(self.dof, 1)))
+
+    def _transform(self, name):
+        """(to_coord, from_coord, kind) for a natural parameter."""
+        kin = self.kinetics
+        if name in kin.rate_names:
+            return math.log, math.exp, "rate"
+        if name in kin.fraction_names:
+            return (lambda f: math.log(f / (1 - f)) if 0 < f < 1 else math.copysign(50, f - .5),
+                    lambda c: 1 / (1 + math.exp(-c)), "fraction")
+        if name == "lag":
+            return (lambda x: x), (lambda x: x), "lag"
+        return (lambda x: x), (lambda x: x), "plain"
+
+    def _profile(self, name, level):
+        """Profile-likelihood bounds of one natural parameter: (lo, hi, lo_status, hi_status)."""
+        key = (name, round(level, 12))
+        if key in self._profile_cache:
+            return self._profile_cache[key]
+        kin = self.kinetics
+        names = kin.param_names
+        j = names.index(name)
+        est = float(self._theta[j])
+        to_c, from_c, kind = self._transform(name)
+        crit = self._crit(level)
+        s2 = self.s2 if not self.absolute_sigma else 1.0
+        rss0 = self.rss
+        if not (np.isfinite(s2) and s2 > 0):
+            out = (math.nan, math.nan, "failed", "failed")
+            self._profile_cache[key] = out
+            return out
+        rate_anchor = fraction_anchor = None
+        if kind == "rate":
+            rate_anchor = list(kin.rate_names).index(name)
+        if kind == "fraction":
+            fraction_anchor = list(kin.fraction_names).index(name)
+            if len(kin.fraction_names) == 1:
+                out = (1.0, 1.0, "fixed", "fixed")
+                self._profile_cache[key] = out
+                return out
+        engine = self._engine
+        fixed_names = dict(self.fixed)
+        coords = None
+        c_hat = to_c(est)
+        se = math.sqrt(self.covar[j, j]) if np.isfinite(self.covar[j, j]) else math.nan
+        if kind == "rate":
+            se_c = se / est if np.isfinite(se) and se > 0 else 0.3
+        elif kind == "fraction":
+            se_c = se / max(est * (1 - est), 1e-6) if np.isfinite(se) and se > 0 else 1.0
+        else:
+            scale = max(float(np.ptp(self.y)), 1e-3)
+            se_c = se if np.isfinite(se) and se > 0 else 0.1 * scale
+        se_c = min(max(se_c, 1e-6), 1e3)
+        z_store = {}
+
+        def fixed_at(c):
+            d = dict(fixed_names)
+            d[name] = from_c(c)
+            return d
+
+        def D(c, z_start):
+            nonlocal coords
+            fx = fixed_at(c)
+            coords = engine.coords(fx, rate_anchor=rate_anchor, fraction_anchor=fraction_anchor)
+            if z_start is None:
+                z_start = coords.z_from_theta(self._theta)
+            sol = engine.refit(fx, z_start, coords=coords, tol=1e-12)
+            return (sol.cost - rss0) / s2, sol
+
+        lo_limit, hi_limit = self._search_limits(name, kind, c_hat, se_c)
+        results = []
+        for direction in (-1, 1):
+            limit = lo_limit if direction < 0 else hi_limit
+            c_prev, d_prev = c_hat, 0.0
+            coords0 = engine.coords(fixed_at(c_hat), rate_anchor=rate_anchor,
+                                    fraction_anchor=fraction_anchor)
+            z_prev = coords0.z_from_theta(self._theta)
+            h = se_c
+            status, bound = None, None
+            fails = 0
+            for _ in range(60):
+                c_new = c_prev + direction * h
+                at_limit = (c_new - limit) * direction >= 0
+                if at_limit:
+                    c_new = limit
+                d_new, sol = D(c_new, z_prev)
+                if not sol.success or not np.isfinite(d_new):
+                    fails += 1
+                    if fails >= 3:
+                        status = "failed"
+                        break
+                    h *= 0.5
+                    continue
+                z_store[c_new] = sol.z
+                if d_new > crit:
+                    # bracketed between c_prev and c_new
+
+                    def g(c, zs=z_prev):
+                        return D(c, zs)[0] - crit
+
+                    try:
+                        root = optimize.brentq(g, c_prev, c_new, xtol=1e-8 * max(1, abs(c_hat)),
+                                               rtol=1e-10, maxiter=60)
+                        bound, status = from_c(root), "ok"
+                    except (ValueError, RuntimeError):
+                        status = "failed"
+                    break
+                if at_limit:
+                    status = "at_bound" if kind == "lag" else "open"
+                    break
+                # grow the step, more when the profile is flat
+                grow = 2.0 if d_new - d_prev < 0.25 * crit else 1.4
+                c_prev, d_prev, z_prev = c_new, max(d_new, d_prev), sol.z
+                h *= grow
+            if status is None:
+                status = "open"
+            if status == "open" or status == "at_bound":
+                if kind == "rate":
+                    bound = 0.0 if direction < 0 else math.inf
+                elif kind == "fraction":
+                    bound = 0.0 if direction < 0 else 1.0
+                elif kind == "lag":
+                    bound = 0.0 if direction < 0 else math.inf
+                else:
+                    bound = -math.inf if direction < 0 else math.inf
+            elif status == "failed":
+                bound = math.nan
+            results.append((bound, status))
+        out = (results[0][0], results[1][0], results[0][1], results[1][1])
+        self._profile_cache[key] = out
+        return out
+
+    def _search_limits(self, name, kind, c_hat, se_c):
+        tau = self.t - float(self.kinetics.switch_times[0])
+        pos = tau[tau > 0]
+        span = float(pos.max()) if pos.size else max(float(np.ptp(self.t)), 1.0)
+        first = float(pos.min()) if pos.size else span / 10
+        if kind == "rate":
+            lo = math.log(1e-3 / span)
+            hi = math.log(1e3 / first)
+            return min(lo, c_hat - 1), max(hi, c_hat + 1)
+        if kind == "fraction":
+            return -35.0, 35.0
+        if kind == "lag":
+            return 0.0, c_hat + max(50 * se_c, span)
+        width = max(200 * se_c, 100 * max(float(np.ptp(self.y)), 1.0))
+        return c_hat - width, c_hat + width
+
+    def _asymptotic(self, name, level):
+        kin = self.kinetics
+        j = kin.param_names.index(name)
+        est = float(self._theta[j])
+        var = self.covar[j, j]
+        if not (np.isfinite(var) and var >= 0):
+            return math.nan, math.nan, "failed", "failed"
+        se = math.sqrt(var)
+        q = (float(stats.norm.ppf(0.5 + level / 2)) if self.absolute_sigma
+             else float(stats.t.ppf(0.5 + level / 2, max(self.dof, 1))))
+        if name in kin.rate_names:
+            s = se / est
+            return est * math.exp(-q * s), est * math.exp(q * s), "ok", "ok"
+        lo, hi = est - q * se, est + q * se
+        ls = hs = "ok"
+        if name in kin.fraction_names:
+            if lo < 0:
+                lo, ls = 0.0, "at_bound"
+            if hi > 1:
+                hi, hs = 1.0, "at_bound"
+        if name == "lag" and lo < 0:
+            lo, ls = 0.0, "at_bound"
+        return lo, hi, ls, hs
+
+    def _interval(self, name, level, method):
+        if name in self.fixed:
+            v = self.fixed[name]
+            return v, v, "fixed", "fixed"
+        if method == "profile" and self.loss == "linear":
+            return self._profile(name, level)
+        return self._asymptotic(name, level)
+
+    def _method_used(self, method):
+        if method == "profile" and self.loss != "linear":
+            return "asymptotic"
+        return method
+
+    def conf_int(self, level=0.95, method="profile") -> pd.DataFrame:
+        """Confidence intervals of every parameter (long table).
+
+        Columns: parameter, estimate, stderr, lower, upper, level, method, lower_status,
+        upper_status. ``method="profile"`` (profile likelihood; asymptotic for robust
+        losses) or ``"asymptotic"`` (covariance; log scale for rates).
+        """
+        level = _check_level(level)
+        method = _check_method(method)
+        rows = []
+        se = self.stderr
+        for nm in self.kinetics.param_names:
+            lo, hi, ls, hs = self._interval(nm, level, method)
+            rows.append({"parameter": nm, "estimate": self.values[nm],
+                         "stderr": se[nm] if nm not in self.fixed else 0.0,
+                         "lower": lo, "upper": hi, "level": level,
+                         "method": "fixed" if nm in self.fixed else self._method_used(method),
+                         "lower_status": ls, "upper_status": hs})
+        return pd.DataFrame(rows)
+
+    def half_lives(self, level=0.95, method="profile") -> pd.DataFrame:
+        """Half-life t½ = ln 2 / k of each pool (or chain step), with interval bounds.
+
+        Columns: pool, fraction, rate, half_life, lower, upper, level, method,
+        lower_status, upper_status, rate_lower, rate_upper, rate_kind, time_unit.
+        Intervals are the transformed bounds of the rate (profile likelihood by default).
+        """
+        level = _check_level(level)
+        method = _check_method(method)
+        kin = self.kinetics
+        v = self.values
+        rows = []
+        for i, nm in enumerate(kin.rate_names):
+            k = v[nm]
+            lo, hi, ls, hs = self._interval(nm, level, method)
+            frac = v.get(f"f{i + 1}", math.nan) if kin.structure == "parallel" else math.nan
+            hl_lo = LN2 / hi if hi > 0 else math.inf
+            hl_hi = LN2 / lo if lo > 0 else math.inf
+            if ls in ("open",) and not lo > 0:
+                hl_hi = math.inf
+            rows.append({
+                "pool": i + 1, "fraction": frac, "rate": k, "half_life": LN2 / k,
+                "lower": hl_lo if np.isfinite(hi) or hs != "failed" else math.nan,
+                "upper": hl_hi if ls != "failed" else math.nan,
+                "level": level, "method": "fixed" if nm in self.fixed else
+                self._method_used(method),
+                "lower_status": hs, "upper_status": ls,
+                "rate_lower": lo, "rate_upper": hi,
+                "rate_kind": self.rate_kind, "time_unit": self.time_unit,
+            })
+        df = pd.DataFrame(rows)
+        if kin.structure == "chain":
+            df = df.rename(columns={"pool": "pool"})
+        return df
+
+    def remaining(self, tau) -> np.ndarray:
+        """1 − F: fraction of a step change still to come, ``tau`` after a switch (no lag)."""
+        return self.kinetics.remaining(np.asarray(tau, dtype=float), self._theta)
+
+    def _time_to(self, p, theta):
+        kin = self.kinetics
+        target = 1.0 - p
+        lag = theta[kin._lag_index] if kin._lag_index is not None else 0.0
+        ks = theta[kin._k_index]
+        if kin._kg_index is not None:
+            ks = ks + theta[kin._kg_index]
+        if kin.structure == "parallel" and len(ks) == 1:
+            return -math.log(target) / float(ks[0]) + lag
+
+        def g(tau):
+            return float(kin.remaining(np.array([tau]), theta)[0]) - target
+
+        hi = 1.0 / float(np.min(ks))
+        while g(hi) > 0:
+            hi *= 2
+        return optimize.brentq(g, 0.0, hi, xtol=1e-12, rtol=1e-12) + lag
+
+    def time_to(self, fraction=0.95, level=0.95, method="profile") -> pd.DataFrame:
+        """Time after the switch for the tissue to make ``fraction`` of a step change.
+
+        One pool: :math:`-\\ln(1-p)/k` (4.32 half-lives for p = 0.95); several pools and
+        the chain: solved numerically. Includes the lag when there is one. One pool
+        without lag: profile interval (a monotone function of the rate); otherwise a
+        delta-method interval on the log scale (``method`` then reads "asymptotic").
+
+        Columns: fraction, estimate, lower, upper, level, method, lower_status,
+        upper_status, time_unit.
+        """
+        level = _check_level(level)
+        method = _check_method(method)
+        fr = np.atleast_1d(np.asarray(fraction, dtype=float))
+        if np.any(~((fr > 0) & (fr < 1))):
+            raise ValueError(f"'fraction' must be between 0 and 1 (0.95 = 95 %); got {fraction!r}")
+        kin = self.kinetics
+        rows = []
+        simple = kin.structure == "parallel" and kin.pools == 1 and kin._lag_index is None \
+            and kin._kg_index is None
+        for p in fr:
+            est = self._time_to(p, self._theta)
+            if simple:
+                lo_k, hi_k, ls, hs = self._interval("k1", level, method)
+                c = -math.log(1 - p)
+                lo = c / hi_k if hi_k > 0 else 0.0
+                hi = c / lo_k if lo_k > 0 else math.inf
+                m = "fixed" if "k1" in self.fixed else self._method_used(method)
+                rows.append({"fraction": p, "estimate": est, "lower": lo, "upper": hi,
+                             "level": level, "method": m, "lower_status": hs,
+                             "upper_status": ls, "time_unit": self.time_unit})
+                continue
+            lo, hi, ls, hs = self._delta_log(lambda th, p=p: self._time_to(p, th), est, level)
+            rows.append({"fraction": p, "estimate": est, "lower": lo, "upper": hi,
+                         "level": level, "method": "asymptotic", "lower_status": ls,
+                         "upper_status": hs, "time_unit": self.time_unit})
+        return pd.DataFrame(rows)
+
+    def _delta_log(self, fn, est, level):
+        """Delta-method interval of a positive derived quantity on the log scale."""
+        if not self._cov_ok or not est > 0:
+            return math.nan, math.nan, "failed", "failed"
+        z = self._sol.z
+        grad = np.zeros(z.size)
+        for i in range(z.size):
+            h = 1e-6 * max(1.0, abs(z[i]))
+            zp, zm = z.copy(), z.copy()
+            zp[i] += h
+            zm[i] -= h
+            grad[i] = (math.log(fn(self._coords.theta(zp))) -
+                       math.log(fn(self._coords.theta(zm)))) / (2 * h)
+        var = float(grad @ self._cov_z @ grad)
+        if not var >= 0:
+            return math.nan, math.nan, "failed", "failed"
+        q = (float(stats.norm.ppf(0.5 + level / 2)) if self.absolute_sigma
+             else float(stats.t.ppf(0.5 + level / 2, max(self.dof, 1))))
+        s = math.sqrt(var)
+        return est * math.exp(-q * s), est * math.exp(q * s), "ok", "ok"
+
+    def mean_residence_time(self) -> float:
+        r"""Mean residence time of the step response, :math:`\int_0^\infty (1-F)\,d\tau`.
+
+        Parallel pools :math:`\sum_i f_i/k_i`; chain :math:`1/k_1 + 1/k_2`; plus the lag.
+        """
+        kin = self.kinetics
+        v = self._theta
+        ks = v[kin._k_index]
+        if kin._kg_index is not None:
+            ks = ks + v[kin._kg_index]
+        if kin.structure == "chain":
+            m = float(np.sum(1.0 / ks))
+        else:
+            m = float(np.sum(v[kin._f_index] / ks))
+        if kin._lag_index is not None:
+            m += float(v[kin._lag_index])
+        return m
+
+    # -- diagnostics ------------------------------------------------------------------------
+    def influence(self) -> pd.DataFrame:
+        """Studentised residuals, leverage and Cook's distance of every point.
+
+        Internally studentised residuals :math:`r_i/(s\\sqrt{1-h_{ii}})` and Cook's
+        distance :math:`D_i = r_i^2 h_{ii} / (p s^2 (1-h_{ii})^2)` (Cook 1977), from the
+        weighted Jacobian at the solution. ``flagged`` marks |studentised| > 3 or D > 1
+        (common practice); flagged points are kept in the fit — look at them.
+        """
+        J = self._sol.jac_z
+        r = self._wres()
+        n, p = self.nobs, self.nvarys
+        s2 = self.rss / self.dof if self.dof > 0 else math.nan
+        if p and J is not None and self._cov_ok:
+            q, _ = np.linalg.qr(J)
+            h = np.sum(q**2, axis=1)
+        else:
+            h = np.full(n, math.nan)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            stud = r / np.sqrt(s2 * (1 - h))
+            cook = r**2 * h / (p * s2 * (1 - h) ** 2) if p else np.full(n, math.nan)
+        flagged = (np.abs(stud) > 3) | (cook > 1)
+        return pd.DataFrame({"time": self.t, "value": self.y, "fitted": self.best_fit,
+                             "residual": self.residuals, "studentized": stud, "leverage": h,
+                             "cooks_distance": cook, "flagged": flagged})
+
+    # -- tables and summary -------------------------------------------------------------------
+    def table(self, level=0.95, method="profile") -> pd.DataFrame:
+        """One tidy row per parameter and derived quantity.
+
+        Columns: quantity, kind ("parameter" or "derived"), estimate, stderr, lower, upper,
+        level, method, lower_status, upper_status, unit.
+        """
+        ci = self.conf_int(level, method)
+        unit = self.time_unit
+        kin = self.kinetics
+        units = {}
+        for nm in kin.param_names:
+            if nm in kin.rate_names or nm == "k_growth":
+                units[nm] = f"per {_unit_word(unit)[:-1]}"
+            elif nm == "lag":
+                units[nm] = _unit_word(unit)
+            elif nm in kin.fraction_names:
+                units[nm] = "fraction"
+            else:
+                units[nm] = "‰"
+        ci = ci.rename(columns={"parameter": "quantity"})
+        ci.insert(1, "kind", "parameter")
+        ci["unit"] = ci["quantity"].map(units)
+        hl = self.half_lives(level, method)
+        rows = []
+        for _, r in hl.iterrows():
+            rows.append({"quantity": f"half_life_{int(r['pool'])}", "kind": "derived",
+                         "estimate": r["half_life"], "stderr": math.nan, "lower": r["lower"],
+                         "upper": r["upper"], "level": level, "method": r["method"],
+                         "lower_status": r["lower_status"], "upper_status": r["upper_status"],
+                         "unit": _unit_word(unit)})
+        tt = self.time_to(0.95, level, method).iloc[0]
+        rows.append({"quantity": "time_to_95", "kind": "derived", "estimate": tt["estimate"],
+                     "stderr": math.nan, "lower": tt["lower"], "upper": tt["upper"],
+                     "level": level, "method": tt["method"], "lower_status": tt["lower_status"],
+                     "upper_status": tt["upper_status"], "unit": _unit_word(unit)})
+        rows.append({"quantity": "mean_residence_time", "kind": "derived",
+                     "estimate": self.mean_residence_time(), "stderr": math.nan,
+                     "lower": math.nan, "upper": math.nan, "level": level,
+                     "method": "not_available", "lower_status": "not_available",
+                     "upper_status": "not_available", "unit": _unit_word(unit)})
+        return pd.concat([ci, pd.DataFrame(rows)], ignore_index=True)
+
+    def notes(self) -> list[str]:
+        """Numbered-note texts: every trust warning, then notes on method and meaning."""
+        out = [w.message for w in self.warnings]
+        kin = self.kinetics
+        if self.rate_kind == "incorporation":
+            out.append("rates are incorporation rates: without a growth model they lump "
+                       "growth dilution and catabolic turnover")
+        else:
+            out.append("rates k1… are catabolic rates (growth dilution modelled separately; "
+                       "pools assumed to grow in proportion to body mass); a juvenile's "
+                       "catabolic rate is that of a non-growing animal of its size and state, "
+                       "not of an adult")
+        if kin.structure == "parallel" and kin.pools > 1:
+            out.append("pool fractions describe the shape of the curve; they need not be "
+                       "physical compartments")
+        if self.sigma is not None and not self.absolute_sigma:
+            out.append("sigma used as relative weights; residual variance estimated from the "
+                       "scatter (analytic sd is usually far below the scatter between time "
+                       "points of a living animal)")
+        if self.loss != "linear":
+            out.append(f"robust loss '{self.loss}' (scale {self.f_scale:.3g} from the MAD of a "
+                       "first fit); intervals are asymptotic")
+        iso_ = self.model.isotope or self.data_info.get("isotope")
+        if iso_ in ("d2H", "d18O"):
+            out.append("for hydrogen and oxygen the 'diet' input stands for the combined input "
+                       "of food, drinking water (and, for oxygen, air)")
+        infl = self.influence()
+        fl = infl[infl["flagged"]]
+        if len(fl):
+            out.append("points flagged as outlying or influential (kept in the fit): t = "
+                       + ", ".join(f"{x:g}" for x in fl["time"]))
+        if self.data_info.get("design") == "destructive":
+            out.append("destructive sampling (one animal per sample): the residual variance "
+                       "holds the between-animal scatter")
+        return out
+
+    def summary(self, level=0.95, method="profile") -> Summary:
+        """A printable summary (``str()`` for text, ``_repr_html_`` in notebooks)."""
+        return Summary(self, level, method)
+
+    def __repr__(self):
+        return (f"<TurnoverFit {self.label or ''} {self.model.describe()}: n={self.nobs}, "
+                f"rss={self.rss:.4g}, aicc={self.aicc:.4g}, "
+                f"{'converged' if self.converged else 'NOT converged'}, "
+                f"{len(self.warnings)} warning(s)>")
+
+    def _repr_html_(self):
+        return self.summary()._repr_html_()
+
+    # -- serialisation -----------------------------------------------------------------------
+    def to_dict(self) -> dict:
+        """A JSON-safe description from which :func:`load_fit` rebuilds this fit."""
+        def fl(a):
+            return None if a is None else [float(x) for x in np.asarray(a).ravel()]
+
+        return {
+            "format": "isoturnover-fit", "version": 1,
+            "model": self.model.config(),
+            "data": {"t": fl(self.t), "y": fl(self.y), "sigma": fl(self.sigma),
+                     "time_unit": self.time_unit, "info": _json_safe(self.data_info)},
+            "options": {"absolute_sigma": self.absolute_sigma, "loss": self.loss,
+                        "f_scale": self.f_scale, "fixed": self.fixed, "init": self.init,
+                        "label": self.label},
+            "solution": {"z": fl(self._sol.z), "theta": fl(self._theta),
+                         "jac_z": None if self._sol.jac_z is None else
+                         np.asarray(self._sol.jac_z).tolist(),
+                         "status": self._sol.status, "nfev": self.nfev,
+                         "message": self.message, "success": self._optimizer_ok,
+                         "starts_tried": self.starts_tried,
+                         "coords": {"rate_anchor": self._coords.rate_anchor,
+                                    "fraction_anchor": self._coords.fraction_anchor}},
+        }
+
+    def to_json(self, **kwargs) -> str:
+        return json.dumps(self.to_dict(), **kwargs)
+
+
+def _json_safe(d):
+    out = {}
+    for k, v in d.items():
+        if isinstance(v, (np.integer,)):
+            v = int(v)
+        elif isinstance(v, (np.floating,)):
+            v = float(v)
+        elif isinstance(v, np.ndarray):
+            v = v.tolist()
+        elif isinstance(v, (list, tuple)):
+            v = [x.item() if hasattr(x, "item") else x for x in v]
+        out[k] = v
+    return out
+
+
+def load_fit(d) -> TurnoverFit:
+    """Rebuild a :class:`TurnoverFit` from :meth:`TurnoverFit.to_dict` (or its JSON text).
+
+    The rebuilt fit predicts, tabulates and summarises exactly as the original.
+    """
+    from .diet import DietHistory
+    from .model import TurnoverModel, _Engine, _prepare_data, _Solution
+
+    if isinstance(d, str):
+        d = json.loads(d)
+    if not isinstance(d, dict) or d.get("format") != "isoturnover-fit":
+        raise ValueError("load_fit needs a dict made by TurnoverFit.to_dict() "
+                         "(key 'format' = 'isoturnover-fit')")
+    cfg = dict(d["model"])
+    if cfg.get("diet") is not None:
+        cfg["diet"] = DietHistory.from_dict(cfg["diet"])
+    g = cfg.get("growth")
+    if isinstance(g, dict):
+        from . import growth as _growth
+
+        cfg["growth"] = _growth.load_growth(g["curve"])
+    model = TurnoverModel(**cfg)
+    dd = d["data"]
+    data = _prepare_data(np.array(dd["t"]), np.array(dd["y"]),
+                         None if dd["sigma"] is None else np.array(dd["sigma"]),
+                         dd["time_unit"])
+    data["info"].update(dd.get("info") or {})
+    opt = d["options"]
+    engine = _Engine(model.kinetics, data, absolute_sigma=opt["absolute_sigma"],
+                     loss=opt["loss"])
+    engine.f_scale = opt["f_scale"]
+    s = d["solution"]
+    coords = engine.coords(opt["fixed"], rate_anchor=None, fraction_anchor=None)
+    sol = _Solution(np.array(s["z"], dtype=float), np.array(s["theta"], dtype=float),
+                    math.nan, s["status"], s["nfev"], s["message"], s["success"],
+                    None if s["jac_z"] is None else np.array(s["jac_z"], dtype=float))
+    sol.extra["coords"] = coords
+    return TurnoverFit._from_engine(model, engine, sol, fixed=opt["fixed"], init=opt["init"],
+                                    starts_tried=s["starts_tried"], label=opt["label"])
+
+
+# ----------------------------------------------------------------------------------------
+# Summary
+# ----------------------------------------------------------------------------------------
+def _fmt(x, digits=4):
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "—"
+    if isinstance(x, float) and math.isinf(x):
+        return "∞" if x > 0 else "−∞"
+    return f"{x:.{digits}g}"
+
+
+def _bound(x, status):
+    if status == "open":
+        return "open"
+    if status == "failed":
+        return "failed"
+    s = _fmt(x)
+    return s + ("*" if status == "at_bound" else "")
+
+
+class Summary:
+    """Printable fit summary: header, parameters, derived quantities, numbered notes."""
+
+    def __init__(self, fit: TurnoverFit, level=0.95, method="profile"):
+        self.fit = fit
+        self.level = _check_level(level)
+        self.method = _check_method(method)
+        self.header = self._header()
+        self.parameters = fit.conf_int(self.level, self.method)
+        self.half_lives = fit.half_lives(self.level, self.method)
+        self.time_to = fit.time_to(0.95, self.level, self.method)
+        self.notes = fit.notes()
+
+    def _header(self):
+        f = self.fit
+        unit = _unit_word(f.time_unit)
+        if f.sigma is None:
+            weighting = "unweighted; residual variance estimated"
+        elif f.absolute_sigma:
+            weighting = "weights 1/σ² with σ known (absolute); no rescaling"
+        else:
+            weighting = "weights 1/σ² (relative); residual variance estimated"
+        rows = [
+            ("Data", f"{f.label + ': ' if f.label else ''}{f.nobs} time points, "
+                     f"t = {f.t.min():g} to {f.t.max():g} {unit}"),
+            ("Model", f.model.describe()),
+            ("Method", f"least squares ({'robust, ' + f.loss if f.loss != 'linear' else 'linear'}"
+                       f" loss), {f.starts_tried} start(s); intervals: "
+                       f"{f._method_used(self.method)}, {self.level:.0%}"),
+            ("Weighting", weighting),
+            ("Fit", f"RSS {_fmt(f.rss)}, s = {_fmt(math.sqrt(f.s2)) if f.s2 > 0 else '—'}, "
+                    f"AICc {_fmt(f.aicc, 5)}, BIC {_fmt(f.bic, 5)}, "
+                    f"{'converged' if f.converged else 'NOT converged'}"),
+        ]
+        if f.absolute_sigma and f.chisqr_pvalue is not None:
+            rows.append(("Goodness of fit", f"χ² = {_fmt(f.rss)} on {f.dof} dof "
+                                            f"(χ²/dof {_fmt(f.redchi, 3)}), p = "
+                                            f"{_fmt(f.chisqr_pvalue, 3)}"))
+        rows.append(("Rates", f"{f.rate_kind} rates, per {unit[:-1]}"))
+        return rows
+
+    def _note_marks(self):
+        return [f"[{i + 1}] {n}" for i, n in enumerate(self.notes)]
+
+    def __str__(self):
+        f = self.fit
+        lines = ["Turnover fit", "=" * 72]
+        w = max(len(k) for k, _ in self.header)
+        lines += [f"{k:<{w}}  {v}" for k, v in self.header]
+        lines.append("")
+        lines.append(f"Parameters ({self.level:.0%} intervals)")
+        lines.append(f"  {'name':<16}{'estimate':>12}{'stderr':>12}{'lower':>12}{'upper':>12}")
+        for _, r in self.parameters.iterrows():
+            if r["method"] == "fixed":
+                lines.append(f"  {r['parameter']:<16}{_fmt(r['estimate']):>12}{'(fixed)':>12}")
+                continue
+            lines.append(f"  {r['parameter']:<16}{_fmt(r['estimate']):>12}"
+                         f"{_fmt(r['stderr']):>12}{_bound(r['lower'], r['lower_status']):>12}"
+                         f"{_bound(r['upper'], r['upper_status']):>12}")
+        lines.append("")
+        unit = _unit_word(f.time_unit)
+        lines.append(f"Derived quantities ({unit})")
+        for _, r in self.half_lives.iterrows():
+            what = "step" if f.kinetics.structure == "chain" else "pool"
+            frac = "" if math.isnan(r["fraction"]) else f" (fraction {_fmt(r['fraction'], 3)})"
+            lines.append(f"  half-life, {what} {int(r['pool'])}{frac}: {_fmt(r['half_life'])} "
+                         f"[{_bound(r['lower'], r['lower_status'])}, "
+                         f"{_bound(r['upper'], r['upper_status'])}]")
+        tt = self.time_to.iloc[0]
+        lines.append(f"  time to 95 % of a step change: {_fmt(tt['estimate'])} "
+                     f"[{_bound(tt['lower'], tt['lower_status'])}, "
+                     f"{_bound(tt['upper'], tt['upper_status'])}] ({tt['method']})")
+        lines.append(f"  mean residence time: {_fmt(f.mean_residence_time())}")
+        if any(self.parameters["lower_status"].eq("at_bound")
+               | self.parameters["upper_status"].eq("at_bound")):
+            lines.append("  (* at the bound of the parameter's range)")
+        if self.notes:
+            lines.append("")
+            lines.append("Notes")
+            lines += [f"  {m}" for m in self._note_marks()]
+        return "\n".join(lines)
+
+    def _repr_html_(self):
+        e = html.escape
+        f = self.fit
+        out = ["<div class='isoturnover-summary'><table>"]
+        out += [f"<tr><th style='text-align:left'>{e(k)}</th><td style='text-align:left'>"
+                f"{e(v)}</td></tr>" for k, v in self.header]
+        out.append("</table><table><tr><th>parameter</th><th>estimate</th><th>stderr</th>"
+                   "<th>lower</th><th>upper</th></tr>")
+        for _, r in self.parameters.iterrows():
+            if r["method"] == "fixed":
+                out.append(f"<tr><td>{e(r['parameter'])}</td><td>{_fmt(r['estimate'])}</td>"
+                           "<td colspan=3>fixed</td></tr>")
+                continue
+            out.append(f"<tr><td>{e(r['parameter'])}</td><td>{_fmt(r['estimate'])}</td>"
+                       f"<td>{_fmt(r['stderr'])}</td>"
+                       f"<td>{e(_bound(r['lower'], r['lower_status']))}</td>"
+                       f"<td>{e(_bound(r['upper'], r['upper_status']))}</td></tr>")
+        out.append("</table><table><tr><th>pool</th><th>fraction</th><th>half-life "
+                   f"({e(_unit_word(f.time_unit))})</th><th>lower</th><th>upper</th></tr>")
+        for _, r in self.half_lives.iterrows():
+            out.append(f"<tr><td>{int(r['pool'])}</td><td>{_fmt(r['fraction'], 3)}</td>"
+                       f"<td>{_fmt(r['half_life'])}</td>"
+                       f"<td>{e(_bound(r['lower'], r['lower_status']))}</td>"
+                       f"<td>{e(_bound(r['upper'], r['upper_status']))}</td></tr>")
+        out.append("</table>")
+        if self.notes:
+            out.append("<ol>" + "".join(f"<li>{e(n)}</li>" for n in self.notes) + "</ol>")
+        out.append("</div>")
+        return "".join(out)
+
+    def as_text(self):
+        return str(self)
