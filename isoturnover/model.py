@@ -29,7 +29,7 @@ import numpy as np
 from scipy.optimize import least_squares
 
 from .diet import DietHistory
-from .errors import FitError
+from .errors import DataError, FitError
 from .kinetics import MAX_POOLS, TurnoverKinetics
 
 __all__ = ["TurnoverModel", "LOSSES"]
@@ -830,11 +830,9 @@ def _prepare_data(t_or_frame, y, sigma, time_unit):
         if y is not None or sigma is not None:
             raise ValueError("with a samples frame, do not pass 'y' or 'sigma' (taken from "
                              "the frame's 'value' and 'sd' columns)")
-        from .data import frame_series
-
-        fs = frame_series(t_or_frame)
-        t, yv, sd = fs["t"], fs["y"], fs["sd"]
-        info.update({k: v for k, v in fs.items() if k not in ("t", "y", "sd")})
+        fs = _frame_series(t_or_frame)
+        t, yv, sd = fs.pop("t"), fs.pop("y"), fs.pop("sd")
+        info.update(fs)
         info["source"] = "frame"
         if time_unit is None:
             time_unit = t_or_frame.attrs.get("time_unit", "d")
@@ -852,6 +850,47 @@ def _prepare_data(t_or_frame, y, sigma, time_unit):
     order = np.argsort(t, kind="stable")
     return {"t": t[order], "y": yv[order], "sigma": None if sd is None else sd[order],
             "time_unit": time_unit or "d", "info": info, "order": order}
+
+
+def _frame_series(frame):
+    """(t, y, sd) and a description from a samples frame of one series or one
+    destructive-sampling design (several subjects, one sampling time each)."""
+    from .data import average_replicates, read_samples
+
+    s = read_samples(frame)
+    for col in ("tissue", "isotope"):
+        vals = sorted(s[col].astype(str).unique())
+        if len(vals) > 1:
+            raise DataError(
+                f"the samples frame holds several {col}s ({', '.join(vals)}); fit one series "
+                "at a time (select rows) or use iso.fit_each"
+            )
+    avg = average_replicates(s)
+    subjects = sorted(avg["subject"].astype(str).unique())
+    design = "series"
+    if len(subjects) > 1:
+        per = avg.groupby(avg["subject"].astype(str))["time"].nunique()
+        if int(per.max()) > 1:
+            many = ", ".join(per[per > 1].index[:5])
+            raise DataError(
+                f"the samples frame holds {len(subjects)} subjects and some were sampled at "
+                f"several times ({many}); fit each animal (iso.fit_each) or select one. Several "
+                "subjects are fitted together only in a destructive design (one sampling time "
+                "per animal)"
+            )
+        design = "destructive"
+    avg = avg.sort_values("time", kind="stable")
+    sd = None
+    if "sd" in avg.columns and avg["sd"].notna().all():
+        sd = avg["sd"].to_numpy(dtype=float)
+    n_rep = avg["n_replicates"].to_numpy() if "n_replicates" in avg.columns else None
+    return {
+        "t": avg["time"].to_numpy(dtype=float), "y": avg["value"].to_numpy(dtype=float),
+        "sd": sd, "design": design, "subjects": subjects,
+        "tissue": str(s["tissue"].iloc[0]), "isotope": str(s["isotope"].iloc[0]),
+        "n_rows": int(len(s)),
+        "n_replicates": None if n_rep is None else [int(x) for x in n_rep],
+    }
 
 
 class _Engine:
@@ -937,6 +976,44 @@ class _Engine:
             best = sol
         best.extra["coords"] = coords
         return best, tried
+
+    def with_y(self, y):
+        """The same problem with new observations (bootstrap and simulation replicates)."""
+        data = dict(self.data)
+        data["y"] = np.asarray(y, dtype=float)
+        new = _Engine(self.kin, data, absolute_sigma=self.absolute_sigma, loss=self.loss,
+                      masses=self.masses)
+        new._coords_cache = self._coords_cache
+        return new
+
+    def quick_fit(self, fixed, z_warm=None, multi_start=True, tol=1e-10):
+        """Best solution from a warm start and (optionally) the automatic starts.
+
+        Candidates run on a small evaluation budget; the best is then polished. A solution
+        counts as failed only when its cost is not finite (the optimizer's own status is in
+        ``success``).
+        """
+        coords = self.coords(fixed)
+        cands = []
+        budget = 40 * (coords.size + 1)
+        if z_warm is not None:
+            cands.append(self.problem.solve(coords, z_warm, tol=tol, max_nfev=budget))
+        if multi_start or not cands or not cands[0].success:
+            n_keep = 1 if self.kin.pools == 1 else 3
+            for th in self.start_thetas(fixed, None, n_keep):
+                cands.append(self.problem.solve(coords, coords.z_from_theta(th), tol=tol,
+                                                max_nfev=budget))
+        finite = [c for c in cands if np.isfinite(c.cost)]
+        if not finite:
+            best = cands[0]
+        else:
+            best = min(finite, key=lambda c: c.cost)
+            if not best.success:
+                pol = self.problem.solve(coords, best.z, tol=tol)
+                if np.isfinite(pol.cost) and pol.cost <= best.cost:
+                    best = pol
+        best.extra["coords"] = coords
+        return best
 
     def refit(self, fixed, z0, coords=None, tol=1e-12):
         """A warm-started fit with some parameters fixed (profiles, bootstraps)."""
