@@ -10,6 +10,8 @@ from importlib.metadata import PackageNotFoundError
 from importlib.metadata import version as _version
 
 from . import isotopes
+from .compare import compare, lr_test
+from .data import average_replicates, read_diets, read_masses, read_samples, series
 from .diet import DietHistory
 from .errors import (
     BoundWarning,
@@ -25,6 +27,7 @@ from .errors import (
     ScaleError,
     UnknownIsotopeError,
 )
+from .groups import FitSet, fit_each
 from .model import TurnoverModel
 from .results import TurnoverFit, load_fit
 
@@ -38,6 +41,15 @@ __all__ = [
     "isotopes",
     "DietHistory",
     "TurnoverModel",
+    "compare",
+    "lr_test",
+    "fit_each",
+    "FitSet",
+    "read_samples",
+    "read_diets",
+    "read_masses",
+    "average_replicates",
+    "series",
     "TurnoverFit",
     "load_fit",
     "IsoturnoverError",

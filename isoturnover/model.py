@@ -180,7 +180,9 @@ class _Coordinates:
                 u = z[c]
                 cu = c
                 c += 1
-            g = np.exp(z[c:c + n - 1])  # gaps between pool i and i+1
+            # gaps between pool i and i+1; capped (a log-rate gap of e^4 ≈ 55 is a rate
+            # ratio of ~1e23: the pools are then separate whatever the data)
+            g = np.exp(np.minimum(z[c:c + n - 1], 4.0))
             cg = c
             c += n - 1
             lk = np.empty(n)
@@ -189,6 +191,7 @@ class _Coordinates:
                 lk[i] = lk[i + 1] + g[i]
             for i in range(a + 1, n):
                 lk[i] = lk[i - 1] - g[i - 1]
+            lk = np.clip(lk, -700.0, 700.0)
             k = np.exp(lk)
             th[self.k_idx] = k
             if jac:

@@ -545,6 +545,8 @@ class TurnoverFit:
              else float(stats.t.ppf(0.5 + level / 2, max(self.dof, 1))))
         if name in kin.rate_names:
             s = se / est
+            if q * s > 300:
+                return 0.0, math.inf, "open", "open"
             return est * math.exp(-q * s), est * math.exp(q * s), "ok", "ok"
         lo, hi = est - q * se, est + q * se
         ls = hs = "ok"
@@ -704,6 +706,8 @@ class TurnoverFit:
         q = (float(stats.norm.ppf(0.5 + level / 2)) if self.absolute_sigma
              else float(stats.t.ppf(0.5 + level / 2, max(self.dof, 1))))
         s = math.sqrt(var)
+        if q * s > 300:
+            return 0.0, math.inf, "open", "open"
         return est * math.exp(-q * s), est * math.exp(q * s), "ok", "ok"
 
     def mean_residence_time(self) -> float:
