@@ -270,6 +270,7 @@ class TurnoverKinetics:
         isotope: str | None = None,
         growth=None,
         reference_ratio: float | None = None,
+        growth_params: bool = False,
     ):
         self.structure = _choice("structure", structure, _STRUCTURES)
         if self.structure == "chain":
@@ -307,6 +308,11 @@ class TurnoverKinetics:
                     f"got {type(growth).__name__}"
                 )
             self.growth_kind = "curve"
+            if growth_params:
+                if not (hasattr(growth, "_curve") and hasattr(growth, "values")):
+                    raise TypeError("growth_params=True needs a growth curve from "
+                                    "isoturnover.growth (fit_growth or GrowthCurve)")
+                self.growth_kind = "curve_params"
         if self.growth_kind is not None and self.structure == "chain":
             raise ValueError("growth dilution is available for structure='parallel' only")
         self.growth = growth
@@ -377,6 +383,11 @@ class TurnoverKinetics:
         if self.growth_kind == "exponential":
             self._kg_index = len(names)
             names.append("k_growth")
+        self._gp_index = []
+        if self.growth_kind == "curve_params":
+            self._gcurve = self.growth._curve
+            self._gp_index = list(range(len(names), len(names) + len(self._gcurve.params)))
+            names += [f"growth_{p}" for p in self._gcurve.params]
         self.param_names = tuple(names)
         self.n_params = len(names)
 
@@ -461,6 +472,11 @@ class TurnoverKinetics:
                 lw_t = _growth_log_mass(self.growth, t)
                 lw_s = _growth_log_mass(self.growth, s)
                 G = np.exp(np.where(on, lw_s[:, None] - lw_t[None, :], 0.0))
+            elif self.growth_kind == "curve_params":
+                gv = theta[self._gp_index]
+                lw_t = np.asarray(self._gcurve.log_mass(t, gv), dtype=float)
+                lw_s = np.asarray(self._gcurve.log_mass(s, gv), dtype=float)
+                G = np.exp(np.where(on, lw_s[:, None] - lw_t[None, :], 0.0))
             Ei = np.exp(-kk[:, None, None] * taup[None, :, :])  # (p, m, n), fresh array
             if G is not None:
                 Ei = Ei * G[None]
@@ -482,10 +498,18 @@ class TurnoverKinetics:
             J[:, self._k_index] = (f[:, None] * STE).T
             if self._kg_index is not None:
                 J[:, self._kg_index] = f @ STE
+            if self._gp_index:
+                # dE_ij/dv = E_ij (d lnW(s_j)/dv - d lnW(t)/dv)
+                Ls = np.asarray(self._gcurve.log_jac(s, gv), dtype=float)  # (m, q)
+                Lt = np.asarray(self._gcurve.log_jac(t, gv), dtype=float)  # (n, q)
+                SEm = step[:, None] * E  # (m, n)
+                J[:, self._gp_index] = -(SEm.T @ Ls) + Lt * (step @ E)[:, None]
             if self._lag_index is not None:
                 g_s = kk.copy()[:, None] * np.ones((1, s.size))  # (p, m)
                 if self.growth_kind == "curve":
                     g_s = g_s + _growth_rate(self.growth, s)[None, :]
+                elif self.growth_kind == "curve_params":
+                    g_s = g_s + np.asarray(self._gcurve.rate(s, gv), dtype=float)[None, :]
                 # dE_ij/ds_j = (k_i + g(s_j)) E_ij ; dR/ds = -sum_i f_i dE_ij/ds_j
                 dEds = np.einsum("i,ij,ijn->jn", f, g_s, Ei)
                 J[:, self._lag_index] = -(step @ dEds)
@@ -566,7 +590,7 @@ class TurnoverKinetics:
         if not np.all(np.isfinite(t)):
             raise ValueError(f"'t' must be finite; got {int((~np.isfinite(t)).sum())} "
                              "non-finite value(s)")
-        if self.growth_kind == "curve" and self._f_index and t.size:
+        if self.growth_kind in ("curve", "curve_params") and self._f_index and t.size:
             self.check_mass_loss(theta, t)
         return self.evaluate(t, theta, jacobian=jacobian)
 
@@ -576,7 +600,7 @@ class TurnoverKinetics:
         lo = min(float(np.min(t)), float(self.switch_times[0]))
         hi = float(np.max(t))
         grid = np.linspace(lo, hi, 201)
-        g = _growth_rate(self.growth, grid)
+        g = self.growth_rate(grid, theta)
         worst = float(np.min(k_min + g))
         if worst < -1e-12:
             at = float(grid[int(np.argmin(k_min + g))])
@@ -585,6 +609,30 @@ class TurnoverKinetics:
                 f"k_d + d ln W/dt = {worst:.4g} < 0 at t = {at:.4g}; the pool model does not "
                 "hold there"
             )
+
+    def growth_rate(self, t, theta):
+        """Specific growth rate d ln W/dt at ``t`` (0 without growth)."""
+        t = np.asarray(t, dtype=float)
+        theta = np.asarray(theta, dtype=float)
+        if self.growth_kind is None:
+            return np.zeros_like(t)
+        if self.growth_kind == "exponential":
+            return np.full_like(t, theta[self._kg_index])
+        if self.growth_kind == "curve_params":
+            return np.asarray(self._gcurve.rate(t, theta[self._gp_index]), dtype=float)
+        return _growth_rate(self.growth, t)
+
+    def log_mass(self, t, theta):
+        """ln W(t) up to a constant for exponential growth (ln W0 not a parameter)."""
+        t = np.asarray(t, dtype=float)
+        theta = np.asarray(theta, dtype=float)
+        if self.growth_kind == "exponential":
+            return theta[self._kg_index] * t
+        if self.growth_kind == "curve_params":
+            return np.asarray(self._gcurve.log_mass(t, theta[self._gp_index]), dtype=float)
+        if self.growth_kind == "curve":
+            return _growth_log_mass(self.growth, t)
+        return np.zeros_like(t)
 
     def remaining(self, tau, theta):
         """1 − F after a single unit step (no growth curve, no lag) for these parameters."""

@@ -308,16 +308,20 @@ class _Solution:
 class _Problem:
     """Residuals r = w (y − model) of one data series for a given coordinate map."""
 
-    def __init__(self, kin: TurnoverKinetics, t, y, w, loss="linear", f_scale=1.0):
+    def __init__(self, kin: TurnoverKinetics, t, y, w, loss="linear", f_scale=1.0,
+                 extra=None):
         self.kin = kin
         self.t = np.asarray(t, dtype=float)
         self.y = np.asarray(y, dtype=float)
         self.w = np.asarray(w, dtype=float)
         self.loss = loss
         self.f_scale = f_scale
+        # extra residual block: callable theta -> (r, dr/dtheta), e.g. body masses
+        self.extra = extra
 
     def solve(self, coords: _Coordinates, z0, *, tol=1e-14, max_nfev=None) -> _Solution:
         kin, t, y, w = self.kin, self.t, self.y, self.w
+        extra = self.extra
         cache = {}
 
         def _eval(z):
@@ -326,8 +330,14 @@ class _Problem:
                 th, A = coords.theta(z, jac=True)
                 yy, J = kin.evaluate(t, th, jacobian=True)
                 cache["key"] = key
-                cache["r"] = w * (y - yy)
-                cache["J"] = -(w[:, None] * (J @ A))
+                r = w * (y - yy)
+                Jz = -(w[:, None] * (J @ A))
+                if extra is not None:
+                    r2, J2 = extra(th)
+                    r = np.concatenate([r, r2])
+                    Jz = np.vstack([Jz, J2 @ A])
+                cache["r"] = r
+                cache["J"] = Jz
             return cache
 
         def fun(z):
@@ -342,7 +352,8 @@ class _Problem:
             th = coords.theta(z0)
             return _Solution(z0, th, float(r @ r), 1, 1, "nothing to fit", True,
                              np.zeros((t.size, 0)))
-        use_lm = (not coords.has_bounds) and self.loss == "linear" and t.size >= coords.size
+        n_res = t.size + (0 if extra is None else extra.size)
+        use_lm = (not coords.has_bounds) and self.loss == "linear" and n_res >= coords.size
         if max_nfev is None:
             max_nfev = 200 * (coords.size + 1)
         with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
@@ -589,7 +600,7 @@ class TurnoverModel:
 
     def __init__(self, pools=1, *, structure="parallel", growth=None, lag=False, diet=None,
                  separation="difference", scale="delta", isotope=None, initial="equilibrium",
-                 per_diet_separation=False):
+                 per_diet_separation=False, propagate_growth=True):
         self.pools = pools
         self.structure = structure
         self.growth = growth
@@ -600,6 +611,7 @@ class TurnoverModel:
         self.isotope = isotope
         self.initial = initial
         self.per_diet_separation = per_diet_separation
+        self.propagate_growth = propagate_growth
         self._kin = None
 
     # -- configuration ------------------------------------------------------------------
@@ -619,6 +631,7 @@ class TurnoverModel:
             "isotope": self.isotope,
             "initial": self.initial,
             "per_diet_separation": bool(self.per_diet_separation),
+            "propagate_growth": bool(self.propagate_growth),
         }
 
     @property
@@ -642,9 +655,15 @@ class TurnoverModel:
                 structure=self.structure, diet=self.diet, separation=self.separation,
                 per_diet_separation=self.per_diet_separation, lag=self.lag,
                 initial=self.initial, scale=self.scale, isotope=self.isotope,
-                growth=self.growth,
+                growth=self.growth, growth_params=self._propagates_growth(),
             )
         return self._kin
+
+    def _propagates_growth(self) -> bool:
+        """A fitted growth curve (with a covariance) whose uncertainty is carried along."""
+        g = self.growth
+        return bool(self.propagate_growth) and g is not None and not isinstance(g, str) \
+            and hasattr(g, "covariance") and hasattr(g, "_curve")
 
     @property
     def param_names(self) -> tuple[str, ...]:
@@ -673,6 +692,9 @@ class TurnoverModel:
             extra.append("exponential growth dilution")
         elif kin.growth_kind == "curve":
             extra.append("growth dilution from a growth curve")
+        elif kin.growth_kind == "curve_params":
+            extra.append(f"growth dilution from a fitted {self.growth.curve} curve "
+                         "(its uncertainty propagated)")
         return f"{s}; " + ", ".join(extra)
 
     def __repr__(self):
@@ -752,6 +774,15 @@ class TurnoverModel:
                 "'masses' is used with growth='exponential' (joint fit); for other growth "
                 "curves fit them first with iso.fit_growth and pass the result as growth="
             )
+        if kin.growth_kind == "curve_params":
+            g = kin.growth
+            varying = set(g.covariance.index)
+            for nm, v in zip(g.param_names, g.values):
+                if nm not in varying:
+                    fixed.setdefault(f"growth_{nm}", float(v))
+            _check_growth_coverage(kin, data["t"])
+        elif kin.growth_kind == "curve":
+            _check_growth_coverage(kin, data["t"])
         n_free = _Coordinates(kin, fixed).size
         if n_free > data["t"].size:
             raise ValueError(
@@ -766,6 +797,25 @@ class TurnoverModel:
             for wmsg in fit.warnings:
                 warnings.warn(wmsg.message, wmsg.category, stacklevel=2)
         return fit
+
+
+def _check_growth_coverage(kin, t):
+    """Refuse growth curves used far outside the masses they were fitted to."""
+    g = kin.growth
+    gt = getattr(g, "t", None)
+    if gt is None or len(gt) == 0:
+        return
+    lo, hi = float(np.min(gt)), float(np.max(gt))
+    span = max(hi - lo, 1e-12)
+    t_lo = min(float(np.min(t)), float(kin.switch_times[0]))
+    t_hi = float(np.max(t))
+    limit = 0.5 * span  # extrapolate at most half the masses' span (stated limit)
+    if t_lo < lo - limit or t_hi > hi + limit:
+        raise DataError(
+            f"the growth curve was fitted to masses from t = {lo:g} to {hi:g}, but the isotope "
+            f"series runs from {t_lo:g} to {t_hi:g}: extrapolating more than half the masses' "
+            "span is refused; weigh the animals over the sampling period"
+        )
 
 
 def _check_names(d, kin, what):
@@ -855,6 +905,101 @@ def _prepare_data(t_or_frame, y, sigma, time_unit):
             "time_unit": time_unit or "d", "info": info, "order": order}
 
 
+class _MassBlock:
+    r"""Body masses in a joint fit with ``growth="exponential"``.
+
+    :math:`\ln W = \ln W_0 + k_g t`; the intercept :math:`\ln W_0` enters linearly and is
+    profiled out exactly (centred data), so the block's residuals are
+    :math:`(c(\ln W) - k_g\, c(t))/s_m` with :math:`c` the centring and :math:`s_m` the
+    block's residual sd.
+    """
+
+    def __init__(self, kin, masses, t_delta):
+        try:
+            tm, wm = masses
+        except (TypeError, ValueError):
+            raise ValueError("'masses' must be a pair (t_mass, mass) of arrays") from None
+        tm = _as_1d("masses time", tm)
+        wm = _as_1d("masses mass", wm, tm.size)
+        if np.any(wm <= 0):
+            i = int(np.argmax(wm <= 0))
+            raise DataError(f"body masses must be > 0; got {wm[i]!r} at position {i}")
+        if tm.size < 3:
+            raise DataError(f"a joint growth fit needs at least 3 body masses; got {tm.size}")
+        self.kin = kin
+        self.t = tm
+        self.mass = wm
+        self.lnw = np.log(wm)
+        self.ct = tm - tm.mean()
+        self.cy = self.lnw - self.lnw.mean()
+        self.size = tm.size
+        self.scale = 1.0
+        self.j = kin._kg_index
+        self.coverage = (float(tm.min()), float(tm.max()))
+        self.kind = "masses"
+
+    def n_free_params(self, coords):
+        return 1  # k_growth (ln W0 is profiled out analytically)
+
+    def raw_residuals(self, theta):
+        return self.cy - theta[self.j] * self.ct
+
+    def log_mass0(self, theta):
+        return float(self.lnw.mean() - theta[self.j] * self.t.mean())
+
+    def __call__(self, theta):
+        r = self.raw_residuals(theta) / self.scale
+        J = np.zeros((self.size, theta.size))
+        J[:, self.j] = -self.ct / self.scale
+        return r, J
+
+
+class _GrowthPriorBlock:
+    r"""The growth fit's information about its parameters, as extra residuals.
+
+    Two-stage growth dilution: the growth curve is fitted first; its parameters then enter
+    the turnover fit as parameters with the Gaussian penalty
+    :math:`(v - \hat v)^T C^{-1} (v - \hat v)` from the growth fit's estimate and
+    covariance, written as the whitened residuals :math:`L^{-1}(v - \hat v)` with
+    :math:`C = L L^T`. Profiles then run over the growth parameters as well, so the growth
+    curve's uncertainty reaches the catabolic rates (a quadratic approximation of the
+    masses' likelihood).
+    """
+
+    def __init__(self, kin):
+        g = kin.growth
+        cov = g.covariance
+        names = list(cov.index)
+        self.kin = kin
+        self.kind = "prior"
+        allnames = list(g.param_names)
+        self.free_idx = [kin._gp_index[allnames.index(n)] for n in names]
+        self.fixed_names = {f"growth_{n}": float(v) for n, v in zip(allnames, g.values)
+                            if n not in names}
+        self.vhat = np.array([float(g.values[allnames.index(n)]) for n in names])
+        C = cov.to_numpy(dtype=float)
+        if not np.all(np.isfinite(C)):
+            raise FitError("the growth fit has no covariance (see its warnings); refit the "
+                           "growth curve, or pass propagate_growth=False to use it as known")
+        Lc = np.linalg.cholesky(C)
+        self.Linv = np.linalg.inv(Lc)
+        self.size = len(names)
+        self.coverage = (float(np.min(g.t)), float(np.max(g.t)))
+        self.scale = 1.0
+
+    def n_free_params(self, coords):
+        return self.size
+
+    def raw_residuals(self, theta):
+        return self.Linv @ (theta[self.free_idx] - self.vhat)
+
+    def __call__(self, theta):
+        r = self.raw_residuals(theta)
+        J = np.zeros((self.size, theta.size))
+        J[:, self.free_idx] = self.Linv
+        return r, J
+
+
 def _frame_series(frame):
     """(t, y, sd) and a description from a samples frame of one series or one
     destructive-sampling design (several subjects, one sampling time each)."""
@@ -909,7 +1054,14 @@ class _Engine:
         self.f_scale = 1.0
         self.masses = masses
         self._coords_cache = {}
-        self.problem = _Problem(kin, self.t, self.y, self.w, loss="linear")
+        self.mass_block = None
+        if masses is not None:
+            self.mass_block = _MassBlock(kin, masses, self.t)
+        elif kin.growth_kind == "curve_params":
+            self.mass_block = _GrowthPriorBlock(kin)
+        self.problem = _Problem(kin, self.t, self.y, self.w, loss="linear",
+                                extra=self.mass_block)
+        self.block_scale = None  # (s_delta, s_mass) of the joint fit
 
     def coords(self, fixed, rate_anchor=None, fraction_anchor=None):
         key = (tuple(sorted(fixed)), rate_anchor, fraction_anchor)
@@ -934,7 +1086,20 @@ class _Engine:
                     kin.param_names[j] in fixed for j in kin._f_index):
             starts = _step_linear_starts(self.t, self.y, self.w, kin, fixed, n_keep)
         else:
-            starts = _general_starts(self.t, self.y, self.w, kin, fixed, n_keep)
+            fx = dict(fixed)
+            if kin.growth_kind == "curve_params":
+                for j, v in zip(kin._gp_index, kin.growth.values):
+                    fx.setdefault(kin.param_names[j], float(v))
+            if isinstance(self.mass_block, _MassBlock) and "k_growth" not in fx:
+                mb = self.mass_block
+                fx["k_growth"] = float(mb.ct @ mb.cy / (mb.ct @ mb.ct)) if np.any(mb.ct) else 0.0
+            starts = _general_starts(self.t, self.y, self.w, kin, fx, n_keep)
+            if kin._kg_index is not None and "k_growth" in fx:
+                kg = fx["k_growth"]
+                for th in starts:  # keep every start inside k_d + k_growth > 0
+                    k = th[kin._k_index]
+                    if np.min(k) + kg <= 0:
+                        th[kin._k_index] = k + (abs(kg) - np.min(k)) + 1e-3
         if kin._lag_index is not None and "lag" not in fixed:
             for th in starts:
                 th[kin._lag_index] = 0.0
@@ -977,8 +1142,53 @@ class _Engine:
             # the cost reported is the plain weighted RSS at the robust solution
             sol.extra["robust"] = True
             best = sol
+        if self.mass_block is not None:
+            best, more = self._joint_block_weights(coords, best)
+            tried += more
         best.extra["coords"] = coords
         return best, tried
+
+    def _joint_block_weights(self, coords, sol):
+        """Iterate the block weights of a joint δ + mass fit to their residual variances.
+
+        Each block is weighted by its own residual sd (δ in ‰, ln mass dimensionless), so
+        neither unit dominates; the weights are re-estimated from the joint fit's residuals
+        until they settle (at most 8 rounds).
+        """
+        mb = self.mass_block
+        base = np.ones_like(self.t) if self.sigma is None else 1.0 / self.sigma
+        n_d, n_m = self.t.size, mb.size
+        p_total = coords.size
+        p_m = mb.n_free_params(coords)
+        p_d = max(p_total - p_m, 1)
+        if mb.kind == "prior":
+            # the growth-prior block is already in units of its own sd
+            s_d = 1.0
+            for _ in range(8):
+                rd = base * (self.y - self.kin.evaluate(self.t, sol.theta))
+                new_d = math.sqrt(max(float(rd @ rd), 1e-300) / max(n_d - p_d, 1))
+                done = abs(new_d / s_d - 1) < 1e-6
+                s_d = new_d
+                self.set_block_scale(s_d, 1.0)
+                if done:
+                    break
+                sol = self.problem.solve(coords, sol.z)
+            return sol, 1
+        s_d, s_m = 1.0, 1.0
+        rounds = 0
+        for _ in range(8):
+            rd = base * (self.y - self.kin.evaluate(self.t, sol.theta))
+            rm = mb.raw_residuals(sol.theta)
+            new_d = math.sqrt(max(float(rd @ rd), 1e-300) / max(n_d - p_d, 1))
+            new_m = math.sqrt(max(float(rm @ rm), 1e-300) / max(n_m - 1 - p_m, 1))
+            done = abs(new_d / s_d - 1) < 1e-6 and abs(new_m / s_m - 1) < 1e-6
+            s_d, s_m = new_d, new_m
+            self.set_block_scale(s_d, s_m)
+            if done and rounds:
+                break
+            sol = self.problem.solve(coords, sol.z)
+            rounds += 1
+        return sol, rounds
 
     def with_y(self, y):
         """The same problem with new observations (bootstrap and simulation replicates)."""
@@ -986,8 +1196,21 @@ class _Engine:
         data["y"] = np.asarray(y, dtype=float)
         new = _Engine(self.kin, data, absolute_sigma=self.absolute_sigma, loss=self.loss,
                       masses=self.masses)
+        if self.mass_block is not None and new.mass_block is not None:
+            new.mass_block = self.mass_block
         new._coords_cache = self._coords_cache
+        if self.block_scale is not None:
+            new.set_block_scale(*self.block_scale)
         return new
+
+    def set_block_scale(self, s_delta, s_mass):
+        """Weight the δ and mass blocks of a joint fit by their own residual sd."""
+        self.block_scale = (float(s_delta), float(s_mass))
+        base = np.ones_like(self.t) if self.sigma is None else 1.0 / self.sigma
+        self.w = base / s_delta
+        self.mass_block.scale = s_mass
+        self.problem = _Problem(self.kin, self.t, self.y, self.w, loss="linear",
+                                extra=self.mass_block)
 
     def quick_fit(self, fixed, z_warm=None, multi_start=True, tol=1e-10):
         """Best solution from a warm start and (optionally) the automatic starts.

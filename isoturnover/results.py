@@ -151,13 +151,28 @@ class TurnoverFit:
         kin = self.kinetics
         n = self.t.size
         p = self._coords.size
+        eng = self._engine
+        self.joint = eng.mass_block is not None
         self.nobs = n
         self.nvarys = p
-        self.rss = float(np.sum(self._wres() ** 2))
-        self.dof = n - p
-        self.s2 = (self.rss / self.dof if self.dof > 0 else math.nan)
-        if self.absolute_sigma:
-            self.s2 = 1.0
+        if self.joint:
+            mb = eng.mass_block
+            rd = self._wres()
+            rm = mb(self._theta)[0]
+            self.rss = float(rd @ rd + rm @ rm)
+            self.n_mass = mb.size if mb.kind == "masses" else 0
+            # masses: the intercept ln W0 is profiled out of the mass block
+            self.dof = n + mb.size - (1 if mb.kind == "masses" else 0) - p
+            self.s2 = 1.0  # each block scaled by its own residual sd
+            self.block_scale = eng.block_scale
+        else:
+            self.n_mass = 0
+            self.block_scale = None
+            self.rss = float(np.sum(self._wres() ** 2))
+            self.dof = n - p
+            self.s2 = (self.rss / self.dof if self.dof > 0 else math.nan)
+            if self.absolute_sigma:
+                self.s2 = 1.0
         # covariance in internal coordinates, then natural
         self._cov_ok = False
         cov_z = np.full((p, p), np.nan)
@@ -179,14 +194,34 @@ class TurnoverFit:
                 self.covar[:, j] = 0.0
         self.converged = bool(self._optimizer_ok and (self._cov_ok or p == 0))
         k = p + (0 if self.absolute_sigma else 1)
-        self.n_criteria_params = k
-        if self.absolute_sigma:
+        n_ic = n
+        if self.joint and eng.mass_block.kind == "prior":
+            # information criteria from the isotope data alone; the growth parameters are
+            # constrained by the growth fit, not by these data
+            sd_ = self.block_scale[0]
+            rd_raw = self._wres() * sd_
+            base = n * math.log(max(float(rd_raw @ rd_raw), 1e-300) / n)
+            k = p - eng.mass_block.size + 1
+        elif self.joint:
+            # Gaussian likelihood of both blocks, each with its own variance; k counts the
+            # free parameters, ln W0 and the two variances
+            sd_, sm_ = self.block_scale
+            rd_raw = self._wres() * sd_
+            rm_raw = eng.mass_block.raw_residuals(self._theta)
+            nm = eng.mass_block.size
+            base = (n * math.log(max(float(rd_raw @ rd_raw), 1e-300) / n)
+                    + nm * math.log(max(float(rm_raw @ rm_raw), 1e-300) / nm))
+            k = p + 3
+            n_ic = n + nm
+        elif self.absolute_sigma:
             base = self.rss
         else:
             base = n * math.log(self.rss / n) if self.rss > 0 else -math.inf
+        self.n_criteria_params = k
         self.aic = base + 2 * k
-        self.aicc = self.aic + (2 * k * (k + 1) / (n - k - 1) if n - k - 1 > 0 else math.nan)
-        self.bic = base + k * math.log(n)
+        self.aicc = self.aic + (2 * k * (k + 1) / (n_ic - k - 1) if n_ic - k - 1 > 0
+                                else math.nan)
+        self.bic = base + k * math.log(n_ic)
         self.redchi = self.rss / self.dof if self.dof > 0 else math.nan
         self.chisqr_pvalue = (float(stats.chi2.sf(self.rss, self.dof))
                               if self.absolute_sigma and self.dof > 0 else None)
@@ -197,8 +232,8 @@ class TurnoverFit:
 
     # -- basic quantities ---------------------------------------------------------------
     def _wres(self):
-        w = 1.0 / self.sigma if self.sigma is not None else 1.0
-        return w * (self.y - self.kinetics.evaluate(self.t, self._theta))
+        """Weighted δ residuals (joint fits: including the δ block's scale)."""
+        return self._engine.w * (self.y - self.kinetics.evaluate(self.t, self._theta))
 
     @property
     def values(self) -> dict:
@@ -227,6 +262,11 @@ class TurnoverFit:
         h = hashlib.sha1()
         for a in (self.t, self.y, np.ones_like(self.t) if self.sigma is None else self.sigma):
             h.update(np.ascontiguousarray(a, dtype=float).tobytes())
+        mb = self._engine.mass_block
+        if mb is not None:
+            h.update(b"masses")
+            h.update(np.ascontiguousarray(mb.t, dtype=float).tobytes())
+            h.update(np.ascontiguousarray(mb.mass, dtype=float).tobytes())
         return h.hexdigest()
 
     def predict(self, t) -> np.ndarray:
@@ -362,6 +402,35 @@ class TurnoverFit:
                     f"switch) comes before two half-lives of the slowest pool "
                     f"({2 * LN2 / slow:.4g} {_unit_word(self.time_unit)}): the new plateau is "
                     "extrapolated and the slow half-life is poorly bounded"))
+        if kin.growth_kind is not None and span > 0:
+            try:
+                share_end = self._share_at(float(self.t.max()), self._theta)
+            except (ValueError, ZeroDivisionError, OverflowError):
+                share_end = math.nan
+            pool_shares = []
+            if kin.growth_kind == "exponential":
+                kg = v["k_growth"]
+                pool_shares = [kg / (kg + v[nm]) for nm in kin.rate_names if kg + v[nm] > 0]
+            if (pool_shares and max(pool_shares) > 0.9) or (
+                    not pool_shares and np.isfinite(share_end) and share_end > 0.95):
+                notes.append(TrustNote(
+                    "growth_dominates", IdentifiabilityWarning,
+                    "growth explains nearly all of the change: the catabolic rate is poorly "
+                    "identified (its interval may be open towards 0)"))
+            mb = self._engine.mass_block
+            cov = mb.coverage if mb is not None else None
+            if cov is None and hasattr(kin.growth, "t"):
+                gt = np.asarray(kin.growth.t, dtype=float)
+                cov = (float(gt.min()), float(gt.max())) if gt.size else None
+            if cov is not None:
+                t_lo = min(float(self.t.min()), float(kin.switch_times[0]))
+                t_hi = float(self.t.max())
+                margin = 0.1 * (t_hi - t_lo)
+                if cov[0] > t_lo + margin or cov[1] < t_hi - margin:
+                    notes.append(TrustNote(
+                        "mass_coverage", DesignWarning,
+                        f"body masses cover t = {cov[0]:g} to {cov[1]:g} but the isotope "
+                        f"samples run from {t_lo:g} to {t_hi:g}: growth is extrapolated"))
         if self.absolute_sigma and self.dof > 0 and self.redchi > 4:
             notes.append(TrustNote(
                 "chi2_high", GoodnessOfFitWarning,
@@ -383,7 +452,7 @@ class TurnoverFit:
 
     # -- intervals ------------------------------------------------------------------------
     def _crit(self, level):
-        if self.absolute_sigma:
+        if self.absolute_sigma and not self.joint:
             return float(stats.chi2.ppf(level, 1))
         return float(stats.f.ppf(level, 1, max(self.dof, 1)))
 
@@ -631,6 +700,17 @@ class TurnoverFit:
         """1 − F: fraction of a step change still to come, ``tau`` after a switch (no lag)."""
         return self.kinetics.remaining(np.asarray(tau, dtype=float), self._theta)
 
+    def _remaining_at(self, tau, theta):
+        """1 − F a time tau after the first switch (growth curves included)."""
+        kin = self.kinetics
+        rem = kin.remaining(tau, theta)
+        if kin.growth_kind in ("curve", "curve_params"):
+            s0 = float(kin.switch_times[0])
+            tau = np.asarray(tau, dtype=float)
+            lw = kin.log_mass(np.append(s0 + tau, s0), theta)
+            rem = rem * np.exp(lw[-1] - lw[:-1]).reshape(np.shape(rem))
+        return rem
+
     def _time_to(self, p, theta):
         kin = self.kinetics
         target = 1.0 - p
@@ -638,11 +718,12 @@ class TurnoverFit:
         ks = theta[kin._k_index]
         if kin._kg_index is not None:
             ks = ks + theta[kin._kg_index]
-        if kin.structure == "parallel" and len(ks) == 1:
+        if kin.structure == "parallel" and len(ks) == 1 and kin.growth_kind in (
+                None, "exponential"):
             return -math.log(target) / float(ks[0]) + lag
 
         def g(tau):
-            return float(kin.remaining(np.array([tau]), theta)[0]) - target
+            return float(self._remaining_at(np.array([tau]), theta)[0]) - target
 
         hi = 1.0 / float(np.min(ks))
         while g(hi) > 0:
@@ -668,7 +749,7 @@ class TurnoverFit:
         kin = self.kinetics
         rows = []
         simple = kin.structure == "parallel" and kin.pools == 1 and kin._lag_index is None \
-            and kin._kg_index is None
+            and kin.growth_kind is None
         for p in fr:
             est = self._time_to(p, self._theta)
             if simple:
@@ -713,20 +794,216 @@ class TurnoverFit:
     def mean_residence_time(self) -> float:
         r"""Mean residence time of the step response, :math:`\int_0^\infty (1-F)\,d\tau`.
 
-        Parallel pools :math:`\sum_i f_i/k_i`; chain :math:`1/k_1 + 1/k_2`; plus the lag.
+        Parallel pools :math:`\sum_i f_i/k_i` (with exponential growth
+        :math:`\sum_i f_i/(k_i + k_g)`); chain :math:`1/k_1 + 1/k_2`; with a growth curve
+        the integral is taken numerically from the first switch; plus the lag.
         """
+        return self._mrt(self._theta)
+
+    def _mrt(self, theta):
         kin = self.kinetics
-        v = self._theta
+        v = np.asarray(theta, dtype=float)
         ks = v[kin._k_index]
         if kin._kg_index is not None:
             ks = ks + v[kin._kg_index]
-        if kin.structure == "chain":
+        if kin.growth_kind in ("curve", "curve_params"):
+            from scipy import integrate
+
+            upper = 50.0 / float(np.min(ks))
+            m = float(integrate.quad(lambda x: float(self._remaining_at(np.array([x]), v)[0]),
+                                     0.0, upper, limit=200)[0])
+        elif kin.structure == "chain":
             m = float(np.sum(1.0 / ks))
         else:
             m = float(np.sum(v[kin._f_index] / ks))
         if kin._lag_index is not None:
             m += float(v[kin._lag_index])
         return m
+
+    # -- growth dilution -------------------------------------------------------------------
+    def _require_growth(self, what):
+        if self.kinetics.growth_kind is None:
+            raise ValueError(f"{what} needs a fit with a growth model (TurnoverModel(growth=...))")
+
+    def _log_mass_ratio(self, t0, t1, theta=None):
+        """ln W(t1) − ln W(t0) for this fit's growth model."""
+        th = self._theta if theta is None else theta
+        lw = self.kinetics.log_mass(np.array([t0, t1], dtype=float), th)
+        return float(lw[1] - lw[0])
+
+    def mean_growth_rate(self) -> float:
+        """Mean specific growth rate (d ln W/dt) from the first switch to the last sample."""
+        self._require_growth("mean_growth_rate")
+        t0 = float(self.kinetics.switch_times[0])
+        t1 = float(self.t.max())
+        if self.kinetics.growth_kind == "exponential":
+            return float(self.values["k_growth"])
+        return self._log_mass_ratio(t0, t1) / (t1 - t0) if t1 > t0 else math.nan
+
+    def growth_rate_curve(self, t) -> np.ndarray:
+        """Specific growth rate d ln W/dt at times ``t``."""
+        self._require_growth("growth_rate_curve")
+        return self.kinetics.growth_rate(np.asarray(t, dtype=float), self._theta)
+
+    def _share_at(self, T, theta):
+        """Tissue growth share up to T after the first switch (DESIGN §2)."""
+        kin = self.kinetics
+        s0 = float(kin.switch_times[0])
+        if kin._lag_index is not None:
+            s0 += float(theta[kin._lag_index])
+        tau = T - s0
+        if tau <= 0:
+            return math.nan
+        ratio = math.exp(-self._log_mass_ratio(s0, T, theta))  # W(s)/W(T)
+        k = theta[kin._k_index]
+        f = theta[kin._f_index]
+        growth_alone = 1.0 - ratio
+        whole = 1.0 - ratio * float(np.sum(f * np.exp(-k * tau)))
+        return growth_alone / whole if whole > 0 else math.nan
+
+    def growth_share_curve(self, t) -> np.ndarray:
+        """Share of the change up to each time ``t`` that growth alone would have produced."""
+        self._require_growth("growth_share_curve")
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        return np.array([self._share_at(float(x), self._theta) for x in t])
+
+    def growth_share(self, level=0.95, method="profile", at=None) -> pd.DataFrame:
+        r"""Share of the tissue's change that growth alone explains.
+
+        Defined (DESIGN §2) as the part of the change up to time ``at`` (default: the last
+        sample) that growth alone would have produced — new tissue laid down with the new
+        diet's value, :math:`1 - W(s)/W(t)` — divided by the whole change
+        :math:`1 - \sum_i f_i (W(s)/W(t)) e^{-k_i (t-s)}`. The per-pool share for
+        exponential growth is :math:`k_g/(k_g + k_{d,i})` (Hesslein et al. 1993), the
+        limit of the tissue share at short times for one pool.
+
+        Columns: quantity (``tissue`` then ``pool_i`` for exponential growth), at,
+        estimate, lower, upper, level, method, lower_status, upper_status.
+        """
+        self._require_growth("growth_share")
+        level = _check_level(level)
+        method = _check_method(method)
+        T = float(self.t.max()) if at is None else float(at)
+        rows = []
+
+        def share(th):
+            return self._share_at(T, th)
+
+        est = share(self._theta)
+        lo, hi, ls, hs, m = self._derived_interval(share, est, level, method, scale="logit")
+        rows.append({"quantity": "tissue", "at": T, "estimate": est, "lower": lo, "upper": hi,
+                     "level": level, "method": m, "lower_status": ls, "upper_status": hs})
+        kin = self.kinetics
+        if kin.growth_kind == "exponential":
+            for i, j in enumerate(kin._k_index):
+                def pool_share(th, j=j):
+                    kg = th[kin._kg_index]
+                    return kg / (kg + th[j])
+
+                e = pool_share(self._theta)
+                lo, hi, ls, hs, m = self._derived_interval(pool_share, e, level, method,
+                                                           scale="logit")
+                rows.append({"quantity": f"pool_{i + 1}", "at": math.nan, "estimate": e,
+                             "lower": lo, "upper": hi, "level": level, "method": m,
+                             "lower_status": ls, "upper_status": hs})
+        return pd.DataFrame(rows)
+
+    def incorporation_half_lives(self, level=0.95, method="profile") -> pd.DataFrame:
+        """Incorporation (growth + catabolic) half-life of each pool, ln 2/(k_d,i + k_g).
+
+        For exponential growth k_g is the fitted ``k_growth``; for a growth curve the mean
+        specific growth rate over the sampling period. Same columns as :meth:`half_lives`.
+        """
+        self._require_growth("incorporation_half_lives")
+        level = _check_level(level)
+        method = _check_method(method)
+        kin = self.kinetics
+        rows = []
+        for i, j in enumerate(kin._k_index):
+            if kin.growth_kind == "exponential":
+                def hl(th, j=j):
+                    return LN2 / (th[j] + th[kin._kg_index])
+            else:
+                g = self.mean_growth_rate()
+
+                def hl(th, j=j, g=g):
+                    return LN2 / (th[j] + g)
+            est = hl(self._theta)
+            lo, hi, ls, hs, m = self._derived_interval(hl, est, level, method, scale="log")
+            rows.append({"pool": i + 1,
+                         "fraction": self.values.get(f"f{i + 1}", math.nan),
+                         "rate": LN2 / est, "half_life": est, "lower": lo, "upper": hi,
+                         "level": level, "method": m, "lower_status": ls, "upper_status": hs,
+                         "rate_kind": "incorporation", "time_unit": self.time_unit})
+        return pd.DataFrame(rows)
+
+    def fry_arnold_exponent(self, level=0.95, method="profile") -> pd.DataFrame:
+        r"""Exponent c of the power form :math:`\delta = \delta_{eq} + (\delta_0 - \delta_{eq})
+        (W/W_0)^c` (Fry & Arnold 1982), from an exponential-growth one-pool fit:
+        :math:`c = -(k_g + k_d)/k_g`; c = −1 is pure growth dilution.
+        """
+        kin = self.kinetics
+        if kin.growth_kind != "exponential" or len(kin.rate_names) != 1:
+            raise ValueError("fry_arnold_exponent needs a one-pool fit with "
+                             "growth='exponential'")
+        level = _check_level(level)
+        method = _check_method(method)
+
+        def c(th):
+            return -(th[kin._kg_index] + th[kin._k_index[0]]) / th[kin._kg_index]
+
+        est = c(self._theta)
+        lo, hi, ls, hs, m = self._derived_interval(lambda th: -c(th), -est, level, method,
+                                                   scale="log")
+        return pd.DataFrame([{"quantity": "fry_arnold_c", "estimate": est, "lower": -hi,
+                              "upper": -lo, "level": level, "method": m,
+                              "lower_status": hs, "upper_status": ls}])
+
+    def _derived_interval(self, fn, est, level, method, scale="log"):
+        """Interval of a derived quantity: profile likelihood when available, else delta."""
+        if method == "profile" and self.loss == "linear":
+            try:
+                from .uncertainty import profile_derived
+            except ImportError:
+                profile_derived = None
+            if profile_derived is not None:
+                r = profile_derived(self, fn, level, positive=scale in ("log", "logit"))
+                get = r.get if isinstance(r, dict) else (lambda k: getattr(r, k))
+                return (get("lower"), get("upper"), get("lower_status"),
+                        get("upper_status"), "profile")
+        lo, hi, ls, hs = self._delta_scaled(fn, est, level, scale)
+        return lo, hi, ls, hs, "asymptotic"
+
+    def _delta_scaled(self, fn, est, level, scale):
+        if scale == "log":
+            return self._delta_log(fn, est, level)
+        if not self._cov_ok or not np.isfinite(est):
+            return math.nan, math.nan, "failed", "failed"
+        if scale == "logit":
+            if not 0 < est < 1:
+                return math.nan, math.nan, "failed", "failed"
+
+            def g(th):
+                v = fn(th)
+                return math.log(v / (1 - v))
+        else:
+            g = fn
+        z = self._sol.z
+        grad = np.zeros(z.size)
+        for i in range(z.size):
+            h = 1e-6 * max(1.0, abs(z[i]))
+            zp, zm = z.copy(), z.copy()
+            zp[i] += h
+            zm[i] -= h
+            grad[i] = (g(self._coords.theta(zp)) - g(self._coords.theta(zm))) / (2 * h)
+        var = float(grad @ self._cov_z @ grad)
+        q = (float(stats.norm.ppf(0.5 + level / 2)) if self.absolute_sigma
+             else float(stats.t.ppf(0.5 + level / 2, max(self.dof, 1))))
+        c = g(self._theta)
+        lo, hi = c - q * math.sqrt(max(var, 0)), c + q * math.sqrt(max(var, 0))
+        if scale == "logit":
+            return 1 / (1 + math.exp(-lo)), 1 / (1 + math.exp(-hi)), "ok", "ok"
+        return lo, hi, "ok", "ok"
 
     # -- diagnostics ------------------------------------------------------------------------
     def influence(self) -> pd.DataFrame:
@@ -741,9 +1018,11 @@ class TurnoverFit:
         r = self._wres()
         n, p = self.nobs, self.nvarys
         s2 = self.rss / self.dof if self.dof > 0 else math.nan
+        if self.joint:
+            s2 = 1.0
         if p and J is not None and self._cov_ok:
             q, _ = np.linalg.qr(J)
-            h = np.sum(q**2, axis=1)
+            h = np.sum(q[:n] ** 2, axis=1)
         else:
             h = np.full(n, math.nan)
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -856,7 +1135,12 @@ class TurnoverFit:
             "format": "isoturnover-fit", "version": 1,
             "model": self.model.config(),
             "data": {"t": fl(self.t), "y": fl(self.y), "sigma": fl(self.sigma),
-                     "time_unit": self.time_unit, "info": _json_safe(self.data_info)},
+                     "time_unit": self.time_unit, "info": _json_safe(self.data_info),
+                     "masses": None if getattr(self._engine.mass_block, "kind", None)
+                     != "masses" else
+                     [fl(self._engine.mass_block.t), fl(self._engine.mass_block.mass)],
+                     "block_scale": None if self.block_scale is None else
+                     list(self.block_scale)},
             "options": {"absolute_sigma": self.absolute_sigma, "loss": self.loss,
                         "f_scale": self.f_scale, "fixed": self.fixed, "init": self.init,
                         "label": self.label},
@@ -917,8 +1201,13 @@ def load_fit(d) -> TurnoverFit:
                          dd["time_unit"])
     data["info"].update(dd.get("info") or {})
     opt = d["options"]
+    masses = dd.get("masses")
     engine = _Engine(model.kinetics, data, absolute_sigma=opt["absolute_sigma"],
-                     loss=opt["loss"])
+                     loss=opt["loss"],
+                     masses=None if masses is None else (np.array(masses[0]),
+                                                         np.array(masses[1])))
+    if dd.get("block_scale") is not None:
+        engine.set_block_scale(*dd["block_scale"])
     engine.f_scale = opt["f_scale"]
     s = d["solution"]
     coords = engine.coords(opt["fixed"], rate_anchor=None, fraction_anchor=None)
@@ -966,12 +1255,24 @@ class Summary:
     def _header(self):
         f = self.fit
         unit = _unit_word(f.time_unit)
-        if f.sigma is None:
+        if f.joint and f._engine.mass_block.kind == "prior":
+            weighting = (f"δ residual sd {f.block_scale[0]:.3g} ‰ estimated; growth-curve "
+                         "parameters carried with their uncertainty (Gaussian penalty from "
+                         "the growth fit), so profiles run over them too")
+        elif f.joint:
+            sd_, sm_ = f.block_scale
+            weighting = (f"joint fit of δ and ln(body mass), each block weighted by its own "
+                         f"residual sd (s_δ = {sd_:.3g} ‰, s_ln W = {sm_:.3g})")
+        elif f.sigma is None:
             weighting = "unweighted; residual variance estimated"
         elif f.absolute_sigma:
             weighting = "weights 1/σ² with σ known (absolute); no rescaling"
         else:
             weighting = "weights 1/σ² (relative); residual variance estimated"
+        if f.joint:
+            s_text = f"{_fmt(f.block_scale[0])} ‰ (δ block)"
+        else:
+            s_text = _fmt(math.sqrt(f.s2)) if f.s2 > 0 else "—"
         rows = [
             ("Data", f"{f.label + ': ' if f.label else ''}{f.nobs} time points, "
                      f"t = {f.t.min():g} to {f.t.max():g} {unit}"),
@@ -980,7 +1281,7 @@ class Summary:
                        f" loss), {f.starts_tried} start(s); intervals: "
                        f"{f._method_used(self.method)}, {self.level:.0%}"),
             ("Weighting", weighting),
-            ("Fit", f"RSS {_fmt(f.rss)}, s = {_fmt(math.sqrt(f.s2)) if f.s2 > 0 else '—'}, "
+            ("Fit", f"RSS {_fmt(f.rss)}, s = {s_text}, "
                     f"AICc {_fmt(f.aicc, 5)}, BIC {_fmt(f.bic, 5)}, "
                     f"{'converged' if f.converged else 'NOT converged'}"),
         ]
