@@ -1,0 +1,147 @@
+"""Cost of one turnover fit, relative to plain scipy and lmfit fits of the same curve.
+
+Two invented series (seeded Gaussian noise):
+
+* one pool on 30 points, 0–90 d, δ0 = −25 ‰, δ_eq = −12 ‰, half-life 10 d, σ = 0.2 ‰;
+* three pools on 60 points, log-spaced 0.1–200 d plus t = 0, fractions 0.2/0.3/0.5,
+  half-lives 0.7, 7 and 70 d, σ = 0.05 ‰.
+
+``TurnoverModel.fit`` is timed as users call it: automatic deterministic starting values,
+multi-start, analytic Jacobian, covariance and trust notes (intervals are computed lazily
+and are not part of a fit). The references fit the same function in the natural
+parametrisation, ``δ_eq + (δ0 − δ_eq) Σ f_i e^(−k_i t)`` with the last fraction
+``1 − Σ others``, starting from the TRUE values, so they do no search for a start:
+
+* ``scipy.optimize.curve_fit`` (Levenberg–Marquardt, finite-difference Jacobian);
+* ``lmfit.minimize`` (leastsq) with a Parameters object built once outside the loop.
+
+Each time is the median over repeats of a batch of calls (``time.perf_counter``), all in
+this process; the table gives the ratio to ``curve_fit`` so numbers travel across machines.
+
+Run::
+
+    python benchmarks/bench_fit.py [--repeats 7] [--min-time 0.2]
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import platform
+import statistics
+import time
+import warnings
+
+import lmfit
+import numpy as np
+import scipy
+from scipy.optimize import curve_fit
+
+import isoturnover as iso
+
+LN2 = math.log(2.0)
+
+
+def per_call(fn, repeats: int, min_time: float) -> float:
+    """Median seconds per call of ``fn()`` over ``repeats`` batches of >= ``min_time`` s."""
+    fn()  # warm up
+    n = 1
+    while True:
+        t0 = time.perf_counter()
+        for _ in range(n):
+            fn()
+        dt = time.perf_counter() - t0
+        if dt >= min_time:
+            break
+        n *= 2
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        for _ in range(n):
+            fn()
+        times.append((time.perf_counter() - t0) / n)
+    return statistics.median(times)
+
+
+def curve(t, d0, deq, *kf):
+    """δ_eq + (δ0 − δ_eq) Σ f_i exp(−k_i t); kf = k_1..k_n, f_1..f_(n−1)."""
+    n = (len(kf) + 1) // 2
+    k, f = np.asarray(kf[:n]), list(kf[n:])
+    f.append(1.0 - sum(f))
+    return deq + (d0 - deq) * (np.asarray(f) @ np.exp(-k[:, None] * t[None, :]))
+
+
+def make_series():
+    rng = np.random.default_rng(2024)
+    t1 = np.linspace(0.0, 90.0, 30)
+    p1 = [-25.0, -12.0, LN2 / 10.0]
+    y1 = curve(t1, *p1) + 0.2 * rng.normal(size=t1.size)
+    t3 = np.r_[0.0, np.geomspace(0.1, 200.0, 59)]
+    p3 = [-25.0, -12.0, LN2 / 0.7, LN2 / 7.0, LN2 / 70.0, 0.2, 0.3]
+    y3 = curve(t3, *p3) + 0.05 * rng.normal(size=t3.size)
+    return {"1 pool, 30 points": (1, t1, y1, p1), "3 pools, 60 points": (3, t3, y3, p3)}
+
+
+def lmfit_setup(pools, t, y, p_true):
+    params = lmfit.Parameters()
+    params.add("d0", value=p_true[0])
+    params.add("deq", value=p_true[1])
+    for i in range(pools):
+        params.add(f"k{i + 1}", value=p_true[2 + i], min=0)
+    for i in range(pools - 1):
+        params.add(f"f{i + 1}", value=p_true[2 + pools + i], min=0, max=1)
+    names = list(params)
+
+    def residual(p):
+        v = p.valuesdict()
+        return y - curve(t, *[v[n] for n in names])
+
+    return params, residual
+
+
+def check_agreement(pools, t, y, p_true):
+    """The three fits must reach the same RSS (else the timing compares different work)."""
+    fit = iso.TurnoverModel(pools).fit(t, y, warn=False)
+    popt, _ = curve_fit(curve, t, y, p0=p_true)
+    r_cf = float(np.sum((y - curve(t, *popt)) ** 2))
+    params, residual = lmfit_setup(pools, t, y, p_true)
+    r_lm = float(np.sum(lmfit.minimize(residual, params).residual ** 2))
+    return fit.rss, r_cf, r_lm
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--repeats", type=int, default=7)
+    ap.add_argument("--min-time", type=float, default=0.2)
+    args = ap.parse_args(argv)
+    print(f"python {platform.python_version()}, numpy {np.__version__}, scipy "
+          f"{scipy.__version__}, lmfit {lmfit.__version__}, isoturnover {iso.__version__}")
+    print(f"{platform.machine()} {platform.processor() or ''}".strip())
+    rows = []
+    for label, (pools, t, y, p_true) in make_series().items():
+        rss = check_agreement(pools, t, y, p_true)
+        model = iso.TurnoverModel(pools)
+        params, residual = lmfit_setup(pools, t, y, p_true)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            t_iso = per_call(lambda m=model, t=t, y=y: m.fit(t, y, warn=False),
+                             args.repeats, args.min_time)
+            t_cf = per_call(lambda t=t, y=y, p=p_true: curve_fit(curve, t, y, p0=p),
+                            args.repeats, args.min_time)
+            t_lm = per_call(lambda r=residual, p=params: lmfit.minimize(r, p),
+                            args.repeats, args.min_time)
+        rows.append((label, t_iso, t_cf, t_lm, rss))
+    print()
+    print(f"{'series':<20}{'fit (ms)':>10}{'curve_fit':>11}{'lmfit.min':>11}"
+          f"{'fit/cf':>9}{'lmfit/cf':>10}{'fit/lmfit':>11}")
+    for label, a, b, c, _ in rows:
+        print(f"{label:<20}{a * 1e3:>10.3f}{b * 1e3:>11.3f}{c * 1e3:>11.3f}"
+              f"{a / b:>9.2f}{c / b:>10.2f}{a / c:>11.2f}")
+    print()
+    print("RSS reached (isoturnover, curve_fit from truth, lmfit from truth):")
+    for label, *_, rss in rows:
+        print(f"  {label:<20}" + "  ".join(f"{r:.10g}" for r in rss))
+
+
+if __name__ == "__main__":
+    main()
