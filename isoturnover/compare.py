@@ -141,7 +141,10 @@ class LRTestResult:
     ----------
     statistic : float
         Observed likelihood-ratio statistic: :math:`n\\ln(\\mathrm{rss}_0/\\mathrm{rss}_1)`
-        with σ estimated, :math:`\\chi^2_0 - \\chi^2_1` with σ known.
+        with σ estimated, :math:`\\chi^2_0 - \\chi^2_1` with σ known, where
+        :math:`\\mathrm{rss}_1` is at most :math:`\\mathrm{rss}_0` (the complex model
+        contains the simple one, so a larger value is an optimizer miss): never negative,
+        and computed as in the replicates.
     p_value : float
         :math:`(1 + \\#\\{T^* \\ge T\\})/(1 + B)` over the B replicates that fitted.
     n_boot, n_failed : int
@@ -202,7 +205,9 @@ def lr_test(simple, complex, *, n_boot: int = 199, rng=None) -> LRTestResult:
     rng = np.random.default_rng(rng)
     n = simple.nobs
     absolute = simple.absolute_sigma
-    t_obs = _stat(simple.rss, complex.rss, n, absolute)
+    # as in the replicates: the complex model contains the simple one, so its RSS is at
+    # most the simple model's (a larger value is an optimizer miss, not a negative statistic)
+    t_obs = _stat(simple.rss, min(complex.rss, simple.rss), n, absolute)
     mean0 = simple.best_fit
     sd_unit = 1.0 if absolute else math.sqrt(simple.s2)
     scale = simple.sigma if simple.sigma is not None else np.ones(n)

@@ -330,6 +330,7 @@ def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, sepa
     avg = average(sub).sort_values("time", kind="stable")
     n = len(avg)
     res.nobs = n
+    subjects = sorted(avg["subject"].astype(str).unique())
     per_subject = avg.groupby(avg["subject"].astype(str))["time"].nunique()
     if "subject" not in key_map and int(per_subject.max()) > 1 and avg["subject"].nunique() > 1:
         msg = ("several subjects sampled repeatedly in one series: add 'subject' to 'by' "
@@ -383,6 +384,12 @@ def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, sepa
             res.fits[label] = None
             res.reasons[label] = f"fit failed: {e}"
             continue
+        # the fit was made on arrays: record where they came from (as a frame fit does)
+        f.data_info.update({
+            "source": "frame", "design": "destructive" if len(subjects) > 1 else "series",
+            "subjects": subjects, "tissue": str(sub["tissue"].iloc[0]),
+            "isotope": str(sub["isotope"].iloc[0]), "n_rows": int(len(sub)),
+        })
         f.data_info.update({k: key_map.get(k) for k in _KEYS if k in key_map})
         res.fits[label] = f
         res.reasons[label] = ""

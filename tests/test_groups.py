@@ -1,0 +1,322 @@
+"""Tests of :func:`isoturnover.fit_each` and :class:`isoturnover.FitSet`.
+
+Every data set here is invented (seeded simulations labelled as such): goats sampled
+repeatedly after a diet switch, and fish sampled destructively (one fish per sample).
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import isoturnover as iso
+from isoturnover.errors import DataError
+
+LN2 = math.log(2.0)
+
+# Invented experiment: 6 goats × plasma/red cells × d13C/d15N, 12 sampling days.
+TIMES = np.array([0, 1, 2, 4, 7, 10, 14, 21, 28, 42, 56, 70], dtype=float)
+HALF_LIFE = {"plasma": 4.0, "rbc": 25.0}                  # d, invented
+PLATEAUS = {"d13C": (-26.0, -13.0), "d15N": (5.0, 9.0)}   # (delta0, delta_eq) ‰, invented
+SHORT = ("goat2", "rbc", "d15N")      # only two samples: too few points
+FLAT = ("goat5", "plasma", "d15N")    # all values equal: no change
+SUBJECTS = [f"goat{i}" for i in range(1, 7)]
+TISSUES = ("plasma", "rbc")
+ISOTOPES = ("d13C", "d15N")
+
+
+def true_half_life(subject, tissue):
+    s = int(subject[-1])
+    return HALF_LIFE[tissue] / (1 + 0.1 * (s - 3))
+
+
+def invented_samples(seed=7):
+    rng = np.random.default_rng(seed)
+    rows = []
+    for subj, tis, isot in itertools.product(SUBJECTS, TISSUES, ISOTOPES):
+        d0, deq = PLATEAUS[isot]
+        t = TIMES[:2] if (subj, tis, isot) == SHORT else TIMES
+        y = deq + (d0 - deq) * np.exp(-LN2 / true_half_life(subj, tis) * t)
+        y = np.round(y + rng.normal(0.0, 0.15, t.size), 2)
+        if (subj, tis, isot) == FLAT:
+            y = np.full(t.size, 7.0)
+        group = "A" if int(subj[-1]) <= 3 else "B"
+        rows += [{"subject": subj, "group": group, "tissue": tis, "isotope": isot,
+                  "time": a, "value": b} for a, b in zip(t, y)]
+    return pd.DataFrame(rows)
+
+
+@pytest.fixture(scope="module")
+def samples():
+    return invented_samples()
+
+
+@pytest.fixture(scope="module")
+def fitset(samples):
+    return iso.fit_each(samples)
+
+
+@pytest.fixture(scope="module")
+def table(fitset):
+    return fitset.table(method="asymptotic")
+
+
+# ----------------------------------------------------------------------------------------
+# the table
+# ----------------------------------------------------------------------------------------
+def test_table_has_a_row_for_every_series_and_candidate(fitset, table):
+    assert len(fitset) == 24
+    assert len(table) == 24 * 2
+    got = set(zip(table["subject"], table["tissue"], table["isotope"], table["candidate"]))
+    want = set(itertools.product(SUBJECTS, TISSUES, ISOTOPES, ["1 pool", "2 pools"]))
+    assert got == want
+    assert list(table.columns[:4]) == ["subject", "tissue", "isotope", "candidate"]
+    for col in ("status", "reason", "nobs", "n_params", "rss", "aicc", "delta_aicc", "weight",
+                "chosen", "delta0", "delta_eq", "half_life_1", "lower_1", "upper_1",
+                "time_to_95", "rate_kind"):
+        assert col in table.columns, col
+    assert set(table["status"]) == {"ok", "too_few_points", "no_change"}
+    assert (table["interval_method"].dropna() == "asymptotic").all()
+
+
+def _rows(table, key):
+    s, t, i = key
+    return table[(table["subject"] == s) & (table["tissue"] == t) & (table["isotope"] == i)]
+
+
+def test_bad_series_carry_status_and_reason(fitset, table):
+    short = _rows(table, SHORT)
+    assert (short["status"] == "too_few_points").all()
+    assert short["reason"].str.contains(r"only 2 time point\(s\) for \d free parameters").all()
+    assert (short["nobs"] == 2).all()
+    flat = _rows(table, FLAT)
+    assert (flat["status"] == "no_change").all()
+    assert flat["reason"].str.contains("all values are equal").all()
+    assert not short["chosen"].any() and not flat["chosen"].any()
+    # the same on the FitSet
+    assert set(fitset.failures) == {SHORT, FLAT}
+    assert "only 2 time point(s)" in fitset.failures[SHORT]
+    assert fitset[SHORT].status == "too_few_points" and fitset[SHORT].best is None
+    assert fitset[FLAT].status == "no_change" and fitset[FLAT].best is None
+    # every other series fitted
+    ok = table[~table.index.isin(short.index.union(flat.index))]
+    assert (ok["status"] == "ok").all()
+    assert "22 fitted, 2 not fitted" in repr(fitset)
+
+
+def test_noisy_series_without_trend_is_no_change():
+    # invented: a tissue that does not respond (scatter around −20 ‰ only)
+    rng = np.random.default_rng(3)
+    frame = pd.DataFrame({"subject": "goat1", "tissue": "hair", "isotope": "d13C",
+                          "time": TIMES, "value": -20.0 + rng.normal(0.0, 0.2, TIMES.size)})
+    fs = iso.fit_each(frame, pools=(1,))
+    r = fs[("goat1", "hair", "d13C")]
+    assert r.status == "no_change"
+    assert "no detectable change" in r.reason and r.best is None
+
+
+def test_chosen_flags_exactly_one_per_fitted_series(fitset, table):
+    n_chosen = table.groupby(["subject", "tissue", "isotope"])["chosen"].sum()
+    for key, n in n_chosen.items():
+        assert n == (0 if key in (SHORT, FLAT) else 1), key
+    chosen = table[table["chosen"]]
+    # the chosen candidate has the lowest AICc of its series (Δ = 0)
+    assert (chosen["delta_aicc"] == 0).all()
+    assert set(fitset.chosen) == set(fitset) - {SHORT, FLAT}
+    for key, f in fitset.chosen.items():
+        r = fitset[key]
+        assert f is r.best is r.fits[r.chosen]
+        assert isinstance(f, iso.TurnoverFit)
+
+
+def test_one_pool_half_lives_are_recovered(fitset):
+    # invented data are one-pool curves: the 1-pool fits recover the simulated half-lives
+    for key in fitset.chosen:
+        f = fitset[key].fits["1 pool"]
+        hl = LN2 / f.values["k1"]
+        assert hl == pytest.approx(true_half_life(key[0], key[1]), rel=0.35), key
+
+
+def test_fitset_mapping_behaviour(fitset):
+    keys = list(fitset)
+    assert len(keys) == len(fitset) == 24
+    assert keys == sorted(itertools.product(SUBJECTS, TISSUES, ISOTOPES))
+    assert ("goat1", "plasma", "d13C") in fitset
+    r = fitset[("goat1", "plasma", "d13C")]
+    assert r.key == ("goat1", "plasma", "d13C")
+    assert isinstance(r.best, iso.TurnoverFit)
+    assert r.best.data_info["subject"] == "goat1"
+    assert r.best.data_info["design"] == "series"
+    assert set(r.fits) == {"1 pool", "2 pools"}
+    assert list(r.comparison["label"]) == ["1 pool", "2 pools"]
+    assert dict(fitset.items())[("goat1", "plasma", "d13C")] is r
+    with pytest.raises(KeyError):
+        fitset[("goat9", "plasma", "d13C")]
+
+
+def test_half_lives_long_table_has_keys_as_columns(fitset):
+    hl = fitset.half_lives(method="asymptotic")
+    assert list(hl.columns[:5]) == ["subject", "tissue", "isotope", "model", "pool"]
+    for col in ("half_life", "lower", "upper", "lower_status", "upper_status"):
+        assert col in hl.columns
+    keys = set(zip(hl["subject"], hl["tissue"], hl["isotope"]))
+    assert keys == set(fitset.chosen)
+    for key, f in fitset.chosen.items():
+        rows = _rows(hl, key)
+        own = f.half_lives(method="asymptotic")
+        assert len(rows) == len(own)
+        np.testing.assert_allclose(rows["half_life"], own["half_life"], rtol=1e-12)
+        assert (rows["model"] == fitset[key].chosen).all()
+
+
+def test_profile_intervals_in_table():
+    frame = invented_samples()
+    frame = frame[(frame["subject"] == "goat1") & (frame["isotope"] == "d13C")]
+    fs = iso.fit_each(frame, pools=(1,))
+    tab = fs.table()                                       # default: profile likelihood
+    assert (tab["interval_method"] == "profile").all()
+    assert (tab["lower_1"] < tab["half_life_1"]).all()
+    assert (tab["half_life_1"] < tab["upper_1"]).all()
+    assert (tab["lower_status_1"] == "ok").all() and (tab["upper_status_1"] == "ok").all()
+    # a well-determined one-pool rate: profile and asymptotic intervals nearly agree
+    asy = fs.table(method="asymptotic")
+    np.testing.assert_allclose(tab["lower_1"], asy["lower_1"], rtol=0.1)
+    np.testing.assert_allclose(tab["upper_1"], asy["upper_1"], rtol=0.1)
+
+
+# ----------------------------------------------------------------------------------------
+# input handling
+# ----------------------------------------------------------------------------------------
+def test_results_do_not_depend_on_row_order(samples, table):
+    shuffled = samples.sample(frac=1.0, random_state=np.random.RandomState(12))
+    assert not shuffled.index.equals(samples.index)
+    fs2 = iso.fit_each(shuffled)
+    pd.testing.assert_frame_equal(fs2.table(method="asymptotic"), table)
+    # and with a fresh index too
+    fs3 = iso.fit_each(shuffled.reset_index(drop=True), pools=(1,))
+    fs4 = iso.fit_each(samples, pools=(1,))
+    pd.testing.assert_frame_equal(fs3.half_lives(method="asymptotic"),
+                                  fs4.half_lives(method="asymptotic"))
+
+
+def test_input_frame_is_not_mutated():
+    frame = invented_samples()
+    frame.attrs["note"] = "invented"
+    before = frame.copy(deep=True)
+    iso.fit_each(frame, pools=(1,))
+    pd.testing.assert_frame_equal(frame, before)
+    assert frame.attrs == {"note": "invented"}
+
+
+def test_argument_errors(samples):
+    with pytest.raises(DataError, match=r"'by' names column 'animal', which the samples "
+                                        r"table lacks"):
+        iso.fit_each(samples, by=("animal", "tissue", "isotope"))
+    with pytest.raises(DataError, match=r"'by' must include 'tissue': the table holds "
+                                        r"several \(plasma, rbc\)"):
+        iso.fit_each(samples, by=("subject", "isotope"))
+    with pytest.raises(ValueError, match=r"'criterion' must be one of 'aicc', 'aic', 'bic'; "
+                                         r"got 'r2'"):
+        iso.fit_each(samples, criterion="r2")
+    with pytest.raises(ValueError, match=r"'structures' entries must be 'parallel' or "
+                                         r"'chain'; got 'serial'"):
+        iso.fit_each(samples, structures=("serial",))
+
+
+# ----------------------------------------------------------------------------------------
+# sampling designs
+# ----------------------------------------------------------------------------------------
+def invented_fish(seed=3):
+    """12 fish, each killed once and sampled for muscle and liver (invented)."""
+    rng = np.random.default_rng(seed)
+    days = np.array([0, 0, 1, 2, 3, 5, 7, 10, 14, 21, 28, 42], dtype=float)
+    rows = []
+    for i, d in enumerate(days):
+        for tissue, hl in (("muscle", 6.0), ("liver", 2.0)):
+            v = -12.0 + (-25.0 + 12.0) * math.exp(-LN2 / hl * d) + rng.normal(0.0, 0.3)
+            rows.append({"subject": f"fish{i + 1:02d}", "tissue": tissue, "isotope": "d13C",
+                         "time": d, "value": v})
+    return pd.DataFrame(rows)
+
+
+def test_destructive_design_one_series_per_tissue_and_isotope():
+    fs = iso.fit_each(invented_fish(), by=("tissue", "isotope"), pools=(1,))
+    assert list(fs) == [("liver", "d13C"), ("muscle", "d13C")]
+    for key in fs:
+        f = fs[key].best
+        assert f.nobs == 12
+        assert f.data_info["design"] == "destructive"
+        assert len(f.data_info["subjects"]) == 12
+        assert f.data_info["tissue"] == key[0]
+    tab = fs.table(method="asymptotic")
+    assert list(tab.columns[:3]) == ["tissue", "isotope", "candidate"]
+    assert (tab["status"] == "ok").all()
+    assert tab.set_index("tissue")["half_life_1"]["muscle"] == pytest.approx(6.0, rel=0.3)
+    assert tab.set_index("tissue")["half_life_1"]["liver"] == pytest.approx(2.0, rel=0.3)
+
+
+def test_repeated_subjects_without_subject_in_by_fail_with_reason(samples):
+    plasma = samples[(samples["tissue"] == "plasma") & (samples["isotope"] == "d13C")]
+    fs = iso.fit_each(plasma, by=("tissue", "isotope"))
+    r = fs[("plasma", "d13C")]
+    assert r.status == "failed" and r.best is None
+    assert "several subjects sampled repeatedly" in r.reason and "'subject'" in r.reason
+    tab = fs.table()
+    assert len(tab) == 2 and (tab["status"] == "failed").all()
+    assert tab["reason"].str.contains("several subjects sampled repeatedly").all()
+
+
+# ----------------------------------------------------------------------------------------
+# diets
+# ----------------------------------------------------------------------------------------
+def invented_diet_switch(seed=5):
+    """4 goats, group A switched from −26 ‰ to −12 ‰, group B to −20 ‰; Δ = +1 ‰."""
+    rng = np.random.default_rng(seed)
+    rows = []
+    for s in range(4):
+        group = "A" if s < 2 else "B"
+        new = -12.0 if group == "A" else -20.0
+        for d in (0, 1, 2, 4, 7, 10, 14, 21, 28, 42):
+            mean = new + 1.0 + (-26.0 - new) * math.exp(-0.15 * d)
+            rows.append({"subject": f"goat{s}", "group": group, "tissue": "plasma",
+                         "isotope": "d13C", "time": float(d),
+                         "value": mean + rng.normal(0.0, 0.2)})
+    return pd.DataFrame(rows)
+
+
+def test_diets_matched_by_group():
+    diets = pd.DataFrame({"group": ["A", "A", "B", "B"], "isotope": "d13C",
+                          "start": [-100.0, 0.0, -100.0, 0.0],
+                          "value": [-26.0, -12.0, -26.0, -20.0]})
+    fs = iso.fit_each(invented_diet_switch(), diets=diets, pools=(1,))
+    tab = fs.table(method="asymptotic")
+    assert (tab["status"] == "ok").all()
+    assert "discrimination" in tab.columns
+    assert "delta0" not in tab.columns            # with a diet history the plateaus follow
+    np.testing.assert_allclose(tab["discrimination"], 1.0, atol=0.3)
+    np.testing.assert_allclose(LN2 / tab["half_life_1"], 0.15, rtol=0.2)
+    f = fs[("goat2", "plasma", "d13C")].best
+    assert f.kinetics.diet == iso.DietHistory(-26.0, [(0.0, -20.0)])
+
+
+def test_diets_matched_by_subject_and_missing_diet():
+    # goat1's (invented) diet values read 1 ‰ lower: its separation comes out 1 ‰ larger,
+    # which shows the rows were matched per subject. goat2 and goat3 have no diet rows.
+    diets = pd.DataFrame({"subject": ["goat0", "goat0", "goat1", "goat1"], "isotope": "d13C",
+                          "start": [-100.0, 0.0, -100.0, 0.0],
+                          "value": [-26.0, -12.0, -27.0, -13.0]})
+    fs = iso.fit_each(invented_diet_switch(), diets=diets, pools=(1,))
+    tab = fs.table(method="asymptotic").set_index("subject")
+    assert tab.loc["goat0", "status"] == "ok" and tab.loc["goat1", "status"] == "ok"
+    assert tab.loc["goat0", "discrimination"] == pytest.approx(1.0, abs=0.3)
+    assert tab.loc["goat1", "discrimination"] == pytest.approx(2.0, abs=0.3)
+    for s in ("goat2", "goat3"):
+        assert tab.loc[s, "status"] == "no_diet"
+        assert f"no diet rows for subject '{s}'" in tab.loc[s, "reason"]
+        assert "isotope d13C" in tab.loc[s, "reason"]
+        assert math.isnan(tab.loc[s, "discrimination"])
+    assert set(fs.failures) == {("goat2", "plasma", "d13C"), ("goat3", "plasma", "d13C")}
