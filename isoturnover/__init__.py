@@ -10,8 +10,10 @@ from importlib.metadata import PackageNotFoundError
 from importlib.metadata import version as _version
 
 from . import isotopes
+from .analysis import analyse, load_fits, run_demo
 from .compare import compare, lr_test
 from .data import average_replicates, read_diets, read_masses, read_samples, series
+from .demo import demo_path, load_demo
 from .diet import DietHistory
 from .errors import (
     BoundWarning,
@@ -28,7 +30,9 @@ from .errors import (
     UnknownIsotopeError,
 )
 from .groups import FitSet, fit_each
+from .growth import GrowthCurve, GrowthFit, fit_growth, fit_growth_each, load_growth
 from .model import TurnoverModel
+from .progress import reaction_progress
 from .results import TurnoverFit, load_fit
 
 try:
@@ -50,6 +54,17 @@ __all__ = [
     "read_masses",
     "average_replicates",
     "series",
+    "fit_growth",
+    "fit_growth_each",
+    "GrowthFit",
+    "GrowthCurve",
+    "load_growth",
+    "load_demo",
+    "demo_path",
+    "analyse",
+    "run_demo",
+    "load_fits",
+    "reaction_progress",
     "TurnoverFit",
     "load_fit",
     "IsoturnoverError",

@@ -1,23 +1,134 @@
-"""The ``isoturnover`` command line: parses arguments and calls the library."""
+"""The ``isoturnover`` command line: parses arguments and calls the library.
+
+Errors reach the terminal as one line ``error: ...`` on stderr with exit status 2 (never a
+traceback; ``--debug`` shows it). Nothing is written when a command fails.
+"""
 
 from __future__ import annotations
 
 import argparse
 import sys
+import warnings
+
+EXIT_ERROR = 2
+
+
+def _add_common(p):
+    p.add_argument("--out", metavar="DIR", default=None,
+                   help="output folder (default: isoturnover_out_<command>)")
+    p.add_argument("--force", action="store_true",
+                   help="write into a non-empty output folder, replacing its files")
+    p.add_argument("--no-figures", action="store_true", help="skip the figures")
+    p.add_argument("--progress", dest="progress", action="store_true", default=None,
+                   help="show a progress bar (default: when the terminal is interactive)")
+    p.add_argument("--no-progress", dest="progress", action="store_false")
 
 
 def build_parser() -> argparse.ArgumentParser:
     from . import __version__
 
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--debug", action="store_true", help="show the full traceback on errors")
     p = argparse.ArgumentParser(
-        prog="isoturnover",
+        prog="isoturnover", parents=[common],
         description="Turnover rates, half-lives and pool fractions from stable-isotope "
-        "diet-switch experiments.",
+        "diet-switch experiments. Animal experiments and field sampling need the approval of "
+        "the local animal-care authority; these results support that process, they do not "
+        "replace it.",
     )
     p.add_argument("--version", action="version", version=f"isoturnover {__version__}")
-    p.add_argument("--debug", action="store_true", help="show the full traceback on errors")
-    p.add_subparsers(dest="command", metavar="COMMAND")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+
+    d = sub.add_parser("demo", parents=[common], help="analyse the invented demo experiment",
+                       description="Fit the invented demo experiment (goats, breath, fish) "
+                       "and write results, figures and a report.")
+    _add_common(d)
+
+    f = sub.add_parser("fit", parents=[common], help="fit every series of a samples file",
+                       description="Fit every series of a samples table (CSV or Excel), "
+                       "choose the number of pools by AICc, and write results.csv, fits.json, "
+                       "figures and a report.")
+    f.add_argument("samples", metavar="SAMPLES", help="samples table (CSV or .xlsx)")
+    f.add_argument("--diets", metavar="F", help="diets table (group|subject, isotope, start, "
+                   "value)")
+    f.add_argument("--masses", metavar="F", help="body masses (subject, time, mass)")
+    f.add_argument("--pools", default="1,2", help="pool numbers to try, e.g. 1,2,3 "
+                   "(default 1,2)")
+    f.add_argument("--chain", action="store_true",
+                   help="also try a precursor-product chain")
+    f.add_argument("--by", default=None, help="series keys, e.g. subject,tissue,isotope "
+                   "(default; tissue,isotope for destructive sampling)")
+    f.add_argument("--ci", default="profile", choices=("profile", "asymptotic", "bootstrap"),
+                   help="interval method (default profile likelihood)")
+    f.add_argument("--n-boot", type=int, default=499, help="bootstrap replicates (--ci "
+                   "bootstrap)")
+    f.add_argument("--level", type=float, default=0.95, help="confidence level (0.95)")
+    f.add_argument("--time-unit", default="d", help="time unit of the tables: d, h or w")
+    f.add_argument("--growth-curve", default="logistic",
+                   help="growth curve fitted to --masses (logistic, gompertz, exponential, ...)")
+    f.add_argument("--per-diet-separation", action="store_true",
+                   help="one diet-tissue separation per diet value")
+    f.add_argument("--lag", action="store_true", help="fit a pure delay after each switch")
+    _add_common(f)
     return p
+
+
+def _progress_default(args):
+    if args.progress is not None:
+        return args.progress
+    try:
+        return sys.stderr.isatty()
+    except (AttributeError, ValueError):  # pragma: no cover
+        return False
+
+
+def _cmd_demo(args):
+    from pathlib import Path
+
+    from .analysis import check_out_dir, run_demo
+
+    out = Path(args.out or "isoturnover_out_demo")
+    check_out_dir(out, args.force)
+    a = run_demo(out, force=args.force, progress=_progress_default(args),
+                 figures=not args.no_figures)
+    _report(a, out)
+    return 0
+
+
+def _cmd_fit(args):
+    from pathlib import Path
+
+    from .analysis import analyse, check_out_dir
+    from .errors import DataError
+
+    out = Path(args.out or "isoturnover_out_fit")
+    check_out_dir(out, args.force)
+    by = None if args.by is None else tuple(x.strip() for x in args.by.split(",") if x.strip())
+    structures = ("parallel", "chain") if args.chain else ("parallel",)
+    a = analyse(args.samples, diets=args.diets, masses=args.masses, pools=args.pools,
+                structures=structures, by=by, ci=args.ci, level=args.level,
+                time_unit=args.time_unit, growth_curve=args.growth_curve,
+                per_diet_separation=args.per_diet_separation, lag=args.lag,
+                progress=_progress_default(args), n_boot=args.n_boot)
+    if a.n_fitted() == 0:
+        reasons = "; ".join(f"{' / '.join(map(str, k[1:]))}: {why}"
+                            for k, why in list(a.failures().items())[:10])
+        raise DataError(f"no series could be fitted ({reasons})")
+    a.write(out, force=args.force, figures=not args.no_figures)
+    _report(a, out)
+    return 0
+
+
+def _report(a, out):
+    n = a.n_fitted()
+    fails = a.failures()
+    print(f"fitted {n} series; {len(fails)} could not be fitted")
+    for k, why in list(fails.items())[:20]:
+        print(f"  not fitted: {' / '.join(map(str, k))}: {why}")
+    print(f"results written to {out}/ (results.csv, fits.json, report.md, report.html)")
+    from .analysis import CAUTION
+
+    print(CAUTION)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -26,7 +137,23 @@ def main(argv: list[str] | None = None) -> int:
     if args.command is None:
         parser.print_help()
         return 0
-    return 0
+    handler = {"demo": _cmd_demo, "fit": _cmd_fit}[args.command]
+    try:
+        with warnings.catch_warnings():
+            # trust warnings are on every fit and in the report; keep the terminal readable
+            from .errors import IsoturnoverWarning
+
+            warnings.simplefilter("ignore", IsoturnoverWarning)
+            return handler(args)
+    except KeyboardInterrupt:  # pragma: no cover
+        print("error: interrupted", file=sys.stderr)
+        return EXIT_ERROR
+    except Exception as e:  # noqa: BLE001 - every error becomes one line
+        if args.debug:
+            raise
+        msg = str(e).strip().splitlines()[0] if str(e).strip() else type(e).__name__
+        print(f"error: {msg}", file=sys.stderr)
+        return EXIT_ERROR
 
 
 if __name__ == "__main__":  # pragma: no cover

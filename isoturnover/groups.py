@@ -145,15 +145,21 @@ class FitSet(Mapping):
                     "warnings": "; ".join(w.message for w in f.warnings),
                 })
                 vals = f.values
-                for nm in ("delta0", "delta_eq"):
-                    if nm in vals:
-                        row[nm] = vals[nm]
-                for nm in f.kinetics.param_names:
-                    if nm.startswith(("discrimination", "epsilon", "plateau", "lag",
-                                      "k_growth")):
-                        row[nm] = vals[nm]
+                level_names = [nm for nm in f.kinetics.param_names
+                               if nm in ("delta0", "delta_eq", "lag", "k_growth")
+                               or nm.startswith(("discrimination", "epsilon", "plateau"))]
+                # profile intervals for the chosen model, asymptotic for the others (the
+                # column interval_method says which)
+                m_used = method if label == r.chosen else "asymptotic"
+                ci = f.conf_int(level, m_used, params=level_names).set_index("parameter")
+                for nm in level_names:
+                    row[nm] = vals[nm]
+                    row[f"{nm}_lower"] = ci.loc[nm, "lower"]
+                    row[f"{nm}_upper"] = ci.loc[nm, "upper"]
+                    row[f"{nm}_lower_status"] = ci.loc[nm, "lower_status"]
+                    row[f"{nm}_upper_status"] = ci.loc[nm, "upper_status"]
                 try:
-                    hl = f.half_lives(level, method)
+                    hl = f.half_lives(level, m_used)
                 except (IsoturnoverError, ValueError, RuntimeError) as e:  # pragma: no cover
                     row["reason"] = f"intervals failed: {e}"
                     hl = None
@@ -167,7 +173,7 @@ class FitSet(Mapping):
                         row[f"lower_status_{i}"] = h["lower_status"]
                         row[f"upper_status_{i}"] = h["upper_status"]
                     row["interval_method"] = hl["method"].iloc[0]
-                tt = f.time_to(0.95, level, method).iloc[0]
+                tt = f.time_to(0.95, level, m_used).iloc[0]
                 row["time_to_95"] = tt["estimate"]
                 row["time_to_95_lower"] = tt["lower"]
                 row["time_to_95_upper"] = tt["upper"]
@@ -233,7 +239,8 @@ def _diet_for(diets, key_map, subject_group, isotope):
 def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets=None,
              masses=None, criterion="aicc", level=0.95, method="profile", lag=False,
              separation="difference", initial="equilibrium", fixed=None, absolute_sigma=False,
-             loss="linear", growth_curve="logistic", progress=False) -> FitSet:
+             loss="linear", growth_curve="logistic", progress=False,
+             per_diet_separation=False) -> FitSet:
     """Fit every series of a samples table with every candidate model; choose one each.
 
     Parameters
@@ -258,8 +265,10 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     criterion : {"aicc", "aic", "bic"}, default="aicc"
     level, method
         Interval level and method used by :meth:`FitSet.table`.
-    lag, separation, initial, fixed, absolute_sigma, loss
+    lag, separation, initial, fixed, absolute_sigma, loss, per_diet_separation
         Passed to every :class:`~isoturnover.TurnoverModel` and fit.
+    growth_curve : str, default="logistic"
+        Curve fitted to the masses (see :func:`~isoturnover.fit_growth`).
     progress : bool, default=False
         Show a progress bar (tqdm when installed).
 
@@ -309,7 +318,8 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
                                    criterion=criterion, lag=lag, separation=separation,
                                    initial=initial, fixed=fixed,
                                    absolute_sigma=absolute_sigma, loss=loss,
-                                   growth_curve=growth_curve, average=average_replicates)
+                                   growth_curve=growth_curve, average=average_replicates,
+                                   per_diet_separation=per_diet_separation)
     return FitSet(by, results, criterion=criterion, level=level, method=method,
                   time_unit=time_unit)
 
@@ -325,7 +335,8 @@ def _progress(items, progress, desc):
 
 
 def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, separation,
-                initial, fixed, absolute_sigma, loss, growth_curve, average):
+                initial, fixed, absolute_sigma, loss, growth_curve, average,
+                per_diet_separation=False):
     res = SeriesResult(key=key)
     avg = average(sub).sort_values("time", kind="stable")
     n = len(avg)
@@ -361,7 +372,8 @@ def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, sepa
     ok_any = False
     for label, structure, p in cands:
         model = TurnoverModel(p, structure=structure, lag=lag, diet=diet,
-                              separation=separation, initial=initial, growth=growth)
+                              separation=separation, initial=initial, growth=growth,
+                              per_diet_separation=per_diet_separation and diet is not None)
         try:
             n_free = _n_free(model, fixed)
         except (IsoturnoverError, ValueError, TypeError) as e:

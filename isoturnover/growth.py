@@ -822,9 +822,12 @@ class GrowthFit(GrowthCurve):
         ``rss = sum(residuals**2)``.
     rss, nobs, nvarys : float, int, int
     aic, aicc, bic : float
-        Gaussian log-likelihood forms with p = nvarys:
-        :math:`AIC = n \ln(RSS/n) + 2p`, :math:`AICc = AIC + 2p(p+1)/(n-p-1)` (NaN with a
-        note when :math:`n - p - 1 \le 0`), :math:`BIC = n \ln(RSS/n) + p \ln n`.
+        Gaussian log-likelihood forms with K = nvarys + 1 (the residual variance is
+        estimated too; Burnham & Anderson 2002, least-squares case), as for turnover fits:
+        :math:`AIC = n \ln(RSS/n) + 2K`, :math:`AICc = AIC + 2K(K+1)/(n-K-1)` (NaN with a
+        note when :math:`n - K - 1 \le 0`), :math:`BIC = n \ln(RSS/n) + K \ln n`.
+    n_criteria_params : int
+        K above.
     converged : bool
     warnings : list of str
     data_fingerprint : str
@@ -960,19 +963,24 @@ class GrowthFit(GrowthCurve):
         return n * math.log(self._rss / n)
 
     @property
+    def n_criteria_params(self) -> int:
+        """Parameters counted by the information criteria: varying ones + the variance."""
+        return self.nvarys + 1
+
+    @property
     def aic(self) -> float:
-        return self._loglik_term() + 2 * self.nvarys
+        return self._loglik_term() + 2 * self.n_criteria_params
 
     @property
     def aicc(self) -> float:
-        n, p = self.nobs, self.nvarys
-        if n - p - 1 <= 0:
+        n, k = self.nobs, self.n_criteria_params
+        if n - k - 1 <= 0:
             return math.nan
-        return self.aic + 2 * p * (p + 1) / (n - p - 1)
+        return self.aic + 2 * k * (k + 1) / (n - k - 1)
 
     @property
     def bic(self) -> float:
-        return self._loglik_term() + self.nvarys * math.log(self.nobs)
+        return self._loglik_term() + self.n_criteria_params * math.log(self.nobs)
 
     def mean_rate(self, t_start=None, t_end=None) -> float:
         r"""Mean specific growth rate over the data's time span (or the given times).
@@ -1497,11 +1505,11 @@ def _trust_checks(fit: GrowthFit, prob: _Problem) -> list[tuple[str, type]]:
     if fit.curve == "linear" and np.any(fit.predict(fit._t) <= 0):
         out.append(("the fitted line is at or below zero mass at some sampling times; ln W and "
                     "the rate are undefined there", DataWarning))
-    n, p = fit.nobs, fit.nvarys
+    n, p = fit.nobs, fit.nvarys + 1
     if n - p - 1 <= 0:
         out.append(
-            (f"AICc is undefined (NaN): n − p − 1 = {n - p - 1} with n = {n} points and "
-             f"p = {p} parameters", DesignWarning)
+            (f"AICc is undefined (NaN): n − K − 1 = {n - p - 1} with n = {n} points and "
+             f"K = {p} parameters (the residual variance included)", DesignWarning)
         )
     return out
 

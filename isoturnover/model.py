@@ -355,7 +355,7 @@ class _Problem:
         n_res = t.size + (0 if extra is None else extra.size)
         use_lm = (not coords.has_bounds) and self.loss == "linear" and n_res >= coords.size
         if max_nfev is None:
-            max_nfev = 200 * (coords.size + 1)
+            max_nfev = 100 * (coords.size + 1)
         with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
             try:
                 if use_lm:
@@ -1125,13 +1125,19 @@ class _Engine:
             raise FitError("no usable starting values could be found for this series")
         best = None
         tried = 0
+        # every start on a modest budget, then the best polished to tight tolerances
+        budget = None if len(starts) == 1 else 60 * (coords.size + 1)
         for th in starts:
             z0 = coords.z_from_theta(th)
-            sol = self.problem.solve(coords, z0)
+            sol = self.problem.solve(coords, z0, tol=1e-10 if budget else 1e-14,
+                                     max_nfev=budget)
             tried += 1
-            if best is None or (sol.success and (not best.success or sol.cost < best.cost)) \
-                    or (not best.success and sol.cost < best.cost):
+            if best is None or (np.isfinite(sol.cost) and not sol.cost >= best.cost):
                 best = sol
+        if budget is not None and coords.size:
+            pol = self.problem.solve(coords, best.z)
+            if np.isfinite(pol.cost) and pol.cost <= best.cost * (1 + 1e-12) + 1e-300:
+                best = pol
         if self.loss != "linear" and coords.size:
             # robust refit, scale from the linear fit's residuals (MAD)
             r = self.problem.w * (self.y - kin.evaluate(self.t, best.theta))
@@ -1164,7 +1170,7 @@ class _Engine:
         if mb.kind == "prior":
             # the growth-prior block is already in units of its own sd
             s_d = 1.0
-            for _ in range(8):
+            for _ in range(4):
                 rd = base * (self.y - self.kin.evaluate(self.t, sol.theta))
                 new_d = math.sqrt(max(float(rd @ rd), 1e-300) / max(n_d - p_d, 1))
                 done = abs(new_d / s_d - 1) < 1e-6

@@ -181,9 +181,11 @@ class TurnoverFit:
             if sv.size and sv[-1] > sv[0] * 1e-10:
                 cov_z = (vt.T / sv**2) @ vt * self.s2
                 self._cov_ok = bool(np.all(np.isfinite(cov_z)))
+        if self._cov_ok and self.loss != "linear" and not self.joint:
+            cov_z = self._robust_cov(jac_z, p)
+            self._cov_ok = bool(np.all(np.isfinite(cov_z)))
         self._cov_z = cov_z
-        _, A = self._coords.theta(self._coords.z_from_theta(self._theta) if False else
-                                  self._sol.z, jac=True)
+        _, A = self._coords.theta(self._sol.z, jac=True)
         self._A = A
         self.covar = A @ cov_z @ A.T if p else np.zeros((kin.n_params, kin.n_params))
         if p and not self._cov_ok:
@@ -230,6 +232,34 @@ class TurnoverFit:
         self._params = None
         self.warnings = self._trust_notes()
 
+    def _robust_cov(self, J, p):
+        r"""Covariance of an M-estimate (robust loss), from the loss weights.
+
+        With :math:`z_i = (r_i/c)^2` and loss weights :math:`w_i = \rho'(z_i)`
+        (soft_l1: :math:`1/\sqrt{1+z}`; huber: 1 inside, :math:`1/\sqrt z` outside), the
+        covariance is :math:`s_r^2 (J^T W J)^{-1}` (the iteratively reweighted
+        least-squares form, in which an outlier carries the weight the fit gave it; Huber
+        1981, *Robust Statistics*, ch. 7) with the robust scale
+        :math:`s_r = 1.4826\,\mathrm{MAD}(r)\sqrt{n/(n-p)}` (common practice), which the
+        outliers do not inflate.
+        """
+        r = self._wres()
+        z = (r / self.f_scale) ** 2
+        if self.loss == "soft_l1":
+            wl = 1.0 / np.sqrt(1.0 + z)
+        else:  # huber
+            wl = np.where(z <= 1.0, 1.0, 1.0 / np.sqrt(np.maximum(z, 1e-300)))
+        Jw = J * np.sqrt(wl)[:, None]
+        mad = 1.4826 * float(np.median(np.abs(r - np.median(r))))
+        s2w = mad**2 * self.nobs / max(self.dof, 1)
+        if self.absolute_sigma:
+            s2w = 1.0
+        u, sv, vt = np.linalg.svd(Jw, full_matrices=False)
+        if not (sv.size and sv[-1] > sv[0] * 1e-10):
+            return np.full((p, p), np.nan)
+        self.s2_robust = s2w
+        return (vt.T / sv**2) @ vt * s2w
+
     # -- basic quantities ---------------------------------------------------------------
     def _wres(self):
         """Weighted δ residuals (joint fits: including the δ block's scale)."""
@@ -263,7 +293,10 @@ class TurnoverFit:
         for a in (self.t, self.y, np.ones_like(self.t) if self.sigma is None else self.sigma):
             h.update(np.ascontiguousarray(a, dtype=float).tobytes())
         mb = self._engine.mass_block
-        if mb is not None:
+        if mb is not None and mb.kind == "prior":
+            h.update(b"growth-prior")
+            h.update(str(getattr(self.kinetics.growth, "data_fingerprint", "")).encode())
+        elif mb is not None:
             h.update(b"masses")
             h.update(np.ascontiguousarray(mb.t, dtype=float).tobytes())
             h.update(np.ascontiguousarray(mb.mass, dtype=float).tobytes())
@@ -290,8 +323,9 @@ class TurnoverFit:
         ps = lmfit.Parameters()
         se = self.stderr
         names = kin.param_names
+        implicit = self._implicit_fixed()
         for j, nm in enumerate(names):
-            vary = nm not in self.fixed
+            vary = nm not in self.fixed and nm not in implicit
             mn, mx = -np.inf, np.inf
             if nm in kin.rate_names:
                 mn = 0.0
@@ -520,8 +554,20 @@ class TurnoverFit:
             coords = engine.coords(fx, rate_anchor=rate_anchor, fraction_anchor=fraction_anchor)
             if z_start is None:
                 z_start = coords.z_from_theta(self._theta)
-            sol = engine.refit(fx, z_start, coords=coords, tol=1e-12)
-            return (sol.cost - rss0) / s2, sol
+            sol = engine.problem.solve(coords, z_start, tol=1e-11,
+                                       max_nfev=40 * (coords.size + 1))
+            d = (sol.cost - rss0) / s2
+            if not sol.success and np.isfinite(d) and d > crit:
+                # not settled: a larger budget before deciding which side of the cut it is
+                sol2 = engine.problem.solve(coords, sol.z, tol=1e-11,
+                                            max_nfev=200 * (coords.size + 1))
+                if np.isfinite(sol2.cost) and sol2.cost <= sol.cost:
+                    sol = sol2
+                    d = (sol.cost - rss0) / s2
+            # an unsettled refit's cost bounds the profile from above: below the cut it is
+            # still a point inside the interval
+            sol.extra["usable"] = bool(np.isfinite(d) and (sol.success or d <= crit))
+            return d, sol
 
         lo_limit, hi_limit = self._search_limits(name, kind, c_hat, se_c)
         results = []
@@ -534,19 +580,22 @@ class TurnoverFit:
             h = se_c
             status, bound = None, None
             fails = 0
-            for _ in range(60):
+            just_failed = False
+            for _ in range(80):
                 c_new = c_prev + direction * h
                 at_limit = (c_new - limit) * direction >= 0
                 if at_limit:
                     c_new = limit
                 d_new, sol = D(c_new, z_prev)
-                if not sol.success or not np.isfinite(d_new):
+                if not sol.extra["usable"]:
                     fails += 1
-                    if fails >= 3:
+                    if fails >= 8:
                         status = "failed"
                         break
                     h *= 0.5
+                    just_failed = True
                     continue
+                fails = 0
                 z_store[c_new] = sol.z
                 if d_new > crit:
                     # bracketed between c_prev and c_new
@@ -555,8 +604,8 @@ class TurnoverFit:
                         return D(c, zs)[0] - crit
 
                     try:
-                        root = optimize.brentq(g, c_prev, c_new, xtol=1e-8 * max(1, abs(c_hat)),
-                                               rtol=1e-10, maxiter=60)
+                        root = optimize.brentq(g, c_prev, c_new, xtol=1e-6 * se_c,
+                                               rtol=1e-9, maxiter=60)
                         bound, status = from_c(root), "ok"
                     except (ValueError, RuntimeError):
                         status = "failed"
@@ -566,6 +615,9 @@ class TurnoverFit:
                     break
                 # grow the step, more when the profile is flat
                 grow = 2.0 if d_new - d_prev < 0.25 * crit else 1.4
+                if just_failed:
+                    grow = 1.0
+                    just_failed = False
                 c_prev, d_prev, z_prev = c_new, max(d_new, d_prev), sol.z
                 h *= grow
             if status is None:
@@ -628,9 +680,17 @@ class TurnoverFit:
             lo, ls = 0.0, "at_bound"
         return lo, hi, ls, hs
 
+    def _implicit_fixed(self):
+        """Parameters fixed by construction (the fraction of a single pool)."""
+        kin = self.kinetics
+        return set(kin.fraction_names) if len(kin.fraction_names) == 1 else set()
+
     def _interval(self, name, level, method):
         if name in self.fixed:
             v = self.fixed[name]
+            return v, v, "fixed", "fixed"
+        if name in self._implicit_fixed():
+            v = float(self.values[name])
             return v, v, "fixed", "fixed"
         if method == "profile" and self.loss == "linear":
             return self._profile(name, level)
@@ -641,23 +701,32 @@ class TurnoverFit:
             return "asymptotic"
         return method
 
-    def conf_int(self, level=0.95, method="profile") -> pd.DataFrame:
+    def conf_int(self, level=0.95, method="profile", params=None) -> pd.DataFrame:
         """Confidence intervals of every parameter (long table).
 
         Columns: parameter, estimate, stderr, lower, upper, level, method, lower_status,
         upper_status. ``method="profile"`` (profile likelihood; asymptotic for robust
-        losses) or ``"asymptotic"`` (covariance; log scale for rates).
+        losses) or ``"asymptotic"`` (covariance; log scale for rates). ``params`` limits
+        the table to some parameters.
         """
         level = _check_level(level)
         method = _check_method(method)
+        names = self.kinetics.param_names
+        if params is not None:
+            unknown = [p for p in params if p not in names]
+            if unknown:
+                raise ValueError(f"'params' has unknown parameter(s) {', '.join(unknown)}; "
+                                 f"this fit's parameters are {', '.join(names)}")
+            names = [n for n in names if n in params]
         rows = []
         se = self.stderr
-        for nm in self.kinetics.param_names:
+        for nm in names:
             lo, hi, ls, hs = self._interval(nm, level, method)
+            fx = nm in self.fixed or nm in self._implicit_fixed()
             rows.append({"parameter": nm, "estimate": self.values[nm],
-                         "stderr": se[nm] if nm not in self.fixed else 0.0,
+                         "stderr": se[nm] if not fx else 0.0,
                          "lower": lo, "upper": hi, "level": level,
-                         "method": "fixed" if nm in self.fixed else self._method_used(method),
+                         "method": "fixed" if fx else self._method_used(method),
                          "lower_status": ls, "upper_status": hs})
         return pd.DataFrame(rows)
 

@@ -114,12 +114,16 @@ def test_exponential_exact_recovery_and_statsmodels():
     # stderr of W0 = W0·se(ln W0) (delta method), of k directly
     np.testing.assert_allclose(fit.stderr, [fit.values[0] * ols.bse[0], ols.bse[1]], rtol=1e-8)
     np.testing.assert_allclose(fit.rss, ols.ssr, rtol=1e-12)
-    # statsmodels AIC/BIC use the full Gaussian log-likelihood; ours drop n(1 + ln 2π)
+    # statsmodels AIC/BIC use the full Gaussian log-likelihood and count the regressors
+    # only; ours drop n(1 + ln 2π) and count the residual variance as well (K = p + 1,
+    # Burnham & Anderson 2002, least-squares case)
     n = T.size
-    np.testing.assert_allclose(fit.aic, ols.aic - n * (1 + math.log(2 * math.pi)), rtol=1e-12)
-    np.testing.assert_allclose(fit.bic, ols.bic - n * (1 + math.log(2 * math.pi)), rtol=1e-12)
-    p = 2
-    assert fit.aicc == pytest.approx(fit.aic + 2 * p * (p + 1) / (n - p - 1), rel=1e-14)
+    np.testing.assert_allclose(fit.aic, ols.aic - n * (1 + math.log(2 * math.pi)) + 2,
+                               rtol=1e-12)
+    np.testing.assert_allclose(fit.bic, ols.bic - n * (1 + math.log(2 * math.pi))
+                               + math.log(n), rtol=1e-12)
+    k = 3
+    assert fit.aicc == pytest.approx(fit.aic + 2 * k * (k + 1) / (n - k - 1), rel=1e-14)
 
 
 def test_mass_loss_allowed():

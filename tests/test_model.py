@@ -442,9 +442,6 @@ def _two_pool_replicate(index, seed=20240601):
     return y
 
 
-@pytest.mark.xfail(reason="profile search marks the lower bound of k1 'failed' after three "
-                          "refits that hit the evaluation limit (k2 -> 0), although a "
-                          "smaller step closes it at about 0.128", strict=True)
 def test_profile_lower_bound_of_fast_rate_closes():
     y = _two_pool_replicate(12)
     model = iso.TurnoverModel(2)
@@ -488,9 +485,6 @@ def test_soft_l1_resists_one_gross_outlier(seed):
     assert set(rob.conf_int()["method"]) <= {"asymptotic", "fixed"}
 
 
-@pytest.mark.xfail(reason="robust fits compute the covariance from the plain residual variance, "
-                          "which the outlier inflates: the standard errors are 5-8 times those "
-                          "of a fit without the outlier", strict=True)
 @pytest.mark.parametrize("seed", [0, 1, 2])
 def test_soft_l1_standard_errors_not_inflated_by_the_outlier(seed):
     t = T16

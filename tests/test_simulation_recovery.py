@@ -79,23 +79,14 @@ def test_one_pool_profile_coverage(name):
     assert statuses.get("failed", 0) == 0, statuses
 
 
-_K1_BUG = pytest.mark.xfail(
-    reason="the profile search gives up ('failed', NaN) on the lower bound of k1 in 8 of "
-           "100 replicates when refits toward k2 -> 0 hit the evaluation limit; coverage "
-           "of k1 is 0.84 instead of about 0.94", strict=True)
-
-
 @pytest.mark.slow
-@pytest.mark.parametrize("name", [pytest.param(n, marks=_K1_BUG) if n == "k1" else n
-                                  for n in TRUTH[2]])
+@pytest.mark.parametrize("name", list(TRUTH[2]))
 def test_two_pool_profile_coverage(name):
     cov, _ = coverage(2)
     assert cov[name] >= 0.90, cov
 
 
 @pytest.mark.slow
-@pytest.mark.xfail(reason="profile bounds reported 'failed' where the profile does close "
-                          "(same defect as the k1 coverage)", strict=True)
 def test_two_pool_profile_bounds_do_not_fail():
     _, statuses = coverage(2)
     assert statuses.get("failed", 0) == 0, statuses

@@ -1,0 +1,320 @@
+"""The main job end to end: samples in; fits, choices, intervals, figures and a report out.
+
+:func:`analyse` fits every series of a samples table (with diets and masses when given),
+chooses the number of pools by AICc and computes intervals; :class:`Analysis` writes
+``results.csv`` (one row per series and candidate), ``fits.json`` (reloadable with
+:func:`load_fits` or, one fit at a time, :func:`~isoturnover.load_fit`), a Markdown and HTML
+report with figures. :func:`run_demo` does all of it on the invented demo experiment.
+
+Writing is all or nothing: every file is made in a temporary folder next to the output
+folder and moved into place only when all of them exist.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import pandas as pd
+
+from .errors import DataError, FitError
+from .groups import FitSet, fit_each
+
+__all__ = ["analyse", "Analysis", "run_demo", "load_fits", "CAUTION", "CI_METHODS"]
+
+CI_METHODS = ("profile", "asymptotic", "bootstrap")
+
+CAUTION = (
+    "Animal experiments and field sampling need the approval of the local animal-care "
+    "authority (human hair or blood: a human-research ethics board). These results and plans "
+    "support that process; they do not replace it."
+)
+
+
+@dataclass
+class Analysis:
+    """Fits of one or more parts of a study, ready to be written out.
+
+    Attributes
+    ----------
+    parts : dict name -> FitSet
+    level : float
+    ci : str
+        Interval method of the tables ("profile", "asymptotic" or "bootstrap").
+    bootstrap : dict
+        (part, key) -> bootstrap interval table of the chosen fit, when ``ci="bootstrap"``.
+    """
+
+    parts: dict
+    level: float = 0.95
+    ci: str = "profile"
+    n_boot: int = 499
+    seed: int | None = 1
+    bootstrap: dict = field(default_factory=dict)
+    title: str = "Turnover analysis"
+
+    @property
+    def interval_method(self):
+        return "asymptotic" if self.ci == "asymptotic" else "profile"
+
+    def n_fitted(self) -> int:
+        return sum(len(fs.chosen) for fs in self.parts.values())
+
+    def failures(self) -> dict:
+        out = {}
+        for name, fs in self.parts.items():
+            for k, why in fs.failures.items():
+                out[(name, *k)] = why
+        return out
+
+    def results_table(self) -> pd.DataFrame:
+        """One row per series and candidate across all parts (column ``part`` first)."""
+        frames = []
+        for name, fs in self.parts.items():
+            tab = fs.table(self.level, self.interval_method)
+            if tab.empty:
+                continue
+            tab.insert(0, "part", name)
+            if self.ci == "bootstrap":
+                tab = self._add_bootstrap(name, fs, tab)
+            frames.append(tab)
+        if not frames:
+            return pd.DataFrame()
+        return pd.concat(frames, ignore_index=True, sort=False)
+
+    def _add_bootstrap(self, name, fs, tab):
+        from .uncertainty import bootstrap
+
+        rows = []
+        for i, (key, r) in enumerate(fs.items()):
+            if r.best is None:
+                continue
+            b = self.bootstrap.get((name, key))
+            if b is None:
+                seed = None if self.seed is None else self.seed + i
+                res = bootstrap(r.best, n=self.n_boot, kind="residual", rng=seed,
+                                progress=False)
+                b = res.intervals(self.level, method="percentile")
+                b.attrs["n_failed"] = res.n_failed
+                self.bootstrap[(name, key)] = b
+            row = dict(zip(fs.by, key))
+            row["candidate"] = r.chosen
+            bi = b.set_index("parameter")
+            for j in range(1, 5):
+                q = f"half_life_{j}"
+                if q in bi.index:
+                    row[f"boot_lower_{j}"] = bi.loc[q, "lower"]
+                    row[f"boot_upper_{j}"] = bi.loc[q, "upper"]
+            row["boot_failed"] = b.attrs.get("n_failed", 0)
+            row["boot_n"] = self.n_boot
+            rows.append(row)
+        if not rows:
+            return tab
+        extra = pd.DataFrame(rows)
+        keys = list(fs.by) + ["candidate"]
+        tab[keys] = tab[keys].astype(str)
+        extra[keys] = extra[keys].astype(str)
+        return tab.merge(extra, on=keys, how="left")
+
+    def fits_json(self) -> dict:
+        """Every fitted candidate as :meth:`TurnoverFit.to_dict`, with its keys."""
+        entries = []
+        for name, fs in self.parts.items():
+            for key, r in fs.items():
+                for label, f in r.fits.items():
+                    if f is None:
+                        continue
+                    entries.append({"part": name, "key": dict(zip(fs.by, key)),
+                                    "candidate": label, "chosen": label == r.chosen,
+                                    "fit": f.to_dict()})
+        return {"format": "isoturnover-fits", "version": 1, "level": self.level,
+                "ci": self.ci, "fits": entries}
+
+    def merged(self) -> FitSet:
+        """All parts as one FitSet keyed (part, subject, tissue, isotope)."""
+        results = {}
+        for name, fs in self.parts.items():
+            for key, r in fs.items():
+                km = dict(zip(fs.by, key))
+                subject = km.get("subject")
+                if subject is None:
+                    subject = "all animals (destructive)"
+                nk = (name, str(subject), str(km.get("tissue", "")), str(km.get("isotope", "")))
+                results[nk] = r
+        first = next(iter(self.parts.values()), None)
+        unit = first.time_unit if first is not None else "d"
+        return FitSet(("part", "subject", "tissue", "isotope"), results, level=self.level,
+                      method=self.interval_method, time_unit=unit)
+
+    def write(self, out_dir, *, force=False, figures=True) -> list[Path]:
+        """Write results.csv, fits.json and the report into ``out_dir`` (all or nothing).
+
+        Refuses a non-empty folder unless ``force``; nothing is written if anything fails.
+        """
+        from .report import write_report
+
+        out = Path(out_dir)
+        check_out_dir(out, force)
+        parent = out.parent if str(out.parent) else Path(".")
+        parent.mkdir(parents=True, exist_ok=True)
+        tmp = Path(tempfile.mkdtemp(prefix=".isoturnover-", dir=parent))
+        try:
+            table = self.results_table()
+            table.to_csv(tmp / "results.csv", index=False)
+            with open(tmp / "fits.json", "w", encoding="utf-8") as fh:
+                json.dump(self.fits_json(), fh, allow_nan=True)
+            write_report(self.merged(), tmp / "report", title=self.title, level=self.level,
+                         method=self.interval_method, figures=figures)
+            (tmp / "CAUTION.txt").write_text(CAUTION + "\n", encoding="utf-8")
+            written = _move_tree(tmp, out)
+        except BaseException:
+            shutil.rmtree(tmp, ignore_errors=True)
+            raise
+        shutil.rmtree(tmp, ignore_errors=True)
+        return written
+
+
+def check_out_dir(out: Path, force: bool):
+    """Refuse a non-empty output folder unless ``force`` (before any work is done)."""
+    if out.exists() and not out.is_dir():
+        raise DataError(f"output path {str(out)!r} exists and is not a folder")
+    if out.exists() and any(out.iterdir()) and not force:
+        raise DataError(f"output folder {str(out)!r} is not empty; choose another folder or "
+                        "pass --force (force=True) to replace its files")
+
+
+def _move_tree(tmp: Path, out: Path) -> list[Path]:
+    if not out.exists():
+        os.replace(tmp, out)
+        tmp.mkdir()  # so the caller's cleanup finds a folder
+        return sorted(p for p in out.rglob("*") if p.is_file())
+    written = []
+    for src in sorted(tmp.rglob("*")):
+        rel = src.relative_to(tmp)
+        dst = out / rel
+        if src.is_dir():
+            if dst.exists() and not dst.is_dir():
+                dst.unlink()
+            if dst.is_dir():
+                shutil.rmtree(dst)
+            continue
+    for src in sorted(p for p in tmp.rglob("*") if p.is_file()):
+        dst = out / src.relative_to(tmp)
+        dst.parent.mkdir(parents=True, exist_ok=True)
+        os.replace(src, dst)
+        written.append(dst)
+    return written
+
+
+def load_fits(path_or_dict) -> list[dict]:
+    """Read a ``fits.json``: a list of entries with ``part``, ``key``, ``candidate``,
+    ``chosen`` and the rebuilt ``fit`` (:class:`~isoturnover.TurnoverFit`)."""
+    from .results import load_fit
+
+    if isinstance(path_or_dict, dict):
+        d = path_or_dict
+    else:
+        with open(path_or_dict, encoding="utf-8") as fh:
+            d = json.load(fh)
+    if d.get("format") != "isoturnover-fits":
+        raise DataError("not a fits.json written by isoturnover (key 'format' missing)")
+    out = []
+    for e in d["fits"]:
+        e = dict(e)
+        e["fit"] = load_fit(e["fit"])
+        out.append(e)
+    return out
+
+
+def _parse_pools(pools):
+    if isinstance(pools, str):
+        try:
+            pools = tuple(int(p) for p in pools.split(",") if p.strip())
+        except ValueError:
+            raise DataError(f"--pools must be a comma-separated list of integers 1-4, such as "
+                            f"1,2; got {pools!r}") from None
+    pools = tuple(pools)
+    if not pools or any(not 1 <= int(p) <= 4 for p in pools):
+        raise DataError(f"pools must be integers from 1 to 4; got {pools!r}")
+    return pools
+
+
+def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("parallel",),
+            by=None, ci="profile", level=0.95, time_unit="d", growth_curve="logistic",
+            per_diet_separation=False, lag=False, progress=False, n_boot=499, seed=1,
+            title="Turnover analysis") -> Analysis:
+    """Fit every series of a samples table and choose the number of pools (AICc).
+
+    Parameters
+    ----------
+    samples, diets, masses : path or DataFrame
+        The three tables of the data model (diets and masses optional).
+    by : tuple of str, optional
+        Series keys; default (subject, tissue, isotope), or (tissue, isotope) when every
+        subject has a single sampling time (destructive design).
+    ci : {"profile", "asymptotic", "bootstrap"}
+        Interval method; "bootstrap" adds residual-bootstrap percentile intervals for the
+        chosen fits' half-lives (``n_boot`` replicates, seeded by ``seed``).
+    Other parameters as :func:`~isoturnover.fit_each`.
+    """
+    from .data import read_diets, read_masses, read_samples
+
+    if ci not in CI_METHODS:
+        raise DataError(f"ci must be one of {', '.join(CI_METHODS)}; got {ci!r}")
+    pools = _parse_pools(pools)
+    s = read_samples(samples, time_unit=time_unit)
+    d = read_diets(diets, time_unit=time_unit) if diets is not None else None
+    m = read_masses(masses, time_unit=time_unit) if masses is not None else None
+    if by is None:
+        per = s.groupby(["subject", "tissue", "isotope"])["time"].nunique()
+        by = ("tissue", "isotope") if int(per.max()) == 1 and s["subject"].nunique() > 1 \
+            else ("subject", "tissue", "isotope")
+    fs = fit_each(s, by=by, pools=pools, structures=structures, diets=d, masses=m,
+                  level=level, method="asymptotic" if ci == "asymptotic" else "profile",
+                  lag=lag, growth_curve=growth_curve, per_diet_separation=per_diet_separation,
+                  progress=progress)
+    return Analysis({"samples": fs}, level=level, ci=ci, n_boot=n_boot, seed=seed,
+                    title=title)
+
+
+def run_demo(out_dir=None, *, force=False, progress=False, figures=True) -> Analysis:
+    """Analyse the invented demo experiment (goats, breath in hours, fish) end to end.
+
+    Goats: plasma and red-cell δ13C and plasma δ15N under the pens' diet histories (pen B
+    back to hay on day 120), growth dilution from each goat's fitted logistic growth curve
+    (its uncertainty propagated), a separation per ration for δ15N. Breath CO2: a step
+    switch in hours, one to three pools. Fish: a destructive design (one fish per sample)
+    with exponential growth fitted across fish. Writes to ``out_dir`` when given.
+    """
+    from .data import read_diets, read_masses, read_samples
+    from .demo import demo_path
+
+    if out_dir is not None:
+        check_out_dir(Path(out_dir), force)
+    gs = read_samples(demo_path("goat_samples"))
+    gd = read_diets(demo_path("goat_diets"))
+    gm = read_masses(demo_path("goat_masses"))
+    breath = read_samples(demo_path("goat_breath"), time_unit="h")
+    fsam = read_samples(demo_path("fish_samples"))
+    fd = read_diets(demo_path("fish_diets"))
+    fm = read_masses(demo_path("fish_masses"))
+    parts = {}
+    parts["goats d13C"] = fit_each(gs[gs["isotope"] == "d13C"], pools=(1, 2), diets=gd,
+                                   masses=gm, growth_curve="logistic", progress=progress)
+    parts["goats d15N"] = fit_each(gs[gs["isotope"] == "d15N"], pools=(1, 2), diets=gd,
+                                   masses=gm, growth_curve="logistic",
+                                   per_diet_separation=True, progress=progress)
+    parts["goat breath"] = fit_each(breath, pools=(1, 2, 3), progress=progress)
+    parts["fish"] = fit_each(fsam, by=("tissue", "isotope"), pools=(1, 2), diets=fd,
+                             masses=fm, growth_curve="exponential", progress=progress)
+    a = Analysis(parts, title="Demo analysis (invented data)")
+    if a.n_fitted() == 0:  # pragma: no cover - the demo data always fit
+        raise FitError("no demo series could be fitted")
+    if out_dir is not None:
+        a.write(out_dir, force=force, figures=figures)
+    return a
+
