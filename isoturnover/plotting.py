@@ -1,0 +1,886 @@
+r"""Figures of turnover fits for papers and notebooks (matplotlib).
+
+Every function takes ``ax=None`` and returns the Axes it drew on; without an Axes it makes a
+figure of print size (3.5 × 2.6 in, a single journal column; :func:`plot_overview` 7 × 2.6 in,
+two columns). matplotlib is imported inside the functions, and no function changes global
+style: there are no ``rcParams`` writes and no ``plt.style.use``; colours and font sizes are
+set on each artist (axis labels 8 pt, tick labels and legends 7 pt, legible at print size).
+
+Colours come from the Okabe–Ito palette, chosen to stay distinguishable under the common
+colour-vision deficiencies (Okabe & Ito 2008, *Color Universal Design (CUD): how to make
+figures and presentations that are friendly to colorblind people*). Flagged points use a
+different marker as well as a different colour, so they do not depend on colour alone.
+
+Axes carry δ notation with the scale of the isotope ("δ¹³C (‰, VPDB)"; δ as defined by
+Coplen 2011) and the time unit of the data ("Time since diet switch (days)").
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import warnings
+
+import numpy as np
+
+from .errors import IsoturnoverWarning
+
+__all__ = [
+    "OKABE_ITO",
+    "delta_label",
+    "plot_fit",
+    "plot_residuals",
+    "plot_progress",
+    "plot_pools",
+    "plot_growth",
+    "plot_weights",
+    "plot_overview",
+]
+
+#: Okabe–Ito colour-blind-safe palette (Okabe & Ito 2008), name → hex.
+OKABE_ITO = {
+    "black": "#000000",
+    "orange": "#E69F00",
+    "sky_blue": "#56B4E9",
+    "bluish_green": "#009E73",
+    "yellow": "#F0E442",
+    "blue": "#0072B2",
+    "vermillion": "#D55E00",
+    "reddish_purple": "#CC79A7",
+}
+# order for series of categories (yellow last: weak on white)
+_CYCLE = ("blue", "orange", "bluish_green", "reddish_purple", "sky_blue", "vermillion",
+          "black", "yellow")
+_GREY = "#777777"
+_FLAG = OKABE_ITO["vermillion"]
+
+SINGLE = (3.5, 2.6)  # in: one journal column
+DOUBLE = (7.0, 2.6)  # in: two columns
+_LABEL_PT = 8
+_TICK_PT = 7
+_LEGEND_PT = 7
+_SUP = str.maketrans("0123456789", "⁰¹²³⁴⁵⁶⁷⁸⁹")
+
+
+# ----------------------------------------------------------------------------------------
+# helpers
+# ----------------------------------------------------------------------------------------
+def _num(x, digits=3):
+    """Compact number for labels: 3 significant digits, no exponent below 10^6, true minus."""
+    x = float(x)
+    if not math.isfinite(x):
+        return "∞" if x > 0 else ("−∞" if x < 0 else "—")
+    r = round(x, digits - 1 - int(math.floor(math.log10(abs(x))))) if x != 0 else 0.0
+    out = f"{r:,.0f}" if 1e3 <= abs(r) < 1e6 else f"{x:.{digits}g}"
+    return out.replace("-", "−")
+
+
+def _color(i):
+    return OKABE_ITO[_CYCLE[i % len(_CYCLE)]]
+
+
+def _new_axes(ax, size=SINGLE):
+    if ax is not None:
+        if not hasattr(ax, "plot") or not hasattr(ax, "figure"):
+            raise TypeError(f"'ax' must be a matplotlib Axes or None; got {type(ax).__name__}")
+        return ax
+    import matplotlib.pyplot as plt
+
+    _, ax = plt.subplots(figsize=size, layout="constrained")
+    return ax
+
+
+def _style(ax, xlabel, ylabel):
+    ax.set_xlabel(xlabel, fontsize=_LABEL_PT)
+    ax.set_ylabel(ylabel, fontsize=_LABEL_PT)
+    ax.tick_params(labelsize=_TICK_PT)
+
+
+def _legend(ax, first=(), keep=None, **kw):
+    """Legend at the emptiest place; entries whose label starts with one of ``first`` lead.
+
+    ``keep``: points (data coordinates, shape (n, 2)) the legend must not cover; see
+    :func:`_keep_clear`.
+    """
+    handles, labels = ax.get_legend_handles_labels()
+    if not handles:
+        return None
+
+    def rank(i):
+        for j, p in enumerate(first):
+            if labels[i].startswith(p):
+                return (j, i)
+        return (len(first), i)
+
+    order = sorted(range(len(labels)), key=rank)
+    handles = [handles[i] for i in order]
+    labels = [labels[i] for i in order]
+    kw.setdefault("loc", "best")
+    kw.setdefault("framealpha", 0.85)
+    kw.setdefault("fontsize", _LEGEND_PT)
+    kw.setdefault("title_fontsize", _LEGEND_PT)
+    kw.setdefault("labelspacing", 0.3)
+    kw.setdefault("borderpad", 0.35)
+    kw.setdefault("handlelength", 1.6)
+    kw.setdefault("handletextpad", 0.5)
+    leg = ax.legend(handles, labels, **kw)
+    if keep is not None:
+        _keep_clear(ax, [leg], keep)
+    return leg
+
+
+def _points(*pairs):
+    """Stack (x, y) pairs into finite points of shape (n, 2)."""
+    parts = [np.column_stack([np.asarray(x, dtype=float).ravel(),
+                              np.asarray(y, dtype=float).ravel()]) for x, y in pairs]
+    xy = np.concatenate(parts) if parts else np.empty((0, 2))
+    return xy[np.all(np.isfinite(xy), axis=1)]
+
+
+_LOCS = ("upper right", "upper left", "lower left", "lower right", "center right",
+         "center left", "upper center", "lower center")
+
+
+def _box_at(loc, w, h, ab, pad):
+    """Display box (x0, y0, x1, y1) of a w × h legend placed at ``loc`` inside ``ab``."""
+    v, hz = loc.split()
+    if hz == "left":
+        x0 = ab.x0 + pad
+    elif hz == "right":
+        x0 = ab.x1 - pad - w
+    else:
+        x0 = (ab.x0 + ab.x1 - w) / 2
+    if v == "upper":
+        y0 = ab.y1 - pad - h
+    elif v == "lower":
+        y0 = ab.y0 + pad
+    else:
+        y0 = (ab.y0 + ab.y1 - h) / 2
+    return x0, y0, x0 + w, y0 + h
+
+
+def _hits(pts, box, pad=3.0):
+    x0, y0, x1, y1 = box
+    under_x = (pts[:, 0] >= x0 - pad) & (pts[:, 0] <= x1 + pad)
+    return under_x, under_x & (pts[:, 1] >= y0 - pad) & (pts[:, 1] <= y1 + pad)
+
+
+def _keep_clear(ax, boxes, xy, tries=4):
+    """Keep legends and text boxes inside the axes off the points ``xy`` (data coordinates).
+
+    The figure is laid out without rendering. A legend that covers points moves to the first
+    free place among the usual positions; when there is none, the y range is widened on the
+    side that needs least room, just enough for the box to sit beyond the points, and the
+    legend is pinned there. A text box stays where it is and the y range widens on its side.
+    A legend taller than 60 % of the axes goes outside, to the right.
+    """
+    xy = np.asarray(xy, dtype=float).reshape(-1, 2)
+    boxes = [b for b in boxes if b is not None]
+    if xy.size == 0 or not boxes:
+        return
+    fig = ax.figure
+    for _ in range(tries):
+        fig.draw_without_rendering()
+        changed = False
+        for box in boxes:
+            ab = ax.get_window_extent()
+            pts = ax.transData.transform(xy)
+            bb = box.get_window_extent()
+            cur = (bb.x0, bb.y0, bb.x1, bb.y1)
+            if not _hits(pts, cur)[1].any():
+                continue
+            is_legend = hasattr(box, "set_loc")
+            hfrac = (bb.height + 9.0) / ab.height
+            if is_legend and hfrac > 0.6:
+                box.set_loc("upper left")
+                box.set_bbox_to_anchor((1.02, 1.0), transform=ax.transAxes)
+                changed = True
+                continue
+            if is_legend:
+                pad = box.borderaxespad * box.prop.get_size_in_points() * fig.dpi / 72.0
+                free = [loc for loc in _LOCS
+                        if not _hits(pts, _box_at(loc, bb.width, bb.height, ab, pad))[1].any()]
+                if free:
+                    box.set_loc(free[0])
+                    changed = True
+                    continue
+                options = [(loc, _box_at(loc, bb.width, bb.height, ab, pad))
+                           for loc in _LOCS[:4]]
+            else:
+                top = (bb.y0 + bb.y1) / 2 > (ab.y0 + ab.y1) / 2
+                options = [("upper" if top else "lower", cur)]
+            y0, y1 = ax.get_ylim()
+            best = None
+            for loc, bx in options:
+                under_x, _ = _hits(pts, bx)
+                ys = xy[under_x, 1]
+                if loc.startswith("upper"):
+                    new = (y0, y0 + (float(np.max(ys)) - y0) / (1.0 - hfrac))
+                else:
+                    new = (y1 - (y1 - float(np.min(ys))) / (1.0 - hfrac), y1)
+                if best is None or new[1] - new[0] < best[1][1] - best[1][0]:
+                    best = (loc, new)
+            ax.set_ylim(*best[1])
+            if is_legend:
+                box.set_loc(best[0])
+            changed = True
+        if not changed:
+            return
+
+
+def _check_fit(fit, fname):
+    from .results import TurnoverFit
+
+    if not isinstance(fit, TurnoverFit):
+        raise TypeError(f"{fname}: 'fit' must be a TurnoverFit (from TurnoverModel.fit); got "
+                        f"{type(fit).__name__}")
+    return fit
+
+
+def _unit(fit_or_unit):
+    from .results import _unit_word
+
+    u = fit_or_unit if isinstance(fit_or_unit, str) else fit_or_unit.time_unit
+    return _unit_word(u)
+
+
+def delta_label(isotope) -> str:
+    """Axis label in δ notation with the isotope's scale, e.g. ``"δ¹³C (‰, VPDB)"``.
+
+    Parameters
+    ----------
+    isotope : str or None
+        Isotope code (``"d13C"``, ``"d15N"``, ``"d34S"``, ``"d2H"``, ``"d18O"``). ``None``
+        gives the generic ``"δ (‰)"``.
+
+    Examples
+    --------
+    >>> delta_label("d15N")
+    'δ¹⁵N (‰, AIR)'
+    >>> delta_label(None)
+    'δ (‰)'
+    """
+    if isotope is None:
+        return "δ (‰)"
+    from .isotopes import ISOTOPES
+
+    code = str(isotope)
+    if code not in ISOTOPES:
+        raise ValueError(f"'isotope' must be one of {', '.join(map(repr, ISOTOPES))} or None; "
+                         f"got {isotope!r}")
+    m = re.fullmatch(r"d(\d+)([A-Z][a-z]?)", code)
+    name = f"δ{m.group(1).translate(_SUP)}{m.group(2)}" if m else code
+    return f"{name} (‰, {ISOTOPES[code].scale})"
+
+
+def _isotope_of(fit):
+    iso_ = getattr(fit.model, "isotope", None) or fit.data_info.get("isotope")
+    if iso_ is None and fit.model.diet is not None:
+        iso_ = getattr(fit.model.diet, "isotope", None)
+    from .isotopes import ISOTOPES
+
+    return iso_ if iso_ in ISOTOPES else None
+
+
+def _y_label(fit):
+    lab = delta_label(_isotope_of(fit))
+    tissue = fit.data_info.get("tissue")
+    return f"{str(tissue).capitalize()} {lab}" if tissue else f"Tissue {lab}"
+
+
+def _time_label(fit):
+    s = np.asarray(fit.kinetics.switch_times, dtype=float)
+    unit = _unit(fit)
+    if s.size and s[0] == 0.0:
+        what = "diet switch" if s.size == 1 else "first diet switch"
+        return f"Time since {what} ({unit})"
+    return f"Time ({unit})"
+
+
+def _fine_grid(fit, lo, hi, n=400):
+    g = np.linspace(lo, hi, n)
+    kin = fit.kinetics
+    lag = fit.values.get("lag", 0.0)
+    extra = np.concatenate([kin.switch_times, kin.switch_times + lag])
+    extra = extra[(extra >= lo) & (extra <= hi)]
+    return np.union1d(g, extra)
+
+
+def _short_model(fit):
+    kin = fit.kinetics
+    if kin.structure == "chain":
+        return "chain"
+    return f"{kin.pools} pool{'s' if kin.pools > 1 else ''}"
+
+
+# ----------------------------------------------------------------------------------------
+# plot_fit
+# ----------------------------------------------------------------------------------------
+def plot_fit(fit, ax=None, *, band=True, level=0.95, show_switches=True, show_flagged=True,
+             color=None, label=None):
+    """Data, fitted curve and confidence band of one turnover fit.
+
+    Parameters
+    ----------
+    fit : TurnoverFit
+    ax : matplotlib Axes, optional
+        Drawn on when given; else a new 3.5 × 2.6 in figure.
+    band : bool, default=True
+        Draw the pointwise confidence band of the fitted curve
+        (:func:`isoturnover.uncertainty.band`, delta method).
+    level : float, default=0.95
+        Confidence level of the band.
+    show_switches : bool, default=True
+        Vertical dashed lines at the diet switches (t = 0 for a step-switch fit).
+    show_flagged : bool, default=True
+        Mark points that :meth:`TurnoverFit.influence` flags (absolute studentised residual
+        > 3 or Cook's distance > 1); they are kept in the fit and drawn, never hidden.
+    color : str, optional
+        Colour of the curve and band (and of the data when given, for overlays); default
+        Okabe–Ito blue, data black.
+    label : str, optional
+        Name of the series in the legend.
+
+    Returns
+    -------
+    matplotlib Axes
+
+    Notes
+    -----
+    Error bars are the analytic 1σ (``sigma``) of each point when the fit has them.
+    """
+    from .results import _check_level
+
+    fit = _check_fit(fit, "plot_fit")
+    level = _check_level(level)
+    ax = _new_axes(ax)
+    curve_c = color or OKABE_ITO["blue"]
+    data_c = color or OKABE_ITO["black"]
+    t, y = fit.t, fit.y
+    sw = np.asarray(fit.kinetics.switch_times, dtype=float)
+    lo = float(min(t.min(), sw.min()))
+    hi = float(t.max())
+    grid = _fine_grid(fit, lo, hi)
+    fitted = fit.predict(grid)
+    name = None if label is None else str(label)
+    if band:
+        from .uncertainty import band as _band
+
+        b = _band(fit, grid, level=level, kind="confidence")
+        lower = np.asarray(b["lower"], dtype=float)
+        upper = np.asarray(b["upper"], dtype=float)
+        if np.any(np.isfinite(lower) & np.isfinite(upper)):
+            ax.fill_between(grid, lower, upper, color=curve_c, alpha=0.22, linewidth=0,
+                            label=f"{level * 100:g} % confidence band")
+        else:
+            ax.plot([], [], linestyle="none",
+                    label="confidence band not available (covariance singular)")
+    ax.plot(grid, fitted, color=curve_c, linewidth=1.3,
+            label=f"{name}: fitted" if name else f"fitted ({_short_model(fit)})")
+    ekw = dict(fmt="o", markersize=3.5, color=data_c, markerfacecolor=data_c,
+               markeredgewidth=0.5, elinewidth=0.8, capsize=1.5, label=name or "data",
+               zorder=4)
+    if fit.sigma is not None:
+        ax.errorbar(t, y, yerr=fit.sigma, **ekw)
+    else:
+        ax.errorbar(t, y, **ekw)
+    if show_flagged:
+        infl = fit.influence()
+        fl = infl["flagged"].to_numpy(dtype=bool)
+        if fl.any():
+            ax.scatter(t[fl], y[fl], s=60, facecolors="none", edgecolors=_FLAG,
+                       linewidths=1.2, marker="s", zorder=5,
+                       label=f"flagged, kept in fit (n = {int(fl.sum())})")
+    if show_switches:
+        for i, s in enumerate(sw):
+            ax.axvline(s, color=_GREY, linestyle="--", linewidth=0.8,
+                       label="diet switch" if i == 0 else None)
+    _style(ax, _time_label(fit), _y_label(fit))
+    sig = fit.sigma if fit.sigma is not None else 0.0
+    keep = _points((t, y), (t, y + sig), (t, y - sig), (grid[::8], fitted[::8]))
+    _legend(ax, first=(name or "data",), keep=keep)
+    return ax
+
+
+# ----------------------------------------------------------------------------------------
+# plot_residuals
+# ----------------------------------------------------------------------------------------
+def plot_residuals(fit, ax=None, studentized=True):
+    r"""Residuals against time, with a zero line and ±2 / ±3 guides.
+
+    Parameters
+    ----------
+    fit : TurnoverFit
+    ax : matplotlib Axes, optional
+    studentized : bool, default=True
+        Internally studentised residuals :math:`r_i/(s\sqrt{1-h_{ii}})` (dimensionless;
+        guides at ±2 and ±3). ``False``: raw residuals y − ŷ in ‰ with guides at
+        :math:`\pm 2\hat s w_i^{-1}` and :math:`\pm 3\hat s w_i^{-1}`, where ŝ is the residual
+        sd and :math:`w_i^{-1}` the point's σ (1 without ``sigma``).
+
+    Returns
+    -------
+    matplotlib Axes
+    """
+    fit = _check_fit(fit, "plot_residuals")
+    if not isinstance(studentized, (bool, np.bool_)):
+        raise TypeError(f"'studentized' must be True or False; got {studentized!r}")
+    ax = _new_axes(ax)
+    infl = fit.influence()
+    t = fit.t
+    fl = infl["flagged"].to_numpy(dtype=bool)
+    order = np.argsort(t, kind="stable")
+    if studentized:
+        r = infl["studentized"].to_numpy(dtype=float)
+        ylabel = "Studentized residual"
+        if not np.any(np.isfinite(r)):
+            # leverage unavailable (singular covariance): standardised residuals r/s instead
+            s = math.sqrt(fit.rss / fit.dof) if fit.dof > 0 else math.nan
+            w = 1.0 / fit.sigma if fit.sigma is not None else 1.0
+            r = w * fit.residuals / s
+            ylabel = "Standardized residual (leverage not available)"
+        for g, ls in ((2, ":"), (3, "--")):
+            for sign in (-1, 1):
+                ax.axhline(sign * g, color=_GREY, linestyle=ls, linewidth=0.7,
+                           label=f"±{g}" if sign > 0 else None)
+    else:
+        r = fit.residuals
+        ylabel = "Residual (‰)"
+        s = math.sqrt(fit.s2) if fit.s2 > 0 else math.nan
+        scale = s * (fit.sigma if fit.sigma is not None else np.ones_like(t))
+        for g, ls in ((2, ":"), (3, "--")):
+            for sign in (-1, 1):
+                ax.plot(t[order], sign * g * scale[order], color=_GREY, linestyle=ls,
+                        linewidth=0.7, label=f"±{g} ŝ" if sign > 0 else None)
+    ax.axhline(0.0, color=OKABE_ITO["black"], linewidth=0.8)
+    ax.plot(t, r, "o", markersize=3.5, color=OKABE_ITO["blue"], linestyle="none",
+            label="residual")
+    if fl.any():
+        ax.scatter(t[fl], r[fl], s=60, facecolors="none", edgecolors=_FLAG, linewidths=1.2,
+                   marker="s", zorder=5, label=f"flagged (n = {int(fl.sum())})")
+    finite = r[np.isfinite(r)]
+    top = max(3.6 if studentized else 0.0, float(np.max(np.abs(finite))) * 1.15
+              if finite.size else 1.0)
+    if studentized:
+        ax.set_ylim(-top, top)
+    _style(ax, _time_label(fit), ylabel)
+    _legend(ax, first=("residual",), ncol=3, columnspacing=1.0, handlelength=1.5,
+            keep=_points((t, r)))
+    return ax
+
+
+# ----------------------------------------------------------------------------------------
+# plot_progress
+# ----------------------------------------------------------------------------------------
+def _progress_window(fit):
+    """(start, end, old level, new level) of the first switch: end is the second switch."""
+    kin = fit.kinetics
+    v = fit.values
+    sw = np.asarray(kin.switch_times, dtype=float)
+    if fit.model.diet is None:
+        return float(sw[0]), math.inf, float(v["delta0"]), float(v["delta_eq"])
+    L = kin.levels(np.array([v[n] for n in kin.param_names]))
+    end = float(sw[1]) if sw.size > 1 else math.inf
+    return float(sw[0]), end, float(L[0]), float(L[1])
+
+
+def plot_progress(fit, ax=None):
+    r"""Reaction progress plot: :math:`\ln(1 - F)` against time since the switch.
+
+    :math:`1 - F = (\delta(t) - \delta_{eq})/(\delta_0 - \delta_{eq})` (Cerling et al. 2007,
+    Oecologia 151:175–189), with δ0 and δ_eq taken from the fit: ``delta0``/``delta_eq`` of a
+    step-switch fit, or the tissue levels of the first diet and the second
+    (:meth:`TurnoverKinetics.levels`) for a diet-history fit, whose points are then restricted
+    to the first switch's period (up to the second switch). The fitted curve is
+    :math:`\ln[(\hat\delta(t) - \delta_{eq})/(\delta_0 - \delta_{eq})]` from the model's
+    prediction, i.e. :math:`\ln\sum_i f_i e^{-k_i \tau}` for parallel pools (one pool: a
+    straight line of slope −k), and the chain or growth response otherwise.
+
+    Points whose :math:`\ln(1 - F)` is undefined (F ≥ 1: past the fitted plateau; F ≤ 0:
+    at or beyond the start value) are not dropped: they are drawn at the lower or upper edge
+    of the plot with their own marker, and the legend says how many there are.
+
+    Parameters
+    ----------
+    fit : TurnoverFit
+    ax : matplotlib Axes, optional
+
+    Returns
+    -------
+    matplotlib Axes
+
+    Raises
+    ------
+    ValueError
+        When no sample lies in the first switch's period.
+    """
+    import matplotlib.transforms as mtransforms
+    from matplotlib.lines import Line2D
+
+    from .progress import reaction_progress
+
+    fit = _check_fit(fit, "plot_progress")
+    ax = _new_axes(ax)
+    s0, s1, d0, deq = _progress_window(fit)
+    t = fit.t
+    inside = (t >= s0) & (t < s1)
+    n_before = int(np.sum(t < s0))
+    n_after = int(np.sum(t >= s1))
+    if not inside.any():
+        end = f"the second switch (t = {s1:g})" if np.isfinite(s1) else "the last sample"
+        raise ValueError(f"plot_progress: no sample between the first switch (t = {s0:g}) and "
+                         f"{end}; the reaction progress plot needs samples after a switch")
+    tt, yy = t[inside], fit.y[inside]
+    sd = None if fit.sigma is None else fit.sigma[inside]
+    tab = reaction_progress(tt, yy, delta0=d0, delta_eq=deq, sd=sd)
+    tau = tt - s0
+    logv = tab["log_one_minus_F"].to_numpy(dtype=float)
+    sdl = tab["sd_log"].to_numpy(dtype=float)
+    flag = tab["flag"].to_numpy(dtype=str)
+    ok = flag == "ok"
+    # fitted curve on the window
+    hi = float(tt.max())
+    grid = _fine_grid(fit, s0, hi) if hi > s0 else np.array([s0])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        u = (fit.predict(grid) - deq) / (d0 - deq)
+        lcurve = np.where(u > 0, np.log(np.where(u > 0, u, 1.0)), np.nan)
+    ax.plot(grid - s0, lcurve, color=OKABE_ITO["blue"], linewidth=1.3,
+            label=f"fit, {_short_model(fit)}")
+    ekw = dict(fmt="o", markersize=3.5, color=OKABE_ITO["black"], elinewidth=0.8, capsize=1.5,
+               label="data")
+    if np.all(np.isfinite(sdl[ok])) and ok.any() and sd is not None:
+        ax.errorbar(tau[ok], logv[ok], yerr=sdl[ok], **ekw)
+    else:
+        ax.errorbar(tau[ok], logv[ok], **ekw)
+    # y range from the points and the curve (not the error bars, which explode near the
+    # plateau); room above and below for the edge markers
+    vals = np.concatenate([logv[ok], lcurve[np.isfinite(lcurve)], [0.0]])
+    lo_y, hi_y = float(np.min(vals)), float(np.max(vals))
+    pad = 0.12 * max(hi_y - lo_y, 0.5)
+    ax.set_ylim(lo_y - pad, hi_y + pad)
+    trans = mtransforms.blended_transform_factory(ax.transData, ax.transAxes)
+    past = flag == "F>=1"
+    before = flag == "F<=0"
+    if past.any():
+        ax.plot(tau[past], np.full(past.sum(), 0.03), marker="v", linestyle="none",
+                markersize=5, color=_FLAG, transform=trans, clip_on=False,
+                label=f"F ≥ 1, at edge (n = {int(past.sum())})")
+    if before.any():
+        ax.plot(tau[before], np.full(before.sum(), 0.97), marker="^", linestyle="none",
+                markersize=5, color=OKABE_ITO["reddish_purple"], transform=trans,
+                clip_on=False,
+                label=f"F ≤ 0, at edge (n = {int(before.sum())})")
+    notes = []
+    if n_before:
+        notes.append(f"not shown: {n_before} point{'s' if n_before > 1 else ''} before the "
+                     "switch")
+    if n_after:
+        notes.append(f"not shown: {n_after} point{'s' if n_after > 1 else ''} after the "
+                     "2nd switch")
+    _style(ax, f"Time since diet switch ({_unit(fit)})", "ln(1 − F)")
+    # ln(1 - F) falls from 0 at the switch: the upper right and lower left stay empty
+    if fit.model.diet is None:
+        tag0 = "fixed" if "delta0" in fit.fixed else "fitted"
+        tag1 = "fixed" if "delta_eq" in fit.fixed else "fitted"
+    else:
+        tag0 = tag1 = "from the fit"
+    ends = (f"δ$_0$ = {d0:.2f} ‰ ({tag0})\nδ$_\\mathrm{{eq}}$ = {deq:.2f} ‰ ({tag1})"
+            .replace("-", "−"))
+    if notes:
+        ends = "\n".join([ends] + notes)
+    if past.any() or before.any():
+        ax.add_line(Line2D([], [], linestyle="none", label="(no ln(1 − F) for these)"))
+    txt = ax.text(0.03, 0.05, ends, transform=ax.transAxes, ha="left", va="bottom",
+                  fontsize=_LEGEND_PT, color="#333333")
+    keep = _points((tau[ok], logv[ok]), ((grid - s0)[::8], lcurve[::8]))
+    leg = _legend(ax, first=("data",), loc="upper right")
+    _keep_clear(ax, [leg, txt], keep)
+    return ax
+
+
+# ----------------------------------------------------------------------------------------
+# plot_pools
+# ----------------------------------------------------------------------------------------
+def plot_pools(fit, ax=None, *, t_max=None):
+    r"""Contribution of each pool to the change still to come after a step switch.
+
+    Pool i contributes :math:`f_i e^{-k_i \tau}` to
+    :math:`1 - F(\tau) = \sum_i f_i e^{-k_i \tau}`; with growth dilution each term is
+    multiplied by :math:`W(s)/W(s + \tau)` (s the first switch; :math:`e^{-k_g\tau}` for
+    exponential growth) and :math:`k_i` are catabolic rates. The legend gives each pool's
+    fraction and half-life :math:`\ln 2/k_i` (incorporation or catabolic, as the fit's
+    ``rate_kind``).
+    For the precursor–product chain, which has no pools, its single response
+    :math:`(k_1 e^{-k_2\tau} - k_2 e^{-k_1\tau})/(k_1 - k_2)` is drawn with both step
+    half-lives.
+
+    The curves are the response to one step switch at τ = 0, without the lag of a fit that
+    has one. Pool fractions describe the shape of the curve; they need not be physical
+    compartments.
+
+    Parameters
+    ----------
+    fit : TurnoverFit
+    ax : matplotlib Axes, optional
+    t_max : float, optional
+        End of the time axis (time since the switch; default the last sample's).
+
+    Returns
+    -------
+    matplotlib Axes
+    """
+    fit = _check_fit(fit, "plot_pools")
+    ax = _new_axes(ax)
+    kin = fit.kinetics
+    v = fit.values
+    s0 = float(kin.switch_times[0])
+    span = float(fit.t.max() - s0)
+    if t_max is None:
+        t_max = span if span > 0 else 1.0
+    try:
+        t_max = float(t_max)
+    except (TypeError, ValueError):
+        raise ValueError(f"'t_max' must be a positive number; got {t_max!r}") from None
+    if not (math.isfinite(t_max) and t_max > 0):
+        raise ValueError(f"'t_max' must be a positive number; got {t_max!r}")
+    tau = np.linspace(0.0, t_max, 400)
+    unit = _unit(fit)
+    theta = np.array([v[n] for n in kin.param_names])
+    rk = "catabolic" if fit.rate_kind == "catabolic" else "incorporation"
+    if kin.structure == "chain":
+        total = kin.remaining(tau, theta)
+        hl = [math.log(2) / v[n] for n in kin.rate_names]
+        ax.plot(tau, total, color=OKABE_ITO["black"], linewidth=1.4,
+                label=f"chain: t½ {_num(hl[0])} and {_num(hl[1])} {unit}")
+    else:
+        ks = np.array([v[n] for n in kin.rate_names])
+        fs = np.array([v[n] for n in kin.fraction_names])
+        factor = np.ones_like(tau)
+        if kin.growth_kind is not None:
+            # growth dilution W(s)/W(s + tau) (exp(-k_g tau) for exponential growth)
+            lw = np.asarray(kin.log_mass(np.concatenate([[s0], s0 + tau]), theta), dtype=float)
+            factor = np.exp(lw[0] - lw[1:])
+        parts = fs[:, None] * np.exp(-ks[:, None] * tau[None, :]) * factor[None, :]
+        for i in range(ks.size):
+            hl = math.log(2) / ks[i]
+            ax.plot(tau, parts[i], color=_color(i), linewidth=1.2,
+                    linestyle=("-", "--", "-.", ":")[i % 4],
+                    label=f"pool {i + 1}: f = {fs[i]:.2f}, t½ = {_num(hl)} {unit}")
+        if ks.size > 1:
+            ax.plot(tau, parts.sum(axis=0), color=OKABE_ITO["black"], linewidth=1.5,
+                    label="sum, 1 − F")
+    ax.set_ylim(0.0, 1.05)
+    ax.set_xlim(0.0, t_max)
+    _style(ax, f"Time since diet switch ({unit})", "Share of change to come, 1 − F")
+    lines = [(ln.get_xdata()[::8], ln.get_ydata()[::8]) for ln in ax.get_lines()]
+    _legend(ax, title=f"{rk} half-lives", keep=_points(*lines))
+    return ax
+
+
+# ----------------------------------------------------------------------------------------
+# plot_growth
+# ----------------------------------------------------------------------------------------
+def _share_values(obj, n):
+    import pandas as pd
+
+    if isinstance(obj, pd.DataFrame):
+        for col in ("growth_share", "share"):
+            if col in obj.columns:
+                return np.asarray(obj[col], dtype=float)
+        raise ValueError("growth_share_curve(t) returned a table without a 'growth_share' "
+                         f"or 'share' column (columns: {', '.join(map(str, obj.columns))})")
+    a = np.asarray(obj, dtype=float).ravel()
+    if a.size != n:
+        raise ValueError(f"growth_share_curve(t) returned {a.size} values for {n} times")
+    return a
+
+
+def plot_growth(growth_fit, ax=None, *, turnover_fit=None, mass_unit=None, time_unit=None):
+    """Body masses and the fitted growth curve (and the growth share of the change).
+
+    Parameters
+    ----------
+    growth_fit : GrowthFit
+        From :func:`isoturnover.fit_growth` (needs ``t``, ``mass`` and ``predict(t)``).
+    ax : matplotlib Axes, optional
+    turnover_fit : TurnoverFit, optional
+        A turnover fit with growth dilution. When it offers ``growth_share_curve(t)`` (the
+        part of the change up to t that growth alone would have produced, divided by the
+        whole change) that curve is drawn on a second y axis (0–1).
+    mass_unit : str, optional
+        Unit of the masses for the axis label (e.g. ``"g"``).
+    time_unit : str, optional
+        Time unit (default the turnover fit's, else ``"d"``).
+
+    Returns
+    -------
+    matplotlib Axes
+        The mass axis (the share axis, when drawn, is its twin: ``ax.right_ax``).
+    """
+    for attr in ("t", "mass", "predict"):
+        if not hasattr(growth_fit, attr):
+            raise TypeError(f"plot_growth: 'growth_fit' must be a GrowthFit (from fit_growth) "
+                            f"with t, mass and predict(); got {type(growth_fit).__name__}, "
+                            f"which lacks {attr!r}")
+    if turnover_fit is not None:
+        _check_fit(turnover_fit, "plot_growth")
+        if turnover_fit.rate_kind != "catabolic":
+            raise ValueError("plot_growth: 'turnover_fit' has no growth model (its rates are "
+                             "incorporation rates); pass a fit made with growth=…")
+    unit_code = time_unit or (turnover_fit.time_unit if turnover_fit is not None else "d")
+    ax = _new_axes(ax)
+    t = np.asarray(growth_fit.t, dtype=float)
+    m = np.asarray(growth_fit.mass, dtype=float)
+    grid = np.linspace(float(t.min()), float(t.max()), 300)
+    ax.plot(t, m, "o", markersize=3.5, color=OKABE_ITO["black"], linestyle="none",
+            label="mass")
+    curve = getattr(growth_fit, "curve", "growth")
+    mass_curve = np.asarray(growth_fit.predict(grid), dtype=float)
+    ax.plot(grid, mass_curve, color=OKABE_ITO["blue"], linewidth=1.3,
+            label=f"fitted {str(curve).replace('_', ' ')} curve")
+    xlabel = (f"Time since diet switch ({_unit(unit_code)})" if turnover_fit is not None
+              else f"Time ({_unit(unit_code)})")
+    _style(ax, xlabel, f"Body mass ({mass_unit})" if mass_unit else "Body mass")
+    handles, labels = ax.get_legend_handles_labels()
+    if turnover_fit is not None:
+        if hasattr(turnover_fit, "growth_share_curve"):
+            share = _share_values(turnover_fit.growth_share_curve(grid), grid.size)
+            ax2 = ax.twinx()
+            c = OKABE_ITO["vermillion"]
+            ln = ax2.plot(grid, share, color=c, linewidth=1.2, linestyle="--",
+                          label="growth share of the change")
+            ax2.set_ylim(0.0, 1.0)
+            ax2.set_ylabel("Growth share of the change", fontsize=_LABEL_PT, color=c)
+            ax2.tick_params(labelsize=_TICK_PT, colors=c, axis="y")
+            handles += ln
+            labels += [ln[0].get_label()]
+            ax.right_ax = ax2
+        else:
+            warnings.warn("plot_growth: 'turnover_fit' offers no growth_share_curve(t); the "
+                          "growth share is not drawn", IsoturnoverWarning, stacklevel=2)
+    if hasattr(ax, "right_ax"):
+        # two y axes: the legend goes above the plot, where it can cover neither curve
+        ax.legend(handles, labels, loc="lower left", bbox_to_anchor=(0.0, 1.01), ncol=2,
+                  frameon=False, fontsize=_LEGEND_PT, borderaxespad=0.0, handlelength=1.6,
+                  columnspacing=1.0)
+        return ax
+    leg = ax.legend(handles, labels, loc="best", framealpha=0.85, fontsize=_LEGEND_PT,
+                    labelspacing=0.3, borderpad=0.35, handlelength=1.6)
+    _keep_clear(ax, [leg], _points((t, m), (grid[::8], mass_curve[::8])))
+    return ax
+
+
+# ----------------------------------------------------------------------------------------
+# plot_weights
+# ----------------------------------------------------------------------------------------
+_CRIT = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}
+
+
+def plot_weights(fitset, ax=None):
+    """Akaike weights of the candidate models of every series (stacked horizontal bars).
+
+    One bar per series, labelled by its key; each candidate has its colour (Okabe–Ito), in
+    the same place on every bar. A series that could not be fitted is an empty, dashed bar
+    with its status written in it. Weights :math:`w_i = e^{-\\Delta_i/2}/\\sum_j
+    e^{-\\Delta_j/2}` of the FitSet's criterion (Burnham & Anderson 2002); a candidate that
+    failed in an otherwise fitted series has weight 0.
+
+    Parameters
+    ----------
+    fitset : FitSet
+        From :func:`isoturnover.fit_each`.
+    ax : matplotlib Axes, optional
+        Default: a 3.5 in wide figure, 0.25 in per series.
+
+    Returns
+    -------
+    matplotlib Axes
+    """
+    from .groups import FitSet
+
+    if not isinstance(fitset, FitSet):
+        raise TypeError(f"plot_weights: 'fitset' must be a FitSet (from fit_each); got "
+                        f"{type(fitset).__name__}")
+    if len(fitset) == 0:
+        raise ValueError("plot_weights: 'fitset' holds no series")
+    n = len(fitset)
+    ax = _new_axes(ax, size=(SINGLE[0], 1.0 + 0.25 * n))
+    cands = []
+    for r in fitset.values():
+        for lab in list(r.reasons) + list(r.fits):
+            if lab not in cands:
+                cands.append(lab)
+    colors = {c: _color(i) for i, c in enumerate(cands)}
+    ylabels = []
+    drawn = set()
+    for yi, (key, r) in enumerate(fitset.items()):
+        ylabels.append(" / ".join(map(str, key)))
+        if r.status != "ok" or r.comparison is None:
+            ax.barh(yi, 1.0, height=0.7, fill=False, edgecolor=_GREY, linestyle="--",
+                    linewidth=0.8)
+            ax.text(0.5, yi, f"not fitted: {str(r.status).replace('_', ' ')}", ha="center",
+                    va="center", fontsize=_LEGEND_PT - 0.5, color="#444444")
+            continue
+        w = dict(zip(r.comparison["label"].astype(str), r.comparison["weight"].astype(float)))
+        left = 0.0
+        for c in cands:
+            wi = float(w.get(c, 0.0))
+            if not wi > 0:
+                continue
+            ax.barh(yi, wi, left=left, height=0.7, color=colors[c], edgecolor="white",
+                    linewidth=0.5, label=c if c not in drawn else None)
+            drawn.add(c)
+            left += wi
+    ax.set_yticks(range(n))
+    ax.set_yticklabels(ylabels)
+    ax.set_ylim(n - 0.5, -0.5)
+    ax.set_xlim(0.0, 1.0)
+    crit = _CRIT.get(fitset.criterion, str(fitset.criterion))
+    _style(ax, f"{'Akaike' if crit != 'BIC' else 'Model'} weight ({crit})", "")
+    handles, labels = ax.get_legend_handles_labels()
+    order = sorted(range(len(labels)), key=lambda i: cands.index(labels[i]))
+    if handles:
+        ax.legend([handles[i] for i in order], [labels[i] for i in order], loc="lower left",
+                  bbox_to_anchor=(0.0, 1.01), ncol=min(len(handles), 4), frameon=False,
+                  fontsize=_LEGEND_PT, borderaxespad=0.0, handlelength=1.2,
+                  columnspacing=1.0)
+    return ax
+
+
+# ----------------------------------------------------------------------------------------
+# plot_overview
+# ----------------------------------------------------------------------------------------
+def plot_overview(fit, *, level=0.95):
+    """Three panels for a report: (a) fit with band, (b) residuals, (c) reaction progress.
+
+    Parameters
+    ----------
+    fit : TurnoverFit
+    level : float, default=0.95
+        Level of the confidence band in panel (a).
+
+    Returns
+    -------
+    matplotlib Figure
+        7 × 5 in (two journal columns): the fit across the top, residuals and reaction
+        progress below; constrained layout.
+    """
+    import matplotlib.pyplot as plt
+
+    fit = _check_fit(fit, "plot_overview")
+    fig = plt.figure(figsize=(DOUBLE[0], 5.0), layout="constrained")
+    try:
+        gs = fig.add_gridspec(2, 2)
+        axes = [fig.add_subplot(gs[0, :]), fig.add_subplot(gs[1, 0]),
+                fig.add_subplot(gs[1, 1])]
+        plot_fit(fit, axes[0], level=level)
+        plot_residuals(fit, axes[1])
+        plot_progress(fit, axes[2])
+        for a, letter in zip(axes, "abc"):
+            a.set_title(letter, loc="left", fontsize=_LABEL_PT + 1, fontweight="bold")
+        if fit.label:
+            fig.suptitle(str(fit.label), fontsize=_LABEL_PT)
+    except BaseException:
+        plt.close(fig)
+        raise
+    return fig
