@@ -305,11 +305,6 @@ def test_compare_refuses_growth_fits_on_other_scales(growth_fits):
         iso.compare([fits[0], natural])
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "GrowthFit counts K = nvarys in its AIC/AICc/BIC, TurnoverFit counts K = nvarys + 1 "
-    "(the estimated residual variance, Burnham & Anderson 2002, least-squares case); the "
-    "AICc correction of growth curves is therefore too small and n_params in compare() "
-    "means different things for the two kinds of fit"))
 def test_growth_fit_criteria_count_the_residual_variance(growth_fits):
     # Burnham & Anderson 2002 (least-squares case): with σ estimated, K = p + 1.
     _, _, fits = growth_fits
