@@ -9,7 +9,7 @@ from __future__ import annotations
 from importlib.metadata import PackageNotFoundError
 from importlib.metadata import version as _version
 
-from . import isotopes
+from . import isotopes, plotting
 from .analysis import analyse, load_fits, run_demo
 from .compare import compare, lr_test
 from .data import average_replicates, read_diets, read_masses, read_samples, series
@@ -33,6 +33,7 @@ from .groups import FitSet, fit_each
 from .growth import GrowthCurve, GrowthFit, fit_growth, fit_growth_each, load_growth
 from .model import TurnoverModel
 from .progress import reaction_progress
+from .report import write_report
 from .results import TurnoverFit, load_fit
 
 try:
@@ -43,6 +44,8 @@ except PackageNotFoundError:  # pragma: no cover - running from a source tree
 __all__ = [
     "__version__",
     "isotopes",
+    "plotting",
+    "write_report",
     "DietHistory",
     "TurnoverModel",
     "compare",

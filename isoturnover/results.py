@@ -1120,6 +1120,8 @@ class TurnoverFit:
                 units[nm] = _unit_word(unit)
             elif nm in kin.fraction_names:
                 units[nm] = "fraction"
+            elif nm.startswith("growth_"):
+                units[nm] = "growth-curve parameter"
             else:
                 units[nm] = "‰"
         ci = ci.rename(columns={"parameter": "quantity"})
