@@ -1,0 +1,168 @@
+"""The command line: every malformed file gives exit status 2, one `error:` line, and nothing
+written; the demo and fit commands write their outputs; a non-empty folder is refused."""
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from isoturnover.cli import main
+
+GOOD = (
+    "subject,tissue,isotope,time,value,sd\n"
+    + "".join(
+        f"a,plasma,d13C,{t},{-12 + (-25 + 12) * np.exp(-np.log(2) / 8 * t) + e:.3f},0.1\n"
+        for t, e in zip([0, 1, 2, 4, 7, 10, 14, 21, 28, 42, 56, 70],
+                        np.random.default_rng(4).normal(0, 0.1, 12))
+    )
+)
+
+BAD_SAMPLES = {
+    "empty": ("", r"empty"),
+    "header_only": ("subject,tissue,isotope,time,value\n", r"no data|empty"),
+    "missing_column": (GOOD.replace("time", "Tme", 1), r"time"),
+    "duplicate_columns": (GOOD.replace("sd\n", "value\n", 1), r"[Dd]uplicate"),
+    "non_numeric": (GOOD.replace("-25.000", "abc").replace(",0,", ",abc,", 1), r"abc"),
+    "decimal_comma": (GOOD.replace(",7,", ',"7,5",', 1), r"decimal comma|7,5"),
+    "blank_value": (GOOD.replace("a,plasma,d13C,4,", "a,plasma,d13C,,", 1), r"blank|time"),
+    "unknown_isotope": (GOOD.replace("d13C", "13C", 1), r"13C"),
+    "sd_not_positive": (GOOD.replace(",0.1\n", ",0\n", 1), r"sd"),
+}
+
+
+def run(argv, capsys):
+    code = main(argv)
+    out = capsys.readouterr()
+    return code, out.out, out.err
+
+
+def assert_one_error_line(err):
+    lines = [ln for ln in err.strip().splitlines() if ln.strip()]
+    assert len(lines) == 1, err
+    assert lines[0].startswith("error: "), err
+    assert "Traceback" not in err
+
+
+@pytest.mark.parametrize("case", sorted(BAD_SAMPLES))
+def test_malformed_samples_exit_2_one_line_nothing_written(case, tmp_path, capsys):
+    text, pattern = BAD_SAMPLES[case]
+    f = tmp_path / "samples.csv"
+    f.write_text(text, encoding="utf-8")
+    out = tmp_path / "out"
+    code, _, err = run(["fit", str(f), "--out", str(out), "--no-figures"], capsys)
+    assert code == 2
+    assert_one_error_line(err)
+    import re
+
+    assert re.search(pattern, err), err
+    assert not out.exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["samples.csv"]
+
+
+def test_missing_file(tmp_path, capsys):
+    code, _, err = run(["fit", str(tmp_path / "nope.csv"), "--out", str(tmp_path / "o")],
+                       capsys)
+    assert code == 2
+    assert_one_error_line(err)
+    assert "nope.csv" in err
+    assert not (tmp_path / "o").exists()
+
+
+def test_binary_file(tmp_path, capsys):
+    f = tmp_path / "samples.csv"
+    f.write_bytes(b"subject,tissue\x00\xff\xfe,isotope\n\x89PNG\x00\x00")
+    code, _, err = run(["fit", str(f), "--out", str(tmp_path / "o")], capsys)
+    assert code == 2
+    assert_one_error_line(err)
+    assert "UTF-8" in err or "text" in err
+
+
+def test_bad_dates_in_samples(tmp_path, capsys):
+    f = tmp_path / "samples.csv"
+    f.write_text("subject,tissue,isotope,date,value\na,plasma,d13C,2024-13-45,-20\n"
+                 "a,plasma,d13C,2024-01-03,-19\n", encoding="utf-8")
+    code, _, err = run(["fit", str(f), "--out", str(tmp_path / "o")], capsys)
+    assert code == 2
+    assert_one_error_line(err)
+
+
+def test_bad_diets_and_masses(tmp_path, capsys):
+    s = tmp_path / "samples.csv"
+    s.write_text(GOOD, encoding="utf-8")
+    d = tmp_path / "diets.csv"
+    d.write_text("subject,isotope,start,value\na,d13C,0,-12\na,d13C,0,-26\n", encoding="utf-8")
+    code, _, err = run(["fit", str(s), "--diets", str(d), "--out", str(tmp_path / "o")], capsys)
+    assert code == 2
+    assert_one_error_line(err)
+    assert "start" in err
+    m = tmp_path / "masses.csv"
+    m.write_text("subject,time,mass\na,0,10\na,7,-1\na,14,12\n", encoding="utf-8")
+    code, _, err = run(["fit", str(s), "--masses", str(m), "--out", str(tmp_path / "o")], capsys)
+    assert code == 2
+    assert_one_error_line(err)
+    assert "mass" in err
+    assert not (tmp_path / "o").exists()
+
+
+def test_no_series_fitted_exit_2(tmp_path, capsys):
+    f = tmp_path / "samples.csv"
+    f.write_text("subject,tissue,isotope,time,value\na,plasma,d13C,0,-20\na,plasma,d13C,1,-19\n",
+                 encoding="utf-8")
+    code, _, err = run(["fit", str(f), "--out", str(tmp_path / "o")], capsys)
+    assert code == 2
+    assert_one_error_line(err)
+    assert "no series could be fitted" in err
+    assert not (tmp_path / "o").exists()
+
+
+def test_fit_writes_results_and_refuses_non_empty_folder(tmp_path, capsys):
+    from isoturnover import load_fits
+
+    f = tmp_path / "samples.csv"
+    f.write_text(GOOD, encoding="utf-8")
+    out = tmp_path / "out"
+    code, stdout, err = run(["fit", str(f), "--out", str(out), "--pools", "1,2"], capsys)
+    assert code == 0, err
+    names = {p.name for p in out.iterdir()}
+    assert {"results.csv", "fits.json", "report.md", "report.html"} <= names
+    tab = pd.read_csv(out / "results.csv")
+    assert set(tab["candidate"]) == {"1 pool", "2 pools"}
+    assert tab["chosen"].sum() == 1
+    assert {"half_life_1", "lower_1", "upper_1", "lower_status_1"} <= set(tab.columns)
+    fits = load_fits(out / "fits.json")
+    chosen = [e for e in fits if e["chosen"]][0]
+    assert abs(chosen["fit"].half_lives()["half_life"].iloc[0] - 8.0) < 1.0
+    assert "animal-care" in stdout
+    # a second run into the same folder is refused without --force
+    before = sorted((p.name, p.stat().st_mtime_ns) for p in out.rglob("*"))
+    code, _, err = run(["fit", str(f), "--out", str(out)], capsys)
+    assert code == 2
+    assert_one_error_line(err)
+    assert "--force" in err
+    assert sorted((p.name, p.stat().st_mtime_ns) for p in out.rglob("*")) == before
+    code, _, err = run(["fit", str(f), "--out", str(out), "--force", "--no-figures"], capsys)
+    assert code == 0, err
+    json.loads((out / "fits.json").read_text(encoding="utf-8"))
+
+
+def test_debug_shows_traceback(tmp_path):
+    # through the installed console script's module, in a subprocess
+    r = subprocess.run([sys.executable, "-m", "isoturnover", "fit", str(tmp_path / "x.csv"),
+                        "--debug"], capture_output=True, text=True)
+    assert r.returncode != 0
+    assert "Traceback" in r.stderr
+    r = subprocess.run([sys.executable, "-m", "isoturnover", "fit", str(tmp_path / "x.csv")],
+                       capture_output=True, text=True)
+    assert r.returncode == 2
+    assert r.stderr.startswith("error: ") and "Traceback" not in r.stderr
+
+
+def test_help_and_version(capsys):
+    assert main([]) == 0
+    assert "isoturnover" in capsys.readouterr().out
+    with pytest.raises(SystemExit) as e:
+        main(["--version"])
+    assert e.value.code == 0
