@@ -390,6 +390,9 @@ class TurnoverKinetics:
             names += [f"growth_{p}" for p in self._gcurve.params]
         self.param_names = tuple(names)
         self.n_params = len(names)
+        self._simple_step = (self.diet is None and self.structure == "parallel"
+                             and not self.lag and self.growth_kind is None
+                             and self._atom is None and self.initial == "equilibrium")
 
     @property
     def separation_names(self) -> tuple[str, ...]:
@@ -435,6 +438,8 @@ class TurnoverKinetics:
         """
         t = np.asarray(t, dtype=float)
         theta = np.asarray(theta, dtype=float)
+        if self._simple_step:
+            return self._evaluate_step(t, theta, jacobian)
         L, dL = self._levels(theta)
         lag = theta[self._lag_index] if self._lag_index is not None else 0.0
         s = self.switch_times + lag  # (m,)
@@ -522,6 +527,29 @@ class TurnoverKinetics:
         coef[m] = R[m - 1]
         J += coef.T @ dLw
         return self._out(y, J)
+
+    def _evaluate_step(self, t, theta, jacobian):
+        """Fast path: one step at t = 0, parallel pools, δ scale, no lag, no growth.
+
+        δ = δ_eq + (δ0 − δ_eq) Σ f_i e^{−k_i t⁺} (same values as the general path).
+        """
+        d0, de = theta[0], theta[1]
+        p = self.pools
+        k = theta[2:2 + p]
+        f = theta[2 + p:2 + 2 * p]
+        tp = np.maximum(t, 0.0)
+        E = np.exp(-np.outer(k, tp))  # (p, n)
+        S = f @ E
+        amp = d0 - de
+        y = de + amp * S
+        if not jacobian:
+            return y
+        J = np.empty((t.size, self.n_params))
+        J[:, 0] = S
+        J[:, 1] = 1.0 - S
+        J[:, 2:2 + p] = (-amp * f[:, None] * tp[None, :] * E).T
+        J[:, 2 + p:2 + 2 * p] = amp * E.T
+        return y, J
 
     def _out(self, y, J):
         if self._atom is None:

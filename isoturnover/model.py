@@ -26,7 +26,7 @@ import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.optimize import least_squares
+from scipy.optimize import least_squares, leastsq
 
 from .diet import DietHistory
 from .errors import DataError, FitError
@@ -293,6 +293,21 @@ class _Coordinates:
 # The least-squares problem
 # ----------------------------------------------------------------------------------------
 @dataclass
+class _LMResult:
+    """The parts of a MINPACK result the engine uses (status as in least_squares)."""
+
+    x: np.ndarray
+    ier: int
+    nfev: int
+    message: str
+
+    @property
+    def status(self) -> int:
+        # leastsq: 1-4 converged; 5 = maxfev reached; 6-8 tolerances too small
+        return self.ier if self.ier in (1, 2, 3, 4) else (0 if self.ier == 5 else -1)
+
+
+@dataclass
 class _Solution:
     z: np.ndarray
     theta: np.ndarray
@@ -359,8 +374,12 @@ class _Problem:
         with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
             try:
                 if use_lm:
-                    res = least_squares(fun, z0, jac=jac, method="lm", xtol=tol, ftol=tol,
-                                        gtol=tol, max_nfev=max_nfev, x_scale="jac")
+                    # MINPACK lmder directly (what least_squares(method="lm") calls, without
+                    # its per-call overhead); diag scaling from the Jacobian's columns
+                    x, _, info, msg, ier = leastsq(fun, z0, Dfun=jac, full_output=True,
+                                                   xtol=tol, ftol=tol, gtol=tol,
+                                                   maxfev=max_nfev)
+                    res = _LMResult(x, ier, info["nfev"], msg)
                 else:
                     bounds = (coords.lower, np.full(coords.size, np.inf))
                     z0b = np.clip(z0, coords.lower + 1e-12 * (np.isfinite(coords.lower)),
