@@ -804,7 +804,9 @@ def plot_weights(fitset, ax=None):
     if len(fitset) == 0:
         raise ValueError("plot_weights: 'fitset' holds no series")
     n = len(fitset)
-    ax = _new_axes(ax, size=(SINGLE[0], 1.0 + 0.25 * n))
+    longest = max(len(" / ".join(map(str, k))) for k in fitset)
+    width = SINGLE[0] if longest <= 22 else DOUBLE[0]  # long labels: a two-column figure
+    ax = _new_axes(ax, size=(width, 1.0 + 0.25 * n))
     cands = []
     for r in fitset.values():
         for lab in list(r.reasons) + list(r.fits):
@@ -837,8 +839,12 @@ def plot_weights(fitset, ax=None):
     ax.set_xlim(0.0, 1.0)
     crit = _CRIT.get(fitset.criterion, str(fitset.criterion))
     _style(ax, f"{'Akaike' if crit != 'BIC' else 'Model'} weight ({crit})", "")
-    handles, labels = ax.get_legend_handles_labels()
-    order = sorted(range(len(labels)), key=lambda i: cands.index(labels[i]))
+    from matplotlib.patches import Patch
+
+    # every candidate in the legend, also those with weight ~0 everywhere
+    handles = [Patch(facecolor=colors[c], edgecolor="white") for c in cands]
+    labels = list(cands)
+    order = list(range(len(labels)))
     if handles:
         ax.legend([handles[i] for i in order], [labels[i] for i in order], loc="lower left",
                   bbox_to_anchor=(0.0, 1.01), ncol=min(len(handles), 4), frameon=False,
