@@ -9,7 +9,7 @@ from __future__ import annotations
 from importlib.metadata import PackageNotFoundError
 from importlib.metadata import version as _version
 
-from . import isotopes, plotting
+from . import isotopes, plotting, uncertainty
 from .analysis import analyse, load_fits, run_demo
 from .compare import compare, lr_test
 from .data import average_replicates, read_diets, read_masses, read_samples, series
@@ -45,6 +45,7 @@ __all__ = [
     "__version__",
     "isotopes",
     "plotting",
+    "uncertainty",
     "write_report",
     "DietHistory",
     "TurnoverModel",

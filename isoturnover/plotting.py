@@ -285,7 +285,8 @@ def _isotope_of(fit):
 def _y_label(fit):
     lab = delta_label(_isotope_of(fit))
     tissue = fit.data_info.get("tissue")
-    return f"{str(tissue).capitalize()} {lab}" if tissue else f"Tissue {lab}"
+    name = str(tissue).replace("_", " ")
+    return f"{name[:1].upper() + name[1:]} {lab}" if tissue else f"Tissue {lab}"
 
 
 def _time_label(fit):
@@ -523,9 +524,9 @@ def plot_progress(fit, ax=None):
     ax = _new_axes(ax)
     s0, s1, d0, deq = _progress_window(fit)
     t = fit.t
-    inside = (t >= s0) & (t < s1)
+    inside = (t >= s0) & (t <= s1)  # a sample on the switch day reflects the old diet
     n_before = int(np.sum(t < s0))
-    n_after = int(np.sum(t >= s1))
+    n_after = int(np.sum(t > s1))
     if not inside.any():
         end = f"the second switch (t = {s1:g})" if np.isfinite(s1) else "the last sample"
         raise ValueError(f"plot_progress: no sample between the first switch (t = {s0:g}) and "

@@ -671,7 +671,7 @@ def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="p
     if not isinstance(title, str) or not title.strip():
         raise ValueError(f"'title' must be a non-empty string; got {title!r}")
     level = _check_level(level)
-    method = _check_method(method)
+    method = _check_method(method, ("profile", "asymptotic"))
     if not isinstance(figures, bool):
         raise TypeError(f"'figures' must be True or False; got {figures!r}")
     if not isinstance(overwrite, bool):

@@ -46,7 +46,7 @@ from .errors import (
 
 __all__ = ["TurnoverFit", "load_fit", "TrustNote", "Summary", "METHODS"]
 
-METHODS = ("profile", "asymptotic")
+METHODS = ("profile", "asymptotic", "bootstrap", "mcmc")
 LN2 = math.log(2.0)
 STATUSES = ("ok", "open", "at_bound", "failed", "fixed", "not_available")
 
@@ -692,6 +692,8 @@ class TurnoverFit:
         if name in self._implicit_fixed():
             v = float(self.values[name])
             return v, v, "fixed", "fixed"
+        if method in ("bootstrap", "mcmc"):
+            return self._resampled_interval(name, level, method)
         if method == "profile" and self.loss == "linear":
             return self._profile(name, level)
         return self._asymptotic(name, level)
@@ -699,7 +701,73 @@ class TurnoverFit:
     def _method_used(self, method):
         if method == "profile" and self.loss != "linear":
             return "asymptotic"
+        if method == "bootstrap":
+            return "bootstrap (percentile)"
         return method
+
+    def _resampled_interval(self, name, level, method):
+        """Interval of a parameter or derived quantity from the stored bootstrap / MCMC."""
+        if method == "bootstrap":
+            if getattr(self, "_boot", None) is None:
+                self.bootstrap()
+            tab = self._boot.intervals(level, method="percentile")
+        else:
+            if getattr(self, "_mcmc", None) is None:
+                self.sample()
+            tab = self._mcmc.intervals(level)
+        row = tab[tab["parameter"] == name]
+        if not len(row):
+            return math.nan, math.nan, "not_available", "not_available"
+        r = row.iloc[0]
+        return float(r["lower"]), float(r["upper"]), str(r["lower_status"]), \
+            str(r["upper_status"])
+
+    # -- resampling and bands (isoturnover.uncertainty) ----------------------------------
+    def bootstrap(self, n=999, kind="residual", rng=0, n_jobs=1, progress=None,
+                  quantities=None, **kwargs):
+        """Bootstrap this fit (see :func:`isoturnover.uncertainty.bootstrap`).
+
+        The result is kept on the fit: ``method="bootstrap"`` in :meth:`conf_int`,
+        :meth:`half_lives` and :meth:`time_to` then uses it (percentile intervals). Seeded
+        (``rng=0`` by default) and reproducible whatever ``n_jobs``.
+        """
+        from .uncertainty import bootstrap
+
+        self._boot = bootstrap(self, n=n, kind=kind, rng=rng, n_jobs=n_jobs,
+                               progress=progress, quantities=quantities, **kwargs)
+        return self._boot
+
+    def sample(self, **kwargs):
+        """MCMC draws of this fit's posterior (see :func:`isoturnover.uncertainty.sample`).
+
+        Needs the ``mcmc`` extra (emcee). Kept on the fit for ``method="mcmc"``.
+        """
+        from .uncertainty import sample
+
+        kwargs.setdefault("rng", 0)
+        self._mcmc = sample(self, **kwargs)
+        return self._mcmc
+
+    def profile(self, fn, level=0.95, **kwargs):
+        """Profile-likelihood interval of a derived quantity ``fn(theta)``.
+
+        See :func:`isoturnover.uncertainty.profile_derived`; ``theta`` is the natural
+        parameter vector in the order of ``fit.kinetics.param_names``.
+        """
+        from .uncertainty import profile_derived
+
+        return profile_derived(self, fn, _check_level(level), **kwargs)
+
+    def band(self, t, level=0.95, kind="confidence", method="delta", boot=None, **kwargs):
+        """Confidence or prediction band of the fitted curve at times ``t``.
+
+        See :func:`isoturnover.uncertainty.band`; columns time, fitted, lower, upper.
+        """
+        from .uncertainty import band
+
+        if method == "bootstrap" and boot is None:
+            boot = getattr(self, "_boot", None) or self.bootstrap()
+        return band(self, t, level=level, kind=kind, method=method, boot=boot, **kwargs)
 
     def conf_int(self, level=0.95, method="profile", params=None) -> pd.DataFrame:
         """Confidence intervals of every parameter (long table).
@@ -821,7 +889,7 @@ class TurnoverFit:
             and kin.growth_kind is None
         for p in fr:
             est = self._time_to(p, self._theta)
-            if simple:
+            if simple and method in ("profile", "asymptotic"):
                 lo_k, hi_k, ls, hs = self._interval("k1", level, method)
                 c = -math.log(1 - p)
                 lo = c / hi_k if hi_k > 0 else 0.0
@@ -831,9 +899,18 @@ class TurnoverFit:
                              "level": level, "method": m, "lower_status": hs,
                              "upper_status": ls, "time_unit": self.time_unit})
                 continue
-            lo, hi, ls, hs = self._delta_log(lambda th, p=p: self._time_to(p, th), est, level)
+            if method == "bootstrap" and abs(p - 0.95) < 1e-12:
+                lo, hi, ls, hs = self._resampled_interval("time_to_95", level, "bootstrap")
+                m = "bootstrap (percentile)"
+            elif method == "profile" and self.loss == "linear":
+                lo, hi, ls, hs, m = self._derived_interval(
+                    lambda th, p=p: self._time_to(p, th), est, level, "profile", scale="log")
+            else:
+                lo, hi, ls, hs = self._delta_log(lambda th, p=p: self._time_to(p, th), est,
+                                                 level)
+                m = "asymptotic"
             rows.append({"fraction": p, "estimate": est, "lower": lo, "upper": hi,
-                         "level": level, "method": "asymptotic", "lower_status": ls,
+                         "level": level, "method": m, "lower_status": ls,
                          "upper_status": hs, "time_unit": self.time_unit})
         return pd.DataFrame(rows)
 
@@ -878,9 +955,21 @@ class TurnoverFit:
         if kin.growth_kind in ("curve", "curve_params"):
             from scipy import integrate
 
-            upper = 50.0 / float(np.min(ks))
-            m = float(integrate.quad(lambda x: float(self._remaining_at(np.array([x]), v)[0]),
-                                     0.0, upper, limit=200)[0])
+            def rem(x):
+                return float(self._remaining_at(np.array([x]), v)[0])
+
+            # integrate until the old material is gone; if it never goes (a catabolic rate
+            # of ~0 with growth levelling off) the mean residence time is infinite
+            upper = 10.0 / max(float(np.min(ks)), 1e-300)
+            span = max(float(np.ptp(self.t)), 1.0)
+            upper = min(upper, 1e4 * span)
+            while rem(upper) > 1e-10 and upper < 1e6 * span:
+                upper *= 4.0
+            if rem(upper) > 1e-6:
+                m = math.inf
+            else:
+                pts = np.geomspace(max(upper * 1e-6, 1e-12), upper, 12)
+                m = float(integrate.quad(rem, 0.0, upper, points=pts[:-1], limit=400)[0])
         elif kin.structure == "chain":
             m = float(np.sum(1.0 / ks))
         else:
@@ -1140,11 +1229,19 @@ class TurnoverFit:
                      "stderr": math.nan, "lower": tt["lower"], "upper": tt["upper"],
                      "level": level, "method": tt["method"], "lower_status": tt["lower_status"],
                      "upper_status": tt["upper_status"], "unit": _unit_word(unit)})
+        mrt = self.mean_residence_time()
+        if method == "bootstrap":
+            lo, hi, ls, hs = self._resampled_interval("mean_residence_time", level, method)
+            m = "bootstrap (percentile)"
+        elif np.isfinite(mrt):
+            lo, hi, ls, hs, m = self._derived_interval(self._mrt, mrt, level, method,
+                                                       scale="log")
+        else:
+            lo, hi, ls, hs, m = math.nan, math.inf, "not_available", "open", method
         rows.append({"quantity": "mean_residence_time", "kind": "derived",
-                     "estimate": self.mean_residence_time(), "stderr": math.nan,
-                     "lower": math.nan, "upper": math.nan, "level": level,
-                     "method": "not_available", "lower_status": "not_available",
-                     "upper_status": "not_available", "unit": _unit_word(unit)})
+                     "estimate": mrt, "stderr": math.nan, "lower": lo, "upper": hi,
+                     "level": level, "method": m, "lower_status": ls, "upper_status": hs,
+                     "unit": _unit_word(unit)})
         return pd.concat([ci, pd.DataFrame(rows)], ignore_index=True)
 
     def notes(self) -> list[str]:
@@ -1326,14 +1423,16 @@ class Summary:
     def _header(self):
         f = self.fit
         unit = _unit_word(f.time_unit)
+        rel = " (σ as relative weights)" if f.sigma is not None else ""
         if f.joint and f._engine.mass_block.kind == "prior":
-            weighting = (f"δ residual sd {f.block_scale[0]:.3g} ‰ estimated; growth-curve "
-                         "parameters carried with their uncertainty (Gaussian penalty from "
-                         "the growth fit), so profiles run over them too")
+            weighting = ("δ residual variance estimated" + rel + "; growth-curve parameters "
+                         "carried with their uncertainty (Gaussian penalty from the growth "
+                         "fit), so profiles run over them too")
         elif f.joint:
             sd_, sm_ = f.block_scale
+            unit = "" if f.sigma is not None else " ‰"
             weighting = (f"joint fit of δ and ln(body mass), each block weighted by its own "
-                         f"residual sd (s_δ = {sd_:.3g} ‰, s_ln W = {sm_:.3g})")
+                         f"residual sd (s_δ = {sd_:.3g}{unit}{rel}, s_ln W = {sm_:.3g})")
         elif f.sigma is None:
             weighting = "unweighted; residual variance estimated"
         elif f.absolute_sigma:
@@ -1341,7 +1440,11 @@ class Summary:
         else:
             weighting = "weights 1/σ² (relative); residual variance estimated"
         if f.joint:
-            s_text = f"{_fmt(f.block_scale[0])} ‰ (δ block)"
+            raw = f.y - f.best_fit
+            p_d = f.nvarys - (f._engine.mass_block.size if f._engine.mass_block.kind == "prior"
+                              else 1)
+            s_text = (f"{_fmt(math.sqrt(float(raw @ raw) / max(f.nobs - p_d, 1)))} ‰ "
+                      "(δ residuals)")
         else:
             s_text = _fmt(math.sqrt(f.s2)) if f.s2 > 0 else "—"
         rows = [
@@ -1393,7 +1496,7 @@ class Summary:
         tt = self.time_to.iloc[0]
         lines.append(f"  time to 95 % of a step change: {_fmt(tt['estimate'])} "
                      f"[{_bound(tt['lower'], tt['lower_status'])}, "
-                     f"{_bound(tt['upper'], tt['upper_status'])}] ({tt['method']})")
+                     f"{_bound(tt['upper'], tt['upper_status'])}] — {tt['method']}")
         lines.append(f"  mean residence time: {_fmt(f.mean_residence_time())}")
         if any(self.parameters["lower_status"].eq("at_bound")
                | self.parameters["upper_status"].eq("at_bound")):
@@ -1435,4 +1538,7 @@ class Summary:
         return "".join(out)
 
     def as_text(self):
+        return str(self)
+
+    def __repr__(self):
         return str(self)

@@ -89,7 +89,7 @@ except ImportError:  # pragma: no cover - depends on the environment
     HAS_JOBLIB = False
 
 try:  # optional: progress bars
-    from tqdm.auto import tqdm as _tqdm
+    from tqdm.std import tqdm as _tqdm  # text bar: no ipywidgets needed in notebooks
 
     HAS_TQDM = True
 except ImportError:  # pragma: no cover - depends on the environment

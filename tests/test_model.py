@@ -137,11 +137,12 @@ def test_bad_input_raises_clear_error(case):
 
 
 @pytest.mark.parametrize("call", ["conf_int", "half_lives"])
-@pytest.mark.parametrize("method", ["prof", "Profile", "bootstrap"])
+@pytest.mark.parametrize("method", ["prof", "Profile", "boot"])
 def test_unknown_interval_method_is_refused(fit1, call, method):
     # no prefix or case-insensitive matching: "prof" must fail
     with pytest.raises(ValueError, match=rf"'method' must be one of 'profile', "
-                                         rf"'asymptotic'; got '{method}'"):
+                                         rf"'asymptotic', 'bootstrap', 'mcmc'; got "
+                                         rf"'{method}'"):
         getattr(fit1, call)(method=method)
 
 
@@ -341,8 +342,11 @@ def test_time_to_two_pools_solved_numerically(fit2):
         rem = v["f1"] * math.exp(-v["k1"] * tau) + v["f2"] * math.exp(-v["k2"] * tau)
         assert rem == pytest.approx(1 - p, abs=1e-10)
     assert np.all(np.diff(tt["estimate"]) > 0)
-    assert set(tt["method"]) == {"asymptotic"}
+    # constrained profile likelihood of the derived quantity (isoturnover.uncertainty)
+    assert set(tt["method"]) == {"profile"}
     assert np.all(tt["lower"] < tt["estimate"]) and np.all(tt["estimate"] < tt["upper"])
+    asy = fit2.time_to([0.5, 0.9, 0.95], method="asymptotic")
+    assert set(asy["method"]) == {"asymptotic"}
 
 
 def test_mean_residence_time_by_hand(fit1, fit2):
