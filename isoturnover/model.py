@@ -255,6 +255,23 @@ class _Coordinates:
                     A[self.f_idx] = dF
         return (th, A) if jac else th
 
+    def clamp(self, z):
+        """Pull coordinates that ran off to absurd values back to where the map saturates.
+
+        A rate driven to 0 (log-rate → −∞), pools merging (log-gap → −∞) or a fraction at 0
+        or 1 (logit → ±∞) leave θ unchanged within double precision after clamping, but keep
+        z finite and sensible for derivatives, profiles and covariances.
+        """
+        z = np.array(z, dtype=float)
+        for i, lab in enumerate(self.labels):
+            if lab.startswith("log_gap"):
+                z[i] = min(max(z[i], -60.0), 4.0)
+            elif lab.startswith("log_"):
+                z[i] = min(max(z[i], -700.0), 700.0)
+            elif lab.startswith(("logit_", "stick_")):
+                z[i] = min(max(z[i], -40.0), 40.0)
+        return z
+
     # -- inverse map (starting values) ----------------------------------------------------
     def z_from_theta(self, th):
         th = np.asarray(th, dtype=float)
@@ -391,7 +408,7 @@ class _Problem:
             except (ValueError, FloatingPointError, np.linalg.LinAlgError) as e:
                 return _Solution(z0, coords.theta(z0), math.inf, -1, 0, f"solver error: {e}",
                                  False)
-        z = res.x
+        z = coords.clamp(np.asarray(res.x, dtype=float))
         r = fun(z)
         cost = float(r @ r)
         ok = bool(res.status > 0) and np.isfinite(cost)
@@ -699,7 +716,8 @@ class TurnoverModel:
         if self.diet is None:
             extra.append("step switch at t = 0")
         else:
-            extra.append(f"diet history with {len(self.diet.switch_times)} switch(es)")
+            n_sw = len(self.diet.switch_times)
+            extra.append(f"diet history with {n_sw} switch{'es' if n_sw > 1 else ''}")
             extra.append(f"{self.separation} form")
         if self.lag:
             extra.append("lag")

@@ -176,18 +176,40 @@ class TurnoverFit:
         # covariance in internal coordinates, then natural
         self._cov_ok = False
         cov_z = np.full((p, p), np.nan)
+        # coordinates the data do not touch at all (a rate run to 0, a fraction at 0): their
+        # Jacobian column vanishes; the covariance is computed for the others and the
+        # parameters that depend on them get NaN
+        self._dead = np.zeros(p, dtype=bool)
         if p and jac_z is not None and np.all(np.isfinite(jac_z)) and self.dof > 0:
-            u, sv, vt = np.linalg.svd(jac_z, full_matrices=False)
-            if sv.size and sv[-1] > sv[0] * 1e-10:
-                cov_z = (vt.T / sv**2) @ vt * self.s2
-                self._cov_ok = bool(np.all(np.isfinite(cov_z)))
+            norms = np.linalg.norm(jac_z, axis=0)
+            self._dead = norms <= 1e-12 * max(float(norms.max()), 1e-300)
+            alive = ~self._dead
+            if alive.any():
+                u, sv, vt = np.linalg.svd(jac_z[:, alive], full_matrices=False)
+                if sv.size and sv[-1] > sv[0] * 1e-10:
+                    sub = (vt.T / sv**2) @ vt * self.s2
+                    cov_z[np.ix_(alive, alive)] = sub
+                    self._cov_ok = bool(np.all(np.isfinite(sub)))
         if self._cov_ok and self.loss != "linear" and not self.joint:
-            cov_z = self._robust_cov(jac_z, p)
-            self._cov_ok = bool(np.all(np.isfinite(cov_z)))
+            alive = ~self._dead
+            sub = self._robust_cov(jac_z[:, alive], int(alive.sum()))
+            cov_z = np.full((p, p), np.nan)
+            cov_z[np.ix_(alive, alive)] = sub
+            self._cov_ok = bool(np.all(np.isfinite(sub)))
         self._cov_z = cov_z
+        self._cov_z0 = np.nan_to_num(cov_z, nan=0.0)  # dead coordinates: no first-order effect
         _, A = self._coords.theta(self._sol.z, jac=True)
         self._A = A
-        self.covar = A @ cov_z @ A.T if p else np.zeros((kin.n_params, kin.n_params))
+        if p:
+            alive = ~self._dead
+            Aa = A[:, alive]
+            self.covar = Aa @ cov_z[np.ix_(alive, alive)] @ Aa.T
+            touched = np.any(np.abs(A[:, self._dead]) > 0, axis=1) if self._dead.any() \
+                else np.zeros(kin.n_params, dtype=bool)
+            self.covar[touched, :] = np.nan
+            self.covar[:, touched] = np.nan
+        else:
+            self.covar = np.zeros((kin.n_params, kin.n_params))
         if p and not self._cov_ok:
             self.covar = np.full((kin.n_params, kin.n_params), np.nan)
         for j, nm in enumerate(kin.param_names):
@@ -360,6 +382,25 @@ class TurnoverFit:
         if not self._optimizer_ok:
             notes.append(TrustNote("not_converged", ConvergenceWarning,
                                    f"the optimizer did not converge ({self.message})"))
+        elif self.nvarys and self._cov_ok and self._dead.any():
+            def plain(lab):
+                if lab.startswith("log_gap_"):
+                    a, b = lab[len("log_gap_"):].split("_")
+                    return f"the ratio k{a}/k{b}"
+                if lab.startswith("log_"):
+                    return lab[4:]
+                if lab.startswith("logit_"):
+                    return lab[6:]
+                if lab.startswith("stick_"):
+                    return "the split of the pool fractions"
+                return lab
+
+            names_dead = [plain(self._coords.labels[i]) for i in np.flatnonzero(self._dead)]
+            notes.append(TrustNote(
+                "singular", IdentifiabilityWarning,
+                "the covariance matrix is singular: the data do not determine "
+                + ", ".join(names_dead) + " (run to the edge of the range, e.g. a rate or a "
+                "pool fraction to 0); standard errors that depend on it are not available"))
         elif self.nvarys and not self._cov_ok:
             notes.append(TrustNote(
                 "singular", IdentifiabilityWarning,
@@ -809,6 +850,7 @@ class TurnoverFit:
         method = _check_method(method)
         kin = self.kinetics
         v = self.values
+        span = float(np.ptp(self.t))
         rows = []
         for i, nm in enumerate(kin.rate_names):
             k = v[nm]
@@ -819,7 +861,9 @@ class TurnoverFit:
             if ls in ("open",) and not lo > 0:
                 hl_hi = math.inf
             rows.append({
-                "pool": i + 1, "fraction": frac, "rate": k, "half_life": LN2 / k,
+                "pool": i + 1, "fraction": frac, "rate": k,
+                # a rate run to its lower edge (0 within double precision): t½ = ∞
+                "half_life": LN2 / k if k * max(span, 1.0) > 1e-12 else math.inf,
                 "lower": hl_lo if np.isfinite(hi) or hs != "failed" else math.nan,
                 "upper": hl_hi if ls != "failed" else math.nan,
                 "level": level, "method": "fixed" if nm in self.fixed else
@@ -927,7 +971,7 @@ class TurnoverFit:
             zm[i] -= h
             grad[i] = (math.log(fn(self._coords.theta(zp))) -
                        math.log(fn(self._coords.theta(zm)))) / (2 * h)
-        var = float(grad @ self._cov_z @ grad)
+        var = float(grad @ self._cov_z0 @ grad)
         if not var >= 0:
             return math.nan, math.nan, "failed", "failed"
         q = (float(stats.norm.ppf(0.5 + level / 2)) if self.absolute_sigma
@@ -1048,7 +1092,7 @@ class TurnoverFit:
             return self._share_at(T, th)
 
         est = share(self._theta)
-        lo, hi, ls, hs, m = self._derived_interval(share, est, level, method, scale="logit")
+        lo, hi, ls, hs, m = self._share_interval(share, est, level, method)
         rows.append({"quantity": "tissue", "at": T, "estimate": est, "lower": lo, "upper": hi,
                      "level": level, "method": m, "lower_status": ls, "upper_status": hs})
         kin = self.kinetics
@@ -1059,12 +1103,26 @@ class TurnoverFit:
                     return kg / (kg + th[j])
 
                 e = pool_share(self._theta)
-                lo, hi, ls, hs, m = self._derived_interval(pool_share, e, level, method,
-                                                           scale="logit")
+                lo, hi, ls, hs, m = self._share_interval(pool_share, e, level, method)
                 rows.append({"quantity": f"pool_{i + 1}", "at": math.nan, "estimate": e,
                              "lower": lo, "upper": hi, "level": level, "method": m,
                              "lower_status": ls, "upper_status": hs})
         return pd.DataFrame(rows)
+
+    def _share_interval(self, fn, est, level, method):
+        """Interval of a growth share; at the edge (catabolic rate run to 0) the share is 1
+        and its lower bound comes from the catabolic rate's upper bound (one pool: the share
+        falls as the rate grows)."""
+        kin = self.kinetics
+        if np.isfinite(est) and est > 1 - 1e-9:
+            if len(kin.rate_names) == 1 and method in ("profile", "asymptotic"):
+                _, k_hi, _, k_hs = self._interval(kin.rate_names[0], level, method)
+                if k_hs == "ok" and np.isfinite(k_hi):
+                    th = self._theta.copy()
+                    th[kin._k_index[0]] = k_hi
+                    return float(fn(th)), 1.0, "ok", "at_bound", self._method_used(method)
+            return math.nan, 1.0, "failed", "at_bound", self._method_used(method)
+        return self._derived_interval(fn, est, level, method, scale="logit")
 
     def incorporation_half_lives(self, level=0.95, method="profile") -> pd.DataFrame:
         """Incorporation (growth + catabolic) half-life of each pool, ln 2/(k_d,i + k_g).
@@ -1154,7 +1212,7 @@ class TurnoverFit:
             zp[i] += h
             zm[i] -= h
             grad[i] = (g(self._coords.theta(zp)) - g(self._coords.theta(zm))) / (2 * h)
-        var = float(grad @ self._cov_z @ grad)
+        var = float(grad @ self._cov_z0 @ grad)
         q = (float(stats.norm.ppf(0.5 + level / 2)) if self.absolute_sigma
              else float(stats.t.ppf(0.5 + level / 2, max(self.dof, 1))))
         c = g(self._theta)
@@ -1430,9 +1488,9 @@ class Summary:
                          "fit), so profiles run over them too")
         elif f.joint:
             sd_, sm_ = f.block_scale
-            unit = "" if f.sigma is not None else " ‰"
+            permil = "" if f.sigma is not None else " ‰"
             weighting = (f"joint fit of δ and ln(body mass), each block weighted by its own "
-                         f"residual sd (s_δ = {sd_:.3g}{unit}{rel}, s_ln W = {sm_:.3g})")
+                         f"residual sd (s_δ = {sd_:.3g}{permil}{rel}, s_ln W = {sm_:.3g})")
         elif f.sigma is None:
             weighting = "unweighted; residual variance estimated"
         elif f.absolute_sigma:
@@ -1481,7 +1539,11 @@ class Summary:
             if r["method"] == "fixed":
                 lines.append(f"  {r['parameter']:<16}{_fmt(r['estimate']):>12}{'(fixed)':>12}")
                 continue
-            lines.append(f"  {r['parameter']:<16}{_fmt(r['estimate']):>12}"
+            est_text = _fmt(r["estimate"])
+            if r["parameter"] in f.kinetics.rate_names and \
+                    r["estimate"] * max(float(np.ptp(f.t)), 1.0) <= 1e-12:
+                est_text = "0 (edge)"  # a rate run to 0 within double precision
+            lines.append(f"  {r['parameter']:<16}{est_text:>12}"
                          f"{_fmt(r['stderr']):>12}{_bound(r['lower'], r['lower_status']):>12}"
                          f"{_bound(r['upper'], r['upper_status']):>12}")
         lines.append("")

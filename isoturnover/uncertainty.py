@@ -679,10 +679,13 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
         return result(math.nan, math.nan, "failed", "failed")
     if np.max(np.abs(gz)) == 0:
         return result(est, est, "fixed", "fixed")
-    cov = fit._cov_z
+    cov = getattr(fit, "_cov_z0", fit._cov_z)  # coordinates the data ignore: zero
     sd = np.sqrt(np.diag(cov)) if fit._cov_ok else np.ones(p)
     sens = np.abs(gz) * np.where(np.isfinite(sd) & (sd > 0), sd, 1.0)
     sens[np.isfinite(coords.lower)] *= 1e-6  # avoid eliminating a bounded coordinate (lag)
+    # nor a coordinate run off to its far end (a log-rate of ~-700: a rate of ~0 can move
+    # the quantity one way only)
+    sens[np.abs(z_hat) > 300] *= 1e-12
     j = int(np.argmax(sens))
     prob = _ConstrainedProblem(fit, fn, grad, scale, j)
 
@@ -1787,7 +1790,9 @@ def sample(fit, n_walkers=None, n_steps=2000, burn=None, thin=1, rng=None, sigma
     g = np.random.default_rng(rng)
     z_hat = np.array(fit._sol.z, dtype=float)
     if fit._cov_ok:
-        cov = fit._cov_z
+        cov = getattr(fit, "_cov_z0", fit._cov_z).copy()
+        dead = np.diag(cov) <= 0
+        cov[dead, dead] = 1e-6  # a small spread for coordinates the data ignore
         try:
             L = np.linalg.cholesky(cov + 1e-14 * np.diag(np.diag(cov)).max() * np.eye(ndim))
         except np.linalg.LinAlgError:
@@ -1971,7 +1976,7 @@ def band(fit, t, level=0.95, kind="confidence", method="delta", boot=None, *, si
             th, A = fit._coords.theta(fit._sol.z, jac=True)
             _, Jm = kin.evaluate(tt, th, jacobian=True)
             J = Jm @ A
-            var = np.einsum("ij,jk,ik->i", J, fit._cov_z, J)
+            var = np.einsum("ij,jk,ik->i", J, getattr(fit, "_cov_z0", fit._cov_z), J)
             if kind == "prediction":
                 var = var + s2 * s_new**2
             se = np.sqrt(np.clip(var, 0, None))
