@@ -915,8 +915,9 @@ class TurnoverFit:
         """Time after the switch for the tissue to make ``fraction`` of a step change.
 
         One pool: :math:`-\\ln(1-p)/k` (4.32 half-lives for p = 0.95); several pools and
-        the chain: solved numerically. Includes the lag when there is one. One pool
-        without lag: profile interval (a monotone function of the rate); otherwise a
+        the chain: solved numerically. Includes the lag when there is one. Profile
+        intervals (one pool: from the rate's profile; otherwise a constrained profile of
+        the derived quantity); with a growth curve, where the time has no closed form, a
         delta-method interval on the log scale (``method`` then reads "asymptotic").
 
         Columns: fraction, estimate, lower, upper, level, method, lower_status,
@@ -946,7 +947,8 @@ class TurnoverFit:
             if method == "bootstrap" and abs(p - 0.95) < 1e-12:
                 lo, hi, ls, hs = self._resampled_interval("time_to_95", level, "bootstrap")
                 m = "bootstrap (percentile)"
-            elif method == "profile" and self.loss == "linear":
+            elif method == "profile" and self.loss == "linear" and \
+                    kin.growth_kind not in ("curve", "curve_params"):
                 lo, hi, ls, hs, m = self._derived_interval(
                     lambda th, p=p: self._time_to(p, th), est, level, "profile", scale="log")
             else:
@@ -1291,6 +1293,11 @@ class TurnoverFit:
         if method == "bootstrap":
             lo, hi, ls, hs = self._resampled_interval("mean_residence_time", level, method)
             m = "bootstrap (percentile)"
+        elif np.isfinite(mrt) and self.kinetics.growth_kind in ("curve", "curve_params"):
+            # no closed form (a numerical integral): a profile would nest the integral in
+            # every constrained refit; the delta method on the log scale instead
+            lo, hi, ls, hs = self._delta_log(self._mrt, mrt, level)
+            m = "asymptotic"
         elif np.isfinite(mrt):
             lo, hi, ls, hs, m = self._derived_interval(self._mrt, mrt, level, method,
                                                        scale="log")
