@@ -282,7 +282,7 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
         raise ValueError(f"'criterion' must be one of {', '.join(map(repr, CRITERIA))}; got "
                          f"{criterion!r}")
     by = tuple([by] if isinstance(by, str) else by)
-    s = read_samples(samples)
+    s = read_samples(samples, time_unit=_unit_of(samples))
     for col in by:
         if col not in s.columns:
             raise DataError(f"'by' names column {col!r}, which the samples table lacks; "
@@ -298,11 +298,11 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     if diets is not None:
         from .data import read_diets
 
-        diets = read_diets(diets)
+        diets = read_diets(diets, time_unit=_unit_of(diets, s.attrs.get("time_unit", "d")))
     if masses is not None:
         from .data import read_masses
 
-        masses = read_masses(masses)
+        masses = read_masses(masses, time_unit=_unit_of(masses, s.attrs.get("time_unit", "d")))
     keys_df = s[list(by)].astype(str)
     groups = {}
     for key, idx in keys_df.groupby(list(by), sort=True).groups.items():
@@ -324,6 +324,12 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
                   time_unit=time_unit)
 
 
+def _unit_of(table, default="d"):
+    """The time unit a validated frame already carries (re-reading keeps it)."""
+    attrs = getattr(table, "attrs", None) or {}
+    return attrs.get("time_unit", default)
+
+
 def _progress(items, progress, desc):
     if not progress:
         return items
@@ -338,6 +344,10 @@ def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, sepa
                 initial, fixed, absolute_sigma, loss, growth_curve, average,
                 per_diet_separation=False):
     res = SeriesResult(key=key)
+    # a canonical row order first, so that averaging (floating-point sums) and everything
+    # after it do not depend on the order of the input rows
+    order_cols = [c for c in ("subject", "time", "value", "sd", "replicate") if c in sub.columns]
+    sub = sub.sort_values(order_cols, kind="stable")
     avg = average(sub).sort_values("time", kind="stable")
     n = len(avg)
     res.nobs = n

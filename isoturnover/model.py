@@ -1042,7 +1042,7 @@ def _frame_series(frame):
     destructive-sampling design (several subjects, one sampling time each)."""
     from .data import average_replicates, read_samples
 
-    s = read_samples(frame)
+    s = read_samples(frame, time_unit=(frame.attrs or {}).get("time_unit", "d"))
     for col in ("tissue", "isotope"):
         vals = sorted(s[col].astype(str).unique())
         if len(vals) > 1:
@@ -1050,6 +1050,8 @@ def _frame_series(frame):
                 f"the samples frame holds several {col}s ({', '.join(vals)}); fit one series "
                 "at a time (select rows) or use iso.fit_each"
             )
+    order_cols = [c for c in ("subject", "time", "value", "sd", "replicate") if c in s.columns]
+    s = s.sort_values(order_cols, kind="stable")  # results independent of the row order
     avg = average_replicates(s)
     subjects = sorted(avg["subject"].astype(str).unique())
     design = "series"

@@ -87,6 +87,10 @@ def test_demo_command_runs_and_refuses_a_second_run(tmp_path, capsys):
     assert "animal-care authority" in report and "invented" in report.lower()
     tab = pd.read_csv(out / "results.csv")
     assert set(tab["part"]) == {"goats d13C", "goats d15N", "goat breath", "fish"}
+    # breath is in hours and keeps its unit through fit_each into the tables and report
+    assert set(tab.loc[tab["part"] == "goat breath", "time_unit"]) == {"h"}
+    assert set(tab.loc[tab["part"] != "goat breath", "time_unit"]) == {"d"}
+    assert "hours" in report
     capsys.readouterr()
     before = sorted((p.name, p.stat().st_mtime_ns) for p in out.rglob("*"))
     assert main(["demo", "--out", str(out)]) == 2
