@@ -960,19 +960,23 @@ class TurnoverFit:
                          "upper_status": hs, "time_unit": self.time_unit})
         return pd.DataFrame(rows)
 
-    def _delta_log(self, fn, est, level):
-        """Delta-method interval of a positive derived quantity on the log scale."""
-        if not self._cov_ok or not est > 0:
-            return math.nan, math.nan, "failed", "failed"
+    def _grad_z(self, g):
+        """Central-difference gradient of g(theta(z)) in the internal coordinates."""
         z = self._sol.z
         grad = np.zeros(z.size)
-        for i in range(z.size):
+        for i in range(z.size):  # over the (few) parameters, not the data
             h = 1e-6 * max(1.0, abs(z[i]))
             zp, zm = z.copy(), z.copy()
             zp[i] += h
             zm[i] -= h
-            grad[i] = (math.log(fn(self._coords.theta(zp))) -
-                       math.log(fn(self._coords.theta(zm)))) / (2 * h)
+            grad[i] = (g(self._coords.theta(zp)) - g(self._coords.theta(zm))) / (2 * h)
+        return grad
+
+    def _delta_log(self, fn, est, level):
+        """Delta-method interval of a positive derived quantity on the log scale."""
+        if not self._cov_ok or not est > 0:
+            return math.nan, math.nan, "failed", "failed"
+        grad = self._grad_z(lambda th: math.log(fn(th)))
         var = float(grad @ self._cov_z0 @ grad)
         if not var >= 0:
             return math.nan, math.nan, "failed", "failed"
@@ -1206,14 +1210,7 @@ class TurnoverFit:
                 return math.log(v / (1 - v))
         else:
             g = fn
-        z = self._sol.z
-        grad = np.zeros(z.size)
-        for i in range(z.size):
-            h = 1e-6 * max(1.0, abs(z[i]))
-            zp, zm = z.copy(), z.copy()
-            zp[i] += h
-            zm[i] -= h
-            grad[i] = (g(self._coords.theta(zp)) - g(self._coords.theta(zm))) / (2 * h)
+        grad = self._grad_z(g)
         var = float(grad @ self._cov_z0 @ grad)
         q = (float(stats.norm.ppf(0.5 + level / 2)) if self.absolute_sigma
              else float(stats.t.ppf(0.5 + level / 2, max(self.dof, 1))))

@@ -179,25 +179,6 @@ def _design_span(fit):
 # ----------------------------------------------------------------------------------------
 # Derived quantities of a natural parameter vector
 # ----------------------------------------------------------------------------------------
-def _mean_residence_time(kin, theta):
-    r"""Mean residence time :math:`\int_0^\infty (1-F)\,d\tau` for a parameter vector.
-
-    Parallel pools :math:`\sum_i f_i/k_i` (rates plus ``k_growth`` when fitted), chain
-    :math:`1/k_1 + 1/k_2`, plus the lag — the formula of
-    :meth:`TurnoverFit.mean_residence_time`.
-    """
-    ks = theta[kin._k_index]
-    if kin._kg_index is not None:
-        ks = ks + theta[kin._kg_index]
-    if kin.structure == "chain":
-        m = float(np.sum(1.0 / ks))
-    else:
-        m = float(np.sum(theta[kin._f_index] / ks))
-    if kin._lag_index is not None:
-        m += float(theta[kin._lag_index])
-    return m
-
-
 def _mrt_grad(kin, theta):
     g = np.zeros(theta.size)
     ks = theta[kin._k_index].astype(float)
@@ -250,7 +231,7 @@ def _standard_quantities(fit):
     for i, j in enumerate(kin._k_index):
         out[f"half_life_{i + 1}"] = (lambda th, j=j: LN2 / th[j])
     out["time_to_95"] = (lambda th: fit._time_to(0.95, th))
-    out["mean_residence_time"] = (lambda th: _mean_residence_time(kin, th))
+    out["mean_residence_time"] = fit._mrt
     return out
 
 
@@ -822,11 +803,11 @@ def mean_residence_time_profile(fit, level=0.95) -> ProfileInterval:
     r"""Profile interval of the mean residence time :math:`\sum_i f_i/k_i` (+ lag)."""
     _check_fit(fit, "mean_residence_time_profile", joint=True)
     kin = fit.kinetics
-    est = _mean_residence_time(kin, fit._theta)
+    est = fit._mrt(fit._theta)
     first, span = _design_span(fit)
-    return profile_derived(fit, lambda th: _mean_residence_time(kin, th), level,
-                           name="mean_residence_time", positive=True,
-                           grad=lambda th: _mrt_grad(kin, th),
+    closed_form = kin.growth_kind not in ("curve", "curve_params")
+    return profile_derived(fit, fit._mrt, level, name="mean_residence_time", positive=True,
+                           grad=(lambda th: _mrt_grad(kin, th)) if closed_form else None,
                            limits=(min(est, first) * 1e-4, max(est, span) * 1e4))
 
 
