@@ -750,7 +750,7 @@ def plot_growth(growth_fit, ax=None, *, turnover_fit=None, mass_unit=None, time_
             c = OKABE_ITO["vermillion"]
             ln = ax2.plot(grid, share, color=c, linewidth=1.2, linestyle="--",
                           label="growth share of the change")
-            ax2.set_ylim(0.0, 1.0)
+            ax2.set_ylim(0.0, 1.05)  # a share of 1 stays visible
             ax2.set_ylabel("Growth share of the change", fontsize=_LABEL_PT, color=c)
             ax2.tick_params(labelsize=_TICK_PT, colors=c, axis="y")
             handles += ln
