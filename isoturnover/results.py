@@ -529,7 +529,14 @@ class TurnoverFit:
     def _crit(self, level):
         if self.absolute_sigma and not self.joint:
             return float(stats.chi2.ppf(level, 1))
-        return float(stats.f.ppf(level, 1, max(self.dof, 1)))
+        dof = self.dof
+        if self.joint:
+            # the δ block's variance is estimated from its own residuals: its degrees of
+            # freedom (not the blocks' total) set the reference distribution
+            mb = self._engine.mass_block
+            p_other = mb.size if mb.kind == "prior" else 1
+            dof = self.nobs - (self.nvarys - p_other)
+        return float(stats.f.ppf(level, 1, max(dof, 1)))
 
     def _transform(self, name):
         """(to_coord, from_coord, kind) for a natural parameter."""
