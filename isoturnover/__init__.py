@@ -31,7 +31,7 @@ from .errors import (
 )
 from .groups import FitSet, fit_each
 from .growth import GrowthCurve, GrowthFit, fit_growth, fit_growth_each, load_growth
-from .model import TurnoverModel
+from .model import TurnoverModel, fit_power_dilution
 from .progress import reaction_progress
 from .report import write_report
 from .results import TurnoverFit, load_fit
@@ -49,6 +49,7 @@ __all__ = [
     "write_report",
     "DietHistory",
     "TurnoverModel",
+    "fit_power_dilution",
     "compare",
     "lr_test",
     "fit_each",
