@@ -142,7 +142,7 @@ class Analysis:
                 km = dict(zip(fs.by, key))
                 subject = km.get("subject")
                 if subject is None:
-                    subject = "all animals (destructive)"
+                    subject = "all animals"
                 nk = (name, str(subject), str(km.get("tissue", "")), str(km.get("isotope", "")))
                 results[nk] = r
         first = next(iter(self.parts.values()), None)

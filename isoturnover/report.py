@@ -296,7 +296,9 @@ def _experiment(doc, series, fitset, unit_word):
     for s in series:
         if s.key:
             for k in ("tissue", "isotope", "subject"):
-                if k in s.key:
+                # a fitted series names its animals in data_info (a destructive series is
+                # keyed by a label, not by an animal)
+                if k in s.key and not (k == "subject" and s.fit is not None):
                     vals[k].add(str(s.key[k]))
         if s.fit is not None:
             info = s.fit.data_info
