@@ -28,39 +28,17 @@ from __future__ import annotations
 import argparse
 import math
 import platform
-import statistics
-import time
 import warnings
 
 import lmfit
 import numpy as np
 import scipy
+from _timing import per_call
 from scipy.optimize import curve_fit
 
 import isoturnover as iso
 
 LN2 = math.log(2.0)
-
-
-def per_call(fn, repeats: int, min_time: float) -> float:
-    """Median seconds per call of ``fn()`` over ``repeats`` batches of >= ``min_time`` s."""
-    fn()  # warm up
-    n = 1
-    while True:
-        t0 = time.perf_counter()
-        for _ in range(n):
-            fn()
-        dt = time.perf_counter() - t0
-        if dt >= min_time:
-            break
-        n *= 2
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        for _ in range(n):
-            fn()
-        times.append((time.perf_counter() - t0) / n)
-    return statistics.median(times)
 
 
 def curve(t, d0, deq, *kf):

@@ -20,10 +20,9 @@ from __future__ import annotations
 
 import argparse
 import platform
-import statistics
-import time
 
 import numpy as np
+from _timing import per_call
 
 from isoturnover.diet import DietHistory
 from isoturnover.kinetics import TurnoverKinetics
@@ -37,27 +36,6 @@ MODELS = {
     "3 pools": (TurnoverKinetics(3, diet=DIET), [2.0, 0.9, 0.12, 0.015, 0.2, 0.5, 0.3]),
     "chain": (TurnoverKinetics(structure="chain", diet=DIET), [2.0, 0.3, 0.05]),
 }
-
-
-def per_call(fn, repeats: int, min_time: float) -> float:
-    """Median seconds per call of ``fn()`` over ``repeats`` batches of >= ``min_time`` s."""
-    fn()  # warm up
-    n = 1
-    while True:  # size the batch so one batch lasts at least min_time
-        t0 = time.perf_counter()
-        for _ in range(n):
-            fn()
-        dt = time.perf_counter() - t0
-        if dt >= min_time:
-            break
-        n *= 2
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        for _ in range(n):
-            fn()
-        times.append((time.perf_counter() - t0) / n)
-    return statistics.median(times)
 
 
 def main(argv=None) -> None:

@@ -193,15 +193,12 @@ def _move_tree(tmp: Path, out: Path) -> list[Path]:
         tmp.mkdir()  # so the caller's cleanup finds a folder
         return sorted(p for p in out.rglob("*") if p.is_file())
     written = []
-    for src in sorted(tmp.rglob("*")):
-        rel = src.relative_to(tmp)
-        dst = out / rel
-        if src.is_dir():
-            if dst.exists() and not dst.is_dir():
-                dst.unlink()
-            if dst.is_dir():
-                shutil.rmtree(dst)
-            continue
+    for src in tmp.iterdir():  # a folder in the output (figures) is replaced as a whole
+        dst = out / src.name
+        if src.is_dir() and dst.is_dir():
+            shutil.rmtree(dst)
+        elif src.is_dir() and dst.exists():
+            dst.unlink()
     for src in sorted(p for p in tmp.rglob("*") if p.is_file()):
         dst = out / src.relative_to(tmp)
         dst.parent.mkdir(parents=True, exist_ok=True)

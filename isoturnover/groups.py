@@ -195,13 +195,15 @@ class FitSet(Mapping):
                 continue
             hl = r.best.half_lives(level, method)
             for col, v in zip(self.by, key):
-                hl.insert(0, col, v) if col not in hl.columns else None
-            hl.insert(len(self.by), "model", r.chosen)
+                if col not in hl.columns:
+                    hl[col] = v
+            hl["model"] = r.chosen
             parts.append(hl)
         if not parts:
             return pd.DataFrame()
         df = pd.concat(parts, ignore_index=True)
-        return df[list(self.by) + [c for c in df.columns if c not in self.by]]
+        front = list(self.by) + ["model"]
+        return df[front + [c for c in df.columns if c not in front]]
 
 
 def _candidates(pools, structures):

@@ -951,7 +951,7 @@ class _MassBlock:
     block's residual sd.
     """
 
-    def __init__(self, kin, masses, t_delta):
+    def __init__(self, kin, masses):
         try:
             tm, wm = masses
         except (TypeError, ValueError):
@@ -1095,7 +1095,7 @@ class _Engine:
         self._coords_cache = {}
         self.mass_block = None
         if masses is not None:
-            self.mass_block = _MassBlock(kin, masses, self.t)
+            self.mass_block = _MassBlock(kin, masses)
         elif kin.growth_kind == "curve_params":
             self.mass_block = _GrowthPriorBlock(kin)
         self.problem = _Problem(kin, self.t, self.y, self.w, loss="linear",

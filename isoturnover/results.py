@@ -879,10 +879,7 @@ class TurnoverFit:
                 "rate_lower": lo, "rate_upper": hi,
                 "rate_kind": self.rate_kind, "time_unit": self.time_unit,
             })
-        df = pd.DataFrame(rows)
-        if kin.structure == "chain":
-            df = df.rename(columns={"pool": "pool"})
-        return df
+        return pd.DataFrame(rows)
 
     def remaining(self, tau) -> np.ndarray:
         """1 − F: fraction of a step change still to come, ``tau`` after a switch (no lag)."""

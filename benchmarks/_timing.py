@@ -1,0 +1,27 @@
+"""Shared timing helper of the benchmark scripts (run them from the project root)."""
+
+from __future__ import annotations
+
+import statistics
+import time
+
+
+def per_call(fn, repeats: int, min_time: float) -> float:
+    """Median seconds per call of ``fn()`` over ``repeats`` batches of >= ``min_time`` s."""
+    fn()  # warm up
+    n = 1
+    while True:  # size the batch so one batch lasts at least min_time
+        t0 = time.perf_counter()
+        for _ in range(n):
+            fn()
+        dt = time.perf_counter() - t0
+        if dt >= min_time:
+            break
+        n *= 2
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        for _ in range(n):
+            fn()
+        times.append((time.perf_counter() - t0) / n)
+    return statistics.median(times)
