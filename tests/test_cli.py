@@ -134,6 +134,7 @@ def test_fit_writes_results_and_refuses_non_empty_folder(tmp_path, capsys):
     assert {"half_life_1", "lower_1", "upper_1", "lower_status_1"} <= set(tab.columns)
     fits = load_fits(out / "fits.json")
     chosen = [e for e in fits if e["chosen"]][0]
+    # GOOD was generated above with a half-life of 8 d
     assert abs(chosen["fit"].half_lives()["half_life"].iloc[0] - 8.0) < 1.0
     assert "animal-care" in stdout
     # a second run into the same folder is refused without --force

@@ -255,6 +255,7 @@ def test_destructive_design_one_series_per_tissue_and_isotope():
     tab = fs.table(method="asymptotic")
     assert list(tab.columns[:3]) == ["tissue", "isotope", "candidate"]
     assert (tab["status"] == "ok").all()
+    # the true half-lives used by invented_fish() (muscle 6 d, liver 2 d)
     assert tab.set_index("tissue")["half_life_1"]["muscle"] == pytest.approx(6.0, rel=0.3)
     assert tab.set_index("tissue")["half_life_1"]["liver"] == pytest.approx(2.0, rel=0.3)
 
