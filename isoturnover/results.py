@@ -728,6 +728,10 @@ class TurnoverFit:
             lo, ls = 0.0, "at_bound"
         return lo, hi, ls, hs
 
+    def _rate_at_zero(self, k) -> bool:
+        """A rate run to its lower edge: no change within the sampling span (k·span ≤ 1e-12)."""
+        return float(k) * max(float(np.ptp(self.t)), 1.0) <= 1e-12
+
     def _implicit_fixed(self):
         """Parameters fixed by construction (the fraction of a single pool)."""
         kin = self.kinetics
@@ -857,7 +861,6 @@ class TurnoverFit:
         method = _check_method(method)
         kin = self.kinetics
         v = self.values
-        span = float(np.ptp(self.t))
         rows = []
         for i, nm in enumerate(kin.rate_names):
             k = v[nm]
@@ -870,7 +873,7 @@ class TurnoverFit:
             rows.append({
                 "pool": i + 1, "fraction": frac, "rate": k,
                 # a rate run to its lower edge (0 within double precision): t½ = ∞
-                "half_life": LN2 / k if k * max(span, 1.0) > 1e-12 else math.inf,
+                "half_life": math.inf if self._rate_at_zero(k) else LN2 / k,
                 "lower": hl_lo if np.isfinite(hi) or hs != "failed" else math.nan,
                 "upper": hl_hi if ls != "failed" else math.nan,
                 "level": level, "method": "fixed" if nm in self.fixed else
@@ -1548,8 +1551,7 @@ class Summary:
                 lines.append(f"  {r['parameter']:<16}{_fmt(r['estimate']):>12}{'(fixed)':>12}")
                 continue
             est_text = _fmt(r["estimate"])
-            if r["parameter"] in f.kinetics.rate_names and \
-                    r["estimate"] * max(float(np.ptp(f.t)), 1.0) <= 1e-12:
+            if r["parameter"] in f.kinetics.rate_names and f._rate_at_zero(r["estimate"]):
                 est_text = "0 (edge)"  # a rate run to 0 within double precision
             lines.append(f"  {r['parameter']:<16}{est_text:>12}"
                          f"{_fmt(r['stderr']):>12}{_bound(r['lower'], r['lower_status']):>12}"
