@@ -34,7 +34,8 @@ from .growth import GrowthCurve, GrowthFit, fit_growth, fit_growth_each, load_gr
 from .model import TurnoverModel, fit_power_dilution
 from .progress import reaction_progress
 from .report import write_report
-from .results import TurnoverFit, load_fit
+from .results import TurnoverFit
+from .serialization import load_fit
 
 try:
     __version__ = _version("isoturnover")

@@ -210,7 +210,7 @@ def _move_tree(tmp: Path, out: Path) -> list[Path]:
 def load_fits(path_or_dict) -> list[dict]:
     """Read a ``fits.json``: a list of entries with ``part``, ``key``, ``candidate``,
     ``chosen`` and the rebuilt ``fit`` (:class:`~isoturnover.TurnoverFit`)."""
-    from .results import load_fit
+    from .serialization import load_fit
 
     if isinstance(path_or_dict, dict):
         d = path_or_dict

@@ -211,12 +211,12 @@ def lr_test(simple, complex, *, n_boot: int = 199, rng=None) -> LRTestResult:
     mean0 = simple.best_fit
     sd_unit = 1.0 if absolute else math.sqrt(simple.s2)
     scale = simple.sigma if simple.sigma is not None else np.ones(n)
-    e0, e1 = simple._engine, complex._engine
+    e0, e1 = simple.state.engine, complex.state.engine
     stats_, failed = [], 0
     for _ in range(int(n_boot)):
         ystar = mean0 + rng.normal(0.0, 1.0, n) * sd_unit * scale
-        s0 = e0.with_y(ystar).quick_fit(simple.fixed, simple._sol.z, multi_start=False)
-        s1 = e1.with_y(ystar).quick_fit(complex.fixed, complex._sol.z, multi_start=True)
+        s0 = e0.with_y(ystar).quick_fit(simple.fixed, simple.state.z, multi_start=False)
+        s1 = e1.with_y(ystar).quick_fit(complex.fixed, complex.state.z, multi_start=True)
         if not (np.isfinite(s0.cost) and np.isfinite(s1.cost)):
             failed += 1
             continue

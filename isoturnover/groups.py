@@ -457,10 +457,10 @@ def _has_change(fit):
 
 
 def _n_free(model, fixed):
-    from .model import _check_names, _Coordinates
+    from .engine import Coordinates, check_names
 
     kin = model.kinetics
-    return _Coordinates(kin, _check_names(fixed, kin, "fixed")).size
+    return Coordinates(kin, check_names(fixed, kin, "fixed")).size
 
 
 def _all_failed(res, cands, status, reason):

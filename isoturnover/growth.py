@@ -597,6 +597,12 @@ class GrowthCurve:
         self._curve = c
         self._values = np.array([vals[p] for p in c.params], dtype=float)
 
+    @property
+    def law(self):
+        """The curve's mathematics: ``log_mass(t, v)``, ``log_jac(t, v)``, ``rate(t, v)``
+        and ``params``, for models that carry the curve's parameters (turnover fits)."""
+        return self._curve
+
     # -- basic attributes ------------------------------------------------------------
     @property
     def curve(self) -> str:
@@ -855,6 +861,12 @@ class GrowthFit(GrowthCurve):
         self._resid.setflags(write=False)
         self._rss = float(self._resid @ self._resid)
         self._cov = self._covariance()
+
+    @property
+    def law(self):
+        """The curve's mathematics: ``log_mass(t, v)``, ``log_jac(t, v)``, ``rate(t, v)``
+        and ``params``, for models that carry the curve's parameters (turnover fits)."""
+        return self._curve
 
     # -- statistics ------------------------------------------------------------------
     def _covariance(self) -> np.ndarray:

@@ -309,7 +309,7 @@ class TurnoverKinetics:
                 )
             self.growth_kind = "curve"
             if growth_params:
-                if not (hasattr(growth, "_curve") and hasattr(growth, "values")):
+                if not (hasattr(growth, "law") and hasattr(growth, "values")):
                     raise TypeError("growth_params=True needs a growth curve from "
                                     "isoturnover.growth (fit_growth or GrowthCurve)")
                 self.growth_kind = "curve_params"
@@ -367,26 +367,26 @@ class TurnoverKinetics:
             self.n_levels = diet.n_diets
         self.n_level_params = len(names)
         if self.structure == "chain":
-            self._k_index = [len(names), len(names) + 1]
+            self.rate_index = [len(names), len(names) + 1]
             names += ["k1", "k2"]
-            self._f_index = []
+            self.fraction_index = []
         else:
-            self._k_index = list(range(len(names), len(names) + self.pools))
+            self.rate_index = list(range(len(names), len(names) + self.pools))
             names += [f"k{i + 1}" for i in range(self.pools)]
-            self._f_index = list(range(len(names), len(names) + self.pools))
+            self.fraction_index = list(range(len(names), len(names) + self.pools))
             names += [f"f{i + 1}" for i in range(self.pools)]
-        self._lag_index = None
+        self.lag_index = None
         if self.lag:
-            self._lag_index = len(names)
+            self.lag_index = len(names)
             names.append("lag")
-        self._kg_index = None
+        self.growth_rate_index = None
         if self.growth_kind == "exponential":
-            self._kg_index = len(names)
+            self.growth_rate_index = len(names)
             names.append("k_growth")
-        self._gp_index = []
+        self.growth_param_index = []
         if self.growth_kind == "curve_params":
-            self._gcurve = self.growth._curve
-            self._gp_index = list(range(len(names), len(names) + len(self._gcurve.params)))
+            self._gcurve = self.growth.law
+            self.growth_param_index = list(range(len(names), len(names) + len(self._gcurve.params)))
             names += [f"growth_{p}" for p in self._gcurve.params]
         self.param_names = tuple(names)
         self.n_params = len(names)
@@ -441,7 +441,7 @@ class TurnoverKinetics:
         if self._simple_step:
             return self._evaluate_step(t, theta, jacobian)
         L, dL = self._levels(theta)
-        lag = theta[self._lag_index] if self._lag_index is not None else 0.0
+        lag = theta[self.lag_index] if self.lag_index is not None else 0.0
         s = self.switch_times + lag  # (m,)
         tau = t[None, :] - s[:, None]  # (m, n)
         on = tau > 0
@@ -452,7 +452,7 @@ class TurnoverKinetics:
         else:
             Lw, dLw = L, dL
         step = np.diff(Lw)  # (m,) size of each step on the working scale
-        k = theta[self._k_index]
+        k = theta[self.rate_index]
         want = jacobian
         if self.structure == "chain":
             phi, d_a, d_b, d_tau = _chain_terms(taup, k[0], k[1])
@@ -462,23 +462,23 @@ class TurnoverKinetics:
             if not want:
                 return self._out(y, None)
             J = np.zeros((t.size, self.n_params))
-            J[:, self._k_index[0]] = -(step @ np.where(on, d_a, 0.0))
-            J[:, self._k_index[1]] = -(step @ np.where(on, d_b, 0.0))
-            if self._lag_index is not None:
+            J[:, self.rate_index[0]] = -(step @ np.where(on, d_a, 0.0))
+            J[:, self.rate_index[1]] = -(step @ np.where(on, d_b, 0.0))
+            if self.lag_index is not None:
                 # dE/ds = -dPhi/dtau
-                J[:, self._lag_index] = step @ np.where(on, d_tau, 0.0)
+                J[:, self.lag_index] = step @ np.where(on, d_tau, 0.0)
         else:
-            f = theta[self._f_index]
+            f = theta[self.fraction_index]
             kk = k.copy()
             G = None
             if self.growth_kind == "exponential":
-                kk = kk + theta[self._kg_index]
+                kk = kk + theta[self.growth_rate_index]
             elif self.growth_kind == "curve":
                 lw_t = _growth_log_mass(self.growth, t)
                 lw_s = _growth_log_mass(self.growth, s)
                 G = np.exp(np.where(on, lw_s[:, None] - lw_t[None, :], 0.0))
             elif self.growth_kind == "curve_params":
-                gv = theta[self._gp_index]
+                gv = theta[self.growth_param_index]
                 lw_t = np.asarray(self._gcurve.log_mass(t, gv), dtype=float)
                 lw_s = np.asarray(self._gcurve.log_mass(s, gv), dtype=float)
                 G = np.exp(np.where(on, lw_s[:, None] - lw_t[None, :], 0.0))
@@ -496,20 +496,20 @@ class TurnoverKinetics:
             R = on - E
             J = np.zeros((t.size, self.n_params))
             # d y / d f_i = - sum_j step_j E_ij
-            J[:, self._f_index] = -SE.T
+            J[:, self.fraction_index] = -SE.T
             # d y / d k_i = sum_j step_j f_i tau_j E_ij
             STE = (step @ (Ei * taup[None]).transpose(1, 0, 2).reshape(m_, p_ * n_)).reshape(
                 p_, n_)
-            J[:, self._k_index] = (f[:, None] * STE).T
-            if self._kg_index is not None:
-                J[:, self._kg_index] = f @ STE
-            if self._gp_index:
+            J[:, self.rate_index] = (f[:, None] * STE).T
+            if self.growth_rate_index is not None:
+                J[:, self.growth_rate_index] = f @ STE
+            if self.growth_param_index:
                 # dE_ij/dv = E_ij (d lnW(s_j)/dv - d lnW(t)/dv)
                 Ls = np.asarray(self._gcurve.log_jac(s, gv), dtype=float)  # (m, q)
                 Lt = np.asarray(self._gcurve.log_jac(t, gv), dtype=float)  # (n, q)
                 SEm = step[:, None] * E  # (m, n)
-                J[:, self._gp_index] = -(SEm.T @ Ls) + Lt * (step @ E)[:, None]
-            if self._lag_index is not None:
+                J[:, self.growth_param_index] = -(SEm.T @ Ls) + Lt * (step @ E)[:, None]
+            if self.lag_index is not None:
                 g_s = kk.copy()[:, None] * np.ones((1, s.size))  # (p, m)
                 if self.growth_kind == "curve":
                     g_s = g_s + _growth_rate(self.growth, s)[None, :]
@@ -517,7 +517,7 @@ class TurnoverKinetics:
                     g_s = g_s + np.asarray(self._gcurve.rate(s, gv), dtype=float)[None, :]
                 # dE_ij/ds_j = (k_i + g(s_j)) E_ij ; dR/ds = -sum_i f_i dE_ij/ds_j
                 dEds = np.einsum("i,ij,ijn->jn", f, g_s, Ei)
-                J[:, self._lag_index] = -(step @ dEds)
+                J[:, self.lag_index] = -(step @ dEds)
         # level derivatives: y = Lw0 + sum_j (Lw_j - Lw_{j-1}) R_j
         m = step.size
         coef = np.empty((self.n_levels, t.size))
@@ -571,20 +571,20 @@ class TurnoverKinetics:
         if not np.all(np.isfinite(theta)):
             bad = [n for n, v in zip(self.param_names, theta) if not math.isfinite(v)]
             raise ValueError(f"parameters must be finite; got non-finite {', '.join(bad)}")
-        k = theta[self._k_index]
+        k = theta[self.rate_index]
         if np.any(k <= 0):
             raise ValueError(f"rates must be positive; got {dict(zip(self.rate_names, k))}")
-        if self._kg_index is not None:
+        if self.growth_rate_index is not None:
             # DESIGN §2: mass loss only while k_d + d ln W/dt >= 0; here d ln W/dt = k_growth
-            kg = float(theta[self._kg_index])
+            kg = float(theta[self.growth_rate_index])
             if float(np.min(k)) + kg < 0:
                 raise ValueError(
                     f"k_growth = {kg:.4g}: the animal loses mass faster than the slowest pool "
                     f"turns over (k_d + k_growth = {float(np.min(k)) + kg:.4g} < 0); the pool "
                     "model does not hold there"
                 )
-        if self._f_index:
-            f = theta[self._f_index]
+        if self.fraction_index:
+            f = theta[self.fraction_index]
             if np.any(f < 0) or abs(f.sum() - 1.0) > 1e-12:
                 raise ValueError(
                     f"pool fractions must be non-negative and sum to 1 (to 1e-12); got "
@@ -594,11 +594,11 @@ class TurnoverKinetics:
 
     @property
     def rate_names(self) -> tuple[str, ...]:
-        return tuple(self.param_names[i] for i in self._k_index)
+        return tuple(self.param_names[i] for i in self.rate_index)
 
     @property
     def fraction_names(self) -> tuple[str, ...]:
-        return tuple(self.param_names[i] for i in self._f_index)
+        return tuple(self.param_names[i] for i in self.fraction_index)
 
     def predict(self, t, theta, jacobian: bool = False):
         """Checked version of :meth:`evaluate`: validates ``t`` and ``theta``.
@@ -618,13 +618,13 @@ class TurnoverKinetics:
         if not np.all(np.isfinite(t)):
             raise ValueError(f"'t' must be finite; got {int((~np.isfinite(t)).sum())} "
                              "non-finite value(s)")
-        if self.growth_kind in ("curve", "curve_params") and self._f_index and t.size:
+        if self.growth_kind in ("curve", "curve_params") and self.fraction_index and t.size:
             self.check_mass_loss(theta, t)
         return self.evaluate(t, theta, jacobian=jacobian)
 
     def check_mass_loss(self, theta, t):
         """Mass loss is allowed only while k_d + d ln W/dt >= 0 for every pool (DESIGN §2)."""
-        k_min = float(np.min(np.asarray(theta)[self._k_index]))
+        k_min = float(np.min(np.asarray(theta)[self.rate_index]))
         lo = min(float(np.min(t)), float(self.switch_times[0]))
         hi = float(np.max(t))
         grid = np.linspace(lo, hi, 201)
@@ -645,9 +645,9 @@ class TurnoverKinetics:
         if self.growth_kind is None:
             return np.zeros_like(t)
         if self.growth_kind == "exponential":
-            return np.full_like(t, theta[self._kg_index])
+            return np.full_like(t, theta[self.growth_rate_index])
         if self.growth_kind == "curve_params":
-            return np.asarray(self._gcurve.rate(t, theta[self._gp_index]), dtype=float)
+            return np.asarray(self._gcurve.rate(t, theta[self.growth_param_index]), dtype=float)
         return _growth_rate(self.growth, t)
 
     def log_mass(self, t, theta):
@@ -655,9 +655,9 @@ class TurnoverKinetics:
         t = np.asarray(t, dtype=float)
         theta = np.asarray(theta, dtype=float)
         if self.growth_kind == "exponential":
-            return theta[self._kg_index] * t
+            return theta[self.growth_rate_index] * t
         if self.growth_kind == "curve_params":
-            return np.asarray(self._gcurve.log_mass(t, theta[self._gp_index]), dtype=float)
+            return np.asarray(self._gcurve.log_mass(t, theta[self.growth_param_index]), dtype=float)
         if self.growth_kind == "curve":
             return _growth_log_mass(self.growth, t)
         return np.zeros_like(t)
@@ -665,12 +665,12 @@ class TurnoverKinetics:
     def remaining(self, tau, theta):
         """1 − F after a single unit step (no growth curve, no lag) for these parameters."""
         theta = np.asarray(theta, dtype=float)
-        k = theta[self._k_index]
+        k = theta[self.rate_index]
         if self.structure == "chain":
             return remaining_chain(tau, k[0], k[1])
-        if self._kg_index is not None:
-            k = k + theta[self._kg_index]
-        return remaining_parallel(tau, k, theta[self._f_index])
+        if self.growth_rate_index is not None:
+            k = k + theta[self.growth_rate_index]
+        return remaining_parallel(tau, k, theta[self.fraction_index])
 
     def __repr__(self):
         return (f"TurnoverKinetics(structure={self.structure!r}, pools={self.pools}, "

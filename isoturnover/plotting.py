@@ -238,7 +238,7 @@ def _check_fit(fit, fname):
 
 
 def _unit(fit_or_unit):
-    from .results import _unit_word
+    from .conventions import unit_word as _unit_word
 
     u = fit_or_unit if isinstance(fit_or_unit, str) else fit_or_unit.time_unit
     return _unit_word(u)
@@ -350,7 +350,7 @@ def plot_fit(fit, ax=None, *, band=True, level=0.95, show_switches=True, show_fl
     -----
     Error bars are the analytic 1σ (``sigma``) of each point when the fit has them.
     """
-    from .results import _check_level
+    from .conventions import check_level as _check_level
 
     fit = _check_fit(fit, "plot_fit")
     level = _check_level(level)

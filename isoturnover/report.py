@@ -367,7 +367,7 @@ def _half_life_text(hl, structure="parallel"):
 def _summary_table(doc, series, fitset, level, unit_word, summaries):
     crit = "AICc" if fitset is None else {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}.get(
         fitset.criterion, fitset.criterion)
-    from .results import _unit_word
+    from .conventions import unit_word as _unit_word
 
     mixed = "," in unit_word  # several time units: each cell names its own
     hl_head = (f"Half-life [{_pct(level)} interval]" if mixed
@@ -665,7 +665,9 @@ def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="p
     """
     from . import __version__
     from . import plotting as _plotting
-    from .results import _check_level, _check_method, _unit_word
+    from .conventions import check_level as _check_level
+    from .conventions import check_method as _check_method
+    from .conventions import unit_word as _unit_word
 
     series, fitset = _collect(fits)
     if not series:

@@ -34,8 +34,11 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import optimize, stats
+from scipy import optimize
 
+from . import quantities
+from .conventions import METHODS, STATUSES, check_level, check_method, unit_word
+from .engine import FitState
 from .errors import (
     BoundWarning,
     ConvergenceWarning,
@@ -44,11 +47,9 @@ from .errors import (
     IdentifiabilityWarning,
 )
 
-__all__ = ["TurnoverFit", "load_fit", "TrustNote", "Summary", "METHODS"]
+__all__ = ["TurnoverFit", "TrustNote", "Summary", "METHODS", "STATUSES"]
 
-METHODS = ("profile", "asymptotic", "bootstrap", "mcmc")
 LN2 = math.log(2.0)
-STATUSES = ("ok", "open", "at_bound", "failed", "fixed", "not_available")
 
 
 @dataclass(frozen=True)
@@ -63,30 +64,9 @@ class TrustNote:
         return {"code": self.code, "category": self.category.__name__, "message": self.message}
 
 
-_CATEGORIES = {c.__name__: c for c in (BoundWarning, ConvergenceWarning, DesignWarning,
-                                        GoodnessOfFitWarning, IdentifiabilityWarning)}
-
-
-def _check_level(level):
-    try:
-        lv = float(level)
-    except (TypeError, ValueError):
-        raise ValueError(f"'level' must be a number between 0 and 1; got {level!r}") from None
-    if not 0 < lv < 1:
-        raise ValueError(f"'level' must be between 0 and 1 (0.95 for 95 %); got {level!r}")
-    return lv
-
-
-def _check_method(method, allowed=METHODS):
-    if method not in allowed:
-        raise ValueError(
-            f"'method' must be one of {', '.join(repr(m) for m in allowed)}; got {method!r}"
-        )
-    return method
-
-
-def _unit_word(u):
-    return {"d": "days", "h": "hours", "w": "weeks", "min": "minutes", "y": "years"}.get(u, u)
+_check_level = check_level
+_check_method = check_method
+_unit_word = unit_word
 
 
 class TurnoverFit:
@@ -119,173 +99,52 @@ class TurnoverFit:
         rates); with one they are catabolic rates.
     """
 
-    # ------------------------------------------------------------------------------
-    @classmethod
-    def _from_engine(cls, model, engine, sol, *, fixed, init, starts_tried, label):
-        self = cls.__new__(cls)
+    def __init__(self, model, state: FitState, *, init=None, starts_tried=1, label=None):
+        if not isinstance(state, FitState):
+            raise TypeError(f"'state' must be a FitState (from the engine); got "
+                            f"{type(state).__name__}")
         self.model = model
-        self.kinetics = engine.kin
+        self.state = state
+        self.kinetics = state.kinetics
+        engine = state.engine
         self._engine = engine
-        self._sol = sol
-        self._coords = sol.extra["coords"]
-        self.fixed = dict(fixed)
-        self.init = dict(init)
-        self.t = engine.t.copy()
-        self.y = engine.y.copy()
-        self.sigma = None if engine.sigma is None else engine.sigma.copy()
-        self.absolute_sigma = engine.absolute_sigma
-        self.loss = engine.loss
-        self.f_scale = engine.f_scale
+        self._sol = state.solution
+        self._coords = state.coords
+        self.fixed = dict(state.fixed)
+        self.init = dict(init or {})
+        self.t = state.t
+        self.y = state.y
+        self.sigma = state.sigma
+        self.absolute_sigma = state.absolute_sigma
+        self.loss = state.loss
+        self.f_scale = state.f_scale
         self.time_unit = engine.data["time_unit"]
         self.data_info = dict(engine.data["info"])
         self.label = label
         self.starts_tried = starts_tried
-        self._theta = np.asarray(sol.theta, dtype=float)
-        self.nfev = sol.nfev
-        self.message = sol.message
-        self._optimizer_ok = bool(sol.success)
-        self._finish(jac_z=sol.jac_z)
-        return self
-
-    def _finish(self, jac_z):
-        kin = self.kinetics
-        n = self.t.size
-        p = self._coords.size
-        eng = self._engine
-        self.joint = eng.mass_block is not None
-        self.nobs = n
-        self.nvarys = p
-        if self.joint:
-            mb = eng.mass_block
-            rd = self._wres()
-            rm = mb(self._theta)[0]
-            self.rss = float(rd @ rd + rm @ rm)
-            self.n_mass = mb.size if mb.kind == "masses" else 0
-            # masses: the intercept ln W0 is profiled out of the mass block
-            self.dof = n + mb.size - (1 if mb.kind == "masses" else 0) - p
-            self.s2 = 1.0  # each block scaled by its own residual sd
-            self.block_scale = eng.block_scale
-        else:
-            self.n_mass = 0
-            self.block_scale = None
-            self.rss = float(np.sum(self._wres() ** 2))
-            self.dof = n - p
-            self.s2 = (self.rss / self.dof if self.dof > 0 else math.nan)
-            if self.absolute_sigma:
-                self.s2 = 1.0
-        # covariance in internal coordinates, then natural
-        self._cov_ok = False
-        cov_z = np.full((p, p), np.nan)
-        # coordinates the data do not touch at all (a rate run to 0, a fraction at 0): their
-        # Jacobian column vanishes; the covariance is computed for the others and the
-        # parameters that depend on them get NaN
-        self._dead = np.zeros(p, dtype=bool)
-        if p and jac_z is not None and np.all(np.isfinite(jac_z)) and self.dof > 0:
-            norms = np.linalg.norm(jac_z, axis=0)
-            self._dead = norms <= 1e-12 * max(float(norms.max()), 1e-300)
-            alive = ~self._dead
-            if alive.any():
-                u, sv, vt = np.linalg.svd(jac_z[:, alive], full_matrices=False)
-                if sv.size and sv[-1] > sv[0] * 1e-10:
-                    sub = (vt.T / sv**2) @ vt * self.s2
-                    cov_z[np.ix_(alive, alive)] = sub
-                    self._cov_ok = bool(np.all(np.isfinite(sub)))
-        if self._cov_ok and self.loss != "linear" and not self.joint:
-            alive = ~self._dead
-            sub = self._robust_cov(jac_z[:, alive], int(alive.sum()))
-            cov_z = np.full((p, p), np.nan)
-            cov_z[np.ix_(alive, alive)] = sub
-            self._cov_ok = bool(np.all(np.isfinite(sub)))
-        self._cov_z = cov_z
-        self._cov_z0 = np.nan_to_num(cov_z, nan=0.0)  # dead coordinates: no first-order effect
-        _, A = self._coords.theta(self._sol.z, jac=True)
-        self._A = A
-        if p:
-            alive = ~self._dead
-            Aa = A[:, alive]
-            self.covar = Aa @ cov_z[np.ix_(alive, alive)] @ Aa.T
-            touched = np.any(np.abs(A[:, self._dead]) > 0, axis=1) if self._dead.any() \
-                else np.zeros(kin.n_params, dtype=bool)
-            self.covar[touched, :] = np.nan
-            self.covar[:, touched] = np.nan
-        else:
-            self.covar = np.zeros((kin.n_params, kin.n_params))
-        if p and not self._cov_ok:
-            self.covar = np.full((kin.n_params, kin.n_params), np.nan)
-        for j, nm in enumerate(kin.param_names):
-            if nm in self.fixed:
-                self.covar[j, :] = 0.0
-                self.covar[:, j] = 0.0
-        self.converged = bool(self._optimizer_ok and (self._cov_ok or p == 0))
-        k = p + (0 if self.absolute_sigma else 1)
-        n_ic = n
-        if self.joint and eng.mass_block.kind == "prior":
-            # information criteria from the isotope data alone; the growth parameters are
-            # constrained by the growth fit, not by these data
-            sd_ = self.block_scale[0]
-            rd_raw = self._wres() * sd_
-            base = n * math.log(max(float(rd_raw @ rd_raw), 1e-300) / n)
-            k = p - eng.mass_block.size + 1
-        elif self.joint:
-            # Gaussian likelihood of both blocks, each with its own variance; k counts the
-            # free parameters, ln W0 and the two variances
-            sd_, sm_ = self.block_scale
-            rd_raw = self._wres() * sd_
-            rm_raw = eng.mass_block.raw_residuals(self._theta)
-            nm = eng.mass_block.size
-            base = (n * math.log(max(float(rd_raw @ rd_raw), 1e-300) / n)
-                    + nm * math.log(max(float(rm_raw @ rm_raw), 1e-300) / nm))
-            k = p + 3
-            n_ic = n + nm
-        elif self.absolute_sigma:
-            base = self.rss
-        else:
-            base = n * math.log(self.rss / n) if self.rss > 0 else -math.inf
-        self.n_criteria_params = k
-        self.aic = base + 2 * k
-        self.aicc = self.aic + (2 * k * (k + 1) / (n_ic - k - 1) if n_ic - k - 1 > 0
-                                else math.nan)
-        self.bic = base + k * math.log(n_ic)
-        self.redchi = self.rss / self.dof if self.dof > 0 else math.nan
-        self.chisqr_pvalue = (float(stats.chi2.sf(self.rss, self.dof))
-                              if self.absolute_sigma and self.dof > 0 else None)
-        self.rate_kind = "catabolic" if kin.growth_kind is not None else "incorporation"
+        self._theta = state.theta
+        self.nfev = self._sol.nfev
+        self.message = self._sol.message
+        self._optimizer_ok = state.optimizer_ok
+        for name in ("joint", "nobs", "nvarys", "rss", "n_mass", "dof", "s2", "block_scale",
+                     "covar", "converged", "n_criteria_params", "aic", "aicc", "bic",
+                     "redchi", "chisqr_pvalue", "s2_robust"):
+            setattr(self, name, getattr(state, name))
+        self._cov_ok = state.cov_ok
+        self._cov_z = state.cov_z
+        self._cov_z0 = state.cov_z0
+        self._dead = state.dead
+        self._A = state.A
+        self.rate_kind = "catabolic" if self.kinetics.growth_kind is not None \
+            else "incorporation"
         self._profile_cache = {}
         self._params = None
         self.warnings = self._trust_notes()
 
-    def _robust_cov(self, J, p):
-        r"""Covariance of an M-estimate (robust loss), from the loss weights.
-
-        With :math:`z_i = (r_i/c)^2` and loss weights :math:`w_i = \rho'(z_i)`
-        (soft_l1: :math:`1/\sqrt{1+z}`; huber: 1 inside, :math:`1/\sqrt z` outside), the
-        covariance is :math:`s_r^2 (J^T W J)^{-1}` (the iteratively reweighted
-        least-squares form, in which an outlier carries the weight the fit gave it; Huber
-        1981, *Robust Statistics*, ch. 7) with the robust scale
-        :math:`s_r = 1.4826\,\mathrm{MAD}(r)\sqrt{n/(n-p)}` (common practice), which the
-        outliers do not inflate.
-        """
-        r = self._wres()
-        z = (r / self.f_scale) ** 2
-        if self.loss == "soft_l1":
-            wl = 1.0 / np.sqrt(1.0 + z)
-        else:  # huber
-            wl = np.where(z <= 1.0, 1.0, 1.0 / np.sqrt(np.maximum(z, 1e-300)))
-        Jw = J * np.sqrt(wl)[:, None]
-        mad = 1.4826 * float(np.median(np.abs(r - np.median(r))))
-        s2w = mad**2 * self.nobs / max(self.dof, 1)
-        if self.absolute_sigma:
-            s2w = 1.0
-        u, sv, vt = np.linalg.svd(Jw, full_matrices=False)
-        if not (sv.size and sv[-1] > sv[0] * 1e-10):
-            return np.full((p, p), np.nan)
-        self.s2_robust = s2w
-        return (vt.T / sv**2) @ vt * s2w
-
     # -- basic quantities ---------------------------------------------------------------
     def _wres(self):
         """Weighted δ residuals (joint fits: including the δ block's scale)."""
-        return self._engine.w * (self.y - self.kinetics.evaluate(self.t, self._theta))
+        return self.state.weighted_residuals()
 
     @property
     def values(self) -> dict:
@@ -447,8 +306,8 @@ class TurnoverFit:
             free = [j for j, nm in enumerate(names) if nm not in self.fixed and d[j] > 0]
             # the last fraction is determined by the others; its correlation is by construction
             skip = set()
-            if kin._f_index and n_pools > 1:
-                skip.add(kin._f_index[-1])
+            if kin.fraction_index and n_pools > 1:
+                skip.add(kin.fraction_index[-1])
             worst = None
             for a in free:
                 for b in free:
@@ -521,22 +380,13 @@ class TurnoverFit:
         if kin.structure == "chain":
             # the chain needs about as long as its two half-lives together
             return 1.0 / (1.0 / ks[0] + 1.0 / ks[1])
-        if kin._kg_index is not None:
+        if kin.growth_rate_index is not None:
             ks = [k + v["k_growth"] for k in ks]
         return float(min(ks))
 
     # -- intervals ------------------------------------------------------------------------
     def _crit(self, level):
-        if self.absolute_sigma and not self.joint:
-            return float(stats.chi2.ppf(level, 1))
-        dof = self.dof
-        if self.joint:
-            # the δ block's variance is estimated from its own residuals: its degrees of
-            # freedom (not the blocks' total) set the reference distribution
-            mb = self._engine.mass_block
-            p_other = mb.size if mb.kind == "prior" else 1
-            dof = self.nobs - (self.nvarys - p_other)
-        return float(stats.f.ppf(level, 1, max(dof, 1)))
+        return self.state.critical_value(level)
 
     def _transform(self, name):
         """(to_coord, from_coord, kind) for a natural parameter."""
@@ -710,8 +560,7 @@ class TurnoverFit:
         if not (np.isfinite(var) and var >= 0):
             return math.nan, math.nan, "failed", "failed"
         se = math.sqrt(var)
-        q = (float(stats.norm.ppf(0.5 + level / 2)) if self.absolute_sigma
-             else float(stats.t.ppf(0.5 + level / 2, max(self.dof, 1))))
+        q = self.state.normal_quantile(level)
         if name in kin.rate_names:
             s = se / est
             if q * s > 300:
@@ -890,33 +739,10 @@ class TurnoverFit:
 
     def _remaining_at(self, tau, theta):
         """1 − F a time tau after the first switch (growth curves included)."""
-        kin = self.kinetics
-        rem = kin.remaining(tau, theta)
-        if kin.growth_kind in ("curve", "curve_params"):
-            s0 = float(kin.switch_times[0])
-            tau = np.asarray(tau, dtype=float)
-            lw = kin.log_mass(np.append(s0 + tau, s0), theta)
-            rem = rem * np.exp(lw[-1] - lw[:-1]).reshape(np.shape(rem))
-        return rem
+        return quantities.remaining_after_switch(self.kinetics, tau, theta)
 
     def _time_to(self, p, theta):
-        kin = self.kinetics
-        target = 1.0 - p
-        lag = theta[kin._lag_index] if kin._lag_index is not None else 0.0
-        ks = theta[kin._k_index]
-        if kin._kg_index is not None:
-            ks = ks + theta[kin._kg_index]
-        if kin.structure == "parallel" and len(ks) == 1 and kin.growth_kind in (
-                None, "exponential"):
-            return -math.log(target) / float(ks[0]) + lag
-
-        def g(tau):
-            return float(self._remaining_at(np.array([tau]), theta)[0]) - target
-
-        hi = 1.0 / float(np.min(ks))
-        while g(hi) > 0:
-            hi *= 2
-        return optimize.brentq(g, 0.0, hi, xtol=1e-12, rtol=1e-12) + lag
+        return quantities.time_to(self.kinetics, p, theta)
 
     def time_to(self, fraction=0.95, level=0.95, method="profile") -> pd.DataFrame:
         """Time after the switch for the tissue to make ``fraction`` of a step change.
@@ -937,7 +763,7 @@ class TurnoverFit:
             raise ValueError(f"'fraction' must be between 0 and 1 (0.95 = 95 %); got {fraction!r}")
         kin = self.kinetics
         rows = []
-        simple = kin.structure == "parallel" and kin.pools == 1 and kin._lag_index is None \
+        simple = kin.structure == "parallel" and kin.pools == 1 and kin.lag_index is None \
             and kin.growth_kind is None
         for p in fr:
             est = self._time_to(p, self._theta)
@@ -987,8 +813,7 @@ class TurnoverFit:
         var = float(grad @ self._cov_z0 @ grad)
         if not var >= 0:
             return math.nan, math.nan, "failed", "failed"
-        q = (float(stats.norm.ppf(0.5 + level / 2)) if self.absolute_sigma
-             else float(stats.t.ppf(0.5 + level / 2, max(self.dof, 1))))
+        q = self.state.normal_quantile(level)
         s = math.sqrt(var)
         if q * s > 300:
             return 0.0, math.inf, "open", "open"
@@ -1004,36 +829,7 @@ class TurnoverFit:
         return self._mrt(self._theta)
 
     def _mrt(self, theta):
-        kin = self.kinetics
-        v = np.asarray(theta, dtype=float)
-        ks = v[kin._k_index]
-        if kin._kg_index is not None:
-            ks = ks + v[kin._kg_index]
-        if kin.growth_kind in ("curve", "curve_params"):
-            from scipy import integrate
-
-            def rem(x):
-                return float(self._remaining_at(np.array([x]), v)[0])
-
-            # integrate until the old material is gone; if it never goes (a catabolic rate
-            # of ~0 with growth levelling off) the mean residence time is infinite
-            upper = 10.0 / max(float(np.min(ks)), 1e-300)
-            span = max(float(np.ptp(self.t)), 1.0)
-            upper = min(upper, 1e4 * span)
-            while rem(upper) > 1e-10 and upper < 1e6 * span:
-                upper *= 4.0
-            if rem(upper) > 1e-6:
-                m = math.inf
-            else:
-                pts = np.geomspace(max(upper * 1e-6, 1e-12), upper, 12)
-                m = float(integrate.quad(rem, 0.0, upper, points=pts[:-1], limit=400)[0])
-        elif kin.structure == "chain":
-            m = float(np.sum(1.0 / ks))
-        else:
-            m = float(np.sum(v[kin._f_index] / ks))
-        if kin._lag_index is not None:
-            m += float(v[kin._lag_index])
-        return m
+        return quantities.mean_residence_time(self.kinetics, theta, float(np.ptp(self.t)))
 
     # -- growth dilution -------------------------------------------------------------------
     def _require_growth(self, what):
@@ -1043,8 +839,7 @@ class TurnoverFit:
     def _log_mass_ratio(self, t0, t1, theta=None):
         """ln W(t1) − ln W(t0) for this fit's growth model."""
         th = self._theta if theta is None else theta
-        lw = self.kinetics.log_mass(np.array([t0, t1], dtype=float), th)
-        return float(lw[1] - lw[0])
+        return quantities.log_mass_ratio(self.kinetics, t0, t1, th)
 
     def mean_growth_rate(self) -> float:
         """Mean specific growth rate (d ln W/dt) from the first switch to the last sample."""
@@ -1062,19 +857,7 @@ class TurnoverFit:
 
     def _share_at(self, T, theta):
         """Tissue growth share up to T after the first switch (DESIGN §2)."""
-        kin = self.kinetics
-        s0 = float(kin.switch_times[0])
-        if kin._lag_index is not None:
-            s0 += float(theta[kin._lag_index])
-        tau = T - s0
-        if tau <= 0:
-            return math.nan
-        ratio = math.exp(-self._log_mass_ratio(s0, T, theta))  # W(s)/W(T)
-        k = theta[kin._k_index]
-        f = theta[kin._f_index]
-        growth_alone = 1.0 - ratio
-        whole = 1.0 - ratio * float(np.sum(f * np.exp(-k * tau)))
-        return growth_alone / whole if whole > 0 else math.nan
+        return quantities.growth_share_at(self.kinetics, T, theta)
 
     def growth_share_curve(self, t) -> np.ndarray:
         """Share of the change up to each time ``t`` that growth alone would have produced."""
@@ -1110,9 +893,9 @@ class TurnoverFit:
                      "level": level, "method": m, "lower_status": ls, "upper_status": hs})
         kin = self.kinetics
         if kin.growth_kind == "exponential":
-            for i, j in enumerate(kin._k_index):
+            for i, j in enumerate(kin.rate_index):
                 def pool_share(th, j=j):
-                    kg = th[kin._kg_index]
+                    kg = th[kin.growth_rate_index]
                     return kg / (kg + th[j])
 
                 e = pool_share(self._theta)
@@ -1132,7 +915,7 @@ class TurnoverFit:
                 _, k_hi, _, k_hs = self._interval(kin.rate_names[0], level, method)
                 if k_hs == "ok" and np.isfinite(k_hi):
                     th = self._theta.copy()
-                    th[kin._k_index[0]] = k_hi
+                    th[kin.rate_index[0]] = k_hi
                     return float(fn(th)), 1.0, "ok", "at_bound", self._method_used(method)
             return math.nan, 1.0, "failed", "at_bound", self._method_used(method)
         return self._derived_interval(fn, est, level, method, scale="logit")
@@ -1148,10 +931,10 @@ class TurnoverFit:
         method = _check_method(method)
         kin = self.kinetics
         rows = []
-        for i, j in enumerate(kin._k_index):
+        for i, j in enumerate(kin.rate_index):
             if kin.growth_kind == "exponential":
                 def hl(th, j=j):
-                    return LN2 / (th[j] + th[kin._kg_index])
+                    return LN2 / (th[j] + th[kin.growth_rate_index])
             else:
                 g = self.mean_growth_rate()
 
@@ -1179,7 +962,7 @@ class TurnoverFit:
         method = _check_method(method)
 
         def c(th):
-            return -(th[kin._kg_index] + th[kin._k_index[0]]) / th[kin._kg_index]
+            return -(th[kin.growth_rate_index] + th[kin.rate_index[0]]) / th[kin.growth_rate_index]
 
         est = c(self._theta)
         lo, hi, ls, hs, m = self._derived_interval(lambda th: -c(th), -est, level, method,
@@ -1219,8 +1002,7 @@ class TurnoverFit:
             g = fn
         grad = self._grad_z(g)
         var = float(grad @ self._cov_z0 @ grad)
-        q = (float(stats.norm.ppf(0.5 + level / 2)) if self.absolute_sigma
-             else float(stats.t.ppf(0.5 + level / 2, max(self.dof, 1))))
+        q = self.state.normal_quantile(level)
         c = g(self._theta)
         lo, hi = c - q * math.sqrt(max(var, 0)), c + q * math.sqrt(max(var, 0))
         if scale == "logit":
@@ -1372,7 +1154,7 @@ class TurnoverFit:
             "format": "isoturnover-fit", "version": 1,
             "model": self.model.config(),
             "data": {"t": fl(self.t), "y": fl(self.y), "sigma": fl(self.sigma),
-                     "time_unit": self.time_unit, "info": _json_safe(self.data_info),
+                     "time_unit": self.time_unit, "info": json_safe(self.data_info),
                      "masses": None if getattr(self._engine.mass_block, "kind", None)
                      != "masses" else
                      [fl(self._engine.mass_block.t), fl(self._engine.mass_block.mass)],
@@ -1395,7 +1177,7 @@ class TurnoverFit:
         return json.dumps(self.to_dict(), **kwargs)
 
 
-def _json_safe(d):
+def json_safe(d):
     out = {}
     for k, v in d.items():
         if isinstance(v, (np.integer,)):
@@ -1408,52 +1190,6 @@ def _json_safe(d):
             v = [x.item() if hasattr(x, "item") else x for x in v]
         out[k] = v
     return out
-
-
-def load_fit(d) -> TurnoverFit:
-    """Rebuild a :class:`TurnoverFit` from :meth:`TurnoverFit.to_dict` (or its JSON text).
-
-    The rebuilt fit predicts, tabulates and summarises exactly as the original.
-    """
-    from .diet import DietHistory
-    from .model import TurnoverModel, _Engine, _prepare_data, _Solution
-
-    if isinstance(d, str):
-        d = json.loads(d)
-    if not isinstance(d, dict) or d.get("format") != "isoturnover-fit":
-        raise ValueError("load_fit needs a dict made by TurnoverFit.to_dict() "
-                         "(key 'format' = 'isoturnover-fit')")
-    cfg = dict(d["model"])
-    if cfg.get("diet") is not None:
-        cfg["diet"] = DietHistory.from_dict(cfg["diet"])
-    g = cfg.get("growth")
-    if isinstance(g, dict):
-        from . import growth as _growth
-
-        cfg["growth"] = _growth.load_growth(g["curve"])
-    model = TurnoverModel(**cfg)
-    dd = d["data"]
-    data = _prepare_data(np.array(dd["t"]), np.array(dd["y"]),
-                         None if dd["sigma"] is None else np.array(dd["sigma"]),
-                         dd["time_unit"])
-    data["info"].update(dd.get("info") or {})
-    opt = d["options"]
-    masses = dd.get("masses")
-    engine = _Engine(model.kinetics, data, absolute_sigma=opt["absolute_sigma"],
-                     loss=opt["loss"],
-                     masses=None if masses is None else (np.array(masses[0]),
-                                                         np.array(masses[1])))
-    if dd.get("block_scale") is not None:
-        engine.set_block_scale(*dd["block_scale"])
-    engine.f_scale = opt["f_scale"]
-    s = d["solution"]
-    coords = engine.coords(opt["fixed"], rate_anchor=None, fraction_anchor=None)
-    sol = _Solution(np.array(s["z"], dtype=float), np.array(s["theta"], dtype=float),
-                    math.nan, s["status"], s["nfev"], s["message"], s["success"],
-                    None if s["jac_z"] is None else np.array(s["jac_z"], dtype=float))
-    sol.extra["coords"] = coords
-    return TurnoverFit._from_engine(model, engine, sol, fixed=opt["fixed"], init=opt["init"],
-                                    starts_tried=s["starts_tried"], label=opt["label"])
 
 
 # ----------------------------------------------------------------------------------------

@@ -70,7 +70,12 @@ import numpy as np
 import pandas as pd
 from scipy import optimize, stats
 
-from .errors import ConvergenceWarning
+from . import quantities
+from .conventions import check_choice as _choice
+from .conventions import check_level as _check_level
+from .conventions import check_positive_int as _positive_int
+from .engine import FitState, Problem
+from .errors import ConvergenceWarning, DataError
 
 try:  # optional: MCMC
     import emcee as _emcee
@@ -133,20 +138,13 @@ _EDGE_GAP = 3.99       # log-gap coordinate at the cap (4) of the coordinate map
 # ----------------------------------------------------------------------------------------
 # Argument checks
 # ----------------------------------------------------------------------------------------
-def _check_level(level):
-    from .results import _check_level as chk
-
-    return chk(level)
-
-
 def _check_fit(fit, what, joint=False):
-    from .results import TurnoverFit
-
-    if not isinstance(fit, TurnoverFit):
+    state = getattr(fit, "state", None)
+    if not isinstance(state, FitState):
         raise TypeError(f"{what} needs a TurnoverFit (the result of TurnoverModel.fit); got "
                         f"{type(fit).__name__}")
-    if not joint and getattr(fit._engine, "mass_block", None) is not None:
-        raise ValueError(
+    if not joint and state.engine.mass_block is not None:
+        raise DataError(
             f"{what} does not support joint fits yet (δ fitted with body masses, or with a "
             "fitted growth curve whose uncertainty is propagated): the second data block "
             "would not be resampled. Use profile intervals (profile_derived, "
@@ -154,84 +152,34 @@ def _check_fit(fit, what, joint=False):
         )
 
 
-def _choice(name, value, allowed):
-    if not isinstance(value, str) or value not in allowed:
-        raise ValueError(f"'{name}' must be one of {', '.join(repr(a) for a in allowed)}; "
-                         f"got {value!r}")
-    return value
-
-
-def _positive_int(name, value, minimum=1):
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < minimum:
-        raise ValueError(f"'{name}' must be an integer >= {minimum}; got {value!r}")
-    return int(value)
-
-
 def _design_span(fit):
-    tau = fit.t - float(fit.kinetics.switch_times[0])
-    pos = np.sort(tau[tau > 0])
-    if pos.size == 0:
-        span = max(float(np.ptp(fit.t)), 1.0)
-        return span / 10, span
-    return float(pos[0]), float(pos[-1])
+    return fit.state.design_span()
+
+
+def _fit_time_to(fit, p):
+    """Time to a fraction p of a step change, as a function of theta, for this fit."""
+    kin = fit.kinetics
+    return lambda th: quantities.time_to(kin, p, th)
+
+
+def _fit_mrt(fit):
+    """Mean residence time as a function of theta, for this fit."""
+    kin = fit.kinetics
+    span = float(np.ptp(fit.t))
+    return lambda th: quantities.mean_residence_time(kin, th, span)
 
 
 # ----------------------------------------------------------------------------------------
 # Derived quantities of a natural parameter vector
 # ----------------------------------------------------------------------------------------
-def _mrt_grad(kin, theta):
-    g = np.zeros(theta.size)
-    ks = theta[kin._k_index].astype(float)
-    if kin._kg_index is not None:
-        ks = ks + theta[kin._kg_index]
-    if kin.structure == "chain":
-        dk = -1.0 / ks**2
-    else:
-        f = theta[kin._f_index]
-        dk = -f / ks**2
-        g[kin._f_index] = 1.0 / ks
-    g[kin._k_index] = dk
-    if kin._kg_index is not None:
-        g[kin._kg_index] = float(np.sum(dk))
-    if kin._lag_index is not None:
-        g[kin._lag_index] = 1.0
-    return g
-
-
-def _time_to_grad(kin, p, tau_total, theta):
-    r"""Gradient of the time to a fraction ``p`` of a step change (parallel pools).
-
-    With :math:`R(\tau) = \sum_i f_i e^{-\kappa_i \tau} = 1 - p`, :math:`\kappa_i = k_i
-    (+ k_g)`, the implicit function theorem gives :math:`\partial\tau/\partial\theta =
-    -(\partial R/\partial\theta)/(\partial R/\partial\tau)`; the lag adds 1.
-    """
-    g = np.zeros(theta.size)
-    lag = theta[kin._lag_index] if kin._lag_index is not None else 0.0
-    tau = tau_total - lag
-    ks = theta[kin._k_index].astype(float)
-    if kin._kg_index is not None:
-        ks = ks + theta[kin._kg_index]
-    f = theta[kin._f_index]
-    e = np.exp(-ks * tau)
-    dR_dtau = -float(np.sum(f * ks * e))
-    dR_dk = -f * tau * e
-    g[kin._k_index] = -dR_dk / dR_dtau
-    g[kin._f_index] = -e / dR_dtau
-    if kin._kg_index is not None:
-        g[kin._kg_index] = -float(np.sum(dR_dk)) / dR_dtau
-    if kin._lag_index is not None:
-        g[kin._lag_index] = 1.0
-    return g
-
-
 def _standard_quantities(fit):
-    """name -> (function of theta, natural range) of the quantities every method reports."""
+    """name -> function of theta of the quantities every method reports."""
     kin = fit.kinetics
     out = {}
-    for i, j in enumerate(kin._k_index):
+    for i, j in enumerate(kin.rate_index):
         out[f"half_life_{i + 1}"] = (lambda th, j=j: LN2 / th[j])
-    out["time_to_95"] = (lambda th: fit._time_to(0.95, th))
-    out["mean_residence_time"] = fit._mrt
+    out["time_to_95"] = _fit_time_to(fit, 0.95)
+    out["mean_residence_time"] = _fit_mrt(fit)
     return out
 
 
@@ -359,7 +307,7 @@ class _ConstrainedProblem:
     def __init__(self, fit, fn, grad, scale, j):
         self.fit = fit
         self.kin = fit.kinetics
-        self.coords = fit._coords
+        self.coords = fit.state.coords
         self.fn = fn
         self.grad = grad
         self.scale = scale
@@ -368,7 +316,7 @@ class _ConstrainedProblem:
         self.rest = np.array([i for i in range(p) if i != j], dtype=int)
         # the engine's residuals: weights (with a joint fit's block scale) and any extra
         # block (body masses, growth-curve prior) exactly as the fit minimised them
-        prob = fit._engine.problem
+        prob = fit.state.engine.problem
         self.t = prob.t
         self.y = prob.y
         self.w = prob.w
@@ -572,8 +520,8 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
         \quad\text{(σ estimated)}, \qquad
         \mathrm{rss}_q(c) - \mathrm{rss} \le \chi^2_1(\text{level}) \quad\text{(σ known)},
 
-    the same rule as the parameters' profiles (``fit._crit(level)``). The search steps
-    outward from the estimate on the log scale for positive quantities (logit for a
+    the same rule as the parameters' profiles (``fit.state.critical_value(level)``). The
+    search steps outward from the estimate on the log scale for positive quantities (logit for a
     quantity with two finite ends) and brackets the crossing with Brent's method.
 
     Parameters
@@ -582,7 +530,8 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
         A least-squares fit (``loss="linear"``; robust fits have no RSS profile).
     fn : callable
         ``fn(theta) -> float``, a smooth function of the natural parameter vector (in the
-        order of ``fit.kinetics.param_names``), e.g. ``lambda th: fit._time_to(0.95, th)``.
+        order of ``fit.kinetics.param_names``), e.g.
+        ``lambda th: iso.quantities.time_to(fit.kinetics, 0.95, th)``.
     level : float, default=0.95
     name : str, default=""
         Label of the quantity in the result.
@@ -621,7 +570,7 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
         raise ValueError(f"'natural' must be a pair (lo, hi); got {natural!r}") from None
     if not lo_nat < hi_nat:
         raise ValueError(f"'natural' must have lo < hi; got {natural!r}")
-    theta = fit._theta
+    theta = fit.state.theta
     with np.errstate(all="ignore"):
         est = float(fn(theta))
     if not math.isfinite(est):
@@ -630,12 +579,12 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
         raise ValueError(f"the quantity's estimate {est!r} is outside its natural range "
                          f"({lo_nat:g}, {hi_nat:g}); pass positive=False or natural=(lo, hi)")
     scale = _Scale(lo_nat, hi_nat)
-    crit = fit._crit(level)
+    crit = fit.state.critical_value(level)
 
     def result(lo, hi, ls, hs):
         return ProfileInterval(name, est, lo, hi, ls, hs, level, "profile", crit)
 
-    coords = fit._coords
+    coords = fit.state.coords
     p = coords.size
     if p == 0:
         return result(est, est, "fixed", "fixed")
@@ -643,7 +592,7 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
     if not (math.isfinite(s2) and s2 > 0):
         return result(math.nan, math.nan, "failed", "failed")
     rss0 = fit.rss
-    z_hat = np.array(fit._sol.z, dtype=float)
+    z_hat = np.array(fit.state.z, dtype=float)
 
     # sensitivity of u = scale(g) to each coordinate, at the estimate
     def h0(z):
@@ -660,8 +609,8 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
         return result(math.nan, math.nan, "failed", "failed")
     if np.max(np.abs(gz)) == 0:
         return result(est, est, "fixed", "fixed")
-    cov = getattr(fit, "_cov_z0", fit._cov_z)  # coordinates the data ignore: zero
-    sd = np.sqrt(np.diag(cov)) if fit._cov_ok else np.ones(p)
+    cov = fit.state.cov_z0  # coordinates the data ignore: zero
+    sd = np.sqrt(np.diag(cov)) if fit.state.cov_ok else np.ones(p)
     sens = np.abs(gz) * np.where(np.isfinite(sd) & (sd > 0), sd, 1.0)
     sens[np.isfinite(coords.lower)] *= 1e-6  # avoid eliminating a bounded coordinate (lag)
     # nor a coordinate run off to its far end (a log-rate of ~-700: a rate of ~0 can move
@@ -671,7 +620,7 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
     prob = _ConstrainedProblem(fit, fn, grad, scale, j)
 
     u_hat = scale.to_u(est)
-    se_u = math.sqrt(float(gz @ cov @ gz)) if fit._cov_ok else math.nan
+    se_u = math.sqrt(float(gz @ cov @ gz)) if fit.state.cov_ok else math.nan
     if not (math.isfinite(se_u) and se_u > 0):
         se_u = 0.1 if scale.kind != "plain" else 0.1 * max(abs(est), 1.0)
     se_u = min(max(se_u, 1e-6 * max(1.0, abs(u_hat))), 1e3)
@@ -694,7 +643,7 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
 
     # predictor direction dz/du at the estimate: the constrained minimum of the quadratic
     # approximation moves along C g / (g^T C g)
-    if fit._cov_ok and float(gz @ cov @ gz) > 0:
+    if fit.state.cov_ok and float(gz @ cov @ gz) > 0:
         dz_du0 = (cov @ gz) / float(gz @ cov @ gz)
     else:
         dz_du0 = np.zeros(p)
@@ -774,8 +723,8 @@ def time_to_profile(fit, fraction=0.95, level=0.95) -> ProfileInterval:
     r"""Profile interval of the time to a ``fraction`` p of a step change.
 
     One pool: :math:`\tau_p = -\ln(1-p)/k` (+ lag); several pools and the chain: the root of
-    :math:`1 - F(\tau) = 1 - p` (``fit._time_to``). Search limits: a factor 1e4 either side
-    of the estimate and of the sampling span.
+    :math:`1 - F(\tau) = 1 - p` (:func:`isoturnover.quantities.time_to`). Search limits: a
+    factor 1e4 either side of the estimate and of the sampling span.
     """
     _check_fit(fit, "time_to_profile", joint=True)
     try:
@@ -786,14 +735,15 @@ def time_to_profile(fit, fraction=0.95, level=0.95) -> ProfileInterval:
     if not 0 < p < 1:
         raise ValueError(f"'fraction' must be between 0 and 1 (0.95 = 95 %); got {fraction!r}")
     kin = fit.kinetics
-    est = fit._time_to(p, fit._theta)
+    ttp = _fit_time_to(fit, p)
+    est = ttp(fit.state.theta)
     first, span = _design_span(fit)
     grad = None
     if kin.structure == "parallel":
         def grad(th):
-            return _time_to_grad(kin, p, fit._time_to(p, th), th)
+            return quantities.time_to_grad(kin, p, ttp(th), th)
     limits = (min(est, first) * 1e-4, max(est, span) * 1e4)
-    return profile_derived(fit, lambda th: fit._time_to(p, th), level,
+    return profile_derived(fit, ttp, level,
                            name=f"time_to_{round(100 * p):d}" if abs(100 * p - round(100 * p))
                            < 1e-9 else f"time_to_{p:g}", positive=True, grad=grad,
                            limits=limits)
@@ -803,11 +753,13 @@ def mean_residence_time_profile(fit, level=0.95) -> ProfileInterval:
     r"""Profile interval of the mean residence time :math:`\sum_i f_i/k_i` (+ lag)."""
     _check_fit(fit, "mean_residence_time_profile", joint=True)
     kin = fit.kinetics
-    est = fit._mrt(fit._theta)
+    mrt = _fit_mrt(fit)
+    est = mrt(fit.state.theta)
     first, span = _design_span(fit)
     closed_form = kin.growth_kind not in ("curve", "curve_params")
-    return profile_derived(fit, fit._mrt, level, name="mean_residence_time", positive=True,
-                           grad=(lambda th: _mrt_grad(kin, th)) if closed_form else None,
+    return profile_derived(fit, mrt, level, name="mean_residence_time", positive=True,
+                           grad=((lambda th: quantities.mean_residence_time_grad(kin, th))
+                                 if closed_form else None),
                            limits=(min(est, first) * 1e-4, max(est, span) * 1e4))
 
 
@@ -820,13 +772,13 @@ def half_life_ratio_profile(fit, i, j, level=0.95) -> ProfileInterval:
     """
     _check_fit(fit, "half_life_ratio_profile", joint=True)
     kin = fit.kinetics
-    n = len(kin._k_index)
+    n = len(kin.rate_index)
     for nm, v in (("i", i), ("j", j)):
         if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or not 1 <= v <= n:
             raise ValueError(f"'{nm}' must be a pool number from 1 to {n}; got {v!r}")
     if i == j:
         raise ValueError(f"'i' and 'j' must name different pools; got {i} and {j}")
-    ki, kj = kin._k_index[i - 1], kin._k_index[j - 1]
+    ki, kj = kin.rate_index[i - 1], kin.rate_index[j - 1]
 
     def fn(th):
         return th[kj] / th[ki]
@@ -854,11 +806,11 @@ class _Refitter:
 
     def __init__(self, fit, kind, leverage=True, multi_start="auto"):
         self.kin = fit.kinetics
-        self.engine = fit._engine
-        self.coords = fit._coords
+        self.engine = fit.state.engine
+        self.coords = fit.state.coords
         self.fixed = dict(fit.fixed)
-        self.z_hat = np.array(fit._sol.z, dtype=float)
-        self.theta_hat = np.array(fit._theta, dtype=float)
+        self.z_hat = np.array(fit.state.z, dtype=float)
+        self.theta_hat = np.array(fit.state.theta, dtype=float)
         self.t = fit.t.copy()
         self.y = fit.y.copy()
         self.sigma = None if fit.sigma is None else fit.sigma.copy()
@@ -905,11 +857,11 @@ class _Refitter:
         (rate x span < 0.01, rate x first time > 3, fraction < 1e-5, log-gap > 3.5)."""
         kin = self.kin
         f = 10.0 if loose else 1.0
-        k = theta[kin._k_index]
+        k = theta[kin.rate_index]
         if np.any(k * self.span < _EDGE_SLOW * f) or np.any(k * self.first > _EDGE_FAST / f):
             return True
-        if kin._f_index and len(kin._f_index) > 1 \
-                and np.any(theta[kin._f_index] < _EDGE_FRACTION * f):
+        if kin.fraction_index and len(kin.fraction_index) > 1 \
+                and np.any(theta[kin.fraction_index] < _EDGE_FRACTION * f):
             return True
         gap = _EDGE_GAP - (0.49 if loose else 0.0)
         return bool(self.gap_coords) and bool(np.any(z[self.gap_coords] > gap))
@@ -922,7 +874,7 @@ class _Refitter:
         """Internal coordinates ``dist`` units further along th0 -> th1 in the natural
         log-rates and log fraction ratios (None when the run hardly moved)."""
         kin = self.kin
-        ki, fi = kin._k_index, kin._f_index
+        ki, fi = kin.rate_index, kin.fraction_index
         with np.errstate(all="ignore"):
             a0, a1 = [np.log(th0[ki])], [np.log(th1[ki])]
             if len(fi) > 1:
@@ -986,11 +938,9 @@ class _Refitter:
 
     def refit(self, t, y, sigma):
         """(theta, z, cost, status) of one replicate data set."""
-        from .model import _Problem
-
         w = np.ones_like(t) if sigma is None else 1.0 / sigma
         same_design = t is self.t
-        prob = _Problem(self.kin, t, y, w, loss="linear")
+        prob = Problem(self.kin, t, y, w, loss="linear")
         best = self._warm_solve(prob)
         finite = bool(np.isfinite(best.cost))
         edge = finite and self.edge_of(best)
@@ -1005,8 +955,7 @@ class _Refitter:
                           or (edge and (self.kin.pools > 1 or self.kin.structure == "chain")))
         if need_multi:
             # the automatic starting values of the replicate's data, each solved as above
-            eng = self.engine.with_y(y) if same_design else _engine_with(self.engine, t, y,
-                                                                          sigma)
+            eng = self.engine.with_y(y) if same_design else self.engine.with_data(t, y, sigma)
             n_keep = 1 if self.kin.pools == 1 and self.kin.structure != "chain" else 3
             try:
                 with np.errstate(all="ignore"):
@@ -1021,7 +970,7 @@ class _Refitter:
                         or (alt.success and not best.success and alt.cost <= best.cost)):
                     best = alt
         if self.loss != "linear" and np.isfinite(best.cost):
-            rob = _Problem(self.kin, t, y, w, loss=self.loss, f_scale=self.f_scale)
+            rob = Problem(self.kin, t, y, w, loss=self.loss, f_scale=self.f_scale)
             best = rob.solve(self.coords, best.z, tol=1e-10)
         if not np.isfinite(best.cost):
             return None, None, math.inf, _FAILED
@@ -1032,23 +981,9 @@ class _Refitter:
         return best.theta, best.z, best.cost, _OK
 
 
-def _engine_with(engine, t, y, sigma):
-    """A copy of an engine on other data (whole-animal resampling, jackknife)."""
-    from .model import _Engine
-
-    data = dict(engine.data)
-    data["t"] = np.asarray(t, dtype=float)
-    data["y"] = np.asarray(y, dtype=float)
-    data["sigma"] = None if sigma is None else np.asarray(sigma, dtype=float)
-    new = _Engine(engine.kin, data, absolute_sigma=engine.absolute_sigma, loss=engine.loss,
-                  masses=engine.masses)
-    new._coords_cache = engine._coords_cache
-    return new
-
-
 def _leverages(fit):
     """Diagonal of the hat matrix of the weighted Jacobian at the solution (tangent plane)."""
-    th, A = fit._coords.theta(fit._sol.z, jac=True)
+    th, A = fit.state.coords.theta(fit.state.z, jac=True)
     w = np.ones_like(fit.t) if fit.sigma is None else 1.0 / fit.sigma
     _, Jm = fit.kinetics.evaluate(fit.t, th, jacobian=True)
     J = w[:, None] * (Jm @ A)
@@ -1393,7 +1328,7 @@ def _user_quantities(quantities, fit, reserved):
             raise TypeError(f"'quantities[{nm!r}]' must be a function of theta; got "
                             f"{type(fn).__name__}")
         try:
-            v = float(fn(fit._theta))
+            v = float(fn(fit.state.theta))
         except Exception as e:  # a user's function may raise anything: report it clearly
             raise ValueError(f"'quantities[{nm!r}]' fails at the fitted parameters: {e}") from e
         if not math.isfinite(v):
@@ -1526,7 +1461,7 @@ def bootstrap(fit, n=1000, kind="residual", rng=None, n_jobs=1, progress=None,
     df = pd.DataFrame(vals)
     df["rss"] = np.where(status == _FAILED, np.nan, costs)
     df["status"] = [_STATUS_NAMES[int(s)] for s in status]
-    est_vals = _quantity_values(fit, fit._theta[None, :], functions)
+    est_vals = _quantity_values(fit, fit.state.theta[None, :], functions)
     estimates = {k: float(v[0]) for k, v in est_vals.items()}
     fixed = tuple(nm for nm in fit.kinetics.param_names if nm in fit.fixed)
     if len(fit.kinetics.fraction_names) == 1:
@@ -1546,9 +1481,9 @@ def bootstrap(fit, n=1000, kind="residual", rng=None, n_jobs=1, progress=None,
 # ----------------------------------------------------------------------------------------
 def _prior_box(fit):
     """Bounds of the default uniform prior on the internal coordinates, with descriptions."""
-    coords = fit._coords
+    coords = fit.state.coords
     first, span = _design_span(fit)
-    z = fit._sol.z
+    z = fit.state.z
     yr = max(float(np.ptp(fit.y)), 1.0)
     lo = np.empty(coords.size)
     hi = np.empty(coords.size)
@@ -1716,7 +1651,7 @@ def sample(fit, n_walkers=None, n_steps=2000, burn=None, thin=1, rng=None, sigma
     if sigma == "known" and fit.sigma is None:
         raise ValueError("sigma='known' needs the fit's analytic sd (fit with sigma=..., "
                          "absolute_sigma=True); this fit has no sigma")
-    coords = fit._coords
+    coords = fit.state.coords
     kin = fit.kinetics
     ndim = coords.size
     if ndim == 0:
@@ -1769,9 +1704,9 @@ def sample(fit, n_walkers=None, n_steps=2000, burn=None, thin=1, rng=None, sigma
         return lp + ll, rss
 
     g = np.random.default_rng(rng)
-    z_hat = np.array(fit._sol.z, dtype=float)
-    if fit._cov_ok:
-        cov = getattr(fit, "_cov_z0", fit._cov_z).copy()
+    z_hat = np.array(fit.state.z, dtype=float)
+    if fit.state.cov_ok:
+        cov = fit.state.cov_z0.copy()
         dead = np.diag(cov) <= 0
         cov[dead, dead] = 1e-6  # a small spread for coordinates the data ignore
         try:
@@ -1810,11 +1745,11 @@ def sample(fit, n_walkers=None, n_steps=2000, burn=None, thin=1, rng=None, sigma
     blobs = sampler.get_blobs(discard=burn, thin=thin, flat=True)
     thetas = np.array([coords.theta(z) for z in chain])
     cols = {nm: thetas[:, j] for j, nm in enumerate(kin.param_names)}
-    for i, j in enumerate(kin._k_index):
+    for i, j in enumerate(kin.rate_index):
         cols[f"half_life_{i + 1}"] = LN2 / thetas[:, j]
-    est = {nm: float(fit._theta[j]) for j, nm in enumerate(kin.param_names)}
-    for i, j in enumerate(kin._k_index):
-        est[f"half_life_{i + 1}"] = LN2 / float(fit._theta[j])
+    est = {nm: float(fit.state.theta[j]) for j, nm in enumerate(kin.param_names)}
+    for i, j in enumerate(kin.rate_index):
+        est[f"half_life_{i + 1}"] = LN2 / float(fit.state.theta[j])
     if not known:
         rss = np.asarray(blobs, dtype=float)
         cols["s"] = np.sqrt(rss / g.chisquare(n, size=rss.size))
@@ -1832,14 +1767,14 @@ def sample(fit, n_walkers=None, n_steps=2000, burn=None, thin=1, rng=None, sigma
 def _free_names(fit):
     """Natural parameters that the internal coordinates move one-to-one: the free ones,
     without the pool fraction that the others determine (they sum to 1)."""
-    kin, coords = fit.kinetics, fit._coords
+    kin, coords = fit.kinetics, fit.state.coords
     names = kin.param_names
     frac = set(kin.fraction_names)
     out = [nm for nm in names if nm not in fit.fixed and nm not in frac]
-    if kin._f_index and not coords.fractions_fixed:
+    if kin.fraction_index and not coords.fractions_fixed:
         order = coords.stick_order
         for pos in range(len(order) - 1):
-            nm = names[kin._f_index[order[pos]]]
+            nm = names[kin.fraction_index[order[pos]]]
             if nm not in fit.fixed:
                 out.append(nm)
     return [nm for nm in names if nm in out]
@@ -1847,7 +1782,7 @@ def _free_names(fit):
 
 def _make_log_prior(fit, prior_fns, lo, hi, natural):
     """log prior density in the internal coordinates."""
-    coords = fit._coords
+    coords = fit.state.coords
     kin = fit.kinetics
     if not natural:
         def lp(z):
@@ -1953,11 +1888,11 @@ def band(fit, t, level=0.95, kind="confidence", method="delta", boot=None, *, si
     if method == "delta":
         if boot is not None:
             raise ValueError("'boot' is used with method='bootstrap' only")
-        if fit._cov_ok:
-            th, A = fit._coords.theta(fit._sol.z, jac=True)
+        if fit.state.cov_ok:
+            th, A = fit.state.coords.theta(fit.state.z, jac=True)
             _, Jm = kin.evaluate(tt, th, jacobian=True)
             J = Jm @ A
-            var = np.einsum("ij,jk,ik->i", J, getattr(fit, "_cov_z0", fit._cov_z), J)
+            var = np.einsum("ij,jk,ik->i", J, fit.state.cov_z0, J)
             if kind == "prediction":
                 var = var + s2 * s_new**2
             se = np.sqrt(np.clip(var, 0, None))

@@ -388,9 +388,9 @@ def test_lr_test_detects_two_pools():
 def test_lr_test_counts_failed_replicates(fits, monkeypatch):
     # Make every third refit of the complex model fail (infinite cost): they are counted in
     # n_failed and left out of the reference distribution.
-    from isoturnover import model as model_mod
+    from isoturnover import engine as model_mod
 
-    original = model_mod._Engine.quick_fit
+    original = model_mod.Engine.quick_fit
     calls = {"n": 0}
 
     def flaky(self, *args, **kwargs):
@@ -401,7 +401,7 @@ def test_lr_test_counts_failed_replicates(fits, monkeypatch):
                 return dataclasses.replace(sol, cost=math.inf)
         return sol
 
-    monkeypatch.setattr(model_mod._Engine, "quick_fit", flaky)
+    monkeypatch.setattr(model_mod.Engine, "quick_fit", flaky)
     f1, f2, _ = fits
     res = iso.lr_test(f1, f2, n_boot=12, rng=0)
     assert calls["n"] == 12

@@ -340,7 +340,7 @@ def test_bootstrap_reproducible_and_independent_of_n_jobs(fit2):
 
 def test_bootstrap_parametric_and_user_quantities(fit2):
     kin = fit2.kinetics
-    j1, j2 = kin._k_index
+    j1, j2 = kin.rate_index
 
     b = U.bootstrap(fit2, 200, kind="parametric", rng=3,
                     quantities={"ratio": lambda th: th[j1] / th[j2]})
