@@ -60,6 +60,118 @@ def _logit(f):
 
 
 # ----------------------------------------------------------------------------------------
+# Parameters tied to others by expressions
+# ----------------------------------------------------------------------------------------
+class Ties:
+    """Natural parameters defined by expressions of other parameters (lmfit's ``expr``).
+
+    Expressions are parsed once and evaluated with asteval, the interpreter lmfit uses for
+    its own constraints, so they mean exactly what they mean in :class:`lmfit.Parameters`.
+    They may use the model's parameter names and asteval's functions (``exp``, ``log``,
+    ``sqrt`` …); ties of ties are evaluated in dependency order.
+
+    Parameters
+    ----------
+    kin : TurnoverKinetics
+    exprs : dict of str
+        Parameter name → expression.
+    """
+
+    def __init__(self, kin: TurnoverKinetics, exprs: dict):
+        import ast
+
+        from asteval import Interpreter
+
+        names = list(kin.param_names)
+        self.kin = kin
+        self.exprs = dict(exprs)
+        self._interp = Interpreter()
+        deps = {}
+        parsed = {}
+        for nm, ex in self.exprs.items():
+            if nm not in names:
+                raise DataError(f"'params' ties unknown parameter {nm!r}; this model's "
+                                f"parameters are {', '.join(names)}")
+            try:
+                tree = ast.parse(str(ex), mode="eval")
+            except SyntaxError:
+                raise DataError(f"'params[{nm!r}].expr' is not a valid expression: {ex!r}") \
+                    from None
+            used = {n.id for n in ast.walk(tree) if isinstance(n, ast.Name)}
+            unknown = sorted(u for u in used if u not in names and u not in self._interp.symtable)
+            if unknown:
+                raise DataError(
+                    f"'params[{nm!r}].expr' = {ex!r} uses {', '.join(unknown)}, which is not a "
+                    f"parameter of this model ({', '.join(names)})")
+            deps[nm] = sorted(u for u in used if u in names)
+            parsed[nm] = self._interp.parse(str(ex))
+        order, done, visiting = [], set(), set()
+
+        def visit(nm):
+            if nm in done:
+                return
+            if nm in visiting:
+                raise DataError(f"'params' expressions refer to each other in a circle "
+                                f"(through {nm!r})")
+            visiting.add(nm)
+            for d in deps[nm]:
+                if d in self.exprs:
+                    visit(d)
+            visiting.discard(nm)
+            done.add(nm)
+            order.append(nm)
+
+        for nm in self.exprs:
+            visit(nm)
+        self.order = [(names.index(nm), parsed[nm], [names.index(d) for d in deps[nm]])
+                      for nm in order]
+        self.names = tuple(order)
+        self.index = [j for j, _, _ in self.order]
+
+    def _eval(self, code, theta):
+        sym = self._interp.symtable
+        for nm, v in zip(self.kin.param_names, theta):
+            sym[nm] = float(v)
+        val = self._interp.run(code, with_raise=False)
+        if self._interp.error:
+            msg = self._interp.error[0].get_error()[1]
+            self._interp.error = []
+            raise DataError(f"a 'params' expression could not be evaluated: {msg}")
+        return float(val)
+
+    def apply(self, theta) -> np.ndarray:
+        """θ with every tied slot set from its expression."""
+        th = np.array(theta, dtype=float)
+        for j, code, _ in self.order:
+            th[j] = self._eval(code, th)
+        return th
+
+    def jacobian(self, theta) -> np.ndarray:
+        r"""dθ_out/dθ_in of :meth:`apply` (tied columns are zero).
+
+        The expressions' partial derivatives are central differences (step
+        :math:`10^{-6}\max(1, |\theta_i|)`, exact for the linear ties that are usual); the
+        chain through ties of ties is applied row by row in dependency order.
+        """
+        th = self.apply(theta)
+        n = th.size
+        T = np.eye(n)
+        for j, _, _ in self.order:
+            T[j, j] = 0.0
+        for j, code, dep in self.order:
+            row = np.zeros(n)
+            for i in dep:
+                h = 1e-6 * max(1.0, abs(th[i]))
+                tp, tm = th.copy(), th.copy()
+                tp[i] += h
+                tm[i] -= h
+                d = (self._eval(code, tp) - self._eval(code, tm)) / (2 * h)
+                row += d * T[i]
+            T[j] = row
+        return T
+
+
+# ----------------------------------------------------------------------------------------
 # Internal coordinates
 # ----------------------------------------------------------------------------------------
 class Coordinates:
@@ -71,15 +183,28 @@ class Coordinates:
     fixed : dict name -> value (natural)
     rate_anchor, fraction_anchor : int or None
         Pool index (0 = fastest) whose rate / fraction is a coordinate of its own.
+    ties : Ties, optional
+        Parameters set by expressions of others: not coordinates; their θ slots are filled
+        from the expressions and dθ/dz carries the expressions' derivatives.
+    bounds : dict name -> (lower, upper), optional
+        Bounds on plain (identity-mapped) parameters, e.g. a separation between limits.
     """
 
     def __init__(self, kin: TurnoverKinetics, fixed: dict, rate_anchor=None,
-                 fraction_anchor=None):
+                 fraction_anchor=None, ties=None, bounds=None):
         self.kin = kin
         names = kin.param_names
         self.fixed = dict(fixed)
-        k_idx = list(kin.rate_index)
+        self.ties = ties
+        tied = set(ties.names) if ties is not None else set()
+        k_idx = [j for j in kin.rate_index if names[j] not in tied]
         f_idx = list(kin.fraction_index)
+        if rate_anchor is not None:
+            j_anchor = kin.rate_index[rate_anchor]
+            if j_anchor not in k_idx:
+                raise FitError(f"{names[j_anchor]} is set by an expression; it cannot be "
+                               "profiled as a coordinate")
+            rate_anchor = k_idx.index(j_anchor)
         n = len(k_idx)
         self.n_pools = n
         fixed_k = [i for i, j in enumerate(k_idx) if names[j] in fixed]
@@ -135,7 +260,8 @@ class Coordinates:
             self.v0_fixed = True
         self.k_idx, self.f_idx = k_idx, f_idx
         # identity coordinates
-        other = [j for j in range(kin.n_params) if j not in k_idx and j not in f_idx]
+        other = [j for j in range(kin.n_params) if j not in k_idx and j not in f_idx
+                 and names[j] not in tied]
         self.id_free = [j for j in other if names[j] not in fixed]
         self.id_fixed = [j for j in other if names[j] in fixed]
         # order of stick-breaking: anchor first, the others in pool order
@@ -158,13 +284,18 @@ class Coordinates:
         self._n_id = len(self.id_free)
         self._n_rate = 0 if self.rates_fixed else (n - 1 + (0 if self.u_fixed else 1))
         self._n_frac = 0 if self.fractions_fixed else (nf - 2 + (0 if self.v0_fixed else 1))
-        # bounds: lag >= 0
+        # bounds: lag >= 0, and the user's bounds on plain parameters
         lo = np.full(self.size, -np.inf)
+        hi = np.full(self.size, np.inf)
+        bounds = bounds or {}
         for c, j in enumerate(self.id_free):
+            b_lo, b_hi = bounds.get(names[j], (-np.inf, np.inf))
+            lo[c], hi[c] = b_lo, b_hi
             if names[j] == "lag":
-                lo[c] = 0.0
+                lo[c] = max(lo[c], 0.0)
         self.lower = lo
-        self.has_bounds = bool(np.any(np.isfinite(lo)))
+        self.upper = hi
+        self.has_bounds = bool(np.any(np.isfinite(lo)) or np.any(np.isfinite(hi)))
         # fixed natural values
         self._theta_fixed = np.zeros(kin.n_params)
         for nm, v in fixed.items():
@@ -265,6 +396,10 @@ class Coordinates:
                 th[self.f_idx] = fvals
                 if jac:
                     A[self.f_idx] = dF
+        if self.ties is not None:
+            if jac:
+                A = self.ties.jacobian(th) @ A
+            th = self.ties.apply(th)
         return (th, A) if jac else th
 
     def clamp(self, z):
@@ -314,7 +449,7 @@ class Coordinates:
                 rem -= fi
         z = np.asarray(z, dtype=float)
         if self.has_bounds:
-            z = np.maximum(z, self.lower)
+            z = np.clip(z, self.lower, self.upper)
         return z
 
 
@@ -363,25 +498,30 @@ class Problem:
         # extra residual block: callable theta -> (r, dr/dtheta), e.g. body masses
         self.extra = extra
 
+    def evaluate(self, coords: Coordinates, z):
+        """Weighted residuals r(z) and their Jacobian dr/dz in internal coordinates."""
+        th, A = coords.theta(z, jac=True)
+        yy, J = self.kin.evaluate(self.t, th, jacobian=True)
+        r = self.w * (self.y - yy)
+        Jz = -(self.w[:, None] * (J @ A))
+        if self.extra is not None:
+            r2, J2 = self.extra(th)
+            r = np.concatenate([r, r2])
+            Jz = np.vstack([Jz, J2 @ A])
+        return r, Jz
+
     def solve(self, coords: Coordinates, z0, *, tol=1e-14, max_nfev=None) -> Solution:
-        kin, t, y, w = self.kin, self.t, self.y, self.w
+        """Least-squares solution from ``z0``: MINPACK ``lmder`` without bounds, scipy's
+        trust-region reflective method with bounds or a robust loss."""
+        t = self.t
         extra = self.extra
         cache = {}
 
         def _eval(z):
             key = z.tobytes()
             if cache.get("key") != key:
-                th, A = coords.theta(z, jac=True)
-                yy, J = kin.evaluate(t, th, jacobian=True)
+                cache["r"], cache["J"] = self.evaluate(coords, z)
                 cache["key"] = key
-                r = w * (y - yy)
-                Jz = -(w[:, None] * (J @ A))
-                if extra is not None:
-                    r2, J2 = extra(th)
-                    r = np.concatenate([r, r2])
-                    Jz = np.vstack([Jz, J2 @ A])
-                cache["r"] = r
-                cache["J"] = Jz
             return cache
 
         def fun(z):
@@ -410,9 +550,9 @@ class Problem:
                                                    maxfev=max_nfev)
                     res = _LMResult(x, ier, info["nfev"], msg)
                 else:
-                    bounds = (coords.lower, np.full(coords.size, np.inf))
-                    z0b = np.clip(z0, coords.lower + 1e-12 * (np.isfinite(coords.lower)),
-                                  np.inf)
+                    bounds = (coords.lower, coords.upper)
+                    z0b = np.clip(z0, coords.lower + 1e-12 * np.isfinite(coords.lower),
+                                  coords.upper - 1e-12 * np.isfinite(coords.upper))
                     res = least_squares(fun, z0b, jac=jac, method="trf", bounds=bounds,
                                         xtol=max(tol, 1e-15), ftol=max(tol, 1e-15),
                                         gtol=max(tol, 1e-15), max_nfev=max_nfev,
@@ -426,6 +566,62 @@ class Problem:
         ok = bool(res.status > 0) and np.isfinite(cost)
         return Solution(z, coords.theta(z), cost, int(res.status), int(res.nfev),
                          str(res.message), ok, jac(z).copy())
+
+    def solve_lmfit(self, coords: Coordinates, z0, *, tol=1e-12, max_nfev=None) -> Solution:
+        """The same problem solved by :class:`lmfit.Minimizer` in the internal coordinates.
+
+        ``least_squares`` with this problem's analytic Jacobian passed as ``jac=`` (lmfit
+        hands it the current :class:`lmfit.Parameters`), bounds passed to scipy as they are
+        (no lmfit bound transform), the problem's loss. The lmfit result is kept in
+        ``solution.extra["lmfit"]``.
+        """
+        import lmfit
+
+        labels = list(coords.labels)
+        z0 = np.asarray(z0, dtype=float)
+        if coords.size == 0:
+            return self.solve(coords, z0)
+        pars = lmfit.Parameters()
+        for c, lab in enumerate(labels):
+            lo, hi = float(coords.lower[c]), float(coords.upper[c])
+            pars.add(lab, value=float(min(max(z0[c], lo), hi)), min=lo, max=hi)
+        cache = {}
+
+        def ev(p):
+            z = np.array([p[lab].value for lab in labels], dtype=float)
+            key = z.tobytes()
+            if cache.get("key") != key:
+                cache["r"], cache["J"] = self.evaluate(coords, z)
+                cache["key"] = key
+            return cache
+
+        def resid(p):
+            return ev(p)["r"]
+
+        def jac(p, *args, **kwargs):
+            return ev(p)["J"]
+
+        if max_nfev is None:
+            max_nfev = 100 * (coords.size + 1)
+        mini = lmfit.Minimizer(resid, pars, nan_policy="raise")
+        try:
+            with np.errstate(over="ignore", under="ignore", invalid="ignore",
+                             divide="ignore"):
+                res = mini.minimize(method="least_squares", jac=jac, xtol=max(tol, 1e-15),
+                                    ftol=max(tol, 1e-15), gtol=max(tol, 1e-15),
+                                    max_nfev=max_nfev, loss=self.loss, f_scale=self.f_scale,
+                                    x_scale="jac")
+        except (ValueError, FloatingPointError, np.linalg.LinAlgError) as e:
+            return Solution(z0, coords.theta(z0), math.inf, -1, 0, f"solver error: {e}",
+                            False)
+        z = coords.clamp(np.array([res.params[lab].value for lab in labels], dtype=float))
+        r, J = self.evaluate(coords, z)
+        cost = float(r @ r)
+        ok = bool(res.success) and np.isfinite(cost)
+        sol = Solution(z, coords.theta(z), cost, 1 if res.success else 0, int(res.nfev),
+                       str(res.message), ok, J.copy())
+        sol.extra["lmfit"] = res
+        return sol
 
 
 # ----------------------------------------------------------------------------------------
@@ -844,9 +1040,12 @@ def frame_series(frame):
 class Engine:
     """Fits one data series; also used by profiles, bootstraps and simulations."""
 
-    def __init__(self, kin, data, *, absolute_sigma=False, loss="linear", masses=None):
+    def __init__(self, kin, data, *, absolute_sigma=False, loss="linear", masses=None,
+                 ties=None, bounds=None):
         self.kin = kin
         self.data = data
+        self.ties = ties
+        self.bounds = dict(bounds or {})
         self.t, self.y, self.sigma = data["t"], data["y"], data["sigma"]
         self.w = np.ones_like(self.t) if self.sigma is None else 1.0 / self.sigma
         self.absolute_sigma = bool(absolute_sigma)
@@ -867,7 +1066,8 @@ class Engine:
         key = (tuple(sorted(fixed)), rate_anchor, fraction_anchor)
         c = self._coords_cache.get(key)
         if c is None:
-            c = Coordinates(self.kin, fixed, rate_anchor, fraction_anchor)
+            c = Coordinates(self.kin, fixed, rate_anchor, fraction_anchor, ties=self.ties,
+                            bounds=self.bounds)
             self._coords_cache[key] = c
         else:
             c._theta_fixed = np.zeros(self.kin.n_params)
@@ -875,7 +1075,8 @@ class Engine:
                 c._theta_fixed[self.kin.param_names.index(nm)] = float(v)
             c.fixed = dict(fixed)
             if c.f_idx and c.fractions_fixed:
-                c2 = Coordinates(self.kin, fixed, rate_anchor, fraction_anchor)
+                c2 = Coordinates(self.kin, fixed, rate_anchor, fraction_anchor,
+                                 ties=self.ties, bounds=self.bounds)
                 c.fixed_fractions = c2.fixed_fractions
         return c
 
@@ -914,7 +1115,10 @@ class Engine:
             starts = [base] + starts
         return starts
 
-    def fit_best(self, fixed, init):
+    def fit_best(self, fixed, init, use_lmfit=False):
+        """Best fit from the automatic starts (and ``init``): every start on a modest budget,
+        the best polished to tight tolerances — by :meth:`Problem.solve_lmfit` (lmfit's
+        Minimizer) when ``use_lmfit``. Returns (solution, number of starts tried)."""
         kin = self.kin
         coords = self.coords(fixed)
         n_keep = 1 if kin.pools == 1 else 4
@@ -951,6 +1155,16 @@ class Engine:
         if self.mass_block is not None:
             best, more = self._joint_block_weights(coords, best)
             tried += more
+        if use_lmfit and coords.size:
+            prob = self.problem if self.loss == "linear" else Problem(
+                kin, self.t, self.y, self.w, loss=self.loss, f_scale=self.f_scale)
+            lm = prob.solve_lmfit(coords, best.z)
+            if np.isfinite(lm.cost) and (lm.success or not best.success) and \
+                    lm.cost <= best.cost * (1 + 1e-9) + 1e-300:
+                lm.extra.update({k: v for k, v in best.extra.items() if k != "lmfit"})
+                best = lm
+            else:
+                best.extra["lmfit"] = lm.extra.get("lmfit")
         best.extra["coords"] = coords
         return best, tried
 
@@ -1001,7 +1215,7 @@ class Engine:
         data = dict(self.data)
         data["y"] = np.asarray(y, dtype=float)
         new = Engine(self.kin, data, absolute_sigma=self.absolute_sigma, loss=self.loss,
-                      masses=self.masses)
+                     masses=self.masses, ties=self.ties, bounds=self.bounds)
         if self.mass_block is not None and new.mass_block is not None:
             new.mass_block = self.mass_block
         new._coords_cache = self._coords_cache
@@ -1017,7 +1231,7 @@ class Engine:
         data["y"] = np.asarray(y, dtype=float)
         data["sigma"] = None if sigma is None else np.asarray(sigma, dtype=float)
         new = Engine(self.kin, data, absolute_sigma=self.absolute_sigma, loss=self.loss,
-                     masses=self.masses)
+                     masses=self.masses, ties=self.ties, bounds=self.bounds)
         new._coords_cache = self._coords_cache
         return new
 

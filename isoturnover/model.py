@@ -9,8 +9,11 @@ Nothing the caller passes is modified.
 
 from __future__ import annotations
 
+import difflib
+import math
 import warnings
 
+import lmfit
 import numpy as np
 
 from .diet import DietHistory
@@ -19,6 +22,7 @@ from .engine import (
     Coordinates,
     Engine,
     FitState,
+    Ties,
     as_1d,
     check_growth_coverage,
     check_names,
@@ -94,6 +98,7 @@ class TurnoverModel:
         self.per_diet_separation = per_diet_separation
         self.propagate_growth = propagate_growth
         self._kin = None
+        self._kin_key = None
 
     # -- configuration ------------------------------------------------------------------
     def config(self) -> dict:
@@ -115,10 +120,19 @@ class TurnoverModel:
             "propagate_growth": bool(self.propagate_growth),
         }
 
+    def _config_key(self):
+        return (self.pools, self.structure, id(self.growth), self.growth
+                if isinstance(self.growth, str) else None, self.lag, id(self.diet),
+                self.separation, self.scale, self.isotope, self.initial,
+                self.per_diet_separation, self.propagate_growth)
+
     @property
     def kinetics(self) -> TurnoverKinetics:
-        """The kinetic model for this configuration (built once, then reused)."""
-        if self._kin is None:
+        """The kinetic model for this configuration (built once, rebuilt when an attribute
+        of the model changes)."""
+        key = self._config_key()
+        if self._kin is None or self._kin_key != key:
+            self._kin = None
             pools = self.pools
             if self.structure == "parallel" and (
                 isinstance(pools, bool) or not isinstance(pools, (int, np.integer))
@@ -138,17 +152,154 @@ class TurnoverModel:
                 initial=self.initial, scale=self.scale, isotope=self.isotope,
                 growth=self.growth, growth_params=self._propagates_growth(),
             )
+            self._kin_key = key
         return self._kin
 
     def _propagates_growth(self) -> bool:
         """A fitted growth curve (with a covariance) whose uncertainty is carried along."""
         g = self.growth
         return bool(self.propagate_growth) and g is not None and not isinstance(g, str) \
-            and hasattr(g, "covariance") and hasattr(g, "_curve")
+            and hasattr(g, "covariance") and hasattr(g, "law")
 
     @property
     def param_names(self) -> tuple[str, ...]:
         return self.kinetics.param_names
+
+    def make_params(self, **values) -> lmfit.Parameters:
+        r"""The model's parameters as :class:`lmfit.Parameters`, to edit and pass to
+        :meth:`fit` (``params=``).
+
+        Names are the natural ones (``delta0``, ``delta_eq``, ``plateau_j``,
+        ``discrimination``/``epsilon``, ``k1``…, ``f1``…, ``lag``, ``k_growth``,
+        ``growth_<p>``). Bounds: rates ``min=0``; fractions in [0, 1], the last one tied
+        to the others by the expression ``1 - f1 - …`` (the fractions sum to 1); ``lag``
+        ``min=0``. Values are only starting points: the fit always adds its own automatic
+        starts and keeps the best. Set ``vary=False`` to fix a parameter, ``min``/``max`` to
+        bound a plain parameter (levels, separations, lag, ``k_growth``), ``expr`` to tie a
+        parameter to others (for example ``params["k2"].expr = "k1/5"``). Bounds on rates and
+        fractions are set by the model (pools stay ordered, fastest first); fix or tie those
+        instead.
+
+        Parameters
+        ----------
+        **values : float
+            Starting values by name, e.g. ``make_params(delta_eq=-12.0, k1=0.1)``.
+
+        Returns
+        -------
+        lmfit.Parameters
+
+        Examples
+        --------
+        >>> import isoturnover as iso
+        >>> p = iso.TurnoverModel(pools=2).make_params(delta0=-25.0, delta_eq=-12.0)
+        >>> p["f2"].expr
+        '1 - f1'
+        """
+        kin = self.kinetics
+        names = kin.param_names
+        unknown = [k for k in values if k not in names]
+        if unknown:
+            near = difflib.get_close_matches(str(unknown[0]), names, n=1)
+            hint = f" (did you mean {near[0]!r}?)" if near else ""
+            raise DataError(f"make_params got unknown parameter {unknown[0]!r}{hint}; this "
+                            f"model's parameters are {', '.join(names)}")
+        vals = check_names(values, kin, "make_params") if values else {}
+        fr = kin.fraction_names
+        growth_fixed = {}
+        if kin.growth_kind == "curve_params":
+            g = self.growth
+            varying = set(g.covariance.index)
+            for nm, v in zip(g.param_names, g.values):
+                growth_fixed[f"growth_{nm}"] = (float(v), nm in varying)
+        ps = lmfit.Parameters()
+        for nm in names:
+            if nm in kin.rate_names:
+                i = kin.rate_names.index(nm)
+                ps.add(nm, value=vals.get(nm, 0.1 * 5.0 ** (-i)), min=0.0)
+            elif nm in fr:
+                ps.add(nm, value=vals.get(nm, 1.0 / len(fr)), min=0.0, max=1.0)
+            elif nm == "lag":
+                ps.add(nm, value=vals.get(nm, 0.0), min=0.0)
+            elif nm in growth_fixed:
+                v, vary = growth_fixed[nm]
+                ps.add(nm, value=vals.get(nm, v), vary=vary)
+            else:
+                ps.add(nm, value=vals.get(nm, 0.0))
+        if len(fr) > 1:
+            ps[fr[-1]].set(expr=" - ".join(["1"] + list(fr[:-1])))
+        return ps
+
+    def _read_params(self, params):
+        """(fixed, init, ties, bounds) from an lmfit.Parameters; see :meth:`make_params`."""
+        kin = self.kinetics
+        names = kin.param_names
+        if not isinstance(params, lmfit.Parameters):
+            raise DataError(f"'params' must be an lmfit.Parameters (from "
+                            f"TurnoverModel.make_params()); got {type(params).__name__}")
+        unknown = [k for k in params if k not in names]
+        if unknown:
+            raise DataError(
+                f"'params' has parameter(s) {', '.join(map(repr, unknown))} that this model "
+                f"does not have; its parameters are {', '.join(names)} (expressions may use "
+                "only these)")
+        default = self.make_params()
+        fr = list(kin.fraction_names)
+        fixed, init, ties, bounds = {}, {}, {}, {}
+        for nm in names:
+            p = params[nm] if nm in params else default[nm]
+            expr = p.expr.strip() if isinstance(p.expr, str) and p.expr.strip() else None
+            if nm in fr:
+                if expr is not None:
+                    terms = [x.strip() for x in expr.replace(" ", "").split("-")]
+                    is_sum = (nm == fr[-1] and terms[0] == "1"
+                              and sorted(terms[1:]) == sorted(fr[:-1]))
+                    if not is_sum:
+                        raise DataError(
+                            f"'params[{nm!r}].expr' = {p.expr!r}: pool fractions sum to 1 by "
+                            f"construction ({fr[-1]} = 1 - the others); other expressions "
+                            "for fractions are not supported: fix them (vary=False) instead")
+                    continue
+                if (p.min not in (0.0, -np.inf) and np.isfinite(p.min)) or \
+                        (p.max not in (1.0, np.inf) and np.isfinite(p.max)):
+                    raise DataError(
+                        f"'params[{nm!r}]' has bounds [{p.min}, {p.max}]: bounds of pool "
+                        "fractions are set by the model ([0, 1], summing to 1); fix the "
+                        "fraction (vary=False) instead")
+            elif nm in kin.rate_names:
+                if (np.isfinite(p.min) and p.min > 0) or np.isfinite(p.max):
+                    raise DataError(
+                        f"'params[{nm!r}]' has bounds [{p.min}, {p.max}]: rates are fitted on "
+                        "the log scale with the pools ordered, so their bounds are set by the "
+                        "model (0, inf); fix the rate (vary=False) or tie it to another "
+                        f"(params[{nm!r}].expr = ...) instead")
+            if expr is not None:
+                ties[nm] = expr
+                continue
+            v = p.value
+            if not (v is not None and math.isfinite(float(v))):
+                raise DataError(f"'params[{nm!r}]' has no finite value; got {v!r}")
+            if not p.vary:
+                fixed[nm] = float(v)
+                continue
+            init[nm] = float(v)
+            if nm not in kin.rate_names and nm not in fr and (
+                    np.isfinite(p.min) or np.isfinite(p.max)):
+                if not p.min < p.max:
+                    raise DataError(f"'params[{nm!r}]' has min >= max ({p.min} >= {p.max})")
+                bounds[nm] = (float(p.min), float(p.max))
+        fixed = check_names(fixed, kin, "params (fixed)")
+        init = check_names(init, kin, "params (values)")
+        # starting values of fractions from lmfit's defaults need not sum to 1 once the last
+        # is an expression: keep the free ones and let the engine complete the last
+        if fr and fr[-1] not in init and all(f in init for f in fr[:-1]):
+            rest = 1.0 - sum(init[f] for f in fr[:-1])
+            if rest >= 0:
+                init[fr[-1]] = rest
+            else:
+                for f in fr[:-1]:
+                    init.pop(f)
+        return fixed, init, ties, bounds
 
     def describe(self) -> str:
         """One line naming the model structure."""
@@ -192,8 +343,8 @@ class TurnoverModel:
         return f"TurnoverModel({', '.join(args)})"
 
     # -- fitting ----------------------------------------------------------------------------
-    def fit(self, t_or_frame, y=None, sigma=None, *, absolute_sigma=False, fixed=None,
-            init=None, loss="linear", masses=None, time_unit=None, label=None,
+    def fit(self, t_or_frame, y=None, sigma=None, *, params=None, absolute_sigma=False,
+            fixed=None, init=None, loss="linear", masses=None, time_unit=None, label=None,
             warn=True):
         """Fit the model to one series.
 
@@ -209,6 +360,13 @@ class TurnoverModel:
             Tissue δ values (‰). Not used with a frame.
         sigma : array-like of shape (n,) or float, optional
             Analytic 1σ of each value. Relative weights unless ``absolute_sigma``.
+        params : lmfit.Parameters, optional
+            Parameters from :meth:`make_params`, edited: ``value`` (a starting point added to
+            the automatic ones), ``vary=False`` (fixed), ``min``/``max`` (plain parameters),
+            ``expr`` (tied to others, evaluated as lmfit evaluates it). With ``params`` the
+            final fit runs through :class:`lmfit.Minimizer` (``least_squares`` with the
+            analytic Jacobian) in the internal coordinates; the fit's ``params`` keep the
+            expressions.
         absolute_sigma : bool, default=False
             Treat ``sigma`` as known: no rescaling of the covariance by the residual
             variance, and a χ² goodness-of-fit p-value.
@@ -243,6 +401,18 @@ class TurnoverModel:
         kin = self.kinetics
         fixed = check_names(fixed, kin, "fixed")
         init = check_names(init, kin, "init")
+        ties, bounds = {}, {}
+        if params is not None:
+            p_fixed, p_init, ties, bounds = self._read_params(params)
+            both = sorted(set(ties) & (set(fixed) | set(init)))
+            if both:
+                raise DataError(f"{', '.join(both)} is set by an expression in 'params' and "
+                                "also given in 'fixed'/'init'; give it in one place")
+            fixed = {**p_fixed, **fixed}
+            for nm in fixed:
+                bounds.pop(nm, None)
+            init = {**{k: v for k, v in p_init.items() if k not in fixed}, **init}
+        tie_map = Ties(kin, ties) if ties else None
         if kin.growth_kind == "exponential" and masses is None and "k_growth" not in fixed:
             raise ValueError(
                 "growth='exponential' needs body masses (masses=(t_mass, mass)) or a fixed "
@@ -263,14 +433,15 @@ class TurnoverModel:
             check_growth_coverage(kin, data["t"])
         elif kin.growth_kind == "curve":
             check_growth_coverage(kin, data["t"])
-        n_free = Coordinates(kin, fixed).size
+        n_free = Coordinates(kin, fixed, ties=tie_map, bounds=bounds).size
         if n_free > data["t"].size:
             raise ValueError(
                 f"the model has {n_free} free parameters but only {data['t'].size} time "
                 "points; fix parameters or use fewer pools"
             )
-        engine = Engine(kin, data, absolute_sigma=absolute_sigma, loss=loss, masses=masses)
-        sol, starts_tried = engine.fit_best(fixed, init)
+        engine = Engine(kin, data, absolute_sigma=absolute_sigma, loss=loss, masses=masses,
+                        ties=tie_map, bounds=bounds)
+        sol, starts_tried = engine.fit_best(fixed, init, use_lmfit=params is not None)
         fit = TurnoverFit(self, FitState(engine, sol, fixed), init=init,
                           starts_tried=starts_tried, label=label)
         if warn:

@@ -111,6 +111,11 @@ class TurnoverFit:
         self._sol = state.solution
         self._coords = state.coords
         self.fixed = dict(state.fixed)
+        ties = state.coords.ties
+        #: Parameters set by expressions of others (name -> expression), from ``params=``.
+        self.tied = {nm: ties.exprs[nm] for nm in ties.names} if ties is not None else {}
+        #: Bounds on plain parameters given in ``params=`` (name -> (min, max)).
+        self.bounds = dict(engine.bounds)
         self.init = dict(init or {})
         self.t = state.t
         self.y = state.y
@@ -197,6 +202,40 @@ class TurnoverFit:
             self._params = self._make_params()
         return self._params
 
+    @property
+    def lmfit_result(self):
+        """This fit as lmfit's own result object, in natural parameters (built on first access).
+
+        A :class:`lmfit.minimizer.MinimizerResult` with ``params`` (values, ``stderr``,
+        ``correl``, expressions), ``var_names``, ``covar`` (of the varying natural
+        parameters), ``chisqr`` (= :attr:`rss`), ``redchi``, ``aic``, ``bic``, ``nfev``,
+        ``ndata``, ``nvarys``, ``nfree``, ``residual`` (weighted), ``success`` and
+        ``errorbars``, so ``lmfit.fit_report(fit.lmfit_result)`` prints lmfit's report. The
+        information criteria are this library's (module docstring), not lmfit's. Fits made
+        with ``params=`` ran through :class:`lmfit.Minimizer`; its result in the internal
+        coordinates is ``fit.lmfit_result.minimizer_result``.
+        """
+        if getattr(self, "_lmfit_result", None) is None:
+            from lmfit.minimizer import MinimizerResult
+
+            ps = self.params
+            names = list(self.kinetics.param_names)
+            var_names = [n for n in ps if ps[n].vary]
+            idx = [names.index(n) for n in var_names]
+            covar = self.covar[np.ix_(idx, idx)] if self._cov_ok else None
+            raw = self._sol.extra.get("lmfit")
+            self._lmfit_result = MinimizerResult(
+                params=ps, var_names=var_names, covar=covar,
+                init_vals=[ps[n].value for n in var_names], nfev=self.nfev,
+                success=self._optimizer_ok, errorbars=bool(self._cov_ok),
+                message=self.message,
+                method="least_squares (lmfit.Minimizer)" if raw is not None else
+                "leastsq (MINPACK, analytic Jacobian)",
+                ndata=self.nobs, nvarys=self.nvarys, nfree=self.dof, chisqr=self.rss,
+                redchi=self.redchi, aic=self.aic, bic=self.bic, residual=self._wres(),
+                minimizer_result=raw)
+        return self._lmfit_result
+
     def _make_params(self):
         import lmfit
 
@@ -206,26 +245,39 @@ class TurnoverFit:
         names = kin.param_names
         implicit = self._implicit_fixed()
         for j, nm in enumerate(names):
+            if nm in self.tied:
+                continue
             vary = nm not in self.fixed and nm not in implicit
-            mn, mx = -np.inf, np.inf
+            mn, mx = self.bounds.get(nm, (-np.inf, np.inf))
             if nm in kin.rate_names:
                 mn = 0.0
             elif nm in kin.fraction_names:
                 mn, mx = 0.0, 1.0
             elif nm == "lag":
-                mn = 0.0
+                mn = max(mn, 0.0)
             v = float(self._theta[j])
             ps.add(nm, value=min(max(v, mn), mx), vary=vary, min=mn, max=mx)
             if vary:
                 ps[nm].stderr = se[nm] if np.isfinite(se[nm]) else None
+        # the last fraction is the rest (as in TurnoverModel.make_params)
+        fr = kin.fraction_names
+        if len(fr) > 1 and fr[-1] not in self.fixed:
+            ps[fr[-1]].set(expr=" - ".join(["1"] + list(fr[:-1])))
+            ps[fr[-1]].stderr = se[fr[-1]] if np.isfinite(se[fr[-1]]) else None
+        # parameters set by expressions, in dependency order, keep their expressions
+        for nm in self.tied:
+            ps.add(nm, expr=self.tied[nm])
+            ps[nm].stderr = se[nm] if np.isfinite(se[nm]) else None
+        expressed = set(self.tied) | ({fr[-1]} if len(fr) > 1 else set())
         if self._cov_ok:
             c = self.covar
             d = np.sqrt(np.diag(c))
             for i, a in enumerate(names):
-                if a in self.fixed or not d[i] > 0:
+                if a in self.fixed or a in expressed or not d[i] > 0:
                     continue
                 ps[a].correl = {b: float(c[i, j] / (d[i] * d[j])) for j, b in enumerate(names)
-                                if j != i and b not in self.fixed and d[j] > 0}
+                                if j != i and b not in self.fixed and b not in expressed
+                                and d[j] > 0}
         return ps
 
     # -- trust signals --------------------------------------------------------------------
@@ -270,6 +322,17 @@ class TurnoverFit:
             notes.append(TrustNote("at_bound", BoundWarning,
                                    "lag is at its lower bound 0: the data show no delay; "
                                    "consider a model without lag"))
+        for nm, (b_lo, b_hi) in self.bounds.items():
+            if nm in self.fixed:
+                continue
+            scale = max(abs(v[nm]), abs(b_lo) if np.isfinite(b_lo) else 0.0,
+                        abs(b_hi) if np.isfinite(b_hi) else 0.0, 1.0)
+            for b, side in ((b_lo, "lower"), (b_hi, "upper")):
+                if np.isfinite(b) and abs(v[nm] - b) <= 1e-7 * scale:
+                    notes.append(TrustNote(
+                        "at_bound", BoundWarning,
+                        f"{nm} = {v[nm]:.6g} is at its {side} bound ({b:g}, set in params): "
+                        "the data would put it beyond; its interval stops at the bound"))
         first = float(pos[0]) if pos.size else math.nan
         for nm in kin.rate_names:
             if nm in self.fixed:
@@ -308,6 +371,8 @@ class TurnoverFit:
             skip = set()
             if kin.fraction_index and n_pools > 1:
                 skip.add(kin.fraction_index[-1])
+            # parameters set by an expression are correlated with their sources by design
+            skip.update(names.index(nm) for nm in self.tied)
             worst = None
             for a in free:
                 for b in free:
@@ -509,7 +574,9 @@ class TurnoverFit:
                         status = "failed"
                     break
                 if at_limit:
-                    status = "at_bound" if kind == "lag" else "open"
+                    status = "at_bound" if kind == "lag" or (
+                        name in self.bounds
+                        and limit in self.bounds[name]) else "open"
                     break
                 # grow the step, more when the profile is flat
                 grow = 2.0 if d_new - d_prev < 0.25 * crit else 1.4
@@ -529,6 +596,10 @@ class TurnoverFit:
                     bound = 0.0 if direction < 0 else math.inf
                 else:
                     bound = -math.inf if direction < 0 else math.inf
+                if name in self.bounds:
+                    b = self.bounds[name][0 if direction < 0 else 1]
+                    if np.isfinite(b):
+                        bound = b
             elif status == "failed":
                 bound = math.nan
             results.append((bound, status))
@@ -550,7 +621,11 @@ class TurnoverFit:
         if kind == "lag":
             return 0.0, c_hat + max(50 * se_c, span)
         width = max(200 * se_c, 100 * max(float(np.ptp(self.y)), 1.0))
-        return c_hat - width, c_hat + width
+        lo, hi = c_hat - width, c_hat + width
+        if name in self.bounds:  # the user's bounds close the search (status at_bound)
+            b_lo, b_hi = self.bounds[name]
+            lo, hi = max(lo, b_lo), min(hi, b_hi)
+        return lo, hi
 
     def _asymptotic(self, name, level):
         kin = self.kinetics
@@ -596,6 +671,16 @@ class TurnoverFit:
         if method in ("bootstrap", "mcmc"):
             return self._resampled_interval(name, level, method)
         if method == "profile" and self.loss == "linear":
+            if name in self.tied:
+                # a parameter set by an expression is a derived quantity: constrained profile
+                key = (name, round(level, 12))
+                if key not in self._profile_cache:
+                    j = self.kinetics.param_names.index(name)
+                    pi = self.profile(lambda th, j=j: th[j], level, name=name,
+                                      positive=name in self.kinetics.rate_names)
+                    self._profile_cache[key] = (pi.lower, pi.upper, pi.lower_status,
+                                                pi.upper_status)
+                return self._profile_cache[key]
             return self._profile(name, level)
         return self._asymptotic(name, level)
 
@@ -1162,7 +1247,10 @@ class TurnoverFit:
                      list(self.block_scale)},
             "options": {"absolute_sigma": self.absolute_sigma, "loss": self.loss,
                         "f_scale": self.f_scale, "fixed": self.fixed, "init": self.init,
-                        "label": self.label},
+                        "label": self.label, "tied": self.tied,
+                        "bounds": {k: [float(a) if np.isfinite(a) else None,
+                                       float(b) if np.isfinite(b) else None]
+                                   for k, (a, b) in self.bounds.items()}},
             "solution": {"z": fl(self._sol.z), "theta": fl(self._theta),
                          "jac_z": None if self._sol.jac_z is None else
                          np.asarray(self._sol.jac_z).tolist(),

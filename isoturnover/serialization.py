@@ -9,7 +9,7 @@ import math
 import numpy as np
 
 from .diet import DietHistory
-from .engine import Engine, FitState, Solution, prepare_data
+from .engine import Engine, FitState, Solution, Ties, prepare_data
 from .growth import load_growth
 from .model import TurnoverModel
 from .results import TurnoverFit
@@ -41,8 +41,12 @@ def load_fit(d) -> TurnoverFit:
     data["info"].update(dd.get("info") or {})
     opt = d["options"]
     masses = dd.get("masses")
+    tied = opt.get("tied") or {}
+    bounds = {k: (-math.inf if a is None else float(a), math.inf if b is None else float(b))
+              for k, (a, b) in (opt.get("bounds") or {}).items()}
     engine = Engine(model.kinetics, data, absolute_sigma=opt["absolute_sigma"],
-                    loss=opt["loss"],
+                    loss=opt["loss"], ties=Ties(model.kinetics, tied) if tied else None,
+                    bounds=bounds,
                     masses=None if masses is None else (np.array(masses[0]),
                                                         np.array(masses[1])))
     if dd.get("block_scale") is not None:
