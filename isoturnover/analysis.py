@@ -12,6 +12,7 @@ folder and moved into place only when all of them exist.
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import shutil
@@ -19,12 +20,14 @@ import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from .errors import DataError, FitError
-from .groups import FitSet, fit_each
+from .groups import FitSet, fit_each, parallel_workers
 
-__all__ = ["analyse", "Analysis", "run_demo", "load_fits", "CAUTION", "CI_METHODS"]
+__all__ = ["analyse", "Analysis", "run_demo", "load_fits", "series_seed", "CAUTION",
+           "CI_METHODS"]
 
 CI_METHODS = ("profile", "asymptotic", "bootstrap")
 
@@ -47,6 +50,12 @@ class Analysis:
         Interval method of the tables ("profile", "asymptotic" or "bootstrap").
     bootstrap : dict
         (part, key) -> bootstrap interval table of the chosen fit, when ``ci="bootstrap"``.
+    seed : int or None
+        Seed of the run. Each series' bootstrap draws from its own seed, derived from this
+        one and the series' part and key (:func:`series_seed`), so a series' interval does
+        not depend on which other series are in the run, on their order, or on ``n_jobs``.
+    n_jobs : int
+        Parallel workers of the bootstrap refits (results do not depend on it).
     """
 
     parts: dict
@@ -56,6 +65,7 @@ class Analysis:
     seed: int | None = 1
     bootstrap: dict = field(default_factory=dict)
     title: str = "Turnover analysis"
+    n_jobs: int = 1
 
     @property
     def interval_method(self):
@@ -90,13 +100,14 @@ class Analysis:
         from .uncertainty import bootstrap
 
         rows = []
-        for i, (key, r) in enumerate(fs.items()):
+        workers = parallel_workers(self.n_jobs)
+        for key, r in fs.items():
             if r.best is None:
                 continue
             b = self.bootstrap.get((name, key))
             if b is None:
-                seed = None if self.seed is None else self.seed + i
-                res = bootstrap(r.best, n=self.n_boot, kind="residual", rng=seed,
+                res = bootstrap(r.best, n=self.n_boot, kind="residual",
+                                rng=series_seed(self.seed, name, key), n_jobs=workers,
                                 progress=False)
                 b = res.intervals(self.level, method="percentile")
                 b.attrs["n_failed"] = res.n_failed
@@ -178,6 +189,31 @@ class Analysis:
         return written
 
 
+def series_seed(seed, part, key):
+    """The random seed of one series: from the run's ``seed`` and the series' name.
+
+    A :class:`numpy.random.SeedSequence` of ``seed`` and four 32-bit words of the SHA-256
+    digest of the part's name and the key's values (as text), so it depends on what the
+    series is, not on where it stands in the run or how many workers run it. ``None``
+    when ``seed`` is None (fresh randomness).
+    """
+    if _check_seed(seed) is None:
+        return None
+    if not isinstance(key, tuple):
+        key = (key,)
+    text = json.dumps([str(part), *(str(k) for k in key)], ensure_ascii=False)
+    digest = hashlib.sha256(text.encode("utf-8")).digest()
+    words = [int.from_bytes(digest[i:i + 4], "little") for i in range(0, 16, 4)]
+    return np.random.SeedSequence([int(seed), *words])
+
+
+def _check_seed(seed):
+    if seed is not None and (isinstance(seed, bool) or not isinstance(seed, (int, np.integer))
+                             or seed < 0):
+        raise DataError(f"'seed' must be a non-negative integer or None; got {seed!r}")
+    return seed
+
+
 def check_out_dir(out: Path, force: bool):
     """Refuse a non-empty output folder unless ``force`` (before any work is done)."""
     if out.exists() and not out.is_dir():
@@ -243,7 +279,7 @@ def _parse_pools(pools):
 def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("parallel",),
             by=None, ci="profile", level=0.95, time_unit="d", growth_curve="logistic",
             per_diet_separation=False, lag=False, progress=False, n_boot=499, seed=1,
-            title="Turnover analysis") -> Analysis:
+            title="Turnover analysis", n_jobs=1) -> Analysis:
     """Fit every series of a samples table and choose the number of pools (AICc).
 
     Parameters
@@ -255,13 +291,19 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
         subject has a single sampling time (destructive design).
     ci : {"profile", "asymptotic", "bootstrap"}
         Interval method; "bootstrap" adds residual-bootstrap percentile intervals for the
-        chosen fits' half-lives (``n_boot`` replicates, seeded by ``seed``).
+        chosen fits' half-lives (``n_boot`` replicates; each series seeded from ``seed``
+        and its own key, see :func:`series_seed`).
+    n_jobs : int, default=1
+        Parallel workers (joblib; -1: all cores) for the series' fits and the bootstrap
+        refits. The results are those of ``n_jobs=1``.
     Other parameters as :func:`~isoturnover.fit_each`.
     """
     from .data import read_diets, read_masses, read_samples
 
     if ci not in CI_METHODS:
         raise DataError(f"ci must be one of {', '.join(CI_METHODS)}; got {ci!r}")
+    n_jobs = parallel_workers(n_jobs)  # 1 (after one warning) when joblib is missing
+    _check_seed(seed)
     pools = _parse_pools(pools)
     s = read_samples(samples, time_unit=time_unit)
     d = read_diets(diets, time_unit=time_unit) if diets is not None else None
@@ -273,9 +315,9 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
     fs = fit_each(s, by=by, pools=pools, structures=structures, diets=d, masses=m,
                   level=level, method="asymptotic" if ci == "asymptotic" else "profile",
                   lag=lag, growth_curve=growth_curve, per_diet_separation=per_diet_separation,
-                  progress=progress)
+                  progress=progress, n_jobs=n_jobs)
     return Analysis({"samples": fs}, level=level, ci=ci, n_boot=n_boot, seed=seed,
-                    title=title)
+                    title=title, n_jobs=n_jobs)
 
 
 def run_demo(out_dir=None, *, force=False, progress=False, figures=True) -> Analysis:

@@ -13,6 +13,26 @@ import warnings
 EXIT_ERROR = 2
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with the command line's error convention: one line ``error: ...`` on stderr
+    and exit status 2 (argparse's own would print the usage block first)."""
+
+    def error(self, message):
+        self.exit(EXIT_ERROR, f"error: {message} (see {self.prog} --help)\n")
+
+
+def _jobs(text):
+    """``--jobs N``: a positive integer, or -1 for all cores."""
+    from .conventions import check_n_jobs
+
+    try:
+        return check_n_jobs(int(text), "--jobs")
+    except ValueError:  # not a number, or refused by check_n_jobs (a DataError)
+        raise argparse.ArgumentTypeError(
+            f"must be a positive integer (number of parallel workers) or -1 (all cores); "
+            f"got {text!r}") from None
+
+
 def _add_common(p):
     p.add_argument("--out", metavar="DIR", default=None,
                    help="output folder (default: isoturnover_out_<command>)")
@@ -29,7 +49,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     common = argparse.ArgumentParser(add_help=False)
     common.add_argument("--debug", action="store_true", help="show the full traceback on errors")
-    p = argparse.ArgumentParser(
+    p = _Parser(
         prog="isoturnover", parents=[common],
         description="Turnover rates, half-lives and pool fractions from stable-isotope "
         "diet-switch experiments. Animal experiments and field sampling need the approval of "
@@ -69,6 +89,9 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--per-diet-separation", action="store_true",
                    help="one diet-tissue separation per diet value")
     f.add_argument("--lag", action="store_true", help="fit a pure delay after each switch")
+    f.add_argument("--jobs", metavar="N", type=_jobs, default=1,
+                   help="run the series' fits and bootstrap refits in N parallel processes "
+                   "(-1: all cores; default 1); the results are the same as with 1")
     _add_common(f)
     return p
 
@@ -109,7 +132,7 @@ def _cmd_fit(args):
                 structures=structures, by=by, ci=args.ci, level=args.level,
                 time_unit=args.time_unit, growth_curve=args.growth_curve,
                 per_diet_separation=args.per_diet_separation, lag=args.lag,
-                progress=_progress_default(args), n_boot=args.n_boot)
+                progress=_progress_default(args), n_boot=args.n_boot, n_jobs=args.jobs)
     if a.n_fitted() == 0:
         reasons = "; ".join(f"{' / '.join(map(str, k[1:]))}: {why}"
                             for k, why in list(a.failures().items())[:10])

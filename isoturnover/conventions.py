@@ -22,6 +22,7 @@ __all__ = [
     "check_method",
     "check_choice",
     "check_positive_int",
+    "check_n_jobs",
     "unit_word",
 ]
 
@@ -71,6 +72,16 @@ def check_positive_int(name: str, value, minimum: int = 1) -> int:
     """An integer (not a bool) at least ``minimum``."""
     if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < minimum:
         raise DataError(f"'{name}' must be an integer >= {minimum}; got {value!r}")
+    return int(value)
+
+
+def check_n_jobs(value, name: str = "n_jobs") -> int:
+    """A number of parallel workers, joblib's convention: a positive integer, or -1 for all
+    cores (not a bool, not 0, not below -1)."""
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) \
+            or not (value >= 1 or value == -1):
+        raise DataError(f"'{name}' must be a positive integer (number of parallel workers) or "
+                        f"-1 (all cores); got {value!r}")
     return int(value)
 
 

@@ -4,6 +4,13 @@
 default; by tissue and isotope for destructive sampling, one animal per sample), fits every
 candidate model to each, and picks one per series by an information criterion. A series
 that cannot be fitted becomes a row with a status and a reason; it never stops the others.
+
+What counts as "cannot be fitted" is the library's own errors (:class:`~isoturnover.DataError`,
+:class:`~isoturnover.FitError`, ...) and numerical breakdowns (``FloatingPointError``,
+``numpy.linalg.LinAlgError``); any other exception is a programming error and propagates.
+
+Series are independent: ``n_jobs`` fits them in parallel worker processes (joblib, loky
+backend) with results identical to a serial run, in the same order.
 """
 
 from __future__ import annotations
@@ -17,14 +24,42 @@ import pandas as pd
 from scipy import stats
 
 from .compare import CRITERIA, compare
+from .conventions import check_choice, check_n_jobs
 from .diet import DietHistory
-from .errors import DataError, IsoturnoverError
-from .model import TurnoverModel
+from .engine import Coordinates, check_names
+from .errors import DataError, IsoturnoverError, IsoturnoverWarning
+from .kinetics import MAX_POOLS
+from .model import LOSSES, TurnoverModel
 
-__all__ = ["fit_each", "FitSet", "SeriesResult", "STATUS"]
+try:  # optional (the "fast" extra): parallel series
+    import joblib as _joblib
+except ImportError:  # pragma: no cover - depends on the environment
+    _joblib = None
+
+__all__ = ["fit_each", "FitSet", "SeriesResult", "STATUS", "SERIES_ERRORS",
+           "parallel_workers"]
 
 STATUS = ("ok", "failed", "too_few_points", "no_change", "no_diet")
 _KEYS = ("subject", "tissue", "isotope")
+#: Exceptions that make one series (or one candidate model of it) a failed row with its
+#: reason: the library's own errors and numerical breakdowns. Anything else propagates.
+SERIES_ERRORS = (IsoturnoverError, FloatingPointError, np.linalg.LinAlgError)
+
+
+def parallel_workers(n_jobs, name: str = "n_jobs") -> int:
+    """The number of workers for ``n_jobs`` (joblib's convention: -1 is all cores).
+
+    Refuses anything but a positive integer or -1 (:class:`~isoturnover.DataError`). When
+    joblib is not installed and more than one worker is asked for, warns once
+    (:class:`~isoturnover.IsoturnoverWarning`) and returns 1: the work runs serially.
+    """
+    n = check_n_jobs(n_jobs, name)
+    if n != 1 and _joblib is None:
+        warnings.warn(f"{name}={n} asks for parallel workers, but joblib is not installed; "
+                      "running serially (pip install joblib, or isoturnover[fast])",
+                      IsoturnoverWarning, stacklevel=3)
+        return 1
+    return n
 
 
 @dataclass
@@ -211,11 +246,15 @@ def _candidates(pools, structures):
     for s in structures:
         if s == "parallel":
             for p in pools:
+                if isinstance(p, bool) or not isinstance(p, (int, np.integer)) \
+                        or not 1 <= p <= MAX_POOLS:
+                    raise DataError(f"'pools' entries must be integers from 1 to {MAX_POOLS}; "
+                                    f"got {p!r}")
                 out.append((f"{p} pool{'s' if p > 1 else ''}", "parallel", p))
         elif s == "chain":
             out.append(("chain", "chain", 2))
         else:
-            raise ValueError(f"'structures' entries must be 'parallel' or 'chain'; got {s!r}")
+            raise DataError(f"'structures' entries must be 'parallel' or 'chain'; got {s!r}")
     return out
 
 
@@ -242,7 +281,7 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
              masses=None, criterion="aicc", level=0.95, method="profile", lag=False,
              separation="difference", initial="equilibrium", fixed=None, absolute_sigma=False,
              loss="linear", growth_curve="logistic", progress=False,
-             per_diet_separation=False) -> FitSet:
+             per_diet_separation=False, n_jobs=1) -> FitSet:
     """Fit every series of a samples table with every candidate model; choose one each.
 
     Parameters
@@ -272,17 +311,32 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     growth_curve : str, default="logistic"
         Curve fitted to the masses (see :func:`~isoturnover.fit_growth`).
     progress : bool, default=False
-        Show a progress bar (tqdm when installed).
+        Show a progress bar (tqdm when installed); with several workers it advances as the
+        series come back, in order.
+    n_jobs : int, default=1
+        Series fitted in parallel worker processes (joblib, loky backend); ``-1`` uses all
+        cores. The results, and their order, are those of ``n_jobs=1``. Without joblib a
+        warning is given and the series are fitted serially.
 
     Returns
     -------
     FitSet
+
+    Notes
+    -----
+    A series, or one candidate model of it, that raises one of :data:`SERIES_ERRORS`
+    becomes a row with status ``"failed"`` (or a more specific code) and the error as its
+    reason. Other exceptions (TypeError, KeyError, ...) are programming errors: they stop
+    the run.
     """
     from .data import average_replicates, read_samples
 
-    if criterion not in CRITERIA:
-        raise ValueError(f"'criterion' must be one of {', '.join(map(repr, CRITERIA))}; got "
-                         f"{criterion!r}")
+    check_choice("criterion", criterion, CRITERIA)
+    check_choice("loss", loss, LOSSES)
+    workers = parallel_workers(n_jobs)
+    if fixed is not None and not isinstance(fixed, dict):
+        raise DataError(f"'fixed' must be a dict of parameter name -> value, or None; got "
+                        f"{type(fixed).__name__}")
     by = tuple([by] if isinstance(by, str) else by)
     s = read_samples(samples, time_unit=_unit_of(samples))
     for col in by:
@@ -296,6 +350,7 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     pools = tuple([pools] if isinstance(pools, (int, np.integer)) else pools)
     cands = _candidates(pools, tuple([structures] if isinstance(structures, str)
                                      else structures))
+    _check_candidates(cands, lag=lag, separation=separation, initial=initial)
     time_unit = s.attrs.get("time_unit", "d")
     if diets is not None:
         from .data import read_diets
@@ -310,20 +365,47 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     for key, idx in keys_df.groupby(list(by), sort=True).groups.items():
         key = key if isinstance(key, tuple) else (key,)
         groups[key] = idx
-    results = {}
-    it = list(groups.items())
-    bar = _progress(it, progress, "fitting series")
-    for key, idx in bar:
-        sub = s.loc[idx]
-        key_map = dict(zip(by, key))
-        results[key] = _fit_series(sub, key, key_map, cands, diets=diets, masses=masses,
-                                   criterion=criterion, lag=lag, separation=separation,
-                                   initial=initial, fixed=fixed,
-                                   absolute_sigma=absolute_sigma, loss=loss,
-                                   growth_curve=growth_curve, average=average_replicates,
-                                   per_diet_separation=per_diet_separation)
+    options = dict(diets=diets, masses=masses, criterion=criterion, lag=lag,
+                   separation=separation, initial=initial, fixed=fixed,
+                   absolute_sigma=absolute_sigma, loss=loss, growth_curve=growth_curve,
+                   average=average_replicates, per_diet_separation=per_diet_separation,
+                   time_unit=time_unit)
+    tasks = [(s.loc[idx], key, dict(zip(by, key))) for key, idx in groups.items()]
+    if workers == 1 or len(tasks) < 2:
+        done = [_fit_one(sub, key, key_map, cands, options)
+                for sub, key, key_map in _progress(tasks, progress, "fitting series")]
+    else:
+        # every series is fitted by the same function on the same inputs as in the serial
+        # branch; the generator hands the results back in submission order
+        par = _joblib.Parallel(n_jobs=workers, backend="loky", return_as="generator")
+        jobs = par(_joblib.delayed(_fit_one)(sub, key, key_map, cands, options)
+                   for sub, key, key_map in tasks)
+        done = list(_progress(jobs, progress, "fitting series", total=len(tasks)))
+    results = {key: r for (_, key, _), r in zip(tasks, done)}
     return FitSet(by, results, criterion=criterion, level=level, method=method,
                   time_unit=time_unit)
+
+
+def _check_candidates(cands, *, lag, separation, initial):
+    """Refuse bad model options once, before any series is fitted (not as a failed row in
+    every series)."""
+    for _, structure, p in cands:
+        try:
+            _ = TurnoverModel(p, structure=structure, lag=lag, separation=separation,
+                              initial=initial).kinetics  # built here only to check options
+        except IsoturnoverError:
+            raise
+        except ValueError as e:  # the kinetics' own argument checks ('pools', 'separation')
+            raise DataError(str(e)) from None
+
+
+def _fit_one(sub, key, key_map, cands, options):
+    """One series: its SeriesResult, with a library error anywhere in it a failed row."""
+    try:
+        return _fit_series(sub, key, key_map, cands, **options)
+    except SERIES_ERRORS as e:
+        return _all_failed(SeriesResult(key=key, nobs=0), cands, "failed",
+                           f"series failed: {e}")
 
 
 def _unit_of(table, default="d"):
@@ -332,18 +414,18 @@ def _unit_of(table, default="d"):
     return attrs.get("time_unit", default)
 
 
-def _progress(items, progress, desc):
+def _progress(items, progress, desc, total=None):
     if not progress:
         return items
     try:
         from tqdm.auto import tqdm
     except ImportError:  # pragma: no cover - light fallback
         return items
-    return tqdm(items, desc=desc)
+    return tqdm(items, desc=desc, total=total)
 
 
 def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, separation,
-                initial, fixed, absolute_sigma, loss, growth_curve, average,
+                initial, fixed, absolute_sigma, loss, growth_curve, average, time_unit,
                 per_diet_separation=False):
     res = SeriesResult(key=key)
     # a canonical row order first, so that averaging (floating-point sums) and everything
@@ -365,7 +447,10 @@ def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, sepa
         if "group" in sub.columns:
             g = sub["group"].dropna().astype(str).unique()
             grp = g[0] if len(g) == 1 else None
-        diet, why = _diet_for(diets, key_map, grp, str(sub["isotope"].iloc[0]))
+        try:
+            diet, why = _diet_for(diets, key_map, grp, str(sub["isotope"].iloc[0]))
+        except SERIES_ERRORS as e:
+            return _all_failed(res, cands, "failed", f"diet history could not be built: {e}")
         if diet is None:
             return _all_failed(res, cands, "no_diet", why)
     growth = None
@@ -388,23 +473,23 @@ def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, sepa
                               per_diet_separation=per_diet_separation and diet is not None)
         try:
             n_free = _n_free(model, fixed)
-        except (IsoturnoverError, ValueError, TypeError) as e:
+        except SERIES_ERRORS as e:
             res.fits[label] = None
             res.reasons[label] = f"model not valid: {e}"
             continue
-        if n < n_free + 1:
+        needed = max(n_free + 1, 2)
+        if n < needed:
             res.fits[label] = None
             res.reasons[label] = (f"only {n} time point(s) for {n_free} free parameters "
-                                  f"(at least {n_free + 1} needed)")
+                                  f"(at least {needed} needed)")
             continue
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 f = model.fit(t, y, sd, absolute_sigma=absolute_sigma and sd is not None,
-                              fixed=fixed, loss=loss,
-                              time_unit=sub.attrs.get("time_unit", "d"),
+                              fixed=fixed, loss=loss, time_unit=time_unit,
                               label=f"{' / '.join(key)}: {label}", warn=False)
-        except (IsoturnoverError, ValueError, np.linalg.LinAlgError, RuntimeError) as e:
+        except SERIES_ERRORS as e:
             res.fits[label] = None
             res.reasons[label] = f"fit failed: {e}"
             continue
@@ -457,10 +542,14 @@ def _has_change(fit):
 
 
 def _n_free(model, fixed):
-    from .engine import Coordinates, check_names
-
     kin = model.kinetics
-    return Coordinates(kin, check_names(fixed, kin, "fixed")).size
+    try:
+        names = check_names(fixed, kin, "fixed")
+    except ValueError as e:
+        # 'fixed' names or values that do not suit this candidate (k2 for one pool, say):
+        # a reason for this candidate's row, reported as the data error it is
+        raise DataError(str(e)) from None
+    return Coordinates(kin, names).size
 
 
 def _all_failed(res, cands, status, reason):
@@ -484,7 +573,7 @@ def _growth_for(masses, avg, curve):
     try:
         g = fit_growth(m["time"].to_numpy(dtype=float), m["mass"].to_numpy(dtype=float),
                        curve=curve)
-    except (IsoturnoverError, ValueError) as e:
+    except SERIES_ERRORS as e:
         return None, f"growth curve '{curve}' could not be fitted: {e}"
     return g, None
 

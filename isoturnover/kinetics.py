@@ -314,7 +314,9 @@ class TurnoverKinetics:
                                     "isoturnover.growth (fit_growth or GrowthCurve)")
                 self.growth_kind = "curve_params"
         if self.growth_kind is not None and self.structure == "chain":
-            raise ValueError("growth dilution is available for structure='parallel' only")
+            # a DataError: a chain candidate beside body masses is one model that cannot be
+            # fitted to that series, not a failure of the whole run (see fit_each)
+            raise DataError("growth dilution is available for structure='parallel' only")
         self.growth = growth
         self._build()
 

@@ -57,9 +57,13 @@ def time_to(kin, p: float, theta) -> float:
     target = 1.0 - p
     lag = theta[kin.lag_index] if kin.lag_index is not None else 0.0
     ks = _incorporation_rates(kin, theta)
-    if kin.structure == "parallel" and len(ks) == 1 and kin.growth_kind in (
-            None, "exponential"):
-        return -math.log(target) / float(ks[0]) + lag
+    if kin.structure == "parallel" and kin.growth_kind in (None, "exponential"):
+        if len(ks) == 1:
+            return -math.log(target) / float(ks[0]) + lag
+        tau = _parallel_root(np.asarray(ks, dtype=float),
+                             np.asarray(theta, dtype=float)[kin.fraction_index], target)
+        if tau is not None:
+            return tau + lag
 
     def g(tau):
         return float(remaining_after_switch(kin, np.array([tau]), theta)[0]) - target
@@ -68,6 +72,30 @@ def time_to(kin, p: float, theta) -> float:
     while g(hi) > 0:
         hi *= 2
     return optimize.brentq(g, 0.0, hi, xtol=1e-12, rtol=1e-12) + lag
+
+
+def _parallel_root(ks, f, target):
+    r"""Root of :math:`R(\tau) = \sum_i f_i e^{-k_i \tau} = \text{target}` by Newton's method.
+
+    R is convex and decreasing, so Newton's iterates from :math:`\tau = 0` (where
+    :math:`R = 1 > \text{target}`) increase monotonically to the root (the tangent of a
+    convex function lies below it). Returns None when the iteration does not settle (a pool
+    of rate ~0 holding more than ``target``), and the caller falls back to bracketing.
+    """
+    if np.any(f < 0) or not 0 < target < 1:
+        return None
+    tau = 0.0
+    for _ in range(200):
+        e = f * np.exp(-ks * tau)
+        R = float(e.sum())
+        dR = -float((ks * e).sum())
+        if not (dR < 0 and math.isfinite(R)):
+            return None
+        step = (R - target) / -dR
+        tau += step
+        if abs(step) <= 1e-14 * max(tau, 1e-300):
+            return tau
+    return None
 
 
 def time_to_grad(kin, p: float, tau_total: float, theta) -> np.ndarray:

@@ -34,7 +34,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import optimize
 
 from . import quantities
 from .conventions import METHODS, STATUSES, check_level, check_method, unit_word
@@ -46,6 +45,7 @@ from .errors import (
     GoodnessOfFitWarning,
     IdentifiabilityWarning,
 )
+from .profiles import find_bound
 
 __all__ = ["TurnoverFit", "TrustNote", "Summary", "METHODS", "STATUSES"]
 
@@ -504,7 +504,6 @@ class TurnoverFit:
             scale = max(float(np.ptp(self.y)), 1e-3)
             se_c = se if np.isfinite(se) and se > 0 else 0.1 * scale
         se_c = min(max(se_c, 1e-6), 1e3)
-        z_store = {}
 
         def fixed_at(c):
             d = dict(fixed_names)
@@ -527,64 +526,57 @@ class TurnoverFit:
                 if np.isfinite(sol2.cost) and sol2.cost <= sol.cost:
                     sol = sol2
                     d = (sol.cost - rss0) / s2
-            # an unsettled refit's cost bounds the profile from above: below the cut it is
-            # still a point inside the interval
-            sol.extra["usable"] = bool(np.isfinite(d) and (sol.success or d <= crit))
+            if not sol.success and np.isfinite(d) and d > crit:
+                # still unsettled above the cut: the automatic starts as well, the lowest wins
+                alt = engine.quick_fit(fx, sol.z, multi_start=True, tol=1e-11)
+                if np.isfinite(alt.cost) and alt.cost < sol.cost:
+                    sol = alt
+                    d = (sol.cost - rss0) / s2
+            # an unsettled refit's cost bounds the profile from above (the value Brent's
+            # method used to take as it came); it is used when nothing better was found
+            sol.extra["usable"] = bool(np.isfinite(d))
             return d, sol
 
         lo_limit, hi_limit = self._search_limits(name, kind, c_hat, se_c)
+        # the full coordinates anchored at the profiled parameter: there it is the coordinate
+        # c itself, so d rss/dc (envelope theorem) is 2 r . J[:, j] at the constrained optimum
+        full = engine.coords(fixed_names, rate_anchor=rate_anchor,
+                             fraction_anchor=fraction_anchor)
+        label = {"rate": f"log_{name}", "fraction": f"logit_{name}"}.get(kind, name)
+        j_full = full.labels.index(label) if label in full.labels else None
         results = []
         for direction in (-1, 1):
             limit = lo_limit if direction < 0 else hi_limit
-            c_prev, d_prev = c_hat, 0.0
-            coords0 = engine.coords(fixed_at(c_hat), rate_anchor=rate_anchor,
-                                    fraction_anchor=fraction_anchor)
-            z_prev = coords0.z_from_theta(self._theta)
-            h = se_c
-            status, bound = None, None
-            fails = 0
-            just_failed = False
-            for _ in range(80):
-                c_new = c_prev + direction * h
-                at_limit = (c_new - limit) * direction >= 0
-                if at_limit:
-                    c_new = limit
-                d_new, sol = D(c_new, z_prev)
+            warm = {"theta": self._theta}
+
+            def evaluate(c, warm=warm):
+                nonlocal coords
+                d, sol = D(c, None if warm["theta"] is self._theta else
+                           engine.coords(fixed_at(c), rate_anchor=rate_anchor,
+                                         fraction_anchor=fraction_anchor
+                                         ).z_from_theta(warm["theta"]))
                 if not sol.extra["usable"]:
-                    fails += 1
-                    if fails >= 8:
-                        status = "failed"
-                        break
-                    h *= 0.5
-                    just_failed = True
-                    continue
-                fails = 0
-                z_store[c_new] = sol.z
-                if d_new > crit:
-                    # bracketed between c_prev and c_new
+                    return math.nan, math.nan, False, ""
+                if d <= crit:
+                    # warm starts come from inside the interval only: a refit outside may
+                    # sit in another basin, and stepping back from it can stay trapped there
+                    warm["theta"] = sol.theta
+                slope = math.nan
+                if j_full is not None:
+                    with np.errstate(all="ignore"):
+                        r, J = engine.problem.evaluate(full, full.z_from_theta(sol.theta))
+                    slope = 2.0 * float(r @ J[:, j_full]) / s2
+                return d, slope, True, ""
 
-                    def g(c, zs=z_prev):
-                        return D(c, zs)[0] - crit
-
-                    try:
-                        root = optimize.brentq(g, c_prev, c_new, xtol=1e-6 * se_c,
-                                               rtol=1e-9, maxiter=60)
-                        bound, status = from_c(root), "ok"
-                    except (ValueError, RuntimeError):
-                        status = "failed"
-                    break
-                if at_limit:
-                    status = "at_bound" if kind == "lag" or (
-                        name in self.bounds
-                        and limit in self.bounds[name]) else "open"
-                    break
-                # grow the step, more when the profile is flat
-                grow = 2.0 if d_new - d_prev < 0.25 * crit else 1.4
-                if just_failed:
-                    grow = 1.0
-                    just_failed = False
-                c_prev, d_prev, z_prev = c_new, max(d_new, d_prev), sol.z
-                h *= grow
+            step = math.sqrt(crit) * se_c
+            if kind in ("rate", "fraction"):
+                step = min(step, 1.0)  # at most a factor e (or one logit unit) at first
+            res = find_bound(evaluate, c_hat, direction, step, limit, crit, max_refits=80)
+            status = res.status
+            bound = from_c(res.u) if status == "ok" else None
+            if status == "open" and (kind == "lag" or (
+                    name in self.bounds and limit in self.bounds[name])):
+                status = "at_bound"
             if status is None:
                 status = "open"
             if status == "open" or status == "at_bound":
@@ -617,7 +609,10 @@ class TurnoverFit:
             hi = math.log(1e3 / first)
             return min(lo, c_hat - 1), max(hi, c_hat + 1)
         if kind == "fraction":
-            return -35.0, 35.0
+            # |logit f| = 20 is a pool of 2e-9 of the tissue: beyond it the profile is flat to
+            # rounding and only numerical noise is left, so a profile still below the cut
+            # there is open
+            return min(-20.0, c_hat - 1), max(20.0, c_hat + 1)
         if kind == "lag":
             return 0.0, c_hat + max(50 * se_c, span)
         width = max(200 * se_c, 100 * max(float(np.ptp(self.y)), 1.0))
@@ -867,8 +862,16 @@ class TurnoverFit:
                 m = "bootstrap (percentile)"
             elif method == "profile" and self.loss == "linear" and \
                     kin.growth_kind not in ("curve", "curve_params"):
-                lo, hi, ls, hs, m = self._derived_interval(
-                    lambda th, p=p: self._time_to(p, th), est, level, "profile", scale="log")
+                key = ("time_to", float(p), round(level, 12))
+                if key not in self._profile_cache:
+                    grad = None
+                    if kin.structure == "parallel":
+                        def grad(th, p=p):
+                            return quantities.time_to_grad(kin, p, self._time_to(p, th), th)
+                    self._profile_cache[key] = self._derived_interval(
+                        lambda th, p=p: self._time_to(p, th), est, level, "profile",
+                        scale="log", grad=grad)
+                lo, hi, ls, hs, m = self._profile_cache[key]
             else:
                 lo, hi, ls, hs = self._delta_log(lambda th, p=p: self._time_to(p, th), est,
                                                  level)
@@ -1056,7 +1059,7 @@ class TurnoverFit:
                               "upper": -lo, "level": level, "method": m,
                               "lower_status": hs, "upper_status": ls}])
 
-    def _derived_interval(self, fn, est, level, method, scale="log"):
+    def _derived_interval(self, fn, est, level, method, scale="log", grad=None):
         """Interval of a derived quantity: profile likelihood when available, else delta."""
         if method == "profile" and self.loss == "linear":
             try:
@@ -1064,7 +1067,8 @@ class TurnoverFit:
             except ImportError:
                 profile_derived = None
             if profile_derived is not None:
-                r = profile_derived(self, fn, level, positive=scale in ("log", "logit"))
+                r = profile_derived(self, fn, level, positive=scale in ("log", "logit"),
+                                    grad=grad)
                 get = r.get if isinstance(r, dict) else (lambda k: getattr(r, k))
                 return (get("lower"), get("upper"), get("lower_status"),
                         get("upper_status"), "profile")

@@ -76,6 +76,7 @@ from .conventions import check_level as _check_level
 from .conventions import check_positive_int as _positive_int
 from .engine import FitState, Problem
 from .errors import ConvergenceWarning, DataError
+from .profiles import find_bound
 
 try:  # optional: MCMC
     import emcee as _emcee
@@ -520,9 +521,10 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
         \quad\text{(σ estimated)}, \qquad
         \mathrm{rss}_q(c) - \mathrm{rss} \le \chi^2_1(\text{level}) \quad\text{(σ known)},
 
-    the same rule as the parameters' profiles (``fit.state.critical_value(level)``). The
-    search steps outward from the estimate on the log scale for positive quantities (logit for a
-    quantity with two finite ends) and brackets the crossing with Brent's method.
+    the same rule as the parameters' profiles (``fit.state.critical_value(level)``). Each
+    bound is found by :func:`isoturnover.profiles.find_bound` (safeguarded Newton on the
+    profile-t statistic, its derivative from the constraint's multiplier) on the log scale
+    for positive quantities (logit for a quantity with two finite ends).
 
     Parameters
     ----------
@@ -647,11 +649,6 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
         dz_du0 = (cov @ gz) / float(gz @ cov @ gz)
     else:
         dz_du0 = np.zeros(p)
-    if scale.kind == "plain":
-        h_max = max(se_u, 1e-12)
-    else:
-        h_max = 0.5 if scale.kind != "logit" else 1.0
-
     def D(u, z_from, dz_du, u_from):
         """Scaled ΔRSS at u; starts from the predictor and, when that lands above the
         critical value, also from the plain previous point (the lower cost wins)."""
@@ -664,55 +661,39 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
                 cost, z, ok, reason = cost2, z2, ok2, reason2
         return (cost - rss0) / s2, z, ok, reason
 
+    engine_problem = fit.state.engine.problem
     bounds = []
     for direction in (-1, 1):
         limit = ul[0] if direction < 0 else ul[1]
-        u_prev, d_prev, z_prev = u_hat, 0.0, z_hat
-        dz_du = dz_du0
-        h = min(se_u, h_max)
-        status, bound = None, math.nan
-        fails, unreachable = 0, 0
-        for _ in range(200):
-            u_new = u_prev + direction * h
-            at_limit = (u_new - limit) * direction >= 0
-            if at_limit:
-                u_new = limit
-            d_new, z_new, ok, reason = D(u_new, z_prev, dz_du, u_prev)
-            if not ok or not math.isfinite(d_new):
-                fails += 1
-                unreachable += reason == "unreachable"
-                if fails >= 4:
-                    status = "at_bound" if unreachable == fails else "failed"
-                    if status == "at_bound":
-                        bound = scale.from_u(u_prev)
-                    break
-                h *= 0.5
-                continue
-            fails = unreachable = 0
-            if d_new > crit:
-                zs, us, dzs = z_prev, u_prev, dz_du
+        warm = {"u": u_hat, "z": z_hat, "dz": dz_du0}
 
-                def gfun(u, zs=zs, us=us, dzs=dzs):
-                    d, _, ok_, _ = D(u, zs, dzs, us)
-                    return d - crit if ok_ else math.nan
+        def evaluate(u, warm=warm):
+            d, z, ok, reason = D(u, warm["z"], warm["dz"], warm["u"])
+            if not ok or not math.isfinite(d):
+                return math.nan, math.nan, False, reason
+            if d <= crit:
+                # warm starts (and the predictor) from inside the interval only: a refit
+                # outside may sit in another basin
+                if u != warm["u"]:
+                    warm["dz"] = (z - warm["z"]) / (u - warm["u"])
+                warm["u"], warm["z"] = u, z
+            # envelope theorem: d rss/du is the constraint's multiplier, the component of
+            # the rss gradient 2 J^T r along the constraint's gradient
+            slope = math.nan
+            with np.errstate(all="ignore"):
+                r, J = engine_problem.evaluate(coords, z)
+                gh = prob._grad_h(z)
+            gg = float(gh @ gh)
+            if gg > 0 and np.all(np.isfinite(gh)):
+                slope = 2.0 * float((J.T @ r) @ gh) / gg / s2
+            return d, slope, True, reason
 
-                try:
-                    lo_, hi_ = sorted((u_prev, u_new))
-                    root = optimize.brentq(gfun, lo_, hi_, xtol=1e-10 * max(1.0, abs(u_hat)),
-                                           rtol=1e-12, maxiter=100)
-                    bound, status = scale.from_u(root), "ok"
-                except (ValueError, RuntimeError):
-                    status = "failed"
-                break
-            if at_limit:
-                status = "open"
-                break
-            grow = 2.0 if d_new - d_prev < 0.25 * crit else 1.4
-            dz_du = (z_new - z_prev) / (u_new - u_prev)
-            u_prev, d_prev, z_prev = u_new, max(d_new, d_prev), z_new
-            h = min(h * grow, 4 * h_max) if scale.kind != "plain" else h * grow
-        if status is None:
-            status = "open"
+        step = math.sqrt(crit) * se_u
+        if scale.kind != "plain":
+            step = min(step, 1.0)  # at most a factor e (or one logit unit) at first
+        res = find_bound(evaluate, u_hat, direction, step, limit, crit, max_refits=80)
+        status = res.status
+        bound = scale.from_u(res.u) if status in ("ok", "at_bound") else math.nan
         if status == "open":
             bound = lo_nat if direction < 0 else hi_nat
         bounds.append((bound, status))

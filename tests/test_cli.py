@@ -167,3 +167,58 @@ def test_help_and_version(capsys):
     with pytest.raises(SystemExit) as e:
         main(["--version"])
     assert e.value.code == 0
+
+
+def test_fit_with_jobs_gives_the_results_of_one_process(tmp_path, capsys):
+    # three invented animals (half-lives 6, 8 and 10 d), so two workers share the series
+    rng = np.random.default_rng(11)
+    rows = ["subject,tissue,isotope,time,value,sd"]
+    for subject, half_life in (("a", 6.0), ("b", 8.0), ("c", 10.0)):
+        for t in (0, 1, 2, 4, 7, 10, 14, 21, 28, 42, 56, 70):
+            v = -12 + (-25 + 12) * np.exp(-np.log(2) / half_life * t) + rng.normal(0, 0.1)
+            rows.append(f"{subject},plasma,d13C,{t},{v:.3f},0.1")
+    f = tmp_path / "samples.csv"
+    f.write_text("\n".join(rows) + "\n", encoding="utf-8")
+    tables = {}
+    for jobs in ("1", "2"):
+        out = tmp_path / f"out{jobs}"
+        code, stdout, err = run(["fit", str(f), "--out", str(out), "--no-figures",
+                                 "--no-progress", "--jobs", jobs], capsys)
+        assert code == 0, err
+        assert "fitted 3 series; 0 could not be fitted" in stdout
+        tables[jobs] = pd.read_csv(out / "results.csv")
+    assert len(tables["1"]) == 6
+    pd.testing.assert_frame_equal(tables["2"], tables["1"], check_exact=True)
+
+
+@pytest.mark.parametrize("argv, pattern", [
+    (["--jobs", "0"], r"argument --jobs: must be a positive integer \(number of parallel "
+                      r"workers\) or -1 \(all cores\); got '0'"),
+    (["--jobs", "-3"], r"argument --jobs: .*got '-3'"),
+    (["--jobs", "two"], r"argument --jobs: .*got 'two'"),
+    (["--n-boot", "many"], r"argument --n-boot: invalid int value: 'many'"),
+])
+def test_bad_arguments_one_error_line_exit_2(argv, pattern, tmp_path, capsys):
+    import re
+
+    f = tmp_path / "samples.csv"
+    f.write_text(GOOD, encoding="utf-8")
+    out = tmp_path / "out"
+    with pytest.raises(SystemExit) as e:
+        main(["fit", str(f), "--out", str(out), *argv])
+    assert e.value.code == 2
+    err = capsys.readouterr().err
+    assert_one_error_line(err)
+    assert re.search(pattern, err), err
+    assert not out.exists()
+
+
+def test_bad_jobs_through_the_installed_command(tmp_path):
+    f = tmp_path / "samples.csv"
+    f.write_text(GOOD, encoding="utf-8")
+    r = subprocess.run([sys.executable, "-m", "isoturnover", "fit", str(f), "--jobs", "0",
+                        "--out", str(tmp_path / "o")], capture_output=True, text=True)
+    assert r.returncode == 2
+    assert_one_error_line(r.stderr)
+    assert "--jobs" in r.stderr
+    assert not (tmp_path / "o").exists()

@@ -8,12 +8,15 @@ from __future__ import annotations
 
 import itertools
 import math
+import re
 
 import numpy as np
 import pandas as pd
 import pytest
 
 import isoturnover as iso
+from isoturnover import groups
+from isoturnover.analysis import analyse, series_seed
 from isoturnover.errors import DataError
 
 LN2 = math.log(2.0)
@@ -321,3 +324,164 @@ def test_diets_matched_by_subject_and_missing_diet():
         assert "isotope d13C" in tab.loc[s, "reason"]
         assert math.isnan(tab.loc[s, "discrimination"])
     assert set(fs.failures) == {("goat2", "plasma", "d13C"), ("goat3", "plasma", "d13C")}
+
+
+# ----------------------------------------------------------------------------------------
+# parallel series (n_jobs), and which errors become failed rows
+# ----------------------------------------------------------------------------------------
+def demo_subset():
+    """Two goats of the shipped (invented) demo experiment, with their pens' diets; goat
+    G02's red cells cut to their first two samples, so one series cannot be fitted."""
+    samples = iso.read_samples(iso.demo_path("goat_samples"))
+    diets = iso.read_diets(iso.demo_path("goat_diets"))
+    two = samples[samples["subject"].isin(["G01", "G02"])]
+    rbc = two[(two["subject"] == "G02") & (two["tissue"] == "red_cells")]
+    short = rbc.sort_values("time").index[2:]
+    return two.drop(index=short), diets
+
+
+def test_parallel_fits_equal_serial_fits():
+    samples, diets = demo_subset()
+    serial = iso.fit_each(samples, diets=diets, n_jobs=1)
+    parallel = iso.fit_each(samples, diets=diets, n_jobs=2, progress=True)
+    assert list(parallel) == list(serial)          # same series, same order
+    assert len(serial) == 6
+    assert serial[("G02", "red_cells", "d13C")].status == "too_few_points"
+    for key in serial:
+        assert parallel[key].status == serial[key].status
+        assert parallel[key].reason == serial[key].reason
+        assert parallel[key].chosen == serial[key].chosen
+    pd.testing.assert_frame_equal(parallel.table(method="asymptotic"),
+                                  serial.table(method="asymptotic"), check_exact=True)
+    pd.testing.assert_frame_equal(parallel.half_lives(method="asymptotic"),
+                                  serial.half_lives(method="asymptotic"), check_exact=True)
+
+
+@pytest.mark.parametrize("bad", [0, -2, 1.5, "2", True, None])
+def test_bad_n_jobs_is_refused(samples, bad):
+    with pytest.raises(DataError, match=r"'n_jobs' must be a positive integer \(number of "
+                                        r"parallel workers\) or -1 \(all cores\); got "
+                                        + re.escape(repr(bad))):
+        iso.fit_each(samples, n_jobs=bad)
+
+
+def test_without_joblib_a_warning_and_a_serial_run(monkeypatch):
+    frame = invented_diet_switch()
+    serial = iso.fit_each(frame, pools=(1,))
+    monkeypatch.setattr(groups, "_joblib", None)
+    with pytest.warns(iso.IsoturnoverWarning, match=r"n_jobs=-1 asks for parallel workers, "
+                                                    r"but joblib is not installed; running "
+                                                    r"serially"):
+        fs = iso.fit_each(frame, pools=(1,), n_jobs=-1)
+    pd.testing.assert_frame_equal(fs.table(method="asymptotic"),
+                                  serial.table(method="asymptotic"), check_exact=True)
+
+
+@pytest.mark.parametrize("error", [TypeError, KeyError, AttributeError, ValueError,
+                                   RuntimeError])
+def test_a_programming_error_in_a_series_surfaces(monkeypatch, error):
+    def broken_fit(self, *args, **kwargs):
+        raise error("a bug, not a data problem")
+
+    monkeypatch.setattr(iso.TurnoverModel, "fit", broken_fit)
+    with pytest.raises(error, match="a bug, not a data problem"):
+        iso.fit_each(invented_diet_switch(), pools=(1,))
+
+
+def test_a_library_error_in_a_series_is_a_failed_row(monkeypatch):
+    real_fit = iso.TurnoverModel.fit
+
+    def fit_refusing_goat1(self, *args, **kwargs):
+        if kwargs["label"].startswith("goat1 /"):
+            raise iso.FitError("no usable starting values (invented failure)")
+        if kwargs["label"].startswith("goat2 /"):
+            raise np.linalg.LinAlgError("singular matrix (invented failure)")
+        return real_fit(self, *args, **kwargs)
+
+    monkeypatch.setattr(iso.TurnoverModel, "fit", fit_refusing_goat1)
+    fs = iso.fit_each(invented_diet_switch(), pools=(1,))
+    tab = fs.table(method="asymptotic").set_index("subject")
+    assert len(tab) == 4                                   # no series dropped
+    assert tab.loc["goat1", "status"] == "failed"
+    assert tab.loc["goat1", "reason"] == ("fit failed: no usable starting values (invented "
+                                          "failure)")
+    assert tab.loc["goat2", "status"] == "failed"
+    assert tab.loc["goat2", "reason"] == "fit failed: singular matrix (invented failure)"
+    assert (tab.loc[["goat0", "goat3"], "status"] == "ok").all()
+    assert set(fs.failures) == {("goat1", "plasma", "d13C"), ("goat2", "plasma", "d13C")}
+
+
+def test_fixed_parameter_unknown_to_one_candidate_fails_that_candidate_only():
+    # k2 exists in the two-pool model only: the one-pool candidate is a failed row with the
+    # reason, the two-pool candidate is fitted (nothing stops the run)
+    frame = invented_diet_switch()
+    fs = iso.fit_each(frame[frame["subject"] == "goat0"], fixed={"k2": 0.01})
+    r = fs[("goat0", "plasma", "d13C")]
+    assert r.fits["1 pool"] is None
+    assert r.reasons["1 pool"].startswith("model not valid: 'fixed' has unknown parameter "
+                                          "'k2'")
+    assert r.chosen == "2 pools" and r.best.values["k2"] == pytest.approx(0.01, rel=1e-12)
+
+
+def test_chain_candidate_beside_body_masses_fails_that_candidate_only():
+    # growth dilution is defined for parallel pools; the chain candidate becomes a failed
+    # row (a DataError from the kinetics), the parallel candidate is fitted. Demo data
+    # (invented): goat G01's plasma d13C, its pen's diets and its weekly masses.
+    samples = iso.read_samples(iso.demo_path("goat_samples"))
+    one = samples[(samples["subject"] == "G01") & (samples["tissue"] == "plasma")
+                  & (samples["isotope"] == "d13C")]
+    fs = iso.fit_each(one, diets=iso.read_diets(iso.demo_path("goat_diets")),
+                      masses=iso.read_masses(iso.demo_path("goat_masses")), pools=(1,),
+                      structures=("parallel", "chain"))
+    tab = fs.table(method="asymptotic").set_index("candidate")
+    assert tab.loc["1 pool", "status"] == "ok" and bool(tab.loc["1 pool", "chosen"])
+    assert tab.loc["chain", "status"] == "failed"
+    assert tab.loc["chain", "reason"] == ("model not valid: growth dilution is available for "
+                                          "structure='parallel' only")
+
+
+def test_bad_model_options_are_refused_before_any_fit(samples):
+    with pytest.raises(DataError, match=r"'pools' entries must be integers from 1 to 4; got 5"):
+        iso.fit_each(samples, pools=(1, 5))
+    with pytest.raises(DataError, match=r"'separation' must be one of 'difference', "
+                                        r"'epsilon'; got 'ratio'"):
+        iso.fit_each(samples, separation="ratio")
+    with pytest.raises(DataError, match=r"'loss' must be one of 'linear', 'soft_l1', "
+                                        r"'huber'; got 'cauchy'"):
+        iso.fit_each(samples, loss="cauchy")
+    with pytest.raises(DataError, match=r"'fixed' must be a dict of parameter name -> value, "
+                                        r"or None; got list"):
+        iso.fit_each(samples, fixed=[("k1", 0.1)])
+
+
+def test_bootstrap_interval_of_a_series_does_not_depend_on_the_other_series():
+    # each series' bootstrap seed comes from the run's seed and the series' own key: adding
+    # goat1 (sorted before goat3) must not change goat3's interval, nor must n_jobs
+    frame = invented_samples()
+    plasma = frame[(frame["tissue"] == "plasma") & (frame["isotope"] == "d13C")]
+
+    def boot(subjects, seed=5, n_jobs=1):
+        a = analyse(plasma[plasma["subject"].isin(subjects)], ci="bootstrap", n_boot=30,
+                    seed=seed, n_jobs=n_jobs)
+        tab = a.results_table()
+        tab = tab[tab["chosen"].astype(bool)].set_index("subject")
+        return tab.loc["goat3", ["boot_lower_1", "boot_upper_1"]].astype(float)
+
+    alone = boot(["goat3"])
+    assert np.isfinite(alone).all() and alone.iloc[0] < alone.iloc[1]
+    pd.testing.assert_series_equal(boot(["goat1", "goat3"]), alone, check_exact=True)
+    pd.testing.assert_series_equal(boot(["goat3", "goat4"], n_jobs=2), alone,
+                                   check_exact=True)
+    assert not boot(["goat3"], seed=6).equals(alone)      # the seed is used at all
+
+
+def test_series_seed_is_stable_and_refuses_bad_seeds():
+    a = series_seed(1, "samples", ("goat3", "plasma", "d13C"))
+    b = series_seed(1, "samples", ("goat3", "plasma", "d13C"))
+    assert a.entropy == b.entropy
+    assert series_seed(1, "samples", ("goat4", "plasma", "d13C")).entropy != a.entropy
+    assert series_seed(2, "samples", ("goat3", "plasma", "d13C")).entropy != a.entropy
+    assert series_seed(None, "samples", ("goat3",)) is None
+    with pytest.raises(DataError, match=r"'seed' must be a non-negative integer or None; "
+                                        r"got -1"):
+        series_seed(-1, "samples", ("goat3",))

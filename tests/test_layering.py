@@ -27,7 +27,7 @@ LAYERS = {
     "diet": 2, "data": 2, "demo": 2, "progress": 2, "growth": 2,
     "kinetics": 3,
     "quantities": 4,
-    "engine": 5,
+    "engine": 5, "profiles": 5,
     "uncertainty": 6, "diagnostics": 6,
     "results": 7,
     "model": 8, "compare": 8, "serialization": 8,
