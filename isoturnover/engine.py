@@ -510,19 +510,26 @@ class Problem:
             Jz = np.vstack([Jz, J2 @ A])
         return r, Jz
 
-    def solve(self, coords: Coordinates, z0, *, tol=1e-14, max_nfev=None) -> Solution:
-        """Least-squares solution from ``z0``: MINPACK ``lmder`` without bounds, scipy's
-        trust-region reflective method with bounds or a robust loss."""
-        t = self.t
-        extra = self.extra
+    def cached_evaluate(self, coords: Coordinates):
+        """``f(z) -> {"r": residuals, "J": Jacobian}``, evaluated once per distinct z (solvers
+        ask for the residuals and the Jacobian at the same point separately)."""
         cache = {}
 
-        def _eval(z):
+        def f(z):
             key = z.tobytes()
             if cache.get("key") != key:
                 cache["r"], cache["J"] = self.evaluate(coords, z)
                 cache["key"] = key
             return cache
+
+        return f
+
+    def solve(self, coords: Coordinates, z0, *, tol=1e-14, max_nfev=None) -> Solution:
+        """Least-squares solution from ``z0``: MINPACK ``lmder`` without bounds, scipy's
+        trust-region reflective method with bounds or a robust loss."""
+        t = self.t
+        extra = self.extra
+        _eval = self.cached_evaluate(coords)
 
         def fun(z):
             return _eval(z)["r"]
@@ -585,15 +592,10 @@ class Problem:
         for c, lab in enumerate(labels):
             lo, hi = float(coords.lower[c]), float(coords.upper[c])
             pars.add(lab, value=float(min(max(z0[c], lo), hi)), min=lo, max=hi)
-        cache = {}
+        _eval = self.cached_evaluate(coords)
 
         def ev(p):
-            z = np.array([p[lab].value for lab in labels], dtype=float)
-            key = z.tobytes()
-            if cache.get("key") != key:
-                cache["r"], cache["J"] = self.evaluate(coords, z)
-                cache["key"] = key
-            return cache
+            return _eval(np.array([p[lab].value for lab in labels], dtype=float))
 
         def resid(p):
             return ev(p)["r"]
@@ -816,7 +818,7 @@ def check_names(d, kin, what):
     if d is None:
         return {}
     if not isinstance(d, dict):
-        raise TypeError(f"'{what}' must be a dict of parameter name -> value; got "
+        raise DataError(f"'{what}' must be a dict of parameter name -> value; got "
                         f"{type(d).__name__}")
     out = {}
     for k, v in d.items():
@@ -825,22 +827,22 @@ def check_names(d, kin, what):
 
             near = difflib.get_close_matches(str(k), kin.param_names, n=1)
             hint = f" (did you mean {near[0]!r}?)" if near else ""
-            raise ValueError(
+            raise DataError(
                 f"'{what}' has unknown parameter {k!r}{hint}; this model's parameters are "
                 f"{', '.join(kin.param_names)}"
             )
         try:
             fv = float(v)
         except (TypeError, ValueError):
-            raise ValueError(f"'{what}[{k!r}]' must be a number; got {v!r}") from None
+            raise DataError(f"'{what}[{k!r}]' must be a number; got {v!r}") from None
         if not math.isfinite(fv):
-            raise ValueError(f"'{what}[{k!r}]' must be finite; got {v!r}")
+            raise DataError(f"'{what}[{k!r}]' must be finite; got {v!r}")
         if k in kin.rate_names and fv <= 0:
-            raise ValueError(f"'{what}[{k!r}]' is a rate and must be positive; got {v!r}")
+            raise DataError(f"'{what}[{k!r}]' is a rate and must be positive; got {v!r}")
         if k in kin.fraction_names and not 0 <= fv <= 1:
-            raise ValueError(f"'{what}[{k!r}]' is a pool fraction in [0, 1]; got {v!r}")
+            raise DataError(f"'{what}[{k!r}]' is a pool fraction in [0, 1]; got {v!r}")
         if k == "lag" and fv < 0:
-            raise ValueError(f"'{what}['lag']' must be >= 0; got {v!r}")
+            raise DataError(f"'{what}['lag']' must be >= 0; got {v!r}")
         out[k] = fv
     return out
 

@@ -43,6 +43,7 @@ import numpy as np
 import pandas as pd
 from scipy import optimize, special, stats
 
+from .conventions import check_level
 from .errors import (
     ConvergenceWarning,
     DataError,
@@ -1030,7 +1031,7 @@ class GrowthFit(GrowthCurve):
             One row per varying parameter: parameter, estimate, lower, upper, level, method,
             lower_status, upper_status.
         """
-        level = _check_level(level)
+        level = check_level(level)
         if method not in ("profile", "asymptotic"):
             raise DataError(f"method must be one of 'profile', 'asymptotic'; got {method!r}")
         rows = []
@@ -1231,16 +1232,6 @@ class _ProfileFailure(Exception):
 
 class _ProfileOpen(Exception):
     """A profile reached the float limit of another parameter without closing."""
-
-
-def _check_level(level) -> float:
-    try:
-        lv = float(level)
-    except (TypeError, ValueError):
-        raise DataError(f"level must be a number in (0, 1); got {level!r}") from None
-    if not 0 < lv < 1:
-        raise DataError(f"level must be in (0, 1) (e.g. 0.95); got {level!r}")
-    return lv
 
 
 def _response(mass, sigma, scale):

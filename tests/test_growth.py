@@ -356,7 +356,7 @@ def test_conf_int_bad_arguments():
     with pytest.raises(DataError, match=r"method must be one of 'profile', 'asymptotic'; "
                                         r"got 'bootstrap'"):
         fit.conf_int(method="bootstrap")
-    with pytest.raises(DataError, match=r"level must be in \(0, 1\).*got 95"):
+    with pytest.raises(DataError, match=r"'level' must be between 0 and 1.*got 95"):
         fit.conf_int(level=95)
 
 
