@@ -315,8 +315,9 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
         series come back, in order.
     n_jobs : int, default=1
         Series fitted in parallel worker processes (joblib, loky backend); ``-1`` uses all
-        cores. The results, and their order, are those of ``n_jobs=1``. Without joblib a
-        warning is given and the series are fitted serially.
+        cores. The results, and their order, are those of ``n_jobs=1``. Each worker also
+        computes the chosen fit's intervals (``level``, ``method``), which come back cached
+        on the fit. Without joblib a warning is given and the series are fitted serially.
 
     Returns
     -------
@@ -378,7 +379,8 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
         # every series is fitted by the same function on the same inputs as in the serial
         # branch; the generator hands the results back in submission order
         par = _joblib.Parallel(n_jobs=workers, backend="loky", return_as="generator")
-        jobs = par(_joblib.delayed(_fit_one)(sub, key, key_map, cands, options)
+        jobs = par(_joblib.delayed(_fit_one)(sub, key, key_map, cands, options,
+                                             warm=(level, method))
                    for sub, key, key_map in tasks)
         done = list(_progress(jobs, progress, "fitting series", total=len(tasks)))
     results = {key: r for (_, key, _), r in zip(tasks, done)}
@@ -399,13 +401,24 @@ def _check_candidates(cands, *, lag, separation, initial):
             raise DataError(str(e)) from None
 
 
-def _fit_one(sub, key, key_map, cands, options):
-    """One series: its SeriesResult, with a library error anywhere in it a failed row."""
+def _fit_one(sub, key, key_map, cands, options, warm=None):
+    """One series: its SeriesResult, with a library error anywhere in it a failed row.
+
+    ``warm=(level, method)`` (parallel runs): the chosen fit's intervals are computed here,
+    in the worker that fitted it, and travel back cached on the fit, so the tables and the
+    report made afterwards in the main process find them ready.
+    """
     try:
-        return _fit_series(sub, key, key_map, cands, **options)
+        res = _fit_series(sub, key, key_map, cands, **options)
     except SERIES_ERRORS as e:
         return _all_failed(SeriesResult(key=key, nobs=0), cands, "failed",
                            f"series failed: {e}")
+    if warm is not None and res.best is not None:
+        try:
+            res.best.table(*warm)
+        except SERIES_ERRORS:
+            pass  # the main process meets the same error where the table is made
+    return res
 
 
 def _unit_of(table, default="d"):

@@ -1174,8 +1174,16 @@ class TurnoverFit:
             lo, hi, ls, hs = self._delta_log(self._mrt, mrt, level)
             m = "asymptotic"
         elif np.isfinite(mrt):
-            lo, hi, ls, hs, m = self._derived_interval(self._mrt, mrt, level, method,
-                                                       scale="log")
+            key = ("mean_residence_time", round(level, 12), method)
+            if key not in self._profile_cache:
+                kin = self.kinetics
+                grad = None
+                if kin.growth_kind not in ("curve", "curve_params"):
+                    def grad(th):
+                        return quantities.mean_residence_time_grad(kin, th)
+                self._profile_cache[key] = self._derived_interval(
+                    self._mrt, mrt, level, method, scale="log", grad=grad)
+            lo, hi, ls, hs, m = self._profile_cache[key]
         else:
             lo, hi, ls, hs, m = math.nan, math.inf, "not_available", "open", method
         rows.append({"quantity": "mean_residence_time", "kind": "derived",

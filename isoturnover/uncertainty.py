@@ -486,23 +486,35 @@ class _ConstrainedProblem:
         lo, hi = self.lower[rest], self.upper[rest]
         zr0 = np.clip(z0[rest], lo, hi)
         res = None
+        hard = bool(np.any(np.isfinite(self.coords.lower[rest])))  # a real bound (lag >= 0)
         for _ in range(2):  # a second, polishing run when the budget ran out
             try:
                 with np.errstate(all="ignore"):
-                    res = optimize.least_squares(
-                        fun, zr0, jac=jac, method="trf", bounds=(lo, hi), xtol=1e-12,
-                        ftol=1e-12, gtol=1e-12, x_scale="jac", max_nfev=100 * (rest.size + 1))
+                    if hard or n_res < rest.size:
+                        res = optimize.least_squares(
+                            fun, zr0, jac=jac, method="trf", bounds=(lo, hi), xtol=1e-12,
+                            ftol=1e-12, gtol=1e-12, x_scale="jac",
+                            max_nfev=100 * (rest.size + 1))
+                        x, status = res.x, res.status
+                    else:
+                        # no real bound: MINPACK's Levenberg–Marquardt (the caps on log-gaps
+                        # and logits are where the coordinate map is flat anyway)
+                        x, _, info, _, ier = optimize.leastsq(
+                            fun, zr0, Dfun=jac, full_output=True, xtol=1e-12, ftol=1e-12,
+                            gtol=1e-12, maxfev=100 * (rest.size + 1))
+                        x = np.clip(x, lo, hi)
+                        status = ier if ier in (1, 2, 3, 4) else (0 if ier == 5 else -1)
             except (ValueError, np.linalg.LinAlgError, FloatingPointError):
                 return math.inf, None, False, "solver"
-            if res.status != 0:
+            if status != 0:
                 break
-            zr0 = res.x
-        zf = full(res.x)
+            zr0 = x
+        zf = full(x)
         if zf is None:
             return math.inf, None, False, "unreachable"
-        r = fun(res.x)
+        r = fun(x)
         cost = float(r @ r)
-        ok = bool(res.status > 0) and math.isfinite(cost)
+        ok = bool(status > 0) and math.isfinite(cost)
         return cost, zf, ok, "" if ok else "solver"
 
 
@@ -650,12 +662,13 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
     else:
         dz_du0 = np.zeros(p)
     def D(u, z_from, dz_du, u_from):
-        """Scaled ΔRSS at u; starts from the predictor and, when that lands above the
-        critical value, also from the plain previous point (the lower cost wins)."""
+        """Scaled ΔRSS at u; starts from the predictor and, when that fails, from the plain
+        previous point (a refit above the cut that sits in another basin is re-verified by
+        the bound finder from a nearby inside point)."""
         c = scale.from_u(u)
         z_pred = z_from + dz_du * (u - u_from)
         cost, z, ok, reason = prob.solve(c, z_pred)
-        if not ok or (cost - rss0) / s2 > crit:
+        if not ok:
             cost2, z2, ok2, reason2 = prob.solve(c, z_from)
             if ok2 and (not ok or cost2 < cost):
                 cost, z, ok, reason = cost2, z2, ok2, reason2
