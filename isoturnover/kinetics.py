@@ -395,6 +395,27 @@ class TurnoverKinetics:
         self._simple_step = (self.diet is None and self.structure == "parallel"
                              and not self.lag and self.growth_kind is None
                              and self._atom is None and self.initial == "equilibrium")
+        # one switch, parallel pools on the δ scale, no growth curve: a closed form with few
+        # array operations (the common diet-switch experiment)
+        self._one_switch = (not self._simple_step and self.structure == "parallel"
+                            and self.growth_kind in (None, "exponential")
+                            and self._atom is None and self.switch_times.size == 1)
+        # the levels are affine in theta for both separation forms: L = c + M theta
+        c = np.zeros(self.n_levels)
+        M = np.zeros((self.n_levels, self.n_params))
+        for j, sp in enumerate(self._level_spec):
+            if sp[0] == "param":
+                M[j, sp[1]] = 1.0
+            else:
+                _, v, idx = sp
+                c[j] = v
+                M[j, idx] = (1000.0 + v) / 1000.0 if self.separation == "epsilon" else 1.0
+        self._level_c, self._level_M = c, M
+        # contiguous blocks as slices (cheaper than fancy indexing in the inner loops)
+        ki, fi = self.rate_index, self.fraction_index
+        self._k_slice = slice(ki[0], ki[-1] + 1)
+        self._f_slice = slice(fi[0], fi[-1] + 1) if fi else slice(0, 0)
+        self._M0, self._M1 = M[0].copy(), (M[1].copy() if self.n_levels > 1 else None)
 
     @property
     def separation_names(self) -> tuple[str, ...]:
@@ -409,22 +430,13 @@ class TurnoverKinetics:
         return self._levels(np.asarray(theta, dtype=float))[0]
 
     def _levels(self, theta):
-        L = np.empty(self.n_levels)
-        dL = np.zeros((self.n_levels, self.n_params))  # d L_j / d theta
-        eps = self.separation == "epsilon"
-        for j, sp in enumerate(self._level_spec):
-            if sp[0] == "param":
-                L[j] = theta[sp[1]]
-                dL[j, sp[1]] = 1.0
-            else:
-                _, v, idx = sp
-                if eps:
-                    L[j] = (1000.0 + v) * (1.0 + theta[idx] / 1000.0) - 1000.0
-                    dL[j, idx] = (1000.0 + v) / 1000.0
-                else:
-                    L[j] = v + theta[idx]
-                    dL[j, idx] = 1.0
-        return L, dL
+        """Levels and their Jacobian d L_j / d theta.
+
+        Difference form ``diet + Δ`` and ε form ``(1000 + diet)(1 + ε/1000) − 1000 =
+        diet + ε (1000 + diet)/1000`` are both affine in the parameters, so
+        ``L = c + M θ`` with constant ``c`` and ``M`` built once.
+        """
+        return self._level_c + self._level_M @ theta, self._level_M
 
     # -- evaluation -----------------------------------------------------------------------
     def evaluate(self, t, theta, jacobian: bool = False):
@@ -442,6 +454,8 @@ class TurnoverKinetics:
         theta = np.asarray(theta, dtype=float)
         if self._simple_step:
             return self._evaluate_step(t, theta, jacobian)
+        if self._one_switch:
+            return self._evaluate_one_switch(t, theta, jacobian)
         L, dL = self._levels(theta)
         lag = theta[self.lag_index] if self.lag_index is not None else 0.0
         s = self.switch_times + lag  # (m,)
@@ -551,6 +565,42 @@ class TurnoverKinetics:
         J[:, 1] = 1.0 - S
         J[:, 2:2 + p] = (-amp * f[:, None] * tp[None, :] * E).T
         J[:, 2 + p:2 + 2 * p] = amp * E.T
+        return y, J
+
+    def _evaluate_one_switch(self, t, theta, jacobian):
+        r"""Fast path: one switch at :math:`s` (plus the lag), parallel pools, δ scale, no
+        growth curve (exponential growth adds :math:`k_g` to every rate).
+
+        :math:`\delta = L_0 + (L_1 - L_0) R`, :math:`R = H(\tau)(1 - \sum_i f_i
+        e^{-\kappa_i \tau})`, :math:`\tau = t - s`; the same values as the general path.
+        """
+        L0 = self._level_c[0] + self._M0 @ theta
+        L1 = self._level_c[1] + self._M1 @ theta
+        lag = theta[self.lag_index] if self.lag_index is not None else 0.0
+        tp = t - (self.switch_times[0] + lag)
+        on = tp > 0
+        tp[~on] = 0.0
+        k = theta[self._k_slice]
+        if self.growth_rate_index is not None:
+            k = k + theta[self.growth_rate_index]
+        f = theta[self._f_slice]
+        E = np.exp(-np.outer(k, tp))  # (p, n)
+        R = on * (1.0 - f @ E)
+        amp = L1 - L0
+        y = L0 + amp * R
+        if not jacobian:
+            return y
+        J = np.outer(1.0 - R, self._M0)
+        J += np.outer(R, self._M1)
+        onE = E * on  # (p, n)
+        J[:, self._f_slice] -= amp * onE.T
+        dk = amp * (f[:, None] * tp * onE)  # dy/dk_i, (p, n)
+        J[:, self._k_slice] += dk.T
+        if self.growth_rate_index is not None:
+            J[:, self.growth_rate_index] += dk.sum(axis=0)
+        if self.lag_index is not None:
+            # dR/ds = -sum_i f_i kappa_i e^{-kappa_i tau} for tau > 0
+            J[:, self.lag_index] -= amp * ((f * k) @ onE)
         return y, J
 
     def _out(self, y, J):

@@ -793,3 +793,40 @@ def test_exponential_mass_loss_faster_than_slowest_pool_refused():
     y = m.predict([10.0], [-24.0, -11.0, 0.3, 0.02, 0.5, 0.5, -0.01])
     expected = -11.0 - 13.0 * (0.5 * math.exp(-2.9) + 0.5 * math.exp(-0.1))
     assert y[0] == pytest.approx(expected, abs=1e-12)
+
+
+@pytest.mark.parametrize("pools", [1, 2, 3])
+@pytest.mark.parametrize("lag, growth, separation, initial, known", [
+    (False, None, "difference", "equilibrium", True),
+    (True, None, "epsilon", "equilibrium", True),
+    (False, "exponential", "difference", "free", True),
+    (True, "exponential", "epsilon", "equilibrium", False),
+])
+def test_one_switch_fast_path_equals_the_general_path(pools, lag, growth, separation, initial,
+                                                      known):
+    # The one-switch closed form (kinetics._evaluate_one_switch) and the general
+    # superposition must give the same values and Jacobian; the general path is itself
+    # checked against solve_ivp above.
+    rng = np.random.default_rng(pools)
+    diet = DietHistory(-27.0, changes=[(3.0, -12.0 if known else None)])
+    kin = TurnoverKinetics(pools, diet=diet, lag=lag, growth=growth, separation=separation,
+                           initial=initial)
+    assert kin._one_switch
+    t = np.array([-5, 0, 0.5, 1, 2, 3, 3.5, 4, 7, 10, 14, 21, 28, 42, 56, 84.0])
+    for _ in range(5):
+        theta = rng.normal(size=kin.n_params)
+        theta[kin.rate_index] = np.sort(np.exp(rng.normal(-2, 1, pools)))[::-1]
+        theta[kin.fraction_index] = rng.dirichlet(np.ones(pools))
+        if kin.lag_index is not None:
+            theta[kin.lag_index] = 1.3
+        if kin.growth_rate_index is not None:
+            theta[kin.growth_rate_index] = 0.01
+        y1, J1 = kin.evaluate(t, theta, jacobian=True)
+        kin._one_switch = False
+        try:
+            y2, J2 = kin.evaluate(t, theta, jacobian=True)
+        finally:
+            kin._one_switch = True
+        np.testing.assert_allclose(y1, y2, rtol=0, atol=1e-11)
+        np.testing.assert_allclose(J1, J2, rtol=0, atol=1e-11)
+        np.testing.assert_allclose(kin.evaluate(t, theta), y1, rtol=0, atol=0)
