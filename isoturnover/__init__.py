@@ -11,7 +11,6 @@ from importlib.metadata import version as _version
 
 from . import isotopes, plotting, uncertainty
 from .analysis import analyse, load_fits, run_demo
-from .compare import compare, lr_test
 from .data import average_replicates, read_diets, read_masses, read_samples, series
 from .demo import demo_path, load_demo
 from .diet import DietHistory
@@ -35,6 +34,7 @@ from .model import TurnoverModel, fit_power_dilution
 from .progress import reaction_progress
 from .report import write_report
 from .results import TurnoverFit
+from .selection import compare, lr_test
 from .serialization import load_fit
 
 try:

@@ -23,13 +23,13 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .compare import CRITERIA, compare
 from .conventions import check_choice, check_n_jobs
 from .diet import DietHistory
 from .engine import Coordinates, check_names
 from .errors import DataError, IsoturnoverError, IsoturnoverWarning
 from .kinetics import MAX_POOLS
 from .model import LOSSES, TurnoverModel
+from .selection import CRITERIA, compare
 
 try:  # optional (the "fast" extra): parallel series
     import joblib as _joblib

@@ -30,7 +30,7 @@ LAYERS = {
     "engine": 5, "profiles": 5,
     "uncertainty": 6, "diagnostics": 6,
     "results": 7,
-    "model": 8, "compare": 8, "serialization": 8,
+    "model": 8, "selection": 8, "serialization": 8,
     "groups": 9,
     "plotting": 10,
     "report": 11,
@@ -139,3 +139,16 @@ def test_checker_catches_crafted_violations(tmp_path, monkeypatch, source, expec
     (fake / "diet.py").write_text(source, encoding="utf-8")
     monkeypatch.setattr(__import__(__name__), "PACKAGE", fake)
     assert any(expected in v for v in violations())
+
+
+def test_no_module_shares_a_name_with_a_public_function():
+    # `iso.compare` must be the function whatever was imported before (a module of the same
+    # name would replace it in the package namespace on `import isoturnover.compare`)
+    import inspect
+
+    import isoturnover as iso
+
+    modules = {p.stem for p in _modules()}
+    clash = [n for n in iso.__all__ if n in modules and not inspect.ismodule(getattr(iso, n))]
+    assert not clash, clash
+    assert inspect.isfunction(iso.compare)
