@@ -146,12 +146,12 @@ class Ties:
             th[j] = self._eval(code, th)
         return th
 
-    def jacobian(self, theta) -> np.ndarray:
-        r"""dθ_out/dθ_in of :meth:`apply` (tied columns are zero).
+    def apply_with_jacobian(self, theta):
+        r"""(:meth:`apply` of θ, dθ_out/dθ_in) — tied columns of the Jacobian are zero.
 
         The expressions' partial derivatives are central differences (step
-        :math:`10^{-6}\max(1, |\theta_i|)`, exact for the linear ties that are usual); the
-        chain through ties of ties is applied row by row in dependency order.
+        :math:`10^{-6}\max(1, |\theta_i|)`, exact to rounding for the linear ties that are
+        usual); the chain through ties of ties is applied row by row in dependency order.
         """
         th = self.apply(theta)
         n = th.size
@@ -168,7 +168,7 @@ class Ties:
                 d = (self._eval(code, tp) - self._eval(code, tm)) / (2 * h)
                 row += d * T[i]
             T[j] = row
-        return T
+        return th, T
 
 
 # ----------------------------------------------------------------------------------------
@@ -398,8 +398,10 @@ class Coordinates:
                     A[self.f_idx] = dF
         if self.ties is not None:
             if jac:
-                A = self.ties.jacobian(th) @ A
-            th = self.ties.apply(th)
+                th, T = self.ties.apply_with_jacobian(th)
+                A = T @ A
+            else:
+                th = self.ties.apply(th)
         return (th, A) if jac else th
 
     def clamp(self, z):

@@ -45,9 +45,6 @@ __all__ = ["TurnoverFit", "TrustNote", "Summary", "METHODS", "STATUSES"]
 LN2 = math.log(2.0)
 
 
-_check_level = check_level
-_check_method = check_method
-_unit_word = unit_word
 
 
 class TurnoverFit:
@@ -305,7 +302,6 @@ class TurnoverFit:
                 return out
         engine = self._engine
         fixed_names = dict(self.fixed)
-        coords = None
         c_hat = to_c(est)
         se = math.sqrt(self.covar[j, j]) if np.isfinite(self.covar[j, j]) else math.nan
         if kind == "rate":
@@ -322,12 +318,11 @@ class TurnoverFit:
             d[name] = from_c(c)
             return d
 
-        def D(c, z_start):
-            nonlocal coords
+        def D(c, theta_start):
+            """Scaled ΔRSS of the refit with the parameter fixed at from_c(c), and the refit."""
             fx = fixed_at(c)
             coords = engine.coords(fx, rate_anchor=rate_anchor, fraction_anchor=fraction_anchor)
-            if z_start is None:
-                z_start = coords.z_from_theta(self._theta)
+            z_start = coords.z_from_theta(theta_start)
             sol = engine.problem.solve(coords, z_start, tol=1e-11,
                                        max_nfev=40 * (coords.size + 1))
             d = (sol.cost - rss0) / s2
@@ -344,9 +339,8 @@ class TurnoverFit:
                 if np.isfinite(alt.cost) and alt.cost < sol.cost:
                     sol = alt
                     d = (sol.cost - rss0) / s2
-            # an unsettled refit's cost bounds the profile from above (the value Brent's
-            # method used to take as it came); it is used when nothing better was found
-            sol.extra["usable"] = bool(np.isfinite(d))
+            # an unsettled refit's cost bounds the profile from above; it is used when nothing
+            # better was found
             return d, sol
 
         lo_limit, hi_limit = self._search_limits(name, kind, c_hat, se_c)
@@ -362,12 +356,8 @@ class TurnoverFit:
             warm = {"theta": self._theta}
 
             def evaluate(c, warm=warm):
-                nonlocal coords
-                d, sol = D(c, None if warm["theta"] is self._theta else
-                           engine.coords(fixed_at(c), rate_anchor=rate_anchor,
-                                         fraction_anchor=fraction_anchor
-                                         ).z_from_theta(warm["theta"]))
-                if not sol.extra["usable"]:
+                d, sol = D(c, warm["theta"])
+                if not np.isfinite(d):
                     return math.nan, math.nan, False, ""
                 if d <= crit:
                     # warm starts come from inside the interval only: a refit outside may
@@ -389,8 +379,6 @@ class TurnoverFit:
             if status == "open" and (kind == "lag" or (
                     name in self.bounds and limit in self.bounds[name])):
                 status = "at_bound"
-            if status is None:
-                status = "open"
             if status == "open" or status == "at_bound":
                 if kind == "rate":
                     bound = 0.0 if direction < 0 else math.inf
@@ -549,7 +537,7 @@ class TurnoverFit:
         """
         from .uncertainty import profile_derived
 
-        return profile_derived(self, fn, _check_level(level), **kwargs)
+        return profile_derived(self, fn, check_level(level), **kwargs)
 
     def band(self, t, level=0.95, kind="confidence", method="delta", boot=None, **kwargs):
         """Confidence or prediction band of the fitted curve at times ``t``.
@@ -570,8 +558,8 @@ class TurnoverFit:
         losses) or ``"asymptotic"`` (covariance; log scale for rates). ``params`` limits
         the table to some parameters.
         """
-        level = _check_level(level)
-        method = _check_method(method)
+        level = check_level(level)
+        method = check_method(method)
         names = self.kinetics.param_names
         if params is not None:
             unknown = [p for p in params if p not in names]
@@ -598,8 +586,8 @@ class TurnoverFit:
         lower_status, upper_status, rate_lower, rate_upper, rate_kind, time_unit.
         Intervals are the transformed bounds of the rate (profile likelihood by default).
         """
-        level = _check_level(level)
-        method = _check_method(method)
+        level = check_level(level)
+        method = check_method(method)
         kin = self.kinetics
         v = self.values
         rows = []
@@ -648,8 +636,8 @@ class TurnoverFit:
         Columns: fraction, estimate, lower, upper, level, method, lower_status,
         upper_status, time_unit.
         """
-        level = _check_level(level)
-        method = _check_method(method)
+        level = check_level(level)
+        method = check_method(method)
         fr = np.atleast_1d(np.asarray(fraction, dtype=float))
         if np.any(~((fr > 0) & (fr < 1))):
             raise ValueError(f"'fraction' must be between 0 and 1 (0.95 = 95 %); got {fraction!r}")
@@ -779,8 +767,8 @@ class TurnoverFit:
         estimate, lower, upper, level, method, lower_status, upper_status.
         """
         self._require_growth("growth_share")
-        level = _check_level(level)
-        method = _check_method(method)
+        level = check_level(level)
+        method = check_method(method)
         T = float(self.t.max()) if at is None else float(at)
         rows = []
 
@@ -827,8 +815,8 @@ class TurnoverFit:
         specific growth rate over the sampling period. Same columns as :meth:`half_lives`.
         """
         self._require_growth("incorporation_half_lives")
-        level = _check_level(level)
-        method = _check_method(method)
+        level = check_level(level)
+        method = check_method(method)
         kin = self.kinetics
         rows = []
         for i, j in enumerate(kin.rate_index):
@@ -858,8 +846,8 @@ class TurnoverFit:
         if kin.growth_kind != "exponential" or len(kin.rate_names) != 1:
             raise ValueError("fry_arnold_exponent needs a one-pool fit with "
                              "growth='exponential'")
-        level = _check_level(level)
-        method = _check_method(method)
+        level = check_level(level)
+        method = check_method(method)
 
         def c(th):
             return -(th[kin.growth_rate_index] + th[kin.rate_index[0]]) / th[kin.growth_rate_index]
@@ -951,9 +939,9 @@ class TurnoverFit:
         units = {}
         for nm in kin.param_names:
             if nm in kin.rate_names or nm == "k_growth":
-                units[nm] = f"per {_unit_word(unit)[:-1]}"
+                units[nm] = f"per {unit_word(unit)[:-1]}"
             elif nm == "lag":
-                units[nm] = _unit_word(unit)
+                units[nm] = unit_word(unit)
             elif nm in kin.fraction_names:
                 units[nm] = "fraction"
             elif nm.startswith("growth_"):
@@ -970,12 +958,12 @@ class TurnoverFit:
                          "estimate": r["half_life"], "stderr": math.nan, "lower": r["lower"],
                          "upper": r["upper"], "level": level, "method": r["method"],
                          "lower_status": r["lower_status"], "upper_status": r["upper_status"],
-                         "unit": _unit_word(unit)})
+                         "unit": unit_word(unit)})
         tt = self.time_to(0.95, level, method).iloc[0]
         rows.append({"quantity": "time_to_95", "kind": "derived", "estimate": tt["estimate"],
                      "stderr": math.nan, "lower": tt["lower"], "upper": tt["upper"],
                      "level": level, "method": tt["method"], "lower_status": tt["lower_status"],
-                     "upper_status": tt["upper_status"], "unit": _unit_word(unit)})
+                     "upper_status": tt["upper_status"], "unit": unit_word(unit)})
         mrt = self.mean_residence_time()
         if method == "bootstrap":
             lo, hi, ls, hs = self._resampled_interval("mean_residence_time", level, method)
@@ -1001,7 +989,7 @@ class TurnoverFit:
         rows.append({"quantity": "mean_residence_time", "kind": "derived",
                      "estimate": mrt, "stderr": math.nan, "lower": lo, "upper": hi,
                      "level": level, "method": m, "lower_status": ls, "upper_status": hs,
-                     "unit": _unit_word(unit)})
+                     "unit": unit_word(unit)})
         return pd.concat([ci, pd.DataFrame(rows)], ignore_index=True)
 
     def notes(self) -> list[str]:
@@ -1129,8 +1117,8 @@ class Summary:
 
     def __init__(self, fit: TurnoverFit, level=0.95, method="profile"):
         self.fit = fit
-        self.level = _check_level(level)
-        self.method = _check_method(method)
+        self.level = check_level(level)
+        self.method = check_method(method)
         self.header = self._header()
         self.parameters = fit.conf_int(self.level, self.method)
         self.half_lives = fit.half_lives(self.level, self.method)
@@ -1139,7 +1127,7 @@ class Summary:
 
     def _header(self):
         f = self.fit
-        unit = _unit_word(f.time_unit)
+        unit = unit_word(f.time_unit)
         rel = " (σ as relative weights)" if f.sigma is not None else ""
         if f.joint and f._engine.mass_block.kind == "prior":
             weighting = ("δ residual variance estimated" + rel + "; growth-curve parameters "
@@ -1205,7 +1193,7 @@ class Summary:
                          f"{_fmt(r['stderr']):>12}{_bound(r['lower'], r['lower_status']):>12}"
                          f"{_bound(r['upper'], r['upper_status']):>12}")
         lines.append("")
-        unit = _unit_word(f.time_unit)
+        unit = unit_word(f.time_unit)
         lines.append(f"Derived quantities ({unit})")
         for _, r in self.half_lives.iterrows():
             what = "step" if f.kinetics.structure == "chain" else "pool"
@@ -1245,7 +1233,7 @@ class Summary:
                        f"<td>{e(_bound(r['lower'], r['lower_status']))}</td>"
                        f"<td>{e(_bound(r['upper'], r['upper_status']))}</td></tr>")
         out.append("</table><table><tr><th>pool</th><th>fraction</th><th>half-life "
-                   f"({e(_unit_word(f.time_unit))})</th><th>lower</th><th>upper</th></tr>")
+                   f"({e(unit_word(f.time_unit))})</th><th>lower</th><th>upper</th></tr>")
         for _, r in self.half_lives.iterrows():
             out.append(f"<tr><td>{int(r['pool'])}</td><td>{_fmt(r['fraction'], 3)}</td>"
                        f"<td>{_fmt(r['half_life'])}</td>"

@@ -485,7 +485,6 @@ class _ConstrainedProblem:
 
         lo, hi = self.lower[rest], self.upper[rest]
         zr0 = np.clip(z0[rest], lo, hi)
-        res = None
         hard = bool(np.any(np.isfinite(self.coords.lower[rest])))  # a real bound (lag >= 0)
         for _ in range(2):  # a second, polishing run when the budget ran out
             try:
@@ -499,7 +498,7 @@ class _ConstrainedProblem:
                     else:
                         # no real bound: MINPACK's Levenberg–Marquardt (the caps on log-gaps
                         # and logits are where the coordinate map is flat anyway)
-                        x, _, info, _, ier = optimize.leastsq(
+                        x, _, _, _, ier = optimize.leastsq(
                             fun, zr0, Dfun=jac, full_output=True, xtol=1e-12, ftol=1e-12,
                             gtol=1e-12, maxfev=100 * (rest.size + 1))
                         x = np.clip(x, lo, hi)
