@@ -165,6 +165,11 @@ def _hits(pts, box, pad=3.0):
     return under_x, under_x & (pts[:, 1] >= y0 - pad) & (pts[:, 1] <= y1 + pad)
 
 
+def _overlap(a, b, pad=3.0):
+    """Do two display boxes (x0, y0, x1, y1) overlap (within ``pad`` pixels)?"""
+    return a[0] < b[2] + pad and b[0] < a[2] + pad and a[1] < b[3] + pad and b[1] < a[3] + pad
+
+
 def _keep_clear(ax, boxes, xy, tries=4):
     """Keep legends and text boxes inside the axes off the points ``xy`` (data coordinates).
 
@@ -187,9 +192,13 @@ def _keep_clear(ax, boxes, xy, tries=4):
             pts = ax.transData.transform(xy)
             bb = box.get_window_extent()
             cur = (bb.x0, bb.y0, bb.x1, bb.y1)
-            if not _hits(pts, cur)[1].any():
-                continue
             is_legend = hasattr(box, "set_loc")
+            # a legend must not cover the other boxes (a text box) either
+            others = [o.get_window_extent() for o in boxes if o is not box] if is_legend \
+                else []
+            others = [(o.x0, o.y0, o.x1, o.y1) for o in others]
+            if not _hits(pts, cur)[1].any() and not any(_overlap(cur, o) for o in others):
+                continue
             hfrac = (bb.height + 9.0) / ab.height
             if is_legend and hfrac > 0.6:
                 box.set_loc("upper left")
@@ -199,7 +208,9 @@ def _keep_clear(ax, boxes, xy, tries=4):
             if is_legend:
                 pad = box.borderaxespad * box.prop.get_size_in_points() * fig.dpi / 72.0
                 free = [loc for loc in _LOCS
-                        if not _hits(pts, _box_at(loc, bb.width, bb.height, ab, pad))[1].any()]
+                        if not _hits(pts, _box_at(loc, bb.width, bb.height, ab, pad))[1].any()
+                        and not any(_overlap(_box_at(loc, bb.width, bb.height, ab, pad), o)
+                                    for o in others)]
                 if free:
                     box.set_loc(free[0])
                     changed = True
@@ -554,8 +565,14 @@ def plot_progress(fit, ax=None):
     else:
         ax.errorbar(tau[ok], logv[ok], **ekw)
     # y range from the points and the curve (not the error bars, which explode near the
-    # plateau); room above and below for the edge markers
-    vals = np.concatenate([logv[ok], lcurve[np.isfinite(lcurve)], [0.0]])
+    # plateau); room above and below for the edge markers. The curve counts only down to a
+    # little below the lowest point: past the last informative sample it falls without end
+    # (ln of a vanishing 1 − F) and would squeeze the data into the top of the panel
+    shown = np.isfinite(lcurve)
+    if ok.any():
+        low = float(np.min(logv[ok]))
+        shown &= lcurve >= low - 0.5 * max(-low, 0.5)
+    vals = np.concatenate([logv[ok], lcurve[shown], [0.0]])
     lo_y, hi_y = float(np.min(vals)), float(np.max(vals))
     pad = 0.12 * max(hi_y - lo_y, 0.5)
     ax.set_ylim(lo_y - pad, hi_y + pad)
@@ -593,7 +610,7 @@ def plot_progress(fit, ax=None):
         ax.add_line(Line2D([], [], linestyle="none", label="(no ln(1 − F) for these)"))
     txt = ax.text(0.03, 0.05, ends, transform=ax.transAxes, ha="left", va="bottom",
                   fontsize=_LEGEND_PT, color="#333333")
-    keep = _points((tau[ok], logv[ok]), ((grid - s0)[::8], lcurve[::8]))
+    keep = _points((tau[ok], logv[ok]), ((grid - s0)[shown][::8], lcurve[shown][::8]))
     leg = _legend(ax, first=("data",), loc="upper right")
     _keep_clear(ax, [leg, txt], keep)
     return ax

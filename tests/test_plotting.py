@@ -329,6 +329,29 @@ def test_progress_two_pools_curve_by_hand(fit2):
     np.testing.assert_allclose(py, np.log(u[ok]))
 
 
+def test_progress_axis_follows_the_data_and_boxes_do_not_overlap():
+    # Invented series: half-life 3 d, sampled to 98 d, so the plateau is reached early and
+    # the fitted ln(1 - F) = -k t runs to about -23 while the noisy points stop near -5.
+    rng = np.random.default_rng(11)
+    t = np.array([0, 0.5, 1, 2, 3, 4, 6, 8, 12, 20, 30, 45, 60, 80, 98.0])
+    k = math.log(2) / 3.0
+    y = -12.0 - 13.0 * np.exp(-k * t) + rng.normal(0, 0.05, t.size)
+    f = iso.TurnoverModel(1).fit(t, y, warn=False)
+    ax = P.plot_progress(f)
+    (eb,) = [c for c in ax.containers if c.get_label() == "data"]
+    lowest = float(np.min(eb.lines[0].get_data()[1]))
+    # the axis is set by the points (and the curve near them), not by the curve's far end
+    curve_end = -f.values["k1"] * t.max()
+    assert 2 * lowest > curve_end  # the crafted case: the curve ends far below the points
+    assert curve_end < 2 * lowest < ax.get_ylim()[0] < lowest
+    ax.figure.draw_without_rendering()
+    leg = ax.get_legend().get_window_extent()
+    (txt,) = [c for c in ax.texts if "δ" in c.get_text()]
+    tb = txt.get_window_extent()
+    assert not (leg.x0 < tb.x1 and tb.x0 < leg.x1 and leg.y0 < tb.y1 and tb.y0 < leg.y1)
+    plt.close(ax.figure)
+
+
 def test_progress_flagged_points_at_edge_not_dropped():
     # late samples scatter around the plateau: some lie past it (F >= 1)
     rng = np.random.default_rng(4)
