@@ -29,7 +29,8 @@ from .errors import (
     UnknownIsotopeError,
 )
 from .groups import FitSet, fit_each
-from .growth import GrowthCurve, GrowthFit, fit_growth, fit_growth_each, load_growth
+from .growth import GrowthCurve
+from .growthfit import GrowthFit, fit_growth, fit_growth_each, load_growth
 from .model import TurnoverModel, fit_power_dilution
 from .progress import reaction_progress
 from .report import write_report

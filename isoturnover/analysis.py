@@ -23,6 +23,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from .conventions import check_choice, check_level, check_positive_int
 from .errors import DataError, FitError
 from .groups import FitSet, fit_each, parallel_workers
 
@@ -42,19 +43,26 @@ CAUTION = (
 class Analysis:
     """Fits of one or more parts of a study, ready to be written out.
 
-    Attributes
+    Parameters
     ----------
     parts : dict name -> FitSet
-    level : float
-    ci : str
+        The parts of the study (one FitSet each), in the order they are written.
+    level : float, default=0.95
+        Confidence level in (0, 1) of every interval.
+    ci : str, default="profile"
         Interval method of the tables ("profile", "asymptotic" or "bootstrap").
-    bootstrap : dict
-        (part, key) -> bootstrap interval table of the chosen fit, when ``ci="bootstrap"``.
-    seed : int or None
+    n_boot : int, default=499
+        Bootstrap replicates per chosen fit when ``ci="bootstrap"``.
+    seed : int or None, default=1
         Seed of the run. Each series' bootstrap draws from its own seed, derived from this
         one and the series' part and key (:func:`series_seed`), so a series' interval does
         not depend on which other series are in the run, on their order, or on ``n_jobs``.
-    n_jobs : int
+    bootstrap : dict, optional
+        (part, key) -> bootstrap interval table of the chosen fit, when ``ci="bootstrap"``;
+        filled by :meth:`results_table`.
+    title : str, default="Turnover analysis"
+        Title of the report.
+    n_jobs : int, default=1
         Parallel workers of the bootstrap refits (results do not depend on it).
     """
 
@@ -68,13 +76,35 @@ class Analysis:
     n_jobs: int = 1
 
     @property
-    def interval_method(self):
+    def interval_method(self) -> str:
+        """Interval method of the fits' own tables.
+
+        Returns
+        -------
+        str
+            ``"asymptotic"`` when ``ci="asymptotic"``, else ``"profile"`` (bootstrap
+            intervals are added beside the profile ones).
+        """
         return "asymptotic" if self.ci == "asymptotic" else "profile"
 
     def n_fitted(self) -> int:
+        """Number of series with a chosen fit, over all parts.
+
+        Returns
+        -------
+        int
+            Series whose status is ``"ok"``.
+        """
         return sum(len(fs.chosen) for fs in self.parts.values())
 
     def failures(self) -> dict:
+        """Why each series that could not be fitted was not, over all parts.
+
+        Returns
+        -------
+        dict tuple -> str
+            ``(part, *key)`` → reason.
+        """
         out = {}
         for name, fs in self.parts.items():
             for k, why in fs.failures.items():
@@ -82,7 +112,17 @@ class Analysis:
         return out
 
     def results_table(self) -> pd.DataFrame:
-        """One row per series and candidate across all parts (column ``part`` first)."""
+        """One row per series and candidate across all parts (the ``results.csv`` table).
+
+        Returns
+        -------
+        DataFrame
+            Column ``part`` first, then the columns of :meth:`FitSet.table` (at ``level``
+            and :attr:`interval_method`); with ``ci="bootstrap"`` also ``boot_lower_i``,
+            ``boot_upper_i`` (residual-bootstrap percentile interval of half-life i, in the
+            data's time unit), ``boot_failed`` and ``boot_n`` on the chosen rows. Empty when
+            no part has a series.
+        """
         frames = []
         for name, fs in self.parts.items():
             tab = fs.table(self.level, self.interval_method)
@@ -97,7 +137,7 @@ class Analysis:
         return pd.concat(frames, ignore_index=True, sort=False)
 
     def _add_bootstrap(self, name, fs, tab):
-        from .uncertainty import bootstrap
+        from .resampling import bootstrap
 
         rows = []
         workers = parallel_workers(self.n_jobs)
@@ -132,7 +172,15 @@ class Analysis:
         return tab.merge(extra, on=keys, how="left")
 
     def fits_json(self) -> dict:
-        """Every fitted candidate as :meth:`TurnoverFit.to_dict`, with its keys."""
+        """Every fitted candidate as :meth:`TurnoverFit.to_dict`, with its keys.
+
+        Returns
+        -------
+        dict
+            ``{"format": "isoturnover-fits", "version": 1, "level", "ci", "fits": [...]}``,
+            each entry with ``part``, ``key`` (column → value), ``candidate``, ``chosen``
+            and ``fit``; JSON-safe (read back with :func:`load_fits`).
+        """
         entries = []
         for name, fs in self.parts.items():
             for key, r in fs.items():
@@ -146,7 +194,14 @@ class Analysis:
                 "ci": self.ci, "fits": entries}
 
     def merged(self) -> FitSet:
-        """All parts as one FitSet keyed (part, subject, tissue, isotope)."""
+        """All parts as one FitSet keyed (part, subject, tissue, isotope).
+
+        Returns
+        -------
+        FitSet
+            The same series results; a destructive series (no subject key) has the
+            subject ``"all animals"``.
+        """
         results = {}
         for name, fs in self.parts.items():
             for key, r in fs.items():
@@ -162,9 +217,29 @@ class Analysis:
                       method=self.interval_method, time_unit=unit)
 
     def write(self, out_dir, *, force=False, figures=True) -> list[Path]:
-        """Write results.csv, fits.json and the report into ``out_dir`` (all or nothing).
+        """Write results.csv, fits.json, the report and CAUTION.txt (all or nothing).
 
-        Refuses a non-empty folder unless ``force``; nothing is written if anything fails.
+        Every file is made in a temporary folder beside ``out_dir`` and moved into place
+        only when all of them exist; nothing is written if anything fails.
+
+        Parameters
+        ----------
+        out_dir : str or path-like
+            Output folder (created when missing).
+        force : bool, default=False
+            Write into a non-empty folder, replacing its files of the same names.
+        figures : bool, default=True
+            Draw the report's figures.
+
+        Returns
+        -------
+        list of pathlib.Path
+            The files written.
+
+        Raises
+        ------
+        DataError
+            When ``out_dir`` is a file, or a non-empty folder without ``force``.
         """
         from .report import write_report
 
@@ -194,8 +269,26 @@ def series_seed(seed, part, key):
 
     A :class:`numpy.random.SeedSequence` of ``seed`` and four 32-bit words of the SHA-256
     digest of the part's name and the key's values (as text), so it depends on what the
-    series is, not on where it stands in the run or how many workers run it. ``None``
-    when ``seed`` is None (fresh randomness).
+    series is, not on where it stands in the run or how many workers run it.
+
+    Parameters
+    ----------
+    seed : int or None
+        The run's seed (a non-negative integer).
+    part : str
+        Name of the part of the study.
+    key : tuple or scalar
+        Values of the series' key columns.
+
+    Returns
+    -------
+    numpy.random.SeedSequence or None
+        None when ``seed`` is None (fresh randomness).
+
+    Raises
+    ------
+    DataError
+        When ``seed`` is not a non-negative integer or None.
     """
     if _check_seed(seed) is None:
         return None
@@ -215,7 +308,20 @@ def _check_seed(seed):
 
 
 def check_out_dir(out: Path, force: bool):
-    """Refuse a non-empty output folder unless ``force`` (before any work is done)."""
+    """Refuse a non-empty output folder unless ``force`` (before any work is done).
+
+    Parameters
+    ----------
+    out : pathlib.Path
+        The output folder (it need not exist).
+    force : bool
+        Accept a non-empty folder.
+
+    Raises
+    ------
+    DataError
+        When ``out`` is a file, or a non-empty folder without ``force``.
+    """
     if out.exists() and not out.is_dir():
         raise DataError(f"output path {str(out)!r} exists and is not a folder")
     if out.exists() and any(out.iterdir()) and not force:
@@ -244,8 +350,24 @@ def _move_tree(tmp: Path, out: Path) -> list[Path]:
 
 
 def load_fits(path_or_dict) -> list[dict]:
-    """Read a ``fits.json``: a list of entries with ``part``, ``key``, ``candidate``,
-    ``chosen`` and the rebuilt ``fit`` (:class:`~isoturnover.TurnoverFit`)."""
+    """Read a ``fits.json`` written by :meth:`Analysis.write`.
+
+    Parameters
+    ----------
+    path_or_dict : str, path-like or dict
+        The file, or its content already parsed.
+
+    Returns
+    -------
+    list of dict
+        One entry per fitted candidate with ``part``, ``key``, ``candidate``, ``chosen``
+        and the rebuilt ``fit`` (:class:`~isoturnover.TurnoverFit`).
+
+    Raises
+    ------
+    DataError
+        When the content is not a fits.json of isoturnover.
+    """
     from .serialization import load_fit
 
     if isinstance(path_or_dict, dict):
@@ -264,16 +386,24 @@ def load_fits(path_or_dict) -> list[dict]:
 
 
 def _parse_pools(pools):
+    """``pools`` as a tuple of integers 1-4 (from ``"1,2"``, an integer or a sequence)."""
+    given = pools
     if isinstance(pools, str):
         try:
             pools = tuple(int(p) for p in pools.split(",") if p.strip())
         except ValueError:
-            raise DataError(f"--pools must be a comma-separated list of integers 1-4, such as "
-                            f"1,2; got {pools!r}") from None
-    pools = tuple(pools)
-    if not pools or any(not 1 <= int(p) <= 4 for p in pools):
-        raise DataError(f"pools must be integers from 1 to 4; got {pools!r}")
-    return pools
+            raise DataError(f"'pools' (--pools) must be a comma-separated list of integers "
+                            f"1-4, such as 1,2; got {given!r}") from None
+    elif isinstance(pools, (int, np.integer)) and not isinstance(pools, bool):
+        pools = (pools,)
+    try:
+        pools = tuple(pools)
+    except TypeError:
+        pools = None
+    if not pools or any(isinstance(p, bool) or not isinstance(p, (int, np.integer))
+                        or not 1 <= p <= 4 for p in pools):
+        raise DataError(f"'pools' must be integers from 1 to 4; got {given!r}")
+    return tuple(int(p) for p in pools)
 
 
 def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("parallel",),
@@ -284,24 +414,61 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
 
     Parameters
     ----------
-    samples, diets, masses : path or DataFrame
-        The three tables of the data model (diets and masses optional).
+    samples : path or DataFrame
+        The samples table (:func:`~isoturnover.read_samples`).
+    diets, masses : path or DataFrame, optional
+        The diets and body-masses tables (:func:`~isoturnover.read_diets`,
+        :func:`~isoturnover.read_masses`).
+    pools : str or sequence of int, default=(1, 2)
+        Numbers of parallel pools to try (1-4); ``"1,2,3"`` as on the command line.
+    structures : sequence of {"parallel", "chain"}, default=("parallel",)
+        Model structures to try.
     by : tuple of str, optional
         Series keys; default (subject, tissue, isotope), or (tissue, isotope) when every
         subject has a single sampling time (destructive design).
-    ci : {"profile", "asymptotic", "bootstrap"}
+    ci : {"profile", "asymptotic", "bootstrap"}, default="profile"
         Interval method; "bootstrap" adds residual-bootstrap percentile intervals for the
         chosen fits' half-lives (``n_boot`` replicates; each series seeded from ``seed``
         and its own key, see :func:`series_seed`).
+    level : float, default=0.95
+        Confidence level in (0, 1).
+    time_unit : str, default="d"
+        Time unit of the tables.
+    growth_curve : str, default="logistic"
+        Growth curve fitted to the masses (:func:`~isoturnover.fit_growth`).
+    per_diet_separation : bool, default=False
+        One diet-tissue separation per diet value.
+    lag : bool, default=False
+        Fit a pure delay after each switch.
+    progress : bool, default=False
+        Show a progress bar.
+    n_boot : int, default=499
+        Bootstrap replicates per chosen fit (``ci="bootstrap"``).
+    seed : int or None, default=1
+        Seed of the bootstrap draws (None: fresh randomness).
+    title : str, default="Turnover analysis"
+        Title of the report.
     n_jobs : int, default=1
         Parallel workers (joblib; -1: all cores) for the series' fits and the bootstrap
-        refits. The results are those of ``n_jobs=1``.
-    Other parameters as :func:`~isoturnover.fit_each`.
+        refits. The results are those of ``n_jobs=1``; without joblib a warning is given
+        and the work runs serially.
+
+    Returns
+    -------
+    Analysis
+        One part, ``"samples"``, holding the :class:`~isoturnover.FitSet`; write it with
+        :meth:`Analysis.write`.
+
+    Raises
+    ------
+    DataError
+        For a bad table or option, before any series is fitted.
     """
     from .data import read_diets, read_masses, read_samples
 
-    if ci not in CI_METHODS:
-        raise DataError(f"ci must be one of {', '.join(CI_METHODS)}; got {ci!r}")
+    check_choice("ci", ci, CI_METHODS)
+    level = check_level(level)
+    n_boot = check_positive_int("n_boot", n_boot)
     n_jobs = parallel_workers(n_jobs)  # 1 (after one warning) when joblib is missing
     _check_seed(seed)
     pools = _parse_pools(pools)
@@ -320,18 +487,47 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
                     title=title, n_jobs=n_jobs)
 
 
-def run_demo(out_dir=None, *, force=False, progress=False, figures=True) -> Analysis:
+def run_demo(out_dir=None, *, force=False, progress=False, figures=True,
+             n_jobs=1) -> Analysis:
     """Analyse the invented demo experiment (goats, breath in hours, fish) end to end.
 
     Goats: plasma and red-cell δ13C and plasma δ15N under the pens' diet histories (pen B
     back to hay on day 120), growth dilution from each goat's fitted logistic growth curve
     (its uncertainty propagated), a separation per ration for δ15N. Breath CO2: a step
     switch in hours, one to three pools. Fish: a destructive design (one fish per sample)
-    with exponential growth fitted across fish. Writes to ``out_dir`` when given.
+    with exponential growth fitted across fish.
+
+    Parameters
+    ----------
+    out_dir : str or path-like, optional
+        Write results, report and figures here (see :meth:`Analysis.write`); without it
+        nothing is written.
+    force : bool, default=False
+        Write into a non-empty folder.
+    progress : bool, default=False
+        Show progress bars.
+    figures : bool, default=True
+        Draw the report's figures.
+    n_jobs : int, default=1
+        Parallel workers (joblib; -1: all cores) for the series' fits; the results are
+        those of ``n_jobs=1``. Without joblib a warning is given and the work runs
+        serially.
+
+    Returns
+    -------
+    Analysis
+        Four parts: "goats d13C", "goats d15N", "goat breath" and "fish".
+
+    Raises
+    ------
+    DataError
+        For a bad ``n_jobs``, or an ``out_dir`` that is a file or a non-empty folder
+        without ``force`` (checked before any fit).
     """
     from .data import read_diets, read_masses, read_samples
     from .demo import demo_path
 
+    workers = parallel_workers(n_jobs)  # 1 (after one warning) when joblib is missing
     if out_dir is not None:
         check_out_dir(Path(out_dir), force)
     gs = read_samples(demo_path("goat_samples"))
@@ -343,14 +539,18 @@ def run_demo(out_dir=None, *, force=False, progress=False, figures=True) -> Anal
     fm = read_masses(demo_path("fish_masses"))
     parts = {}
     parts["goats d13C"] = fit_each(gs[gs["isotope"] == "d13C"], pools=(1, 2), diets=gd,
-                                   masses=gm, growth_curve="logistic", progress=progress)
+                                   masses=gm, growth_curve="logistic", progress=progress,
+                                   n_jobs=workers)
     parts["goats d15N"] = fit_each(gs[gs["isotope"] == "d15N"], pools=(1, 2), diets=gd,
                                    masses=gm, growth_curve="logistic",
-                                   per_diet_separation=True, progress=progress)
-    parts["goat breath"] = fit_each(breath, pools=(1, 2, 3), progress=progress)
+                                   per_diet_separation=True, progress=progress,
+                                   n_jobs=workers)
+    parts["goat breath"] = fit_each(breath, pools=(1, 2, 3), progress=progress,
+                                    n_jobs=workers)
     parts["fish"] = fit_each(fsam, by=("tissue", "isotope"), pools=(1, 2), diets=fd,
-                             masses=fm, growth_curve="exponential", progress=progress)
-    a = Analysis(parts, title="Demo analysis (invented data)")
+                             masses=fm, growth_curve="exponential", progress=progress,
+                             n_jobs=workers)
+    a = Analysis(parts, title="Demo analysis (invented data)", n_jobs=workers)
     if a.n_fitted() == 0:  # pragma: no cover - the demo data always fit
         raise FitError("no demo series could be fitted")
     if out_dir is not None:

@@ -2,6 +2,13 @@
 
 Errors reach the terminal as one line ``error: ...`` on stderr with exit status 2 (never a
 traceback; ``--debug`` shows it). Nothing is written when a command fails.
+
+Warnings of the library (:class:`~isoturnover.IsoturnoverWarning` and its subclasses: a
+request for parallel workers without joblib, rows dropped or duplicated in a table, a
+growth curve that did not converge...) are printed on stderr as they happen, one line
+``warning: ...`` each, every distinct message once. The trust notes of the turnover fits
+are not printed: they are in results.csv (column ``warnings``) and in the report. Other
+warnings keep Python's own handling.
 """
 
 from __future__ import annotations
@@ -22,7 +29,23 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _jobs(text):
-    """``--jobs N``: a positive integer, or -1 for all cores."""
+    """Parse ``--jobs N``: a positive integer, or -1 for all cores.
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    int
+        The number of parallel workers (-1: all cores).
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not such a number (argparse turns it into one ``error:`` line).
+    """
     from .conventions import check_n_jobs
 
     try:
@@ -45,6 +68,13 @@ def _add_common(p):
 
 
 def build_parser() -> argparse.ArgumentParser:
+    """The parser of the ``isoturnover`` command and its sub-commands ``demo`` and ``fit``.
+
+    Returns
+    -------
+    argparse.ArgumentParser
+        Its ``error`` prints one line ``error: ...`` and exits with status 2.
+    """
     from . import __version__
 
     common = argparse.ArgumentParser(add_help=False)
@@ -62,6 +92,9 @@ def build_parser() -> argparse.ArgumentParser:
     d = sub.add_parser("demo", parents=[common], help="analyse the invented demo experiment",
                        description="Fit the invented demo experiment (goats, breath, fish) "
                        "and write results, figures and a report.")
+    d.add_argument("--jobs", metavar="N", type=_jobs, default=1,
+                   help="run the series' fits in N parallel processes (-1: all cores; "
+                   "default 1); the results are the same as with 1")
     _add_common(d)
 
     f = sub.add_parser("fit", parents=[common], help="fit every series of a samples file",
@@ -109,11 +142,13 @@ def _cmd_demo(args):
     from pathlib import Path
 
     from .analysis import check_out_dir, run_demo
+    from .groups import parallel_workers
 
     out = Path(args.out or "isoturnover_out_demo")
     check_out_dir(out, args.force)
+    jobs = parallel_workers(args.jobs, "--jobs")  # 1 (after one warning) without joblib
     a = run_demo(out, force=args.force, progress=_progress_default(args),
-                 figures=not args.no_figures)
+                 figures=not args.no_figures, n_jobs=jobs)
     _report(a, out)
     return 0
 
@@ -123,16 +158,18 @@ def _cmd_fit(args):
 
     from .analysis import analyse, check_out_dir
     from .errors import DataError
+    from .groups import parallel_workers
 
     out = Path(args.out or "isoturnover_out_fit")
     check_out_dir(out, args.force)
+    jobs = parallel_workers(args.jobs, "--jobs")  # 1 (after one warning) without joblib
     by = None if args.by is None else tuple(x.strip() for x in args.by.split(",") if x.strip())
     structures = ("parallel", "chain") if args.chain else ("parallel",)
     a = analyse(args.samples, diets=args.diets, masses=args.masses, pools=args.pools,
                 structures=structures, by=by, ci=args.ci, level=args.level,
                 time_unit=args.time_unit, growth_curve=args.growth_curve,
                 per_diet_separation=args.per_diet_separation, lag=args.lag,
-                progress=_progress_default(args), n_boot=args.n_boot, n_jobs=args.jobs)
+                progress=_progress_default(args), n_boot=args.n_boot, n_jobs=jobs)
     if a.n_fitted() == 0:
         reasons = "; ".join(f"{' / '.join(map(str, k[1:]))}: {why}"
                             for k, why in list(a.failures().items())[:10])
@@ -154,7 +191,43 @@ def _report(a, out):
     print(CAUTION)
 
 
+def _print_library_warnings():
+    """Within a ``warnings.catch_warnings()`` block: print every distinct library warning
+    once, as one line ``warning: ...`` on stderr; other warnings go to the handler that was
+    in place."""
+    from .errors import IsoturnoverWarning
+
+    shown = set()
+    previous = warnings.showwarning
+
+    def show(message, category, filename, lineno, file=None, line=None):
+        if not issubclass(category, IsoturnoverWarning):
+            return previous(message, category, filename, lineno, file, line)
+        text = " ".join(str(message).split())
+        if text not in shown:
+            shown.add(text)
+            print(f"warning: {text}", file=sys.stderr, flush=True)
+        return None
+
+    warnings.simplefilter("always", IsoturnoverWarning)  # repeated ones are dropped above
+    warnings.showwarning = show
+
+
 def main(argv: list[str] | None = None) -> int:
+    """Run the ``isoturnover`` command line.
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        The arguments after the program name (default ``sys.argv[1:]``).
+
+    Returns
+    -------
+    int
+        Exit status: 0 on success (also for the help text without a command), 2 when the
+        command failed (one line ``error: ...`` on stderr, nothing written). Library
+        warnings are printed as ``warning: ...`` lines on stderr.
+    """
     parser = build_parser()
     args = parser.parse_args(argv)
     if args.command is None:
@@ -163,10 +236,7 @@ def main(argv: list[str] | None = None) -> int:
     handler = {"demo": _cmd_demo, "fit": _cmd_fit}[args.command]
     try:
         with warnings.catch_warnings():
-            # trust warnings are on every fit and in the report; keep the terminal readable
-            from .errors import IsoturnoverWarning
-
-            warnings.simplefilter("ignore", IsoturnoverWarning)
+            _print_library_warnings()
             return handler(args)
     except KeyboardInterrupt:  # pragma: no cover
         print("error: interrupted", file=sys.stderr)

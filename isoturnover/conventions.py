@@ -14,6 +14,7 @@ import numpy as np
 from .errors import DataError
 
 __all__ = [
+    "check_named_values",
     "METHODS",
     "STATUSES",
     "INTERVAL_COLUMNS",
@@ -40,7 +41,23 @@ TIME_UNITS = {"d": "days", "h": "hours", "w": "weeks", "min": "minutes", "y": "y
 
 
 def check_level(level) -> float:
-    """A confidence level strictly between 0 and 1 (0.95 for 95 %), as a float."""
+    """Check a confidence level: a number strictly between 0 and 1 (0.95 for 95 %).
+
+    Parameters
+    ----------
+    level : float
+        The confidence level (a fraction, not a percentage).
+
+    Returns
+    -------
+    float
+        ``level`` as a float.
+
+    Raises
+    ------
+    DataError
+        When ``level`` is not a number or not strictly between 0 and 1.
+    """
     try:
         lv = float(level)
     except (TypeError, ValueError):
@@ -51,7 +68,25 @@ def check_level(level) -> float:
 
 
 def check_method(method, allowed=METHODS) -> str:
-    """An interval method among ``allowed`` (exact spelling, no prefix matching)."""
+    """Check an interval method: one of ``allowed``, spelled exactly (no prefix matching).
+
+    Parameters
+    ----------
+    method : str
+        The method asked for.
+    allowed : sequence of str, default=METHODS
+        The methods the caller offers.
+
+    Returns
+    -------
+    str
+        ``method`` unchanged.
+
+    Raises
+    ------
+    DataError
+        When ``method`` is not a string among ``allowed``.
+    """
     if not isinstance(method, str) or method not in allowed:
         raise DataError(
             f"'method' must be one of {', '.join(repr(m) for m in allowed)}; got {method!r}"
@@ -60,7 +95,28 @@ def check_method(method, allowed=METHODS) -> str:
 
 
 def check_choice(name: str, value, allowed) -> str:
-    """A string option among ``allowed``; the error names the argument and the choices."""
+    """Check a string option: one of ``allowed``, spelled exactly.
+
+    Parameters
+    ----------
+    name : str
+        The argument's name, used in the message.
+    value : str
+        The value given.
+    allowed : sequence of str
+        The allowed values, in the order the message lists them.
+
+    Returns
+    -------
+    str
+        ``value`` unchanged.
+
+    Raises
+    ------
+    DataError
+        When ``value`` is not a string among ``allowed``; the message names the argument,
+        the choices and what was given.
+    """
     if not isinstance(value, str) or value not in allowed:
         raise DataError(
             f"'{name}' must be one of {', '.join(repr(a) for a in allowed)}; got {value!r}"
@@ -69,15 +125,54 @@ def check_choice(name: str, value, allowed) -> str:
 
 
 def check_positive_int(name: str, value, minimum: int = 1) -> int:
-    """An integer (not a bool) at least ``minimum``."""
+    """Check an integer argument (a bool is refused) of at least ``minimum``.
+
+    Parameters
+    ----------
+    name : str
+        The argument's name, used in the message.
+    value : int
+        The value given (a Python or numpy integer).
+    minimum : int, default=1
+        The smallest allowed value.
+
+    Returns
+    -------
+    int
+        ``value`` as a Python int.
+
+    Raises
+    ------
+    DataError
+        When ``value`` is not an integer, is a bool, or is below ``minimum``.
+    """
     if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < minimum:
         raise DataError(f"'{name}' must be an integer >= {minimum}; got {value!r}")
     return int(value)
 
 
 def check_n_jobs(value, name: str = "n_jobs") -> int:
-    """A number of parallel workers, joblib's convention: a positive integer, or -1 for all
-    cores (not a bool, not 0, not below -1)."""
+    """Check a number of parallel workers: a positive integer, or -1 for all cores.
+
+    joblib's convention for ``n_jobs``; a bool, 0 and values below -1 are refused.
+
+    Parameters
+    ----------
+    value : int
+        The number of workers given.
+    name : str, default="n_jobs"
+        The argument's name, used in the message.
+
+    Returns
+    -------
+    int
+        ``value`` as a Python int.
+
+    Raises
+    ------
+    DataError
+        When ``value`` is not an integer >= 1 or -1.
+    """
     if isinstance(value, bool) or not isinstance(value, (int, np.integer)) \
             or not (value >= 1 or value == -1):
         raise DataError(f"'{name}' must be a positive integer (number of parallel workers) or "
@@ -86,5 +181,83 @@ def check_n_jobs(value, name: str = "n_jobs") -> int:
 
 
 def unit_word(unit: str) -> str:
-    """The word for a time-unit code (``"d"`` → ``"days"``); other labels unchanged."""
+    """Give the word for a time-unit code (``"d"`` → ``"days"``).
+
+    Parameters
+    ----------
+    unit : str
+        A code of :data:`TIME_UNITS` or any other label.
+
+    Returns
+    -------
+    str
+        The word for a known code; any other label unchanged.
+    """
     return TIME_UNITS.get(unit, unit)
+
+
+def check_named_values(what: str, values, allowed, *, owner: str = "",
+                       rules=None) -> dict[str, float]:
+    """A mapping of names to finite numbers, every name among ``allowed``.
+
+    The one check of the ``fixed=``, ``init=`` and parameter-value arguments: names known,
+    values numbers, finite, and within any limit a name has.
+
+    Parameters
+    ----------
+    what : str
+        The argument's name, used in every message (``"fixed"``, ``"init"``).
+    values : Mapping or None
+        Name → number. ``None`` gives an empty dict.
+    allowed : sequence of str
+        The names that may appear, in the order the message lists them.
+    owner : str, optional
+        Words naming whose names they are, for the unknown-name message (``"curve
+        'logistic'"``, ``"this model"``).
+    rules : Mapping of str to (callable, str), optional
+        Extra condition of a name: ``rules[name] = (ok, requirement)``, ``ok(x) -> bool`` on
+        the float value and ``requirement`` the words of the message (``"must be > 0"``).
+
+    Returns
+    -------
+    dict of str to float
+        A new dict in the input's order (the input is not modified).
+
+    Raises
+    ------
+    DataError
+        When ``values`` is not a mapping, a name is not in ``allowed`` (with the closest
+        allowed name as a hint), a value is not a finite number, or a rule fails.
+    """
+    import difflib
+    import math
+    from collections.abc import Mapping
+
+    if values is None:
+        return {}
+    if not isinstance(values, Mapping):
+        raise DataError(f"'{what}' must be a mapping of parameter name to value; got "
+                        f"{type(values).__name__}")
+    allowed = list(allowed)
+    rules = rules or {}
+    out = {}
+    for name, val in values.items():
+        if name not in allowed:
+            near = difflib.get_close_matches(str(name), allowed, n=1)
+            hint = f" (did you mean {near[0]!r}?)" if near else ""
+            whose = f"the parameters of {owner}" if owner else "the allowed parameters"
+            raise DataError(f"'{what}' has unknown parameter {name!r}{hint}; {whose} are "
+                            f"{', '.join(allowed)}")
+        try:
+            x = float(val)
+        except (TypeError, ValueError):
+            raise DataError(f"'{what}[{name!r}]' must be a number; got {val!r:.80}") \
+                from None
+        if not math.isfinite(x):
+            raise DataError(f"'{what}[{name!r}]' must be finite; got {val!r:.80}")
+        if name in rules:
+            ok, requirement = rules[name]
+            if not ok(x):
+                raise DataError(f"'{what}[{name!r}]' {requirement}; got {val!r:.80}")
+        out[name] = x
+    return out

@@ -17,7 +17,9 @@ is reported with the file, the row number as a spreadsheet shows it (the header 
 first data row is row 2; for a frame, the index label), the column and the value. Nothing is
 dropped silently: a bad row is an error, or -- with ``on_bad_rows="drop"`` -- dropped with one
 :class:`~isoturnover.errors.DataWarning` listing every dropped row. Fully blank lines carry no
-measurement and are skipped (row numbers still count them).
+measurement and are skipped (row numbers still count them). The generic reading of files and
+cells (CSV/Excel, column mapping, blank cells, the collector of bad cells) lives in
+:mod:`isoturnover.tables`; this module knows what each table holds.
 
 Time runs from the diet switch in the unit ``time_unit`` (``"d"``, ``"h"`` or ``"w"``), which
 travels with the frame in ``frame.attrs["time_unit"]``; ``frame.attrs["source"]`` names the
@@ -40,18 +42,28 @@ samples: a human-research ethics board); this module only reads the measurements
 from __future__ import annotations
 
 import difflib
-import io
 import math
-import os
 import re
 import warnings
 from collections.abc import Mapping
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
+from .conventions import check_choice
 from .errors import DataError, DataWarning
+from .sampletimes import time_column
+from .tables import (
+    MAX_LISTED,
+    Issues,
+    Table,
+    apply_columns,
+    cell_text,
+    load_table,
+    missing_column,
+    number_column,
+    text_column,
+)
 
 __all__ = [
     "ISOTOPE_CODES",
@@ -77,7 +89,6 @@ _TIME_ALIASES = {
     "h": "h", "hour": "h", "hours": "h",
     "w": "w", "week": "w", "weeks": "w",
 }
-_ONE_UNIT = {"d": pd.Timedelta(days=1), "h": pd.Timedelta(hours=1), "w": pd.Timedelta(weeks=1)}
 
 #: Units of the ``value`` column that :func:`read_samples` accepts.
 VALUE_UNITS = ("delta", "atom_percent", "atom_percent_excess")
@@ -90,38 +101,10 @@ SAMPLE_COLUMNS = ("subject", "tissue", "isotope", "time", "date", "value", "sd",
 DIET_COLUMNS = ("group", "subject", "isotope", "start", "value")
 MASS_COLUMNS = ("subject", "group", "time", "date", "mass")
 
-# Column names users often give to a canonical column (our own short list, common practice);
-# used only to suggest a ``columns=`` mapping, never applied silently.
-_SYNONYMS = {
-    "subject": ("animal", "animal_id", "id", "individual", "fish", "bird", "specimen"),
-    "time": ("day", "days", "hour", "hours", "week", "weeks", "t", "elapsed"),
-    "value": ("delta", "d13c", "d15n", "d34s", "d2h", "d18o", "value_permil"),
-    "sd": ("sigma", "stdev", "std", "sd_permil"),
-    "mass": ("weight", "body_mass", "bodymass", "mass_g", "weight_g"),
-    "start": ("start_time", "from", "begin", "time", "day"),
-    "date": ("sampling_date", "sample_date"),
-}
-
-# Text that stands for "no value" in spreadsheets and exports (common practice).
-_NA_MARKERS = ("nan", "na", "n/a", "#n/a", "null", "none", "<na>", "nat", "missing")
-_NA_SPELLINGS = tuple(sorted({f(m) for m in _NA_MARKERS
-                              for f in (str.lower, str.upper, str.capitalize)}
-                             | {"NaN", "NaT", "N/a", "#N/A", "<NA>"}))
-
-_MAX_LISTED = 10  # further bad rows named in an error message
-
 
 # ------------------------------------------------------------------------------------------
-# argument checks
+# argument checks and isotope codes
 # ------------------------------------------------------------------------------------------
-def _check_choice(value, name: str, allowed) -> str:
-    if not isinstance(value, str) or value not in allowed:
-        raise DataError(
-            f"{name} must be one of {', '.join(repr(a) for a in allowed)}; got {value!r}"
-        )
-    return value
-
-
 def _time_unit(unit) -> str:
     """Canonical time unit code for ``unit`` (``"days"`` → ``"d"`` etc.)."""
     if isinstance(unit, str) and unit.strip() in _TIME_ALIASES:
@@ -163,666 +146,19 @@ def _unknown_isotope_text(code) -> str:
             f"{', '.join(ISOTOPE_CODES)})")
 
 
-# ------------------------------------------------------------------------------------------
-# the raw table
-# ------------------------------------------------------------------------------------------
-class _Table:
-    """Cells of one table with the names and row numbers needed for messages.
-
-    ``frame`` has the stripped header names as columns; from a file every cell is text (or,
-    from Excel, the cell's Python value), from a frame the cells are as given. ``rows`` holds
-    the spreadsheet row number of each row (files) and ``labels`` the index labels (frames).
-    """
-
-    def __init__(self, frame: pd.DataFrame, label: str, source: str, rows, from_file: bool,
-                 decimal_comma: bool = False, sheet: str | None = None):
-        self.frame = frame
-        self.label = label          # "samples.csv" or "book.xlsx, sheet 'Data'" or "<frame>"
-        self.source = source        # for attrs["source"]
-        self.rows = rows            # np.ndarray of int (files) or None
-        self.labels = frame.index   # original index labels
-        self.from_file = from_file
-        self.decimal_comma = decimal_comma
-        self.sheet = sheet
-        self.original: dict[str, str] = {}   # canonical -> the user's column name
-        self.clean = False          # True when every cell is already stripped text (CSV)
-
-    def __len__(self) -> int:
-        return len(self.frame)
-
-    def row_name(self, pos: int) -> str:
-        if self.from_file:
-            return f"row {int(self.rows[pos])}"
-        lab = self.labels[pos]
-        return f"index {lab!r}" if isinstance(lab, str) else f"index {lab}"
-
-    def rows_text(self, positions) -> str:
-        """'rows 3, 5, 9' or 'index 0, 4'."""
-        positions = list(positions)
-        if self.from_file:
-            nums = ", ".join(str(int(self.rows[p])) for p in positions)
-            return ("row " if len(positions) == 1 else "rows ") + nums
-        return "index " + ", ".join(self.row_name(p)[6:] for p in positions)
-
-    def where(self, pos: int) -> str:
-        return f"{self.label}, {self.row_name(pos)}"
-
-    def col(self, name: str) -> str:
-        """How a column is named in messages: the user's name, with the canonical one."""
-        orig = self.original.get(name)
-        return f"{orig!r} (mapped to {name!r})" if orig is not None else repr(name)
-
-    def subset(self, keep: np.ndarray) -> _Table:
-        t = _Table(self.frame[keep], self.label, self.source,
-                   None if self.rows is None else self.rows[keep], self.from_file,
-                   self.decimal_comma, self.sheet)
-        t.original = dict(self.original)
-        t.clean = self.clean
-        return t
-
-
-def _blank_cells(col: pd.Series) -> np.ndarray:
-    """Blank cells of one column: missing, or text of only whitespace."""
-    missing = col.isna().to_numpy()
-    text = col.astype(object).where(~missing, "").astype(str).str.strip()
-    return missing | (text == "").to_numpy()
-
-
-def _excel_column_letter(j: int) -> str:
-    s = ""
-    j += 1
-    while j:
-        j, r = divmod(j - 1, 26)
-        s = chr(65 + r) + s
-    return s
-
-
-def _from_grid(grid: pd.DataFrame, label: str, source: str, *, decimal_comma: bool = False,
-               sheet: str | None = None) -> _Table:
-    """A table from a grid of cells whose first non-blank row is the header."""
-    grid = grid.reset_index(drop=True)
-    grid.columns = range(grid.shape[1])
-    if grid.shape[1] == 0 or grid.shape[0] == 0:
-        raise DataError(f"{label} is empty: expected a header row and data rows")
-    texts, blanks, clean = [], [], True
-    for j in grid.columns:
-        c = grid[j]
-        if pd.api.types.is_string_dtype(c) and not c.isna().any():   # CSV text cells
-            c = c.str.strip()
-            texts.append(c)
-            blanks.append((c == "").to_numpy())
-        else:                                                              # Excel values
-            texts.append(c)
-            blanks.append(_blank_cells(c))
-            clean = False
-    grid = pd.concat(texts, axis=1, keys=list(grid.columns))
-    blank = np.column_stack(blanks)
-    row_blank = blank.all(axis=1)
-    if row_blank.all():
-        raise DataError(f"{label} is empty: it holds only blank rows")
-    h = int(np.argmax(~row_blank))
-    names = ["" if blank[h, j] else str(grid.iat[h, j]).strip() for j in range(grid.shape[1])]
-    body = grid.iloc[h + 1:]
-    rows = np.arange(h + 2, h + 2 + len(body))
-    keep = ~row_blank[h + 1:]
-    body, rows, body_blank = body[keep], rows[keep], blank[h + 1:][keep]
-    if len(body) == 0:
-        raise DataError(
-            f"{label} has a header row (row {h + 1}) but no data rows below it"
-        )
-    use = []
-    for j, nm in enumerate(names):
-        if nm:
-            use.append(j)
-        elif not body_blank[:, j].all():
-            first = rows[np.argmax(~body_blank[:, j])]
-            raise DataError(
-                f"{label}: column {j + 1} ({_excel_column_letter(j)}) has data (first on "
-                f"row {first}) but no name in the header row {h + 1}; give it a name"
-            )
-    names = [names[j] for j in use]
-    _check_duplicate_names(names, label, header_row=h + 1)
-    body = body[use]
-    body.columns = names
-    body = body.reset_index(drop=True)
-    table = _Table(body, label, source, rows, True, decimal_comma, sheet)
-    table.clean = clean
-    return table
-
-
-def _check_duplicate_names(names, label: str, header_row: int | None = None) -> None:
-    seen: dict[str, list[int]] = {}
-    for j, nm in enumerate(names):
-        seen.setdefault(nm, []).append(j + 1)
-    dups = {nm: pos for nm, pos in seen.items() if len(pos) > 1}
-    if dups:
-        where = f" in the header row {header_row}" if header_row else ""
-        desc = "; ".join(
-            f"{nm!r} (columns {', '.join(map(str, pos))})" for nm, pos in dups.items()
-        )
-        raise DataError(
-            f"{label}: duplicate column name(s){where}: {desc}; every column needs its own name"
-        )
-
-
-def _read_csv(path: Path, label: str) -> _Table:
-    try:
-        data = path.read_bytes()
-    except OSError as exc:
-        raise DataError(f"cannot read file {label}: {exc.strerror or exc}") from None
-    if not data:
-        raise DataError(f"{label} is empty (0 bytes): expected a header row and data rows")
-    nul = data.find(b"\x00")
-    if nul >= 0:
-        line = data[:nul].count(b"\n") + 1
-        raise DataError(
-            f"{label} is not UTF-8 text: it contains a NUL byte (byte {nul}, line {line}), so "
-            "it is a binary file (an Excel workbook saved under a .csv name?) or UTF-16 text; "
-            "save it as 'CSV UTF-8' (or pass an .xlsx file)"
-        )
-    try:
-        text = data.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        line = data[:exc.start].count(b"\n") + 1
-        raise DataError(
-            f"{label} is not UTF-8 text: byte 0x{data[exc.start]:02x} on line {line} is not "
-            "valid UTF-8. If the file was saved as Latin-1/Windows-1252 (common for "
-            "spreadsheet exports), save it again as 'CSV UTF-8', or read it with "
-            "pandas.read_csv(path, encoding='latin-1') and pass the frame"
-        ) from None
-    if not text.strip():
-        raise DataError(f"{label} is empty: it holds only blank lines")
-    header = text.lstrip("\r\n\t ").split("\n", 1)[0]
-    sep, decimal_comma = ",", False
-    if ";" in header and "," not in header:
-        sep, decimal_comma = ";", True
-    elif "\t" in header and "," not in header and ";" not in header:
-        sep = "\t"
-    try:
-        grid = pd.read_csv(io.StringIO(text), sep=sep, header=None, dtype=str,
-                           keep_default_na=False, skip_blank_lines=False, index_col=False)
-    except pd.errors.ParserError as exc:
-        msg = str(exc).replace("Error tokenizing data. C error: ", "").strip()
-        raise DataError(
-            f"{label}: {msg} -- a row has more fields than the header row (delimiter "
-            f"{sep!r}); quote fields that contain the delimiter (a decimal comma such as "
-            "-21,3 in a comma-separated file splits a number in two)"
-        ) from None
-    return _from_grid(grid, label, str(path), decimal_comma=decimal_comma)
-
-
-def _read_excel(path: Path, label: str, sheet) -> _Table:
-    suffix = path.suffix.lower()
-    if suffix == ".xls":
-        try:
-            book = pd.read_excel(path, sheet_name=None, header=None, dtype=object)
-        except ImportError:
-            raise DataError(
-                f"{label}: reading old-style .xls workbooks needs the package xlrd "
-                "(pip install xlrd); or save the sheet as .xlsx or 'CSV UTF-8'"
-            ) from None
-        except Exception as exc:  # noqa: BLE001 - any reader failure becomes a clear error
-            raise DataError(f"{label} cannot be read as an Excel workbook: {exc}") from None
-        names = list(book)
-        name = _pick_sheet(names, sheet, label)
-        return _from_grid(book[name], f"{label}, sheet {name!r}", str(path), sheet=name)
-    try:
-        import openpyxl
-    except ImportError:
-        raise DataError(
-            f"{label}: reading Excel workbooks needs the package openpyxl "
-            "(pip install openpyxl, or pip install 'isoturnover[excel]'); or save the sheet "
-            "as 'CSV UTF-8'"
-        ) from None
-    try:
-        wb = openpyxl.load_workbook(path, read_only=True, data_only=True)
-    except Exception as exc:  # noqa: BLE001 - zip, xml or format errors all mean the same
-        raise DataError(
-            f"{label} cannot be read as an Excel workbook ({type(exc).__name__}: {exc})"
-        ) from None
-    try:
-        name = _pick_sheet(wb.sheetnames, sheet, label)
-        ws = wb[name]
-        cells = list(ws.iter_rows(min_row=1, min_col=1, values_only=True))
-    finally:
-        wb.close()
-    grid = pd.DataFrame(cells, dtype=object)
-    return _from_grid(grid, f"{label}, sheet {name!r}", str(path), sheet=name)
-
-
-def _pick_sheet(names, sheet, label: str) -> str:
-    if sheet is None:
-        return names[0]
-    if isinstance(sheet, (int, np.integer)) and not isinstance(sheet, bool):
-        if 0 <= sheet < len(names):
-            return names[int(sheet)]
-        raise DataError(
-            f"{label}: sheet={sheet} is out of range; the workbook has {len(names)} sheet(s) "
-            f"(0-based index): {names}"
-        )
-    if isinstance(sheet, str) and sheet in names:
-        return sheet
-    raise DataError(
-        f"{label}: no sheet {sheet!r}; sheets are {names} (pass a name or a 0-based index)"
-    )
-
-
-def _load(path_or_frame, sheet) -> _Table:
-    if isinstance(path_or_frame, pd.DataFrame):
-        if sheet is not None:
-            raise DataError("sheet= applies to Excel files only; a DataFrame was given")
-        df = path_or_frame.copy()
-        names = [str(c).strip() for c in df.columns]
-        _check_duplicate_names(names, "<frame>")
-        df.columns = names
-        if len(df) == 0:
-            raise DataError("<frame> has no rows")
-        return _Table(df, "<frame>", "<frame>", None, False)
-    if not isinstance(path_or_frame, (str, os.PathLike)):
-        raise DataError(
-            "path_or_frame must be a path to a CSV or Excel file or a pandas DataFrame; got "
-            f"{type(path_or_frame).__name__}"
-        )
-    path = Path(path_or_frame)
-    label = str(path_or_frame)
-    if not path.exists():
-        raise DataError(f"file not found: {label}")
-    if path.is_dir():
-        raise DataError(f"{label} is a directory, not a data file")
-    if path.suffix.lower() in (".xlsx", ".xlsm", ".xls"):
-        return _read_excel(path, label, sheet)
-    if sheet is not None:
-        raise DataError(f"sheet= applies to Excel files only; {label} is read as CSV text")
-    return _read_csv(path, label)
-
-
-def _suggest_column(name: str, available) -> str | None:
-    avail = list(available)
-    lower = {a.lower(): a for a in avail}
-    if name.lower() in lower:
-        return lower[name.lower()]
-    for syn in _SYNONYMS.get(name, ()):
-        if syn in lower:
-            return lower[syn]
-    close = difflib.get_close_matches(name.lower(), list(lower), n=1, cutoff=0.6)
-    return lower[close[0]] if close else None
-
-
-def _apply_columns(table: _Table, columns, allowed, what: str) -> None:
-    """Rename the user's columns to canonical names in place (on the table's own copy)."""
-    if columns is None:
-        return
-    if not isinstance(columns, Mapping):
-        raise DataError(
-            "columns must be a mapping {your column name: canonical name}, e.g. "
-            f"{{'Animal': 'subject'}}; got {type(columns).__name__}"
-        )
-    have = list(table.frame.columns)
-    targets: dict[str, str] = {}
-    for src, dst in columns.items():
-        if not isinstance(dst, str) or dst not in allowed:
-            close = difflib.get_close_matches(str(dst), allowed, n=1, cutoff=0.6)
-            did = f" (did you mean {close[0]!r}?)" if close else ""
-            raise DataError(
-                f"columns={{{src!r}: {dst!r}}}: {dst!r} is not a column of the {what} table"
-                f"{did}; allowed targets: {', '.join(allowed)}"
-            )
-        if src not in have:
-            sug = _suggest_column(str(src), have)
-            did = f" (did you mean {sug!r}?)" if sug else ""
-            raise DataError(
-                f"columns={{{src!r}: {dst!r}}}: {table.label} has no column {src!r}{did}; "
-                f"its columns are {have}"
-            )
-        if dst in targets:
-            raise DataError(
-                f"columns= maps both {targets[dst]!r} and {src!r} to {dst!r}; map one column "
-                "to each name"
-            )
-        targets[dst] = src
-    renamed = {src: dst for dst, src in targets.items()}
-    for dst, src in targets.items():
-        if dst in have and dst not in renamed and dst != src:
-            raise DataError(
-                f"columns= maps {src!r} to {dst!r}, but {table.label} already has a column "
-                f"{dst!r}; rename or drop one of them"
-            )
-    table.frame = table.frame.rename(columns=renamed)
-    for dst, src in targets.items():
-        if src != dst:
-            table.original[dst] = src
-
-
-def _missing_column(table: _Table, name: str, what: str, extra: str = "") -> DataError:
-    have = list(table.frame.columns)
-    sug = _suggest_column(name, [c for c in have if c not in table.original])
-    did = (f"; did you mean {sug!r}? (rename it or pass columns={{{sug!r}: {name!r}}})"
-           if sug else f"; pass columns={{'your name': {name!r}}} to map another column")
-    return DataError(
-        f"{table.label}: missing required column {name!r}{extra} of the {what} table{did}; "
-        f"columns are {have}"
-    )
-
-
-# ------------------------------------------------------------------------------------------
-# row-level validation (vectorised: one boolean mask per check)
-# ------------------------------------------------------------------------------------------
-class _Issues:
-    """Bad cells found by vectorised checks: one mask per (column, reason)."""
-
-    def __init__(self, table: _Table):
-        self.table = table
-        self.checks: list[tuple[np.ndarray, str, object]] = []
-
-    def add(self, mask, column: str, reason) -> None:
-        """Record the rows where ``mask`` is True; ``reason(pos)`` describes one of them."""
-        mask = np.asarray(mask, dtype=bool)
-        if mask.any():
-            self.checks.append((mask, column, reason))
-
-    def bad(self) -> np.ndarray:
-        out = np.zeros(len(self.table), dtype=bool)
-        for mask, _, _ in self.checks:
-            out |= mask
-        return out
-
-    def resolve(self, on_bad_rows: str) -> np.ndarray:
-        """Raise on the first bad row, or drop bad rows with one warning; the rows kept."""
-        bad = self.bad()
-        if not bad.any():
-            return ~bad
-        t = self.table
-        if on_bad_rows == "raise":
-            first = int(np.argmax(bad))
-            mask, column, reason = next(c for c in self.checks if c[0][first])
-            further = np.flatnonzero(bad)[1:]
-            msg = f"{t.where(first)}, column {t.col(column)}: {reason(first)}"
-            if further.size:
-                shown = t.rows_text(further[:_MAX_LISTED])
-                more = ", ..." if further.size > _MAX_LISTED else ""
-                msg += (f". {further.size} further bad row{'s' if further.size > 1 else ''}"
-                        f" ({shown}{more})")
-            msg += ("; correct the data, or pass on_bad_rows='drop' to drop bad rows with a "
-                    "warning")
-            raise DataError(msg)
-        if bad.all():
-            first = 0
-            mask, column, reason = next(c for c in self.checks if c[0][first])
-            raise DataError(
-                f"{t.label}: every row is bad, so dropping them would leave no data (first: "
-                f"{t.row_name(first)}, column {t.col(column)}: {reason(first)})"
-            )
-        positions = np.flatnonzero(bad)
-        per_row: dict[int, list[str]] = {int(p): [] for p in positions}
-        for mask, column, reason in self.checks:
-            for p in np.flatnonzero(mask):
-                per_row[int(p)].append(f"column {t.col(column)}: {reason(int(p))}")
-        listing = "; ".join(f"{t.row_name(p)} ({'; '.join(r)})" for p, r in per_row.items())
-        warnings.warn(
-            f"{t.label}: dropped {positions.size} of {len(t)} rows as asked "
-            f"(on_bad_rows='drop'): {listing}",
-            DataWarning, stacklevel=3,
-        )
-        return ~bad
-
-
-def _text(col: pd.Series, clean: bool = False) -> tuple[pd.Series, np.ndarray]:
-    """Stripped text of each cell ('' where blank) and the blank mask.
-
-    ``clean=True`` says the cells are already stripped text without missing values (a CSV
-    read by :func:`_from_grid`), which saves a second pass over every cell.
-    """
-    if clean:
-        return col, (col == "").to_numpy()
-    missing = col.isna().to_numpy()
-    src = col
-    if pd.api.types.is_float_dtype(col.dtype):
-        v = col.to_numpy(dtype=float, na_value=np.nan)
-        fin = v[np.isfinite(v)]
-        if fin.size and np.all(fin == np.round(fin)) and np.all(np.abs(fin) < 2.0**53):
-            src = col.astype("Int64")           # 1.0 -> "1" for ids read as floats
-    text = src.astype(object).where(~missing, "").astype(str).str.strip()
-    text.index = col.index
-    blank = missing | (text == "").to_numpy()
-    return text, blank
-
-
-def _strings(table: _Table, issues: _Issues, name: str, *, required: bool) -> pd.Series:
-    """A text column (stripped); missing where blank. Blank is an error if required."""
-    text, blank = _text(table.frame[name], table.clean)
-    marker = ~blank & text.isin(_NA_SPELLINGS).to_numpy()
-    if required:
-        issues.add(blank, name, lambda i: "is blank; a value is required")
-        issues.add(marker, name,
-                   lambda i: f"{text.iat[i]!r} is a missing-value marker; a value is required")
-    return text.where(~(blank | marker))
-
-
-def _show(v) -> str:
-    """repr of a cell value without numpy's type wrapper (np.float64(1.0) -> 1.0)."""
-    if isinstance(v, np.generic):
-        v = v.item()
-    return repr(v)
-
-
-def _number_reason(raw) -> str:
-    s = str(raw).strip()
-    if re.fullmatch(r"[-+−]?\d*,\d+", s):
-        return (f"{_show(raw)} is not a number: it looks like a decimal comma; use '.' for "
-                "decimals in a comma-separated file (a file separated by ';' is read with "
-                "decimal commas)")
-    if "−" in s:
-        return f"{_show(raw)} is not a number: it holds a Unicode minus sign '−'; use '-'"
-    return f"{_show(raw)} is not a number"
-
-
-def _numbers(table: _Table, issues: _Issues, name: str, *, required: bool,
-             positive: bool = False) -> np.ndarray:
-    """A numeric column as floats (NaN where blank or bad), with its checks recorded."""
-    col = table.frame[name]
-    if pd.api.types.is_numeric_dtype(col.dtype) and not pd.api.types.is_bool_dtype(col.dtype):
-        vals = col.to_numpy(dtype=float, na_value=np.nan).copy()
-        blank = np.isnan(vals)
-        bad_text = np.zeros(len(vals), dtype=bool)
-        marker = bad_text
-        raw = col
-    else:
-        text, blank = _text(col, table.clean)
-        conv = text.str.replace(",", ".", regex=False) if table.decimal_comma else text
-        vals = pd.to_numeric(conv.where(~blank), errors="coerce").to_numpy(
-            dtype=float, na_value=np.nan).copy()
-        nan = np.isnan(vals)
-        marker = nan & ~blank & text.isin(_NA_SPELLINGS).to_numpy()
-        bad_text = nan & ~blank & ~marker
-        raw = col
-        issues.add(bad_text, name, lambda i: _number_reason(raw.iat[i]))
-        if not required:
-            blank = blank | marker
-    if required:
-        issues.add(blank, name, lambda i: "is blank (or NaN); a number is required")
-        issues.add(marker, name,
-                   lambda i: f"{_show(raw.iat[i])} is a missing-value marker; a number is required")
-    inf = np.isinf(vals)
-    issues.add(inf, name, lambda i: f"{_show(raw.iat[i])} is not finite; a finite number is needed")
-    if positive:
-        nonpos = np.isfinite(vals) & (vals <= 0)
-        issues.add(nonpos, name, lambda i: f"must be > 0, got {vals[i]:g}")
-    vals[inf | bad_text] = np.nan
-    return vals
-
-
-def _isotopes(table: _Table, issues: _Issues) -> pd.Series:
-    codes = _strings(table, issues, "isotope", required=True)
+def _isotopes(table: Table, issues: Issues) -> pd.Series:
+    """The ``isotope`` column: required text among :data:`ISOTOPE_CODES` (bad cells recorded)."""
+    codes = text_column(table, issues, "isotope", required=True)
     present = codes.notna().to_numpy()
     unknown = present & ~codes.isin(ISOTOPE_CODES).to_numpy()
     issues.add(unknown, "isotope", lambda i: _unknown_isotope_text(codes.iat[i]))
     return codes
 
 
-def _dates(table: _Table, issues: _Issues, name: str, *, required: bool = True) -> pd.Series:
-    """Parse a date column (datetime64); unparseable cells are recorded as bad."""
-    col = table.frame[name]
-    if pd.api.types.is_datetime64_any_dtype(col.dtype):
-        out = pd.Series(col.to_numpy(), index=col.index)
-        blank = out.isna().to_numpy()
-        if required:
-            issues.add(blank, name, lambda i: "is blank; a date is required")
-        return out
-    text, blank = _text(col, table.clean)
-    obj = col.astype(object).where(~blank)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", UserWarning)   # pandas' "could not infer format"
-        try:
-            out = pd.to_datetime(obj, errors="coerce")
-        except (TypeError, ValueError):
-            out = pd.to_datetime(obj, errors="coerce", format="mixed")
-    bad = out.isna().to_numpy() & ~blank
-    issues.add(bad, name, lambda i: f"{_show(col.iat[i])} cannot be read as a date (use ISO "
-                                    "dates such as 2024-03-31)")
-    if required:
-        issues.add(blank, name, lambda i: "is blank; a date is required")
-    return out
-
-
-def _timestamp(value, what: str) -> pd.Timestamp:
-    try:
-        ts = pd.Timestamp(value)
-    except (TypeError, ValueError):
-        raise DataError(f"{what}: cannot read {value!r} as a date (use e.g. '2024-03-31')"
-                        ) from None
-    if pd.isna(ts):
-        raise DataError(f"{what}: a date is required, got {value!r}")
-    return ts
-
-
-def _switch_times(table: _Table, issues: _Issues, dates: pd.Series, unit: str, *,
-                  switch_date, switch_dates, keys: dict[str, pd.Series],
-                  date_column: str) -> tuple[np.ndarray, dict]:
-    """Times since the switch, in ``unit``, for each row's date; and attrs to record."""
-    n = len(table)
-    meta: dict = {}
-    if switch_date is not None:
-        sw = pd.Series([_timestamp(switch_date, "switch_date")] * n, index=dates.index)
-        meta["switch_date"] = sw.iat[0].isoformat()
-    elif isinstance(switch_dates, str):
-        if switch_dates not in table.frame.columns:
-            raise DataError(
-                f"switch_dates={switch_dates!r}: {table.label} has no such column; columns "
-                f"are {list(table.frame.columns)}"
-            )
-        sw = _dates(table, issues, switch_dates)
-        meta["switch_dates"] = f"column {switch_dates!r}"
-    elif isinstance(switch_dates, pd.DataFrame):
-        by = [c for c in ("group", "subject") if c in switch_dates.columns]
-        if "switch_date" not in switch_dates.columns or not by:
-            raise DataError(
-                "switch_dates as a frame needs a 'switch_date' column and a 'group' and/or "
-                f"'subject' column; got columns {list(switch_dates.columns)}"
-            )
-        missing = [c for c in by if c not in keys]
-        if missing:
-            raise DataError(
-                f"switch_dates is keyed by {by}, but {table.label} has no column "
-                f"{missing[0]!r}"
-            )
-        right = pd.DataFrame({c: _text(switch_dates[c])[0].to_numpy() for c in by})
-        right["_sw"] = [_timestamp(v, f"switch_dates row {i}")
-                        for i, v in enumerate(switch_dates["switch_date"])]
-        if right.duplicated(subset=by).any():
-            dup = right[right.duplicated(subset=by, keep=False)][by].drop_duplicates()
-            raise DataError(
-                f"switch_dates has more than one switch date for {dup.to_dict('records')}"
-            )
-        left = pd.DataFrame({c: keys[c].fillna("").to_numpy() for c in by})
-        sw = pd.Series(left.merge(right, on=by, how="left")["_sw"].to_numpy(),
-                       index=dates.index)
-        lacking = sw.isna().to_numpy()
-        issues.add(lacking, by[0], lambda i: (
-            "no switch date in switch_dates for "
-            + ", ".join(f"{c}={left[c].iat[i]!r}" for c in by)))
-        meta["switch_dates"] = {
-            " / ".join(str(r[c]) for c in by): r["_sw"].isoformat()
-            for r in right.to_dict("records")}
-    elif isinstance(switch_dates, Mapping):
-        by = "group" if "group" in keys else "subject"
-        mapping = {str(k).strip(): _timestamp(v, f"switch_dates[{k!r}]")
-                   for k, v in switch_dates.items()}
-        key = keys[by]
-        sw = pd.Series(pd.to_datetime(key.map(mapping).astype(object)).to_numpy(),
-                       index=dates.index)
-        lacking = sw.isna().to_numpy()
-        known = ", ".join(repr(k) for k in mapping)
-
-        def why(i):
-            if pd.isna(key.iat[i]):
-                return f"is blank, so switch_dates (keyed by {by!r}) gives no switch date"
-            return (f"no switch date for {by} {key.iat[i]!r} in switch_dates (it has {known}); "
-                    f"switch_dates is keyed by {by!r}"
-                    + (" because the table has a 'group' column" if by == "group" else ""))
-        issues.add(lacking, by, why)
-        meta["switch_dates"] = {k: v.isoformat() for k, v in mapping.items()}
-        meta["switch_dates_by"] = by
-    else:
-        raise DataError(
-            "switch_dates must be a mapping {group (or subject): date}, a frame with a "
-            "'switch_date' column, or the name of a column holding each row's switch date; "
-            f"got {type(switch_dates).__name__}"
-        )
-    try:
-        delta = dates.to_numpy() - sw.to_numpy()
-    except TypeError as exc:
-        raise DataError(
-            f"{table.label}, column {table.col(date_column)}: dates and switch date(s) cannot "
-            f"be subtracted ({exc}); give both with or both without a time zone"
-        ) from None
-    times = (pd.to_timedelta(delta) / _ONE_UNIT[unit]).to_numpy(dtype=float, na_value=np.nan)
-    return times, meta
-
-
-def _time_column(table: _Table, issues: _Issues, *, what: str, time_col: str,
-                 switch_date, switch_dates, unit: str, keys: dict[str, pd.Series],
-                 date_col: str = "date"):
-    """(times, dates or None, attrs) from a time column or a date column with switch dates."""
-    cols = table.frame.columns
-    given = switch_date is not None or switch_dates is not None
-    if switch_date is not None and switch_dates is not None:
-        raise DataError("give switch_date= (one date) or switch_dates= (one per group or "
-                        "subject), not both")
-    if time_col == date_col:          # diets: 'start' holds times, or dates when a switch given
-        if time_col not in cols:
-            raise _missing_column(table, time_col, what)
-        if not given:
-            return _numbers(table, issues, time_col, required=True), None, {}
-        dates = _dates(table, issues, time_col)
-        times, meta = _switch_times(table, issues, dates, unit, switch_date=switch_date,
-                                    switch_dates=switch_dates, keys=keys,
-                                    date_column=time_col)
-        return times, dates, meta
-    if time_col in cols:
-        if given:
-            raise DataError(
-                f"{table.label} has a {time_col!r} column, so switch_date=/switch_dates= "
-                f"have nothing to convert; drop them, or map the date column to 'date' and "
-                f"remove {time_col!r}"
-            )
-        return _numbers(table, issues, time_col, required=True), None, {}
-    if date_col in cols:
-        if not given:
-            raise DataError(
-                f"{table.label}: column {table.col(date_col)} holds dates; pass "
-                "switch_date= (one date) or switch_dates= (one per group or subject) to turn "
-                f"them into times since the switch, or give a {time_col!r} column"
-            )
-        dates = _dates(table, issues, date_col)
-        times, meta = _switch_times(table, issues, dates, unit, switch_date=switch_date,
-                                    switch_dates=switch_dates, keys=keys,
-                                    date_column=date_col)
-        return times, dates, meta
-    raise _missing_column(table, time_col, what,
-                          extra=f" (or {date_col!r} with switch_date=/switch_dates=)")
-
-
-def _warn_duplicates(out: pd.DataFrame, table: _Table, ignore=()) -> None:
+# ------------------------------------------------------------------------------------------
+# the frames the readers return
+# ------------------------------------------------------------------------------------------
+def _warn_duplicates(out: pd.DataFrame, table: Table, ignore=()) -> None:
     cols = [c for c in out.columns if c not in ignore]
     dup = out.duplicated(subset=cols, keep=False).to_numpy()
     if dup.any():
@@ -835,7 +171,7 @@ def _warn_duplicates(out: pd.DataFrame, table: _Table, ignore=()) -> None:
         )
 
 
-def _extras(table: _Table, canonical) -> dict[str, pd.Series]:
+def _extras(table: Table, canonical) -> dict[str, pd.Series]:
     """Columns that are not canonical, kept; from files, numeric-looking ones become numbers."""
     out = {}
     for c in table.frame.columns:
@@ -843,7 +179,7 @@ def _extras(table: _Table, canonical) -> dict[str, pd.Series]:
             continue
         col = table.frame[c]
         if table.from_file:
-            text, blank = _text(col, table.clean)
+            text, blank = cell_text(col, table.clean)
             conv = text.str.replace(",", ".", regex=False) if table.decimal_comma else text
             num = pd.to_numeric(conv.where(~blank), errors="coerce")
             if (num.notna().to_numpy() | blank).all() and not blank.all():
@@ -854,17 +190,24 @@ def _extras(table: _Table, canonical) -> dict[str, pd.Series]:
     return out
 
 
-def _finish(out: pd.DataFrame, table: _Table, keep: np.ndarray, attrs: dict) -> pd.DataFrame:
+def _finish(out: pd.DataFrame, table: Table, keep: np.ndarray, attrs: dict) -> pd.DataFrame:
     out.index = table.labels[keep] if not table.from_file else pd.RangeIndex(int(keep.sum()))
     out.attrs = attrs
     return out
 
 
-def _base_attrs(table: _Table, what: str, unit: str) -> dict:
+def _base_attrs(table: Table, what: str, unit: str) -> dict:
     attrs = {"table": what, "source": table.source, "time_unit": unit}
     if table.sheet is not None:
         attrs["sheet"] = table.sheet
     return attrs
+
+
+def _take(col, keep: np.ndarray):
+    """The kept rows of a column (a Series keeps its dtype, with a fresh RangeIndex)."""
+    if isinstance(col, pd.Series):
+        return col.iloc[np.flatnonzero(keep)].reset_index(drop=True)
+    return np.asarray(col)[keep]
 
 
 # ------------------------------------------------------------------------------------------
@@ -892,7 +235,7 @@ def _baseline_for(baseline, code: str) -> float:
 
 
 def _convert_units(values, sd, codes: pd.Series, ok: np.ndarray, unit: str, baseline,
-                   table: _Table, issues: _Issues):
+                   table: Table, issues: Issues):
     """δ (‰) from atom % or atom % excess, and the sd propagated to first order.
 
     The sd is propagated through the derivative of the conversion, taken by a central
@@ -1038,47 +381,47 @@ def read_samples(path_or_frame, *, columns=None, time_unit="d", switch_date=None
     >>> s.attrs["time_unit"]
     'd'
     """
-    _check_choice(on_bad_rows, "on_bad_rows", _ON_BAD_ROWS)
+    check_choice("on_bad_rows", on_bad_rows, _ON_BAD_ROWS)
     tu = _time_unit(time_unit)
-    _check_choice(unit, "unit", VALUE_UNITS)
+    check_choice("unit", unit, VALUE_UNITS)
     if unit == "atom_percent_excess" and baseline is None:
         raise DataError("unit='atom_percent_excess' needs baseline= (δ in ‰ of the unenriched "
                         "material: a number, or a mapping isotope code -> δ)")
     if unit != "atom_percent_excess" and baseline is not None:
         raise DataError(f"baseline= applies only with unit='atom_percent_excess'; got "
                         f"unit={unit!r}")
-    table = _load(path_or_frame, sheet)
-    _apply_columns(table, columns, SAMPLE_COLUMNS, "samples")
+    table = load_table(path_or_frame, sheet)
+    apply_columns(table, columns, SAMPLE_COLUMNS, "samples")
     cols = table.frame.columns
     for name in ("subject", "tissue", "isotope"):
         if name not in cols:
-            raise _missing_column(table, name, "samples")
+            raise missing_column(table, name, "samples")
     if "value" not in cols:
-        raise _missing_column(table, "value", "samples")
+        raise missing_column(table, "value", "samples")
     if "time" not in cols and "date" not in cols:
-        raise _missing_column(table, "time", "samples",
-                              extra=" (or 'date' with switch_date=/switch_dates=)")
+        raise missing_column(table, "time", "samples",
+                             extra=" (or 'date' with switch_date=/switch_dates=)")
 
-    issues = _Issues(table)
+    issues = Issues(table)
     data: dict[str, object] = {}
-    data["subject"] = _strings(table, issues, "subject", required=True)
-    data["tissue"] = _strings(table, issues, "tissue", required=True)
+    data["subject"] = text_column(table, issues, "subject", required=True)
+    data["tissue"] = text_column(table, issues, "tissue", required=True)
     codes = _isotopes(table, issues)
     data["isotope"] = codes
     if "group" in cols:
-        data["group"] = _strings(table, issues, "group", required=False)
+        data["group"] = text_column(table, issues, "group", required=False)
     keys = {k: data[k] for k in ("group", "subject") if k in data}
-    times, dates, meta = _time_column(table, issues, what="samples", time_col="time",
-                                      switch_date=switch_date, switch_dates=switch_dates,
-                                      unit=tu, keys=keys)
+    times, dates, meta = time_column(table, issues, what="samples", time_col="time",
+                                     switch_date=switch_date, switch_dates=switch_dates,
+                                     unit=tu, keys=keys)
     data["time"] = times
     if dates is not None:
         data["date"] = dates.to_numpy()
-    values = _numbers(table, issues, "value", required=True)
-    sd = _numbers(table, issues, "sd", required=False, positive=True) if "sd" in cols else None
+    values = number_column(table, issues, "value", required=True)
+    sd = number_column(table, issues, "sd", required=False, positive=True) if "sd" in cols else None
     for name in ("segment_start", "segment_end"):
         if name in cols:
-            data[name] = _numbers(table, issues, name, required=False)
+            data[name] = number_column(table, issues, name, required=False)
     if "segment_start" in data and "segment_end" in data:
         a, b = data["segment_start"], data["segment_end"]
         rev = np.isfinite(a) & np.isfinite(b) & (b <= a)
@@ -1127,18 +470,11 @@ def read_samples(path_or_frame, *, columns=None, time_unit="d", switch_date=None
     return _finish(frame, table, keep, attrs)
 
 
-def _take(col, keep: np.ndarray):
-    """The kept rows of a column (a Series keeps its dtype, with a fresh RangeIndex)."""
-    if isinstance(col, pd.Series):
-        return col.iloc[np.flatnonzero(keep)].reset_index(drop=True)
-    return np.asarray(col)[keep]
-
-
 def _replicate_ids(col: pd.Series, clean: bool = False) -> np.ndarray:
     """Replicate ids: numbers when every given id is a number, else text (missing if blank)."""
     if pd.api.types.is_numeric_dtype(col.dtype):
         return col.to_numpy()
-    text, blank = _text(col, clean)
+    text, blank = cell_text(col, clean)
     num = pd.to_numeric(text.where(~blank), errors="coerce")
     if (num.notna().to_numpy() | blank).all() and not blank.all():
         return num.to_numpy(dtype=float, na_value=np.nan)
@@ -1181,30 +517,30 @@ def read_diets(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
         isotope repeat or are not in increasing order. Rows must be sorted by start within
         each group and isotope: the message names both rows.
     """
-    _check_choice(on_bad_rows, "on_bad_rows", _ON_BAD_ROWS)
+    check_choice("on_bad_rows", on_bad_rows, _ON_BAD_ROWS)
     tu = _time_unit(time_unit)
-    table = _load(path_or_frame, sheet)
-    _apply_columns(table, columns, DIET_COLUMNS, "diets")
+    table = load_table(path_or_frame, sheet)
+    apply_columns(table, columns, DIET_COLUMNS, "diets")
     cols = table.frame.columns
     by = [c for c in ("group", "subject") if c in cols]
     if not by:
-        raise _missing_column(table, "group", "diets", extra=" (or 'subject')")
+        raise missing_column(table, "group", "diets", extra=" (or 'subject')")
     if "isotope" not in cols:
-        raise _missing_column(table, "isotope", "diets")
+        raise missing_column(table, "isotope", "diets")
     if "value" not in cols:
-        raise _missing_column(table, "value", "diets")
-    issues = _Issues(table)
-    data: dict[str, object] = {c: _strings(table, issues, c, required=True) for c in by}
+        raise missing_column(table, "value", "diets")
+    issues = Issues(table)
+    data: dict[str, object] = {c: text_column(table, issues, c, required=True) for c in by}
     codes = _isotopes(table, issues)
     data["isotope"] = codes
-    starts, dates, meta = _time_column(table, issues, what="diets", time_col="start",
-                                       date_col="start", switch_date=switch_date,
-                                       switch_dates=switch_dates, unit=tu,
-                                       keys={c: data[c] for c in by})
+    starts, dates, meta = time_column(table, issues, what="diets", time_col="start",
+                                      date_col="start", switch_date=switch_date,
+                                      switch_dates=switch_dates, unit=tu,
+                                      keys={c: data[c] for c in by})
     data["start"] = starts
     if dates is not None:
         data["start_date"] = dates.to_numpy()
-    data["value"] = _numbers(table, issues, "value", required=False)
+    data["value"] = number_column(table, issues, "value", required=False)
     keep = issues.resolve(on_bad_rows)
     out = {k: _take(v, keep) for k, v in data.items()}
     for c, col in _extras(table, DIET_COLUMNS).items():
@@ -1219,7 +555,7 @@ def read_diets(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
     return _finish(frame, table, keep, attrs)
 
 
-def _check_diet_order(frame: pd.DataFrame, table: _Table, by: list[str]) -> None:
+def _check_diet_order(frame: pd.DataFrame, table: Table, by: list[str]) -> None:
     """Start times must increase strictly within each group/subject and isotope."""
     keys = by + ["isotope"]
     gid = frame.groupby(keys, sort=False, dropna=False).ngroup().to_numpy()
@@ -1285,27 +621,27 @@ def read_masses(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
     DataError
         As :func:`read_samples`; a mass that is not > 0 is a bad cell.
     """
-    _check_choice(on_bad_rows, "on_bad_rows", _ON_BAD_ROWS)
+    check_choice("on_bad_rows", on_bad_rows, _ON_BAD_ROWS)
     tu = _time_unit(time_unit)
-    table = _load(path_or_frame, sheet)
-    _apply_columns(table, columns, MASS_COLUMNS, "masses")
+    table = load_table(path_or_frame, sheet)
+    apply_columns(table, columns, MASS_COLUMNS, "masses")
     cols = table.frame.columns
     if "subject" not in cols:
-        raise _missing_column(table, "subject", "masses")
+        raise missing_column(table, "subject", "masses")
     if "mass" not in cols:
-        raise _missing_column(table, "mass", "masses")
-    issues = _Issues(table)
-    data: dict[str, object] = {"subject": _strings(table, issues, "subject", required=True)}
+        raise missing_column(table, "mass", "masses")
+    issues = Issues(table)
+    data: dict[str, object] = {"subject": text_column(table, issues, "subject", required=True)}
     if "group" in cols:
-        data["group"] = _strings(table, issues, "group", required=False)
+        data["group"] = text_column(table, issues, "group", required=False)
     keys = {k: data[k] for k in ("group", "subject") if k in data}
-    times, dates, meta = _time_column(table, issues, what="masses", time_col="time",
-                                      switch_date=switch_date, switch_dates=switch_dates,
-                                      unit=tu, keys=keys)
+    times, dates, meta = time_column(table, issues, what="masses", time_col="time",
+                                     switch_date=switch_date, switch_dates=switch_dates,
+                                     unit=tu, keys=keys)
     data["time"] = times
     if dates is not None:
         data["date"] = dates.to_numpy()
-    data["mass"] = _numbers(table, issues, "mass", required=True, positive=True)
+    data["mass"] = number_column(table, issues, "mass", required=True, positive=True)
     keep = issues.resolve(on_bad_rows)
     out = {k: _take(v, keep) for k, v in data.items()}
     for c, col in _extras(table, MASS_COLUMNS).items():
@@ -1370,8 +706,18 @@ def average_replicates(samples: pd.DataFrame) -> pd.DataFrame:
     Returns
     -------
     pandas.DataFrame
-        A new frame sorted by subject, tissue, isotope and time, with a RangeIndex and the
-        input's attrs (plus ``attrs["replicates_averaged"] = True``).
+        A new frame sorted by subject, tissue, isotope and time (and segment), with a
+        RangeIndex and the input's attrs (plus ``attrs["replicates_averaged"] = True``).
+        Columns, in the input's order: ``subject``, ``tissue``, ``isotope``, ``time`` (in
+        ``attrs["time_unit"]``), ``segment_start``/``segment_end`` (when given), ``value``
+        (mean δ, ‰), ``sd`` (‰, when the input has one), the constant other columns, then
+        ``n_replicates`` (int) and ``sd_replicates`` (‰, NaN for a single row).
+
+    Raises
+    ------
+    DataError
+        When ``samples`` is not a frame, lacks ``subject``, ``tissue``, ``isotope``,
+        ``time`` or ``value``, has a value that is not finite, or has no rows.
 
     Examples
     --------
@@ -1518,7 +864,7 @@ def series(samples: pd.DataFrame, subject=None, tissue=None, isotope=None, avera
         elif have.any():
             raise DataError(
                 f"series(): {given}: {int((~have).sum())} of {s.size} points have no sd "
-                f"(at times {t[~have][:_MAX_LISTED].tolist()}); give an sd for every point "
+                f"(at times {t[~have][:MAX_LISTED].tolist()}); give an sd for every point "
                 "or drop the 'sd' column"
             )
     return t, y, sd

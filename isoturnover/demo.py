@@ -66,7 +66,13 @@ DEMO_TABLES = {
 
 
 def demo_names() -> list[str]:
-    """Names of the demo tables, in a fixed order (see :data:`DEMO_TABLES`)."""
+    """List the names of the demo tables.
+
+    Returns
+    -------
+    list of str
+        The names, in the fixed order of :data:`DEMO_TABLES`.
+    """
     return list(DEMO_TABLES)
 
 
@@ -103,6 +109,7 @@ def demo_path(name) -> Path:
     Returns
     -------
     pathlib.Path
+        The CSV file inside the installed package (read it, do not edit it).
 
     Raises
     ------

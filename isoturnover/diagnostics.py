@@ -32,19 +32,61 @@ LN2 = math.log(2.0)
 
 @dataclass(frozen=True)
 class TrustNote:
-    """A reason to be careful with a fit: a warning category, a short code, a message."""
+    """A reason to be careful with a fit: a short code, a warning category, a message.
+
+    Parameters
+    ----------
+    code : str
+        Short name of the signal (``"at_bound"``, ``"pools_close"``, ``"tiny_pool"``,
+        ``"correlation"``, ``"few_points"``, ``"plateau_not_reached"``, ``"not_converged"``,
+        ``"singular"``, ``"growth_dominates"``, ``"mass_coverage"``, ``"chi2_high"``).
+    category : type
+        The warning class it is issued as (a subclass of
+        :class:`~isoturnover.errors.IsoturnoverWarning`).
+    message : str
+        What the user reads, with the numbers that triggered it.
+    """
 
     code: str
     category: type
     message: str
 
     def to_dict(self):
+        """Describe the note as JSON-safe data.
+
+        Returns
+        -------
+        dict
+            Keys ``code``, ``category`` (the warning class's name) and ``message``.
+        """
         return {"code": self.code, "category": self.category.__name__, "message": self.message}
 
 
 def trust_notes(fit) -> list:
-    """Trust signals of a fit (DESIGN §3), each a :class:`TrustNote`; the fit's warnings and the
-    numbered notes of its summary. Reads only the fit's public attributes and its state."""
+    """List the trust signals of a fit (DESIGN §3 "Trust signals").
+
+    The fit's warnings and the numbered notes of its summary. Reads only the fit's public
+    attributes and its state. The thresholds are rules of thumb (the design card's list,
+    not published cut-offs): a rate with :math:`k t_{first} > 20` (complete before the
+    first sample) or :math:`k \\cdot span < 0.01` (barely moving), rates within a factor
+    1.5, a fraction below 0.02, |correlation| above 0.99, fewer than ``nvarys + 2`` samples
+    after the switch, a last sample before two half-lives of the slowest pool, a growth
+    share above 0.9 (the share of the isotopic change up to the last sample carried by the
+    growth flux, :func:`isoturnover.quantities.growth_share_at`; :math:`k_g/(k_g + k_d)`
+    for one pool with exponential growth; common practice), masses covering less than the
+    samples' span minus 10 % at either end, and χ²/dof above 4 with σ known.
+
+    Parameters
+    ----------
+    fit : TurnoverFit
+        A finished fit (:meth:`TurnoverModel.fit <isoturnover.TurnoverModel.fit>`).
+
+    Returns
+    -------
+    list of TrustNote
+        The signals that fire, in a fixed order (convergence and covariance first); empty
+        for a clean fit.
+    """
     kin = fit.kinetics
     notes = []
     v = fit.values
@@ -165,21 +207,21 @@ def trust_notes(fit) -> list:
                 f"({2 * LN2 / slow:.4g} {unit_word(fit.time_unit)}): the new plateau is "
                 "extrapolated and the slow half-life is poorly bounded"))
     if kin.growth_kind is not None and span > 0:
+        t_end = float(fit.t.max())
         try:
-            share_end = quantities.growth_share_at(fit.kinetics, float(fit.t.max()),
-                                                   fit.state.theta)
+            share_end = quantities.growth_share_at(kin, t_end, fit.state.theta)
         except (ValueError, ZeroDivisionError, OverflowError):
             share_end = math.nan
-        pool_shares = []
-        if kin.growth_kind == "exponential":
-            kg = v["k_growth"]
-            pool_shares = [kg / (kg + v[nm]) for nm in kin.rate_names if kg + v[nm] > 0]
-        if (pool_shares and max(pool_shares) > 0.9) or (
-                not pool_shares and np.isfinite(share_end) and share_end > 0.95):
+        # the growth flux's share of the isotopic change (Hesslein et al. 1993 for one
+        # pool: k_g/(k_g + k_d)); above 0.9 the catabolic part is a small difference of
+        # two large ones (threshold: common practice, no published cut-off)
+        if np.isfinite(share_end) and share_end > 0.9:
             notes.append(TrustNote(
                 "growth_dominates", IdentifiabilityWarning,
-                "growth explains nearly all of the change: the catabolic rate is poorly "
-                "identified (its interval may be open towards 0)"))
+                f"growth explains nearly all of the change: the growth flux carries "
+                f"{100 * share_end:.3g} % of the isotopic change up to t = {t_end:g} (above 90 %); "
+                "the catabolic rate is poorly identified (its interval may be open "
+                "towards 0)"))
         mb = fit.state.engine.mass_block
         cov = mb.coverage if mb is not None else None
         if cov is None and hasattr(kin.growth, "t"):
@@ -202,9 +244,24 @@ def trust_notes(fit) -> list:
             "intervals are too narrow — refit with absolute_sigma=False"))
     return notes
 
+
 def slowest_rate(fit) -> float:
-    """The rate that sets how long the tissue takes to settle (incorporation rates with
-    exponential growth; the chain: the harmonic sum of its two steps)."""
+    """Give the rate that sets how long the tissue takes to settle after a switch.
+
+    The smallest pool rate (incorporation rates :math:`k_i + k_g` with exponential growth);
+    for the chain :math:`1/(1/k_1 + 1/k_2)`, since it needs about as long as its two
+    half-lives together.
+
+    Parameters
+    ----------
+    fit : TurnoverFit
+        A finished fit.
+
+    Returns
+    -------
+    float
+        The rate, per time unit of the fit (/d for days).
+    """
     v = fit.values
     kin = fit.kinetics
     ks = [v[nm] for nm in kin.rate_names]

@@ -21,6 +21,14 @@ from .errors import DataError
 __all__ = ["DietHistory"]
 
 
+def _try_float(v):
+    """``float(v)``, or None when ``v`` is not a number."""
+    try:
+        return float(v)
+    except (TypeError, ValueError):
+        return None
+
+
 def _as_value(v, what: str) -> float:
     """A diet value: a finite float, or NaN for unknown."""
     if v is None:
@@ -52,6 +60,13 @@ class DietHistory:
         Isotope code the values refer to (``"d13C"``, ...), for labels and checks.
     label : str, optional
         Free text (a group name, say) used in summaries.
+
+    Raises
+    ------
+    DataError
+        When a value is not a number or None, a change is not a pair, or the switch times
+        are not finite and strictly increasing; the message names ``initial`` or
+        ``changes[i]``.
 
     Examples
     --------
@@ -101,23 +116,80 @@ class DietHistory:
     # -- constructors -------------------------------------------------------------------
     @classmethod
     def step(cls, before, after, at: float = 0.0, **kwargs) -> DietHistory:
-        """One switch from diet ``before`` to diet ``after`` at time ``at``."""
+        """Make a history with one switch from diet ``before`` to diet ``after`` at ``at``.
+
+        Parameters
+        ----------
+        before : float or None
+            δ (‰) of the diet eaten before the switch; ``None`` for unknown.
+        after : float or None
+            δ (‰) of the diet eaten from ``at`` on; ``None`` for unknown.
+        at : float, default=0.0
+            Time of the switch, in the samples' time unit (days by default).
+        **kwargs
+            ``isotope=`` and ``label=``, as for :class:`DietHistory`.
+
+        Returns
+        -------
+        DietHistory
+            The history ``DietHistory(before, changes=[(at, after)], **kwargs)``.
+
+        Examples
+        --------
+        >>> DietHistory.step(-26.0, -12.0, at=0.0)
+        DietHistory(initial=-26, t=0: -12)
+        """
         return cls(before, changes=[(at, after)], **kwargs)
 
     @classmethod
     def from_table(cls, frame, *, time_column: str = "start", value_column: str = "value",
                    isotope: str | None = None, label: str | None = None) -> DietHistory:
-        """Build a history from rows of ``start, value`` (one group and isotope).
+        """Build a history from the rows of a diets table (one group and one isotope).
 
         The earliest row is the initial diet (its start time only orders it); every later row
         is a change. A blank value means the diet's value is unknown and its plateau is fitted.
+
+        Parameters
+        ----------
+        frame : pandas.DataFrame
+            Rows of one group and isotope, sorted by start time, with the columns
+            ``time_column`` and ``value_column`` (and optionally ``isotope``). Not modified.
+        time_column : str, default="start"
+            Column of the times each diet begins (samples' time unit, days by default).
+        value_column : str, default="value"
+            Column of the diets' δ (‰); blank (NaN) for unknown.
+        isotope : str, optional
+            Isotope code; default: the first value of an ``isotope`` column, if any.
+        label : str, optional
+            Free text used in summaries.
+
+        Returns
+        -------
+        DietHistory
+            The history of the table's diets.
+
+        Raises
+        ------
+        DataError
+            When ``frame`` is not a table, a column is missing, the table is empty, a start
+            time is not a number, or start times repeat or are not sorted.
         """
+        if not hasattr(frame, "columns"):
+            raise DataError(f"'frame' must be a pandas DataFrame of diet rows; got "
+                            f"{type(frame).__name__}")
         if time_column not in frame.columns or value_column not in frame.columns:
             raise DataError(
                 f"diet table needs columns {time_column!r} and {value_column!r}; "
                 f"got {list(frame.columns)}"
             )
-        starts = np.asarray(frame[time_column], dtype=float)
+        try:
+            starts = np.asarray(frame[time_column], dtype=float)
+        except (TypeError, ValueError):
+            bad = [(i, v) for i, v in zip(frame.index, frame[time_column])
+                   if _try_float(v) is None]
+            where = f"; row {bad[0][0]!r} holds {bad[0][1]!r}" if bad else ""
+            raise DataError(f"diet table: column {time_column!r} must hold numbers"
+                            f"{where}") from None
         if starts.size == 0:
             raise DataError("diet table is empty: at least the initial diet is needed")
         vals = list(frame[value_column])
@@ -170,27 +242,82 @@ class DietHistory:
         ]
 
     def period_index(self, t) -> np.ndarray:
-        """Index of the diet period in force at each time (0 = initial diet).
+        """Index of the diet period in force at each time.
 
         A new diet is in force from its start time on (``t >= start``).
+
+        Parameters
+        ----------
+        t : float or array-like
+            Times, in the samples' time unit.
+
+        Returns
+        -------
+        ndarray of int
+            0 for the initial diet, ``j`` for the diet of the ``j``-th change; shaped like
+            ``t``.
         """
         return np.searchsorted(self._times, np.asarray(t, dtype=float), side="right")
 
     def value_at(self, t) -> np.ndarray:
-        """Diet value in force at each time ``t`` (vectorised; NaN where unknown)."""
+        """Diet value in force at each time.
+
+        Parameters
+        ----------
+        t : float or array-like
+            Times, in the samples' time unit.
+
+        Returns
+        -------
+        ndarray
+            δ (‰) of the diet in force at each time (NaN where unknown), shaped like ``t``.
+        """
         return self._values[self.period_index(t)]
 
     # -- serialisation ----------------------------------------------------------------------
     def to_dict(self) -> dict:
-        """A JSON-safe description (unknown values as ``None``)."""
+        """Describe the history as JSON-safe data; :meth:`from_dict` rebuilds it.
+
+        Returns
+        -------
+        dict
+            Keys ``initial``, ``changes`` (list of ``[time, value]``), ``isotope``,
+            ``label``; unknown values as ``None``.
+        """
         init = None if not np.isfinite(self._values[0]) else float(self._values[0])
         return {"initial": init, "changes": [list(c) for c in self.changes],
                 "isotope": self.isotope, "label": self.label}
 
     @classmethod
     def from_dict(cls, d: dict) -> DietHistory:
-        return cls(d["initial"], changes=[tuple(c) for c in d["changes"]],
-                   isotope=d.get("isotope"), label=d.get("label"))
+        """Rebuild a history from :meth:`to_dict`.
+
+        Parameters
+        ----------
+        d : dict
+            A dict with keys ``initial`` and ``changes`` (and optionally ``isotope``,
+            ``label``), as made by :meth:`to_dict`. Not modified.
+
+        Returns
+        -------
+        DietHistory
+            The history described by ``d``.
+
+        Raises
+        ------
+        DataError
+            When ``d`` is not such a dict, or its values are refused as by the constructor.
+        """
+        if not isinstance(d, dict) or "initial" not in d or "changes" not in d:
+            raise DataError("'d' must be a dict made by DietHistory.to_dict() (keys 'initial' "
+                            f"and 'changes'); got {d!r:.80}")
+        try:
+            changes = [tuple(c) for c in d["changes"]]
+        except TypeError:
+            raise DataError(f"'d': 'changes' must be a list of [time, value] pairs; got "
+                            f"{d['changes']!r:.80}") from None
+        return cls(d["initial"], changes=changes, isotope=d.get("isotope"),
+                   label=d.get("label"))
 
     def __eq__(self, other) -> bool:
         if not isinstance(other, DietHistory):

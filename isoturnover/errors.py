@@ -6,6 +6,13 @@ escalate the whole family at once::
 
     import warnings, isoturnover as iso
     warnings.simplefilter("error", iso.IsoturnoverWarning)
+
+The convention: bad data or a bad argument raises :class:`DataError` (a ``ValueError``)
+whose message names the argument (and the file, row and column for a table), what is
+allowed and what was given; :class:`UnknownIsotopeError` and :class:`ScaleError` are
+kinds of it. A fit that cannot be carried out at all raises :class:`FitError`. The
+library raises no plain ``ValueError`` or ``TypeError`` of its own: a wrong-typed argument
+is a :class:`DataError` that says what type is expected.
 """
 
 from __future__ import annotations
@@ -31,19 +38,27 @@ class IsoturnoverError(Exception):
 
 
 class DataError(IsoturnoverError, ValueError):
-    """Input data that cannot be used: names the file, row, column and value where it can."""
+    """Input data or an argument that cannot be used.
+
+    The message names the argument (and the file, row and column of a table), the allowed
+    values and what was given. A ``ValueError``, so ``except ValueError`` also catches it.
+    """
 
 
 class FitError(IsoturnoverError, RuntimeError):
     """A fit that could not be carried out at all (not merely an untrustworthy one)."""
 
 
-class UnknownIsotopeError(IsoturnoverError, ValueError):
-    """An isotope code that the library does not know."""
+class UnknownIsotopeError(DataError):
+    """An isotope code that the library does not know (a :class:`DataError`)."""
 
 
-class ScaleError(IsoturnoverError, ValueError):
-    """A conversion that cannot be done exactly on the requested scale."""
+class ScaleError(DataError):
+    """A conversion that cannot be done exactly on the requested scale (a :class:`DataError`).
+
+    For instance atom fractions of oxygen or sulfur with ``law="refuse"``, or a δ34S beyond
+    the turning point of the mass-dependent law.
+    """
 
 
 class IsoturnoverWarning(UserWarning):

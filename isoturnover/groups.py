@@ -10,7 +10,9 @@ What counts as "cannot be fitted" is the library's own errors (:class:`~isoturno
 ``numpy.linalg.LinAlgError``); any other exception is a programming error and propagates.
 
 Series are independent: ``n_jobs`` fits them in parallel worker processes (joblib, loky
-backend) with results identical to a serial run, in the same order.
+backend) with results identical to a serial run, in the same order. Warnings issued while
+a worker fits a series (a growth curve's trust notes, say) are issued again in the calling
+process, under its warning filters, in series order.
 """
 
 from __future__ import annotations
@@ -23,10 +25,10 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .conventions import check_choice, check_n_jobs
+from .conventions import check_choice, check_level, check_method, check_n_jobs
 from .diet import DietHistory
 from .engine import Coordinates, check_names
-from .errors import DataError, IsoturnoverError, IsoturnoverWarning
+from .errors import DataError, DataWarning, IsoturnoverError, IsoturnoverWarning
 from .kinetics import MAX_POOLS
 from .model import LOSSES, TurnoverModel
 from .selection import CRITERIA, compare
@@ -47,11 +49,27 @@ SERIES_ERRORS = (IsoturnoverError, FloatingPointError, np.linalg.LinAlgError)
 
 
 def parallel_workers(n_jobs, name: str = "n_jobs") -> int:
-    """The number of workers for ``n_jobs`` (joblib's convention: -1 is all cores).
+    """The number of parallel workers to use for ``n_jobs`` (joblib's convention).
 
-    Refuses anything but a positive integer or -1 (:class:`~isoturnover.DataError`). When
-    joblib is not installed and more than one worker is asked for, warns once
+    When joblib is not installed and more than one worker is asked for, warns once
     (:class:`~isoturnover.IsoturnoverWarning`) and returns 1: the work runs serially.
+
+    Parameters
+    ----------
+    n_jobs : int
+        A positive number of workers, or -1 for all cores.
+    name : str, default="n_jobs"
+        Name of the argument in messages (``"--jobs"`` on the command line).
+
+    Returns
+    -------
+    int
+        ``n_jobs`` itself (-1 stays -1: joblib counts the cores), or 1 without joblib.
+
+    Raises
+    ------
+    DataError
+        When ``n_jobs`` is not a positive integer or -1 (a bool, 0, -2, 1.5, "2" ...).
     """
     n = check_n_jobs(n_jobs, name)
     if n != 1 and _joblib is None:
@@ -66,20 +84,26 @@ def parallel_workers(n_jobs, name: str = "n_jobs") -> int:
 class SeriesResult:
     """The candidate fits of one series and the one chosen.
 
-    Attributes
+    Parameters
     ----------
     key : tuple
         Values of the ``by`` columns.
     fits : dict label -> TurnoverFit or None
+        Every candidate model by its label (``"1 pool"``, ``"2 pools"``, ``"chain"``);
+        None for a candidate that could not be fitted.
     reasons : dict label -> str
         Why a candidate has no fit ("" when it has one).
     status : str
-        ``"ok"`` when at least one candidate fitted, else the reason's code.
+        ``"ok"`` when at least one candidate fitted, else the reason's code (one of
+        :data:`STATUS`).
     reason : str
+        Why the series was not fitted ("" when it was).
     chosen : str or None
         Label of the chosen candidate.
     comparison : DataFrame or None
         :func:`~isoturnover.compare` of the fitted candidates.
+    nobs : int
+        Number of time points of the series after averaging analytic replicates.
     """
 
     key: tuple
@@ -93,7 +117,13 @@ class SeriesResult:
 
     @property
     def best(self):
-        """The chosen fit (None when nothing could be fitted)."""
+        """The chosen fit.
+
+        Returns
+        -------
+        TurnoverFit or None
+            The fit of the :attr:`chosen` candidate; None when nothing could be fitted.
+        """
         return None if self.chosen is None else self.fits[self.chosen]
 
 
@@ -101,7 +131,23 @@ class FitSet(Mapping):
     """Fits of many series: a mapping from key to :class:`SeriesResult`.
 
     ``fitset[key].best`` is the chosen fit of a series; :meth:`table` gives one tidy row per
-    series and candidate.
+    series and candidate. Made by :func:`fit_each`; a one-column key may be given bare
+    (``fitset["goat1"]`` for ``by=("subject",)``).
+
+    Parameters
+    ----------
+    by : sequence of str
+        Names of the key columns, in key order.
+    results : dict tuple -> SeriesResult
+        The series, in the order the tables list them.
+    criterion : {"aicc", "aic", "bic"}, default="aicc"
+        Information criterion the candidates were chosen by.
+    level : float, default=0.95
+        Default confidence level of :meth:`table` and :meth:`half_lives`.
+    method : str, default="profile"
+        Default interval method of :meth:`table` and :meth:`half_lives`.
+    time_unit : str, default="d"
+        Time unit of the samples table.
     """
 
     def __init__(self, by, results: dict, *, criterion="aicc", level=0.95, method="profile",
@@ -131,31 +177,62 @@ class FitSet(Mapping):
 
     @property
     def chosen(self) -> dict:
-        """Key → chosen TurnoverFit, for the series that were fitted."""
+        """The chosen fits of the series that were fitted.
+
+        Returns
+        -------
+        dict tuple -> TurnoverFit
+        """
         return {k: r.best for k, r in self._results.items() if r.best is not None}
 
     @property
     def failures(self) -> dict:
-        """Key → reason, for the series that could not be fitted."""
+        """Why each series that could not be fitted was not.
+
+        Returns
+        -------
+        dict tuple -> str
+            Key → reason, for the series whose status is not ``"ok"``.
+        """
         return {k: r.reason for k, r in self._results.items() if r.status != "ok"}
 
     def table(self, level=None, method=None) -> pd.DataFrame:
-        """One tidy row per series and candidate.
+        """One tidy row per series and candidate, with estimates and intervals.
 
-        Columns: the ``by`` keys; candidate, structure, pools, status, reason, nobs,
-        n_params, rss, aicc, delta_aicc, weight, chosen, converged, n_warnings, warnings;
-        delta0/delta_eq (or the first plateau and separation) estimates; then per pool
-        ``fraction_i, half_life_i, lower_i, upper_i, lower_status_i, upper_status_i``;
-        ``time_to_95`` and ``rate_kind``.
+        The chosen candidate of each series gets intervals of ``method``, the others
+        asymptotic intervals (column ``interval_method``). Half-lives are
+        :math:`t_{1/2} = \\ln 2 / k_i` of each pool, in the time unit of the data.
+
+        Parameters
+        ----------
+        level : float, optional
+            Confidence level in (0, 1); default the FitSet's.
+        method : str, optional
+            Interval method of the chosen fits (see
+            :meth:`~isoturnover.TurnoverFit.conf_int`); default the FitSet's.
+
+        Returns
+        -------
+        DataFrame
+            Columns: the ``by`` keys; candidate, structure, pools, status, reason, nobs,
+            n_params, rss, aicc, delta_aicc, weight, chosen, converged, n_warnings,
+            warnings; the level parameters (delta0/delta_eq, or the plateaus and
+            separations; lag, k_growth) with ``_lower``, ``_upper`` and their statuses;
+            then per pool ``fraction_i, half_life_i, lower_i, upper_i, lower_status_i,
+            upper_status_i``; interval_method; ``time_to_95`` with its bounds;
+            ``interval_note`` ("" when every interval was computed, else which
+            computation failed and why: its bounds are NaN with status ``"failed"``);
+            rate_kind and time_unit. A candidate or series that was not fitted keeps its
+            row with its status and reason.
+
+        Raises
+        ------
+        DataError
+            For a bad ``level`` or ``method``.
         """
         level = self.level if level is None else level
         method = self.method if method is None else method
         rows = []
-        max_pools = 1
-        for r in self._results.values():
-            for f in r.fits.values():
-                if f is not None:
-                    max_pools = max(max_pools, len(f.kinetics.rate_names))
         for key, r in self._results.items():
             base = dict(zip(self.by, key))
             cmp = r.comparison
@@ -186,32 +263,7 @@ class FitSet(Mapping):
                 # profile intervals for the chosen model, asymptotic for the others (the
                 # column interval_method says which)
                 m_used = method if label == r.chosen else "asymptotic"
-                ci = f.conf_int(level, m_used, params=level_names).set_index("parameter")
-                for nm in level_names:
-                    row[nm] = vals[nm]
-                    row[f"{nm}_lower"] = ci.loc[nm, "lower"]
-                    row[f"{nm}_upper"] = ci.loc[nm, "upper"]
-                    row[f"{nm}_lower_status"] = ci.loc[nm, "lower_status"]
-                    row[f"{nm}_upper_status"] = ci.loc[nm, "upper_status"]
-                try:
-                    hl = f.half_lives(level, m_used)
-                except (IsoturnoverError, ValueError, RuntimeError) as e:  # pragma: no cover
-                    row["reason"] = f"intervals failed: {e}"
-                    hl = None
-                if hl is not None:
-                    for _, h in hl.iterrows():
-                        i = int(h["pool"])
-                        row[f"fraction_{i}"] = h["fraction"]
-                        row[f"half_life_{i}"] = h["half_life"]
-                        row[f"lower_{i}"] = h["lower"]
-                        row[f"upper_{i}"] = h["upper"]
-                        row[f"lower_status_{i}"] = h["lower_status"]
-                        row[f"upper_status_{i}"] = h["upper_status"]
-                    row["interval_method"] = hl["method"].iloc[0]
-                tt = f.time_to(0.95, level, m_used).iloc[0]
-                row["time_to_95"] = tt["estimate"]
-                row["time_to_95_lower"] = tt["lower"]
-                row["time_to_95_upper"] = tt["upper"]
+                row.update(_interval_columns(f, vals, level_names, level, m_used))
                 row["rate_kind"] = f.rate_kind
                 row["time_unit"] = f.time_unit
                 rows.append(row)
@@ -221,7 +273,23 @@ class FitSet(Mapping):
         return df
 
     def half_lives(self, level=None, method=None) -> pd.DataFrame:
-        """Half-lives of the chosen fit of every series (long table, keys as columns)."""
+        """Half-lives :math:`\\ln 2 / k_i` of the chosen fit of every series (long table).
+
+        Parameters
+        ----------
+        level : float, optional
+            Confidence level in (0, 1); default the FitSet's.
+        method : str, optional
+            Interval method (see :meth:`~isoturnover.TurnoverFit.half_lives`); default the
+            FitSet's.
+
+        Returns
+        -------
+        DataFrame
+            The ``by`` keys and ``model`` (the chosen candidate) first, then the columns
+            of :meth:`~isoturnover.TurnoverFit.half_lives` (half-lives in the data's time
+            unit). Empty when no series was fitted.
+        """
         level = self.level if level is None else level
         method = self.method if method is None else method
         parts = []
@@ -239,6 +307,62 @@ class FitSet(Mapping):
         df = pd.concat(parts, ignore_index=True)
         front = list(self.by) + ["model"]
         return df[front + [c for c in df.columns if c not in front]]
+
+
+def _interval_columns(f, vals, level_names, level, method) -> dict:
+    """The interval columns of one fitted candidate's row of :meth:`FitSet.table`.
+
+    An interval computation that raises one of :data:`SERIES_ERRORS` (a library error or a
+    numerical breakdown) leaves its bounds NaN with status ``"failed"`` and its reason in
+    the column ``interval_note``; the estimates stay. Any other exception propagates.
+    """
+    row, notes = {}, []
+    try:
+        ci = f.conf_int(level, method, params=level_names).set_index("parameter")
+    except SERIES_ERRORS as e:
+        notes.append(f"parameter intervals failed: {e}")
+        ci = None
+    for nm in level_names:
+        row[nm] = vals[nm]
+        for side in ("lower", "upper"):
+            row[f"{nm}_{side}"] = np.nan if ci is None else ci.loc[nm, side]
+            row[f"{nm}_{side}_status"] = "failed" if ci is None else ci.loc[nm, f"{side}_status"]
+    try:
+        hl = f.half_lives(level, method)
+    except SERIES_ERRORS as e:
+        notes.append(f"half-life intervals failed: {e}")
+        hl = None
+    if hl is not None:
+        for _, h in hl.iterrows():
+            i = int(h["pool"])
+            row[f"fraction_{i}"] = h["fraction"]
+            row[f"half_life_{i}"] = h["half_life"]
+            row[f"lower_{i}"] = h["lower"]
+            row[f"upper_{i}"] = h["upper"]
+            row[f"lower_status_{i}"] = h["lower_status"]
+            row[f"upper_status_{i}"] = h["upper_status"]
+        row["interval_method"] = hl["method"].iloc[0]
+    else:
+        # the estimates without intervals: t½ = ln 2 / k of each pool (or chain step)
+        kin = f.kinetics
+        for i, nm in enumerate(kin.rate_names, start=1):
+            k = float(vals[nm])
+            row[f"fraction_{i}"] = (vals.get(f"f{i}", np.nan) if kin.structure == "parallel"
+                                    else np.nan)
+            row[f"half_life_{i}"] = np.log(2.0) / k if k > 0 else np.inf
+            row[f"lower_{i}"] = row[f"upper_{i}"] = np.nan
+            row[f"lower_status_{i}"] = row[f"upper_status_{i}"] = "failed"
+        row["interval_method"] = method
+    try:
+        tt = f.time_to(0.95, level, method).iloc[0]
+    except SERIES_ERRORS as e:
+        notes.append(f"time to 95 % failed: {e}")
+        tt = {"estimate": np.nan, "lower": np.nan, "upper": np.nan}
+    row["time_to_95"] = tt["estimate"]
+    row["time_to_95_lower"] = tt["lower"]
+    row["time_to_95_upper"] = tt["upper"]
+    row["interval_note"] = "; ".join(notes)
+    return row
 
 
 def _candidates(pools, structures):
@@ -295,6 +419,8 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     pools : sequence of int, default=(1, 2)
         Numbers of parallel pools to try.
     structures : sequence of {"parallel", "chain"}, default=("parallel",)
+        Model structures to try: parallel pools (``pools``) and/or the two-step
+        precursor–product chain.
     diets : DataFrame, optional
         A diets table (:func:`~isoturnover.read_diets`), matched to each series by
         subject, else by group, and isotope. Without it each series is a step switch at
@@ -304,15 +430,32 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
         (``growth_curve``) is fitted per subject (across subjects for a destructive
         series) and the rates become catabolic rates.
     criterion : {"aicc", "aic", "bic"}, default="aicc"
-    level, method
-        Interval level and method used by :meth:`FitSet.table`.
-    lag, separation, initial, fixed, absolute_sigma, loss, per_diet_separation
-        Passed to every :class:`~isoturnover.TurnoverModel` and fit.
+        Information criterion that chooses one candidate per series
+        (:func:`~isoturnover.compare`).
+    level : float, default=0.95
+        Confidence level in (0, 1) of the intervals of :meth:`FitSet.table`.
+    method : {"profile", "asymptotic", "bootstrap", "mcmc"}, default="profile"
+        Interval method of the chosen fits in :meth:`FitSet.table`.
+    lag : bool, default=False
+        Fit a pure delay after each switch (:class:`~isoturnover.TurnoverModel`).
+    separation : {"difference", "epsilon"}, default="difference"
+        Form of the diet-tissue separation (:class:`~isoturnover.TurnoverModel`).
+    initial : {"equilibrium", "free"}, default="equilibrium"
+        Initial state of the tissue (:class:`~isoturnover.TurnoverModel`).
+    fixed : dict, optional
+        Parameters held at given values in every fit (``{"delta0": -25.0}``); a name a
+        candidate lacks makes that candidate a failed row.
+    absolute_sigma : bool, default=False
+        Treat the samples' ``sd`` as known (used only where every row has one).
+    loss : {"linear", "soft_l1", "huber"}, default="linear"
+        Loss of every fit (:meth:`~isoturnover.TurnoverModel.fit`).
     growth_curve : str, default="logistic"
         Curve fitted to the masses (see :func:`~isoturnover.fit_growth`).
     progress : bool, default=False
         Show a progress bar (tqdm when installed); with several workers it advances as the
         series come back, in order.
+    per_diet_separation : bool, default=False
+        One separation per diet value (only with ``diets``).
     n_jobs : int, default=1
         Series fitted in parallel worker processes (joblib, loky backend); ``-1`` uses all
         cores. The results, and their order, are those of ``n_jobs=1``. Each worker also
@@ -322,6 +465,14 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     Returns
     -------
     FitSet
+        One :class:`SeriesResult` per series, keyed by the values of ``by`` (sorted).
+
+    Raises
+    ------
+    DataError
+        For a bad table or option (``by``, ``pools``, ``structures``, ``criterion``,
+        ``loss``, ``level``, ``method``, ``fixed``, ``n_jobs``, model options), before any
+        series is fitted.
 
     Notes
     -----
@@ -334,12 +485,14 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
 
     check_choice("criterion", criterion, CRITERIA)
     check_choice("loss", loss, LOSSES)
+    level = check_level(level)
+    method = check_method(method)
     workers = parallel_workers(n_jobs)
     if fixed is not None and not isinstance(fixed, dict):
         raise DataError(f"'fixed' must be a dict of parameter name -> value, or None; got "
                         f"{type(fixed).__name__}")
     by = tuple([by] if isinstance(by, str) else by)
-    s = read_samples(samples, time_unit=_unit_of(samples))
+    s = _validated(read_samples, samples, "samples", time_unit=_unit_of(samples))
     for col in by:
         if col not in s.columns:
             raise DataError(f"'by' names column {col!r}, which the samples table lacks; "
@@ -356,11 +509,13 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     if diets is not None:
         from .data import read_diets
 
-        diets = read_diets(diets, time_unit=_unit_of(diets, s.attrs.get("time_unit", "d")))
+        diets = _validated(read_diets, diets, "diets",
+                           time_unit=_unit_of(diets, s.attrs.get("time_unit", "d")))
     if masses is not None:
         from .data import read_masses
 
-        masses = read_masses(masses, time_unit=_unit_of(masses, s.attrs.get("time_unit", "d")))
+        masses = _validated(read_masses, masses, "masses",
+                            time_unit=_unit_of(masses, s.attrs.get("time_unit", "d")))
     keys_df = s[list(by)].astype(str)
     groups = {}
     for key, idx in keys_df.groupby(list(by), sort=True).groups.items():
@@ -379,10 +534,16 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
         # every series is fitted by the same function on the same inputs as in the serial
         # branch; the generator hands the results back in submission order
         par = _joblib.Parallel(n_jobs=workers, backend="loky", return_as="generator")
-        jobs = par(_joblib.delayed(_fit_one)(sub, key, key_map, cands, options,
-                                             warm=(level, method))
+        jobs = par(_joblib.delayed(_fit_one_in_worker)(sub, key, key_map, cands, options,
+                                                       warm=(level, method))
                    for sub, key, key_map in tasks)
-        done = list(_progress(jobs, progress, "fitting series", total=len(tasks)))
+        done = []
+        for res, caught in _progress(jobs, progress, "fitting series", total=len(tasks)):
+            # a worker's warnings, issued here as a serial run issues them (under the
+            # caller's filters, in series order)
+            for message, category in caught:
+                warnings.warn(message, category, stacklevel=2)
+            done.append(res)
     results = {key: r for (_, key, _), r in zip(tasks, done)}
     return FitSet(by, results, criterion=criterion, level=level, method=method,
                   time_unit=time_unit)
@@ -392,13 +553,9 @@ def _check_candidates(cands, *, lag, separation, initial):
     """Refuse bad model options once, before any series is fitted (not as a failed row in
     every series)."""
     for _, structure, p in cands:
-        try:
-            _ = TurnoverModel(p, structure=structure, lag=lag, separation=separation,
-                              initial=initial).kinetics  # built here only to check options
-        except IsoturnoverError:
-            raise
-        except ValueError as e:  # the kinetics' own argument checks ('pools', 'separation')
-            raise DataError(str(e)) from None
+        # built here only for its argument checks (DataError: 'pools', 'separation', ...)
+        _ = TurnoverModel(p, structure=structure, lag=lag, separation=separation,
+                          initial=initial).kinetics
 
 
 def _fit_one(sub, key, key_map, cands, options, warm=None):
@@ -419,6 +576,27 @@ def _fit_one(sub, key, key_map, cands, options, warm=None):
         except SERIES_ERRORS:
             pass  # the main process meets the same error where the table is made
     return res
+
+
+def _fit_one_in_worker(sub, key, key_map, cands, options, warm=None):
+    """:func:`_fit_one` in a worker process, with the warnings it issued as (message,
+    category) pairs: a worker knows nothing of the caller's warning filters, so they are
+    issued again in the main process."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("default")
+        res = _fit_one(sub, key, key_map, cands, options, warm=warm)
+    return res, [(str(w.message), w.category) for w in caught]
+
+
+def _validated(reader, table, what, **kwargs):
+    """``reader(table, **kwargs)``. A frame this reader made already (``attrs["table"]``
+    is ``what``) is checked again without its data warnings (duplicate rows...): they were
+    given when it was read, and would only come again under the name ``<frame>``."""
+    if isinstance(table, pd.DataFrame) and table.attrs.get("table") == what:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", DataWarning)
+            return reader(table, **kwargs)
+    return reader(table, **kwargs)
 
 
 def _unit_of(table, default="d"):
@@ -555,14 +733,10 @@ def _has_change(fit):
 
 
 def _n_free(model, fixed):
+    # 'fixed' names or values that do not suit this candidate (k2 for one pool, say) raise
+    # a DataError: a reason for this candidate's row
     kin = model.kinetics
-    try:
-        names = check_names(fixed, kin, "fixed")
-    except ValueError as e:
-        # 'fixed' names or values that do not suit this candidate (k2 for one pool, say):
-        # a reason for this candidate's row, reported as the data error it is
-        raise DataError(str(e)) from None
-    return Coordinates(kin, names).size
+    return Coordinates(kin, check_names(fixed, kin, "fixed")).size
 
 
 def _all_failed(res, cands, status, reason):
@@ -577,16 +751,25 @@ def _all_failed(res, cands, status, reason):
 def _growth_for(masses, avg, curve):
     """Growth curve for a series: the subject's masses, or all subjects' for a destructive
     series."""
-    from .growth import fit_growth
+    from .growthfit import fit_growth
 
     subj = avg["subject"].astype(str).unique()
     m = masses[masses["subject"].astype(str).isin(subj)]
     if len(m) == 0:
         return None, f"no masses for subject(s) {', '.join(subj[:5])}"
-    try:
-        g = fit_growth(m["time"].to_numpy(dtype=float), m["mass"].to_numpy(dtype=float),
-                       curve=curve)
-    except SERIES_ERRORS as e:
-        return None, f"growth curve '{curve}' could not be fitted: {e}"
-    return g, None
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            g = fit_growth(m["time"].to_numpy(dtype=float), m["mass"].to_numpy(dtype=float),
+                           curve=curve)
+        except SERIES_ERRORS as e:
+            g, error = None, f"growth curve '{curve}' could not be fitted: {e}"
+    # the curve's trust notes, naming whose curve it is (the series' tables do not show them)
+    who = f"subject {subj[0]}" if len(subj) == 1 else f"subjects {', '.join(subj[:5])}"
+    for w in caught:
+        text = str(w.message)
+        if issubclass(w.category, IsoturnoverWarning):
+            text = f"growth curve of {who}: {text}"
+        warnings.warn(text, w.category, stacklevel=2)
+    return (None, error) if g is None else (g, None)
 

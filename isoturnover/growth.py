@@ -1,10 +1,13 @@
-r"""Body-mass growth curves and their fits.
+r"""Body-mass growth curves: their mathematics, known curves and fit-result containers.
 
 Growth dilutes a tissue's old isotopic signal: new tissue laid down by growth carries the
 current diet's value. To separate growth from catabolic turnover the turnover model needs the
-body-mass curve :math:`W(t)` and its specific growth rate :math:`d\ln W/dt`. This module fits
-that curve to repeated masses of an animal (or to destructive-sampling masses of a group) and
-hands back a :class:`GrowthFit`, or builds a known curve without fitting (:class:`GrowthCurve`).
+body-mass curve :math:`W(t)` and its specific growth rate :math:`d\ln W/dt`. This module holds
+the curves' mathematics (each family's ln W, its Jacobian and its rate, used directly by the
+turnover model), :class:`GrowthCurve`, a curve with known parameter values, and the containers
+of fit results (:class:`GrowthSummary`, :class:`GrowthFitSet`). Fitting a curve to masses
+(:func:`~isoturnover.growthfit.fit_growth`, :class:`~isoturnover.growthfit.GrowthFit`,
+profile-likelihood intervals) lives in :mod:`isoturnover.growthfit`.
 
 Curves (parameter names as in ``.params``; time ``t`` in the masses' time unit, masses in the
 user's mass unit, rates ``k`` and ``b``/``W0`` in per time and mass per time):
@@ -18,12 +21,10 @@ user's mass unit, rates ``k`` and ``b``/``W0`` in per time and mass per time):
 ``"richards"``            :math:`W = W_\infty (1 + (d - 1) e^{-k (t - t_i)})^{1/(1-d)}`
 ========================  ==========================================================
 
-Error model. ``scale="log"`` (the default) fits :math:`\ln W`: multiplicative error, the
-usual choice for body masses, whose scatter grows with size (common practice).
-``scale="natural"`` fits :math:`W` itself (additive error). Least squares with the residual
-variance estimated; ``sigma`` (sd of each mass, in mass units) gives relative weights.
-The growth model assumes nothing about the sign of the rate: mass loss is allowed (the
-turnover model checks :math:`k_d + d\ln W/dt \ge 0` where it uses the curve).
+Error model of the fits (:func:`~isoturnover.growthfit.fit_growth`): ``scale="log"`` (the
+default) fits :math:`\ln W`, multiplicative error; ``scale="natural"`` fits :math:`W`
+(additive error). The curves assume nothing about the sign of the rate: mass loss is
+allowed (the turnover model checks :math:`k_d + d\ln W/dt \ge 0` where it uses the curve).
 
 Animal experiments need the approval of the local animal-care authority; this library
 supports the analysis of such experiments and does not replace that approval.
@@ -31,55 +32,28 @@ supports the analysis of such experiments and does not replace that approval.
 
 from __future__ import annotations
 
-import hashlib
 import html
 import math
-import warnings
 from collections.abc import Iterator, Mapping
 from dataclasses import dataclass
 
 import lmfit
 import numpy as np
 import pandas as pd
-from scipy import optimize, special, stats
+from scipy import special
 
-from .conventions import check_level
-from .errors import (
-    ConvergenceWarning,
-    DataError,
-    DataWarning,
-    DesignWarning,
-    FitError,
-    IdentifiabilityWarning,
-)
+from .conventions import check_named_values
+from .errors import DataError
 
 __all__ = [
     "CURVES",
-    "SCALES",
     "GrowthCurve",
-    "GrowthFit",
-    "GrowthFitSet",
     "GrowthFitFailure",
+    "GrowthFitSet",
     "GrowthSummary",
-    "fit_growth",
-    "fit_growth_each",
-    "load_growth",
+    "check_curve_values",
+    "curve_law",
 ]
-
-SCALES = ("log", "natural")
-
-# Optimizer settings (module attributes so a test can tighten them to force a failure).
-_TOL = 1e-15
-_MAX_NFEV = 2000
-_PROFILE_MAX_NFEV = 500
-_PROFILE_TOL = 1e-12  # inner fits of a profile: RSS to ~1e-12 relative is ample for ΔRSS/s²
-_N_RUNS = 4  # multi-start: optimise the best few automatic starts (by starting RSS)
-_HUGE = math.exp(690.0)  # a positive parameter near the float limit (exp(709.8))
-_STATIONARY = 1e-6  # residual–Jacobian cosine below which a point is stationary
-_CORR_LIMIT = 0.99  # |correlation| above this is flagged (common practice)
-_ASYMPTOTE_REACHED = 0.5  # data below half the fitted asymptote: Winf extrapolated (common
-# practice)
-
 
 # ---------------------------------------------------------------------------------------
 # numerical helpers
@@ -137,14 +111,17 @@ class _Curve:
         raise NotImplementedError
 
     def mass(self, t, v):
+        """W(t) = exp(ln W(t)) for the parameter vector ``v`` (order of ``params``)."""
         with np.errstate(over="ignore", invalid="ignore"):
             return np.exp(self.log_mass(t, v))
 
     def mass_jac(self, t, v):
+        """dW/dθ = W · d ln W/dθ, shape (n, p) (chain rule)."""
         with np.errstate(over="ignore", invalid="ignore"):
             return self.mass(t, v)[:, None] * self.log_jac(t, v)
 
     def valid_params(self, v):
+        """True when ``v`` is finite and every parameter in ``positive`` is > 0."""
         return all(v[self.params.index(p)] > 0 for p in self.positive) and np.all(
             np.isfinite(v)
         )
@@ -479,73 +456,69 @@ class _Richards(_Curve):
         return out
 
 
+
 _CURVE_OBJECTS: dict[str, _Curve] = {
     c.name: c
     for c in (_Exponential(), _Linear(), _Logistic(), _Gompertz(), _VonBertalanffy(), _Richards())
 }
+#: Names of the growth-curve families, in the order the documentation lists them.
 CURVES = tuple(_CURVE_OBJECTS)
 
 
-def _get_curve(curve) -> _Curve:
+def curve_law(curve):
+    """The mathematics of a named growth-curve family.
+
+    Parameters
+    ----------
+    curve : str
+        One of :data:`CURVES` (exact spelling, no prefix matching).
+
+    Returns
+    -------
+    object
+        The family's law: ``name``, ``params`` (parameter names), ``positive`` (names that
+        must be > 0), ``log_mass(t, v)``, ``log_jac(t, v)``, ``rate(t, v)``, ``mass(t, v)``,
+        ``mass_jac(t, v)``, ``starts(t, mass, given)`` and ``valid_params(v)``; the same
+        object as :attr:`GrowthCurve.law`.
+
+    Raises
+    ------
+    DataError
+        When ``curve`` is not one of :data:`CURVES`.
+    """
     if not isinstance(curve, str) or curve not in _CURVE_OBJECTS:
         allowed = ", ".join(repr(c) for c in CURVES)
         raise DataError(f"curve must be one of {allowed}; got {curve!r}")
     return _CURVE_OBJECTS[curve]
 
 
-def _check_scale(scale) -> str:
-    if not isinstance(scale, str) or scale not in SCALES:
-        raise DataError(f"scale must be one of 'log', 'natural'; got {scale!r}")
-    return scale
+def check_curve_values(law, values, what: str) -> dict[str, float]:
+    """Parameter values of one curve family, checked (``init=``, ``fixed=``, known curves).
 
+    Parameters
+    ----------
+    law : object
+        The family's law, from :func:`curve_law`.
+    values : Mapping of str to float or None
+        Parameter name → value (mass unit for masses, 1/time for ``k``, time for ``ti``).
+    what : str
+        The argument's name for the messages.
 
-def _param_dict(curve: _Curve, d, what: str) -> dict[str, float]:
-    """Validate a mapping of parameter values (init=, fixed=, from_params)."""
-    if d is None:
-        return {}
-    if not isinstance(d, Mapping):
-        raise DataError(f"{what} must be a mapping of parameter name to value; got {d!r}")
-    out = {}
-    for name, val in d.items():
-        if name not in curve.params:
-            raise DataError(
-                f"{what}: unknown parameter {name!r} for curve {curve.name!r}; "
-                f"allowed: {', '.join(curve.params)}"
-            )
-        try:
-            x = float(val)
-        except (TypeError, ValueError):
-            raise DataError(f"{what}[{name!r}] must be a number; got {val!r}") from None
-        if not math.isfinite(x):
-            raise DataError(f"{what}[{name!r}] must be finite; got {x!r}")
-        if name in curve.positive and x <= 0:
-            raise DataError(f"{what}[{name!r}] must be > 0 for curve {curve.name!r}; got {x!r}")
-        out[name] = x
-    return out
+    Returns
+    -------
+    dict of str to float
+        A new dict of the given values (``{}`` for ``None``).
 
-
-def _as_vector(x, name: str) -> np.ndarray:
-    try:
-        a = np.array(x, dtype=float)
-    except (TypeError, ValueError):
-        raise DataError(f"{name} must be an array of numbers; got {x!r:.80}") from None
-    if a.ndim != 1:
-        raise DataError(f"{name} must be one-dimensional; got shape {a.shape}")
-    bad = np.flatnonzero(~np.isfinite(a))
-    if bad.size:
-        shown = ", ".join(f"{i} ({float(a[i])!r})" for i in bad[:10])
-        more = f" and {bad.size - 10} more" if bad.size > 10 else ""
-        raise DataError(
-            f"{name} must be finite (no NaN or inf); non-finite at positions {shown}{more}"
-        )
-    return a
-
-
-def _fingerprint(t, y, w) -> str:
-    h = hashlib.sha1()
-    for a in (t, y, w):
-        h.update(np.ascontiguousarray(a, dtype=np.float64).tobytes())
-    return h.hexdigest()
+    Raises
+    ------
+    DataError
+        Unknown names, values that are not finite numbers, or a value ≤ 0 of a parameter
+        that must be positive (``W0``, ``Winf``; see each family's ``positive``).
+    """
+    rules = {p: ((lambda x: x > 0), f"must be > 0 for curve {law.name!r}")
+             for p in law.positive}
+    return check_named_values(what, values, law.params, owner=f"curve {law.name!r}",
+                              rules=rules)
 
 
 def _t_array(t) -> tuple[np.ndarray, bool]:
@@ -558,11 +531,6 @@ def _t_array(t) -> tuple[np.ndarray, bool]:
 
 def _out(a, scalar):
     return float(a[0]) if scalar else a
-
-
-def _json_float(x):
-    x = float(x)
-    return x if math.isfinite(x) else None
 
 
 # ---------------------------------------------------------------------------------------
@@ -579,6 +547,12 @@ class GrowthCurve:
         Every parameter of the curve, e.g. ``GrowthCurve("logistic", Winf=80, k=0.07,
         ti=39)``. Masses in the user's mass unit, times in the time unit.
 
+    Raises
+    ------
+    DataError
+        Unknown curve, unknown or missing parameters, or values that are not finite (or
+        not > 0 where the family needs it).
+
     Examples
     --------
     >>> g = GrowthCurve("exponential", W0=10.0, k=0.02)
@@ -587,8 +561,8 @@ class GrowthCurve:
     """
 
     def __init__(self, curve: str, **params):
-        c = _get_curve(curve)
-        vals = _param_dict(c, params, "params")
+        c = curve_law(curve)
+        vals = check_curve_values(c, params, "params")
         missing = [p for p in c.params if p not in vals]
         if missing:
             raise DataError(
@@ -627,6 +601,7 @@ class GrowthCurve:
 
     @property
     def label(self) -> str:
+        """Short description for tables and messages: family and how it was obtained."""
         return f"{self.curve} (known curve)"
 
     @property
@@ -639,38 +614,106 @@ class GrowthCurve:
 
     @classmethod
     def from_params(cls, curve: str, **params) -> GrowthCurve:
-        """Same as ``GrowthCurve(curve, **params)``."""
+        """Same as ``GrowthCurve(curve, **params)``.
+
+        Parameters
+        ----------
+        curve : str
+            One of :data:`CURVES`.
+        **params : float
+            Every parameter of the curve.
+
+        Returns
+        -------
+        GrowthCurve
+        """
         return GrowthCurve(curve, **params)
 
     # -- evaluation ----------------------------------------------------------------------
     def predict(self, t):
-        """Body mass W(t) (mass unit), for a scalar or array of times."""
+        """Body mass W(t) from the curve's formula.
+
+        Parameters
+        ----------
+        t : float or array-like of shape (n,)
+            Times (time unit of the masses).
+
+        Returns
+        -------
+        float or ndarray
+            W(t) in the mass unit (a float for a scalar ``t``).
+        """
         a, scalar = _t_array(t)
         return _out(self._curve.mass(a, self._values), scalar)
 
     def log_mass(self, t):
-        """ln W(t); NaN where the curve is not positive (linear, Richards with d < 1)."""
+        """ln W(t); NaN where the curve is not positive (linear, Richards with d < 1).
+
+        Parameters
+        ----------
+        t : float or array-like of shape (n,)
+            Times (time unit of the masses).
+
+        Returns
+        -------
+        float or ndarray
+            ln W(t), W in the mass unit.
+        """
         a, scalar = _t_array(t)
         return _out(np.asarray(self._curve.log_mass(a, self._values), dtype=float), scalar)
 
     def rate(self, t):
-        r"""Specific growth rate :math:`d\ln W/dt` (1/time), from the analytic derivative."""
+        r"""Specific growth rate :math:`d\ln W/dt`, from the analytic derivative.
+
+        Parameters
+        ----------
+        t : float or array-like of shape (n,)
+            Times (time unit of the masses).
+
+        Returns
+        -------
+        float or ndarray
+            :math:`d\ln W/dt` in 1/time (negative while mass is lost).
+        """
         a, scalar = _t_array(t)
         return _out(np.asarray(self._curve.rate(a, self._values), dtype=float), scalar)
 
     def log_mass_jacobian(self, t) -> np.ndarray:
-        r"""Analytic :math:`\partial \ln W(t)/\partial\theta`, shape (n_t, n_params).
+        r"""Analytic :math:`\partial \ln W(t)/\partial\theta`.
 
-        Columns follow :attr:`param_names` (fixed parameters included), for propagating
-        parameter uncertainty into quantities built on ln W.
+        Parameters
+        ----------
+        t : float or array-like of shape (n_t,)
+            Times (time unit of the masses).
+
+        Returns
+        -------
+        ndarray of shape (n_t, n_params)
+            Columns follow :attr:`param_names` (fixed parameters included), for propagating
+            parameter uncertainty into quantities built on ln W.
         """
         a, _ = _t_array(t)
         return np.asarray(self._curve.log_jac(a, self._values), dtype=float)
 
     def mean_rate(self, t_start, t_end) -> float:
-        r"""Mean specific growth rate between two times (1/time).
+        r"""Mean specific growth rate between two times.
 
         .. math:: \bar r = \frac{\ln W(t_{end}) - \ln W(t_{start})}{t_{end} - t_{start}}
+
+        Parameters
+        ----------
+        t_start, t_end : float
+            The two times (time unit of the masses), different and finite.
+
+        Returns
+        -------
+        float
+            :math:`\bar r` in 1/time.
+
+        Raises
+        ------
+        DataError
+            When the times are equal or not finite.
         """
         t0, t1 = float(t_start), float(t_end)
         if not (math.isfinite(t0) and math.isfinite(t1)) or t1 == t0:
@@ -683,7 +726,14 @@ class GrowthCurve:
 
     # -- persistence ---------------------------------------------------------------------
     def to_dict(self) -> dict:
-        """JSON-safe description; :func:`load_growth` rebuilds it."""
+        """JSON-safe description of the curve.
+
+        Returns
+        -------
+        dict
+            ``type``, ``version``, ``curve`` and ``params``;
+            :func:`~isoturnover.growthfit.load_growth` rebuilds the curve from it.
+        """
         return {
             "type": "GrowthCurve",
             "version": 1,
@@ -697,565 +747,66 @@ class GrowthCurve:
 
 
 # ---------------------------------------------------------------------------------------
-# the least-squares problem
-# ---------------------------------------------------------------------------------------
-class _Problem:
-    """Weighted least squares of one curve on one data set, on an internal vector.
-
-    Positive parameters are optimised as their logarithm (no hard bounds); the others as
-    they are. Residuals r = w (y − f(t; θ)) with y = ln W (log scale) or W (natural scale).
-    """
-
-    def __init__(self, curve: _Curve, t, y, w, scale):
-        self.curve, self.t, self.y, self.w, self.scale = curve, t, y, w, scale
-        self.is_log = np.array([p in curve.positive for p in curve.params])
-        self.big = 1e10 * (1.0 + float(np.max(np.abs(y))))
-
-    def model(self, v):
-        if self.scale == "log":
-            return np.asarray(self.curve.log_mass(self.t, v), dtype=float)
-        return np.asarray(self.curve.mass(self.t, v), dtype=float)
-
-    def model_jac(self, v):
-        if self.scale == "log":
-            return np.asarray(self.curve.log_jac(self.t, v), dtype=float)
-        return np.asarray(self.curve.mass_jac(self.t, v), dtype=float)
-
-    def residuals(self, v):
-        with np.errstate(all="ignore"):
-            return self.w * (self.y - self.model(v))
-
-    def rss(self, v) -> float:
-        with np.errstate(all="ignore"):
-            r = self.residuals(v)
-            out = float(r @ r) if np.all(np.isfinite(r)) else math.inf
-        return out if math.isfinite(out) else math.inf
-
-    def _full(self, x, free, base):
-        v = base.copy()
-        xi = np.where(self.is_log[free], np.exp(np.clip(x, -700.0, 700.0)), x)
-        v[free] = xi
-        return v
-
-    def max_cosine(self, v, free) -> float:
-        """Largest |cosine| between the residual vector and a Jacobian column (internal
-        scale) of the free parameters: about 0 at a stationary point; 0 for a perfect fit."""
-        r = self.residuals(v)
-        rn = float(np.linalg.norm(r))
-        if rn <= 1e-10 * max(float(np.linalg.norm(self.w * self.y)), 1e-300):
-            return 0.0
-        j = self.w[:, None] * self.model_jac(v)[:, free]
-        j = np.where(self.is_log[free][None, :], j * v[free][None, :], j)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            cos = np.abs(j.T @ r) / (np.linalg.norm(j, axis=0) * rn)
-        if cos.size == 0:
-            return 0.0
-        return float(np.max(cos)) if np.all(np.isfinite(cos)) else math.inf
-
-    def stationary(self, v, free, tol: float = 1e-4) -> bool:
-        return self.max_cosine(v, free) <= tol
-
-    def solve(self, v0, free, tol: float | None = None, max_nfev: int | None = None):
-        """Minimise over the parameters where ``free`` is True, from ``v0``.
-
-        Returns (v, rss, status) with status > 0 for a converged solve: scipy's codes 1–4,
-        or 5 for the evaluation limit reached at a stationary point (every residual–Jacobian
-        cosine below 1e-6).
-        """
-        tol = _TOL if tol is None else tol
-        max_nfev = _MAX_NFEV if max_nfev is None else max_nfev
-        v0 = np.asarray(v0, dtype=float)
-        if not free.any():
-            return v0.copy(), self.rss(v0), 1
-        if not self.curve.valid_params(v0) or not math.isfinite(self.rss(v0)):
-            return v0.copy(), math.inf, -1
-        logf = self.is_log[free]
-        x0 = np.where(logf, np.log(np.where(logf, v0[free], 1.0)), v0[free])
-
-        def fun(x):
-            r = self.residuals(self._full(x, free, v0))
-            if not np.all(np.isfinite(r)):
-                return np.full_like(self.y, self.big)
-            return r
-
-        def jac(x):
-            v = self._full(x, free, v0)
-            j = -self.w[:, None] * self.model_jac(v)[:, free]
-            j = np.where(logf[None, :], j * v[free][None, :], j)
-            if not np.all(np.isfinite(j)):
-                return np.zeros_like(j)
-            return j
-
-        m = int(free.sum())
-        if self.y.size < m:  # pragma: no cover - guarded by the caller
-            return v0.copy(), math.inf, -1
-        with np.errstate(all="ignore"):
-            res = optimize.least_squares(
-                fun, x0, jac=jac, method="lm", xtol=tol, ftol=tol, gtol=tol,
-                max_nfev=max_nfev, x_scale="jac",
-            )
-        v = self._full(res.x, free, v0)
-        rss = self.rss(v)
-        status = int(res.status) if math.isfinite(rss) else -1
-        if status == 0 and self.max_cosine(v, free) <= _STATIONARY:
-            # evaluation limit reached in a flat valley where the residuals are already
-            # orthogonal to the Jacobian: a stationary point (the RSS cannot be lowered),
-            # the tolerances of 1e-15 being too tight to be met there
-            status = 5
-        return v, rss, status
-
-
-# ---------------------------------------------------------------------------------------
-# fitted curve
-# ---------------------------------------------------------------------------------------
-class GrowthFit(GrowthCurve):
-    r"""A growth curve fitted to masses by least squares.
-
-    Built by :func:`fit_growth`; do not construct directly. Besides the evaluation methods of
-    :class:`GrowthCurve` (``predict``, ``log_mass``, ``rate``, ``log_mass_jacobian``):
-
-    Attributes
-    ----------
-    curve, scale : str
-        Curve family and fitting scale (``"log"``: ln W fitted; ``"natural"``: W).
-    params : lmfit.Parameters
-        Values, stderr from :math:`s^2 (J^T J)^{-1}` with :math:`s^2 = RSS/(n - p)`, and
-        correlations; fixed parameters have ``vary=False`` and no stderr.
-    values : ndarray, param_names : list of str
-    t, mass : ndarray
-        Copies of the data (read-only).
-    residuals : ndarray
-        ``(y − fitted)/σ_y`` on the fitting scale (plain differences without ``sigma``), so
-        ``rss = sum(residuals**2)``.
-    rss, nobs, nvarys : float, int, int
-    aic, aicc, bic : float
-        Gaussian log-likelihood forms with K = nvarys + 1 (the residual variance is
-        estimated too; Burnham & Anderson 2002, least-squares case), as for turnover fits:
-        :math:`AIC = n \ln(RSS/n) + 2K`, :math:`AICc = AIC + 2K(K+1)/(n-K-1)` (NaN with a
-        note when :math:`n - K - 1 \le 0`), :math:`BIC = n \ln(RSS/n) + K \ln n`.
-    n_criteria_params : int
-        K above.
-    converged : bool
-    warnings : list of str
-    data_fingerprint : str
-        SHA-1 of the float64 bytes of t, the fitted response and the weights: two fits are
-        on the same data when their fingerprints match.
-    """
-
-    def __init__(self, *, curve: _Curve, scale: str, values, vary, t, mass, sigma,
-                 converged: bool, warn_list, nfev: int = 0):
-        self._curve = curve
-        self._scale = scale
-        self._values = np.asarray(values, dtype=float).copy()
-        self._vary = np.asarray(vary, dtype=bool).copy()
-        self._t = np.array(t, dtype=float)
-        self._mass = np.array(mass, dtype=float)
-        self._sigma = None if sigma is None else np.array(sigma, dtype=float)
-        for a in (self._t, self._mass) + (() if self._sigma is None else (self._sigma,)):
-            a.setflags(write=False)
-        self._converged = bool(converged)
-        self._warnings = list(warn_list)
-        self._nfev = int(nfev)
-        self._y, self._w = _response(self._mass, self._sigma, scale)
-        self._problem = _Problem(curve, self._t, self._y, self._w, scale)
-        self._resid = self._problem.residuals(self._values)
-        self._resid.setflags(write=False)
-        self._rss = float(self._resid @ self._resid)
-        self._cov = self._covariance()
-
-    @property
-    def law(self):
-        """The curve's mathematics: ``log_mass(t, v)``, ``log_jac(t, v)``, ``rate(t, v)``
-        and ``params``, for models that carry the curve's parameters (turnover fits)."""
-        return self._curve
-
-    # -- statistics ------------------------------------------------------------------
-    def _covariance(self) -> np.ndarray:
-        with np.errstate(all="ignore"):
-            return self._covariance_raw()
-
-    def _covariance_raw(self) -> np.ndarray:
-        free = self._vary
-        j = -self._w[:, None] * self._problem.model_jac(self._values)[:, free]
-        p = j.shape[1]
-        dof = self.nobs - p
-        if dof <= 0 or not np.all(np.isfinite(j)):
-            return np.full((p, p), np.nan)
-        norms = np.linalg.norm(j, axis=0)
-        if np.any(norms == 0):
-            return np.full((p, p), np.nan)
-        js = j / norms
-        _, s, vt = np.linalg.svd(js, full_matrices=False)
-        if s[-1] <= 1e-12 * s[0]:
-            return np.full((p, p), np.nan)
-        inv = (vt.T / s**2) @ vt
-        return (self._rss / dof) * inv / np.outer(norms, norms)
-
-    @property
-    def scale(self) -> str:
-        return self._scale
-
-    @property
-    def label(self) -> str:
-        return f"{self.curve} ({self._scale} scale)"
-
-    @property
-    def t(self) -> np.ndarray:
-        return self._t
-
-    @property
-    def mass(self) -> np.ndarray:
-        return self._mass
-
-    @property
-    def residuals(self) -> np.ndarray:
-        return self._resid
-
-    @property
-    def rss(self) -> float:
-        return self._rss
-
-    @property
-    def nobs(self) -> int:
-        return int(self._t.size)
-
-    @property
-    def nvarys(self) -> int:
-        return int(self._vary.sum())
-
-    @property
-    def converged(self) -> bool:
-        return self._converged
-
-    @property
-    def warnings(self) -> list[str]:
-        return list(self._warnings)
-
-    @property
-    def data_fingerprint(self) -> str:
-        return _fingerprint(self._t, self._y, self._w)
-
-    @property
-    def covariance(self) -> pd.DataFrame:
-        """Covariance of the varying parameters, :math:`s^2 (J^T J)^{-1}` (NaN if singular)."""
-        names = [n for n, f in zip(self.param_names, self._vary, strict=True) if f]
-        return pd.DataFrame(self._cov.copy(), index=names, columns=names)
-
-    def _stderr(self) -> np.ndarray:
-        se = np.full(self._values.size, np.nan)
-        with np.errstate(invalid="ignore"):
-            se[self._vary] = np.sqrt(np.diag(self._cov))
-        return se
-
-    @property
-    def stderr(self) -> np.ndarray:
-        """Standard errors in :attr:`param_names` order (NaN for fixed parameters)."""
-        return self._stderr()
-
-    @property
-    def params(self) -> lmfit.Parameters:
-        se = self._stderr()
-        p = lmfit.Parameters()
-        for name, v, vary, s in zip(self.param_names, self._values, self._vary, se, strict=True):
-            p.add(name, value=float(v), vary=bool(vary),
-                  min=0.0 if name in self._curve.positive else -np.inf)
-            if vary:
-                p[name].stderr = float(s)
-        free = [n for n, f in zip(self.param_names, self._vary, strict=True) if f]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            d = np.sqrt(np.diag(self._cov))
-            corr = self._cov / np.outer(d, d)
-        for i, a in enumerate(free):
-            p[a].correl = {b: float(corr[i, j]) for j, b in enumerate(free) if j != i}
-        return p
-
-    def _loglik_term(self) -> float:
-        n = self.nobs
-        if self._rss <= 0:
-            return -math.inf
-        return n * math.log(self._rss / n)
-
-    @property
-    def n_criteria_params(self) -> int:
-        """Parameters counted by the information criteria: varying ones + the variance."""
-        return self.nvarys + 1
-
-    @property
-    def aic(self) -> float:
-        return self._loglik_term() + 2 * self.n_criteria_params
-
-    @property
-    def aicc(self) -> float:
-        n, k = self.nobs, self.n_criteria_params
-        if n - k - 1 <= 0:
-            return math.nan
-        return self.aic + 2 * k * (k + 1) / (n - k - 1)
-
-    @property
-    def bic(self) -> float:
-        return self._loglik_term() + self.n_criteria_params * math.log(self.nobs)
-
-    def mean_rate(self, t_start=None, t_end=None) -> float:
-        r"""Mean specific growth rate over the data's time span (or the given times).
-
-        .. math:: \bar r = \frac{\ln W(t_{end}) - \ln W(t_{start})}{t_{end} - t_{start}}
-
-        with :math:`t_{start}, t_{end}` the first and last sampling times by default.
-        """
-        t0 = float(np.min(self._t)) if t_start is None else t_start
-        t1 = float(np.max(self._t)) if t_end is None else t_end
-        return super().mean_rate(t0, t1)
-
-    # -- intervals -------------------------------------------------------------------
-    def conf_int(self, level: float = 0.95, method: str = "profile") -> pd.DataFrame:
-        r"""Confidence intervals of the varying parameters.
-
-        Parameters
-        ----------
-        level : float, default 0.95
-            Confidence level, in (0, 1).
-        method : {"profile", "asymptotic"}, default "profile"
-            ``"asymptotic"``: estimate ± :math:`t_{n-p,(1+level)/2}` · stderr.
-            ``"profile"``: profile likelihood; at each trial value of a parameter the others
-            are re-optimised, and the bound is where
-            :math:`(RSS(\theta_j) - RSS_{min})/s^2 = F_{level}(1, n - p)`. The search steps
-            outward (doubling steps from half a standard error, on the log scale for
-            positive parameters) and the crossing is found by Brent's method. A bound that
-            does not close within the search is ``open`` (±inf); for a positive parameter
-            whose profile stays below the critical value down to 0 the bound is 0 with status
-            ``at_bound``; a failed inner fit gives NaN with status ``failed``.
-
-        Returns
-        -------
-        DataFrame
-            One row per varying parameter: parameter, estimate, lower, upper, level, method,
-            lower_status, upper_status.
-        """
-        level = check_level(level)
-        if method not in ("profile", "asymptotic"):
-            raise DataError(f"method must be one of 'profile', 'asymptotic'; got {method!r}")
-        rows = []
-        se = self._stderr()
-        dof = self.nobs - self.nvarys
-        for j, name in enumerate(self.param_names):
-            if not self._vary[j]:
-                continue
-            est = float(self._values[j])
-            if method == "asymptotic":
-                if math.isfinite(se[j]):
-                    q = stats.t.ppf(0.5 + level / 2, dof)
-                    lo, hi, ls, us = est - q * se[j], est + q * se[j], "ok", "ok"
-                else:
-                    lo, hi, ls, us = math.nan, math.nan, "failed", "failed"
-            else:
-                lo, ls = self._profile_bound(j, -1.0, level)
-                hi, us = self._profile_bound(j, +1.0, level)
-            rows.append(
-                dict(parameter=name, estimate=est, lower=lo, upper=hi, level=level,
-                     method=method, lower_status=ls, upper_status=us)
-            )
-        return pd.DataFrame(
-            rows, columns=["parameter", "estimate", "lower", "upper", "level", "method",
-                           "lower_status", "upper_status"],
-        )
-
-    def _profile_bound(self, j: int, sign: float, level: float):
-        prob = self._problem
-        n, p = self.nobs, self.nvarys
-        s2 = self._rss / (n - p)
-        est = float(self._values[j])
-        if s2 <= 0:
-            return est, "ok"
-        crit = stats.f.ppf(level, 1, n - p)
-        is_log = bool(prob.is_log[j])
-        se = self._stderr()[j]
-        h = se / est if is_log else se
-        if not math.isfinite(h) or h <= 0:
-            h = 0.1 if is_log else 0.1 * max(abs(est), 1e-8)
-        max_off = 25.0 if is_log else 1e3 * h
-        free = self._vary.copy()
-        free[j] = False
-        x_est = math.log(est) if is_log else est
-        if is_log:  # stay within floating point: exp(±700)
-            max_off = min(max_off, 700.0 - sign * x_est)
-            if max_off <= 0.5 * h:
-                return (0.0, "at_bound") if sign < 0 else (math.inf, "open")
-        solved: dict[float, np.ndarray] = {0.0: self._values.copy()}
-        lower_found = [False]
-
-        def value_at(c):
-            x = x_est + sign * c
-            return math.exp(x) if is_log else x
-
-        memo: dict[float, float] = {}
-
-        def g(c):
-            # memoised, so that Brent's method sees the bracket values the search saw even
-            # where the re-optimisation from another warm start would land elsewhere
-            if c not in memo:
-                memo[c] = g_eval(c)
-            return memo[c]
-
-        def g_eval(c):
-            near = min(solved, key=lambda cc: abs(cc - c))
-            v0 = solved[near].copy()
-            v0[j] = value_at(c)
-            v, rss, status = prob.solve(v0, free, tol=_PROFILE_TOL, max_nfev=_PROFILE_MAX_NFEV)
-            if status <= 0 or not math.isfinite(rss):
-                raise _ProfileFailure
-            solved[c] = v
-            stat = (rss - self._rss) / s2
-            if stat > crit and np.any(v[prob.is_log] > _HUGE) and not prob.stationary(v, free):
-                # another parameter ran into the float limit and the re-optimisation was held
-                # back there: the crossing comes from the number format, not from the data,
-                # and the profile has not closed anywhere before it
-                raise _ProfileOpen
-            if stat < -1e-6 * max(1.0, crit):
-                lower_found[0] = True
-            return stat - crit
-
-        c_prev, c = 0.0, 0.5 * h
-        try:
-            while True:
-                gc = g(c)
-                if gc > 0:
-                    root = optimize.brentq(g, c_prev, c, xtol=1e-12 * max(1.0, c), rtol=1e-12)
-                    out, status = value_at(root), "ok"
-                    break
-                if c >= max_off:
-                    if is_log and sign < 0:
-                        out, status = 0.0, "at_bound"
-                    else:
-                        out, status = sign * math.inf, "open"
-                    break
-                c_prev, c = c, min(2.0 * c, max_off)
-        except _ProfileFailure:
-            out, status = math.nan, "failed"
-        except _ProfileOpen:
-            out, status = sign * math.inf, "open"
-        if lower_found[0]:
-            warnings.warn(
-                f"profile of {self.param_names[j]!r} found a lower RSS than the fit: the fit "
-                "may not be at the global minimum",
-                ConvergenceWarning,
-                stacklevel=3,
-            )
-        return out, status
-
-    # -- reporting -------------------------------------------------------------------
-    def summary(self) -> GrowthSummary:
-        """Header, parameter table and numbered notes (``str()`` and ``_repr_html_``)."""
-        se = self._stderr()
-        header = [
-            ("Curve", f"{self.curve}: {self.formula}"),
-            ("Scale", "ln(mass) fitted (multiplicative error)" if self._scale == "log"
-             else "mass fitted (additive error)"),
-            ("Weights", "none" if self._sigma is None
-             else "relative, from sigma (residual variance estimated)"),
-            ("Observations", str(self.nobs)),
-            ("Varying parameters", str(self.nvarys)),
-            ("RSS", f"{self._rss:.6g}"),
-            ("AICc", f"{self.aicc:.6g}"),
-            ("Converged", "yes" if self._converged else "no"),
-        ]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            rel = 100.0 * se / np.abs(self._values)
-        table = pd.DataFrame(
-            {
-                "parameter": self.param_names,
-                "estimate": self._values,
-                "stderr": se,
-                "rel_stderr_%": rel,
-                "vary": self._vary,
-            }
-        )
-        return GrowthSummary(title=f"Growth fit: {self.label}", header=header, table=table,
-                             notes=self.warnings)
-
-    def to_dict(self) -> dict:
-        """JSON-safe record of the fit; :func:`load_growth` or :meth:`from_dict` rebuild it."""
-        return {
-            "type": "GrowthFit",
-            "version": 1,
-            "curve": self.curve,
-            "scale": self._scale,
-            "param_names": self.param_names,
-            "values": [float(v) for v in self._values],
-            "vary": [bool(f) for f in self._vary],
-            "t": [float(v) for v in self._t],
-            "mass": [float(v) for v in self._mass],
-            "sigma": None if self._sigma is None else [float(v) for v in self._sigma],
-            "converged": self._converged,
-            "warnings": list(self._warnings),
-            "nfev": self._nfev,
-            "rss": _json_float(self._rss),
-            "stderr": [_json_float(s) for s in self._stderr()],
-        }
-
-    @classmethod
-    def from_dict(cls, d: Mapping) -> GrowthFit:
-        """Rebuild a fit from :meth:`to_dict` output (no refitting)."""
-        if not isinstance(d, Mapping) or d.get("type") != "GrowthFit":
-            got = d.get("type") if isinstance(d, Mapping) else type(d).__name__
-            raise DataError(f"not a GrowthFit record: 'type' must be 'GrowthFit'; got {got!r}")
-        try:
-            curve = _get_curve(d["curve"])
-            names = list(d["param_names"])
-            if names != list(curve.params):
-                raise DataError(
-                    f"GrowthFit record: param_names {names} do not match curve "
-                    f"{curve.name!r} ({', '.join(curve.params)})"
-                )
-            return cls(
-                curve=curve,
-                scale=_check_scale(d["scale"]),
-                values=[float(v) for v in d["values"]],
-                vary=[bool(f) for f in d["vary"]],
-                t=np.asarray(d["t"], dtype=float),
-                mass=np.asarray(d["mass"], dtype=float),
-                sigma=None if d.get("sigma") is None else np.asarray(d["sigma"], dtype=float),
-                converged=bool(d["converged"]),
-                warn_list=list(d.get("warnings", [])),
-                nfev=int(d.get("nfev", 0)),
-            )
-        except KeyError as e:
-            raise DataError(f"GrowthFit record is missing the key {e.args[0]!r}") from None
-
-    def __repr__(self) -> str:
-        ps = ", ".join(f"{n}={v:.6g}" for n, v in zip(self.param_names, self._values, strict=True))
-        return f"<GrowthFit {self.label}: {ps}; n={self.nobs}, RSS={self._rss:.4g}>"
-
-
-class _ProfileFailure(Exception):
-    """An inner fit of a profile did not converge."""
-
-
-class _ProfileOpen(Exception):
-    """A profile reached the float limit of another parameter without closing."""
-
-
-def _response(mass, sigma, scale):
-    """Fitted response and weights: ln W with weights W/σ (delta method), or W with 1/σ."""
-    if scale == "log":
-        y = np.log(mass)
-        w = np.ones_like(mass) if sigma is None else mass / sigma
-    else:
-        y = mass.copy()
-        w = np.ones_like(mass) if sigma is None else 1.0 / sigma
-    return y, w
-
-
-# ---------------------------------------------------------------------------------------
-# summary object
+# result containers (filled by isoturnover.growthfit)
 # ---------------------------------------------------------------------------------------
 @dataclass
 class GrowthSummary:
-    """Printable summary of a growth fit: header, parameter table, numbered notes."""
+    """Printable summary of a growth fit: header, parameter table, numbered notes.
+
+    Parameters
+    ----------
+    title : str
+        First line.
+    header : list of (str, str)
+        Label and value of each header line.
+    table : DataFrame
+        One row per parameter.
+    notes : list of str
+        The fit's trust notes, numbered when printed.
+    """
 
     title: str
     header: list
     table: pd.DataFrame
     notes: list
+
+    @classmethod
+    def of(cls, fit) -> GrowthSummary:
+        """The summary of a fitted curve, read from its public attributes.
+
+        Parameters
+        ----------
+        fit : GrowthFit
+            A fit from :func:`~isoturnover.growthfit.fit_growth`.
+
+        Returns
+        -------
+        GrowthSummary
+            Header (curve and formula, scale, weights, counts, RSS, AICc, convergence), a
+            table of estimates, standard errors, relative standard errors (%) and whether
+            each parameter varied, and the fit's warnings as notes.
+        """
+        se = fit.stderr
+        vals = fit.values
+        vary = [fit.params[n].vary for n in fit.param_names]
+        header = [
+            ("Curve", f"{fit.curve}: {fit.formula}"),
+            ("Scale", "ln(mass) fitted (multiplicative error)" if fit.scale == "log"
+             else "mass fitted (additive error)"),
+            ("Weights", "none" if fit.sigma is None
+             else "relative, from sigma (residual variance estimated)"),
+            ("Observations", str(fit.nobs)),
+            ("Varying parameters", str(fit.nvarys)),
+            ("RSS", f"{fit.rss:.6g}"),
+            ("AICc", f"{fit.aicc:.6g}"),
+            ("Converged", "yes" if fit.converged else "no"),
+        ]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rel = 100.0 * se / np.abs(vals)
+        table = pd.DataFrame({"parameter": fit.param_names, "estimate": vals, "stderr": se,
+                              "rel_stderr_%": rel, "vary": vary})
+        return cls(title=f"Growth fit: {fit.label}", header=header, table=table,
+                   notes=fit.warnings)
 
     def __str__(self) -> str:
         width = max(len(k) for k, _ in self.header)
@@ -1284,265 +835,23 @@ class GrowthSummary:
         return str(self)
 
 
-# ---------------------------------------------------------------------------------------
-# fitting
-# ---------------------------------------------------------------------------------------
-def fit_growth(t, mass, curve: str = "logistic", *, scale: str = "log", sigma=None,
-               init=None, fixed=None) -> GrowthFit:
-    r"""Fit a body-mass growth curve.
+@dataclass(frozen=True)
+class GrowthFitFailure:
+    """A subject whose growth fit could not be made: ``status`` is "failed", with a reason.
 
     Parameters
     ----------
-    t : array-like of shape (n,)
-        Sampling times (time unit of the experiment, e.g. days since the diet switch).
-    mass : array-like of shape (n,)
-        Body masses (> 0, any mass unit). Decreasing masses (loss) are allowed.
-    curve : {"exponential", "linear", "logistic", "gompertz", "von_bertalanffy", "richards"}
-        Curve family, default "logistic" (formulas and sources in the module docstring and
-        in the curve docstrings):
-
-        .. math::
-            \text{exponential: } W_0 e^{kt};\quad
-            \text{linear: } W_0 + bt;\quad
-            \text{logistic: } \frac{W_\infty}{1 + e^{-k(t - t_i)}};\quad
-            \text{gompertz: } W_\infty e^{-e^{-k(t - t_i)}};
-
-        .. math::
-            \text{von\_bertalanffy: } W_\infty\left(1 - \left(1 - (W_0/W_\infty)^{1/3}\right)
-            e^{-kt}\right)^3;\quad
-            \text{richards: } W_\infty\left(1 + (d-1)e^{-k(t - t_i)}\right)^{1/(1-d)}
-
-    scale : {"log", "natural"}, default "log"
-        ``"log"`` fits ln W (multiplicative error, usual for masses); ``"natural"`` fits W.
-    sigma : array-like of shape (n,), optional
-        Standard deviation of each mass (mass unit), used as relative weights (the residual
-        variance is still estimated). On the log scale it is carried to ln W as σ/W (delta
-        method).
-    init : dict, optional
-        Starting values for some parameters; the automatic deterministic starts are tried as
-        well and the best fit by RSS is kept.
-    fixed : dict, optional
-        Parameters held at given values (e.g. ``{"W0": 12.0}``).
-
-    Returns
-    -------
-    GrowthFit
-
-    Raises
-    ------
-    DataError
-        Mismatched lengths, non-finite values, masses ≤ 0, unknown curve or scale, bad
-        ``sigma``/``init``/``fixed``, or too few points (the curve needs at least one more
-        mass than it has varying parameters, at that many distinct times).
-    FitError
-        When no starting point leads to a converged least-squares solution.
-
-    Notes
-    -----
-    Minimisation by ``scipy.optimize.least_squares`` (Levenberg–Marquardt, analytic
-    Jacobian, xtol = ftol = gtol = 1e-15), positive parameters on the log scale internally;
-    several deterministic starts (see each curve), the lowest RSS kept.
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> t = np.array([0.0, 10, 20, 30, 40])
-    >>> w = 5.0 * np.exp(0.03 * t)   # invented, noise-free masses
-    >>> fit = fit_growth(t, w, "exponential")
-    >>> round(fit.params["k"].value, 10)
-    0.03
+    subject : object
+        The subject's key in the masses table.
+    curve : str
+        Curve family that was tried.
+    scale : str
+        Fitting scale that was tried.
+    reason : str
+        The error message of the failed fit.
+    status : str, default "failed"
+        Always ``"failed"`` (the status column of :meth:`GrowthFitSet.table`).
     """
-    c = _get_curve(curve)
-    scale = _check_scale(scale)
-    t = _as_vector(t, "t")
-    mass = _as_vector(mass, "mass")
-    if t.size != mass.size:
-        raise DataError(f"t and mass must have the same length; got {t.size} and {mass.size}")
-    bad = np.flatnonzero(mass <= 0)
-    if bad.size:
-        shown = ", ".join(f"{i} ({float(mass[i])!r})" for i in bad[:10])
-        raise DataError(f"mass must be > 0 (body masses); got values <= 0 at positions {shown}")
-    if sigma is not None:
-        if np.ndim(sigma) == 0:
-            sigma = [sigma] * t.size
-        sigma = _as_vector(sigma, "sigma")
-        if sigma.size != t.size:
-            raise DataError(
-                f"sigma must have the same length as mass; got {sigma.size} and {mass.size}"
-            )
-        if np.any(sigma <= 0):
-            i = int(np.flatnonzero(sigma <= 0)[0])
-            raise DataError(f"sigma must be > 0; got {float(sigma[i])!r} at position {i}")
-    fixed_d = _param_dict(c, fixed, "fixed")
-    init_d = _param_dict(c, init, "init")
-    both = sorted(set(fixed_d) & set(init_d))
-    if both:
-        raise DataError(f"parameters {both} are given in both init and fixed; give each once")
-    free = np.array([p not in fixed_d for p in c.params])
-    p = int(free.sum())
-    if p == 0:
-        raise DataError(
-            f"fixed holds every parameter of curve {c.name!r} ({', '.join(c.params)}); "
-            "at least one must vary (use GrowthCurve for a known curve)"
-        )
-    if t.size <= p:
-        raise DataError(
-            f"curve {c.name!r} has {p} varying parameters and needs at least {p + 1} mass "
-            f"points; got {t.size}"
-        )
-    n_times = np.unique(t).size
-    if n_times < p:
-        raise DataError(
-            f"curve {c.name!r} has {p} varying parameters and needs masses at {p} or more "
-            f"distinct times; got {n_times}"
-        )
-
-    y, w = _response(mass, sigma, scale)
-    prob = _Problem(c, t, y, w, scale)
-    given = {**init_d, **fixed_d}
-    with np.errstate(all="ignore"):
-        auto = c.starts(t, mass, given)
-    starts = []
-    if init_d:
-        base = auto[0].copy() if auto else np.ones(len(c.params))
-        for name, v in given.items():
-            base[c.params.index(name)] = v
-        starts.append(base)
-    for s in auto:
-        s = s.copy()
-        for name, v in fixed_d.items():
-            s[c.params.index(name)] = v
-        starts.append(s)
-    scored = []
-    for s in starts:
-        if c.valid_params(s):
-            r = prob.rss(s)
-            if math.isfinite(r):
-                scored.append((r, len(scored), s))
-    if not scored:
-        raise FitError(
-            f"curve {c.name!r}: no valid starting values could be built from the data "
-            f"(masses {float(mass.min()):.4g} to {float(mass.max()):.4g}); give init="
-        )
-    scored.sort(key=lambda z: (z[0], z[1]))
-    chosen = [s for _, _, s in scored[:_N_RUNS]]
-    if init_d and not any(s is starts[0] for s in chosen) and scored and any(
-        s is starts[0] for _, _, s in scored
-    ):
-        chosen.insert(0, starts[0])  # the user's start is always tried
-
-    best = None
-    last = None
-    for s in chosen:
-        v, rss, status = prob.solve(s, free)
-        if math.isfinite(rss) and (last is None or rss < last[1]):
-            last = (v, rss)
-        if status > 0 and math.isfinite(rss) and (best is None or rss < best[1]):
-            best = (v, rss)
-    if best is None:
-        tried = ""
-        if last is not None:
-            tried = " (lowest RSS reached at " + ", ".join(
-                f"{n}={x:.4g}" for n, x in zip(c.params, last[0], strict=True)
-            ) + "; parameters that run off to huge or tiny values mean the data do not pin " \
-                "this curve down)"
-        raise FitError(
-            f"curve {c.name!r} ({scale} scale) did not converge from any of {len(chosen)} "
-            f"starting points within {_MAX_NFEV} evaluations{tried}; try another curve, give "
-            "init=, or fix a parameter"
-        )
-    v, rss = best
-    fit = GrowthFit(curve=c, scale=scale, values=v, vary=free, t=t, mass=mass, sigma=sigma,
-                    converged=True, warn_list=[])
-    notes = _trust_checks(fit, prob)
-    fit._warnings = [msg for msg, _ in notes]
-    conv_failed = any(cat is ConvergenceWarning for _, cat in notes)
-    if conv_failed:
-        fit._converged = False
-    for msg, cat in notes:
-        warnings.warn(f"{fit.label}: {msg}", cat, stacklevel=2)
-    return fit
-
-
-def _trust_checks(fit: GrowthFit, prob: _Problem) -> list[tuple[str, type]]:
-    """Trust signals on a fit: (message, warning class) pairs."""
-    out: list[tuple[str, type]] = []
-    free = fit._vary
-    names = [n for n, f in zip(fit.param_names, free, strict=True) if f]
-    # stationarity: cosine between residual vector and each Jacobian column
-    cosine = prob.max_cosine(fit._values, free)
-    if cosine > 1e-4:
-        out.append(
-            ("the optimizer stopped where the gradient is not small "
-             f"(largest residual–Jacobian cosine {cosine:.2g}): not converged",
-             ConvergenceWarning)
-        )
-    cov = fit._cov
-    if np.any(~np.isfinite(cov)):
-        out.append(
-            ("covariance could not be estimated (J^T J singular or too few degrees of freedom):"
-             " standard errors are NaN", IdentifiabilityWarning)
-        )
-    else:
-        d = np.sqrt(np.diag(cov))
-        with np.errstate(invalid="ignore", divide="ignore"):
-            corr = cov / np.outer(d, d)
-        for a in range(len(names)):
-            for b in range(a + 1, len(names)):
-                if abs(corr[a, b]) > _CORR_LIMIT:
-                    out.append(
-                        (f"parameters {names[a]} and {names[b]} are strongly correlated "
-                         f"(r = {corr[a, b]:.4f}): the data hardly separate them",
-                         IdentifiabilityWarning)
-                    )
-    if "Winf" in fit.param_names and fit.curve != "von_bertalanffy" or (
-        fit.curve == "von_bertalanffy" and fit._values[0] > fit._values[2]
-    ):
-        winf = fit._values[fit.param_names.index("Winf")]
-        reached = float(np.nanmax(fit.predict(fit._t))) / winf
-        if reached < _ASYMPTOTE_REACHED:
-            out.append(
-                (f"the data reach only {100 * reached:.2g} % of the fitted asymptote Winf = "
-                 f"{winf:.4g}: Winf is an extrapolation", DesignWarning)
-            )
-    if fit.curve == "linear" and np.any(fit.predict(fit._t) <= 0):
-        out.append(("the fitted line is at or below zero mass at some sampling times; ln W and "
-                    "the rate are undefined there", DataWarning))
-    n, p = fit.nobs, fit.nvarys + 1
-    if n - p - 1 <= 0:
-        out.append(
-            (f"AICc is undefined (NaN): n − K − 1 = {n - p - 1} with n = {n} points and "
-             f"K = {p} parameters (the residual variance included)", DesignWarning)
-        )
-    return out
-
-
-# ---------------------------------------------------------------------------------------
-# persistence
-# ---------------------------------------------------------------------------------------
-def load_growth(d: Mapping) -> GrowthCurve:
-    """Rebuild a :class:`GrowthFit` or :class:`GrowthCurve` from its ``to_dict()`` output."""
-    if not isinstance(d, Mapping) or "type" not in d:
-        raise DataError(
-            "load_growth needs a dict made by GrowthFit.to_dict() or GrowthCurve.to_dict(); "
-            f"got {type(d).__name__} without a 'type' key"
-        )
-    if d["type"] == "GrowthFit":
-        return GrowthFit.from_dict(d)
-    if d["type"] == "GrowthCurve":
-        params = d.get("params")
-        if not isinstance(params, Mapping):
-            raise DataError("GrowthCurve record needs a 'params' mapping")
-        return GrowthCurve(d.get("curve"), **params)
-    raise DataError(f"'type' must be one of 'GrowthFit', 'GrowthCurve'; got {d['type']!r}")
-
-
-# ---------------------------------------------------------------------------------------
-# many subjects
-# ---------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class GrowthFitFailure:
-    """A subject whose growth fit could not be made: ``status`` is "failed", with a reason."""
 
     subject: object
     curve: str
@@ -1552,8 +861,22 @@ class GrowthFitFailure:
 
 
 class GrowthFitSet(Mapping):
-    """Growth fits by subject: ``fits[subject]`` is a :class:`GrowthFit` or a
-    :class:`GrowthFitFailure`; :meth:`table` gives one row per subject and parameter."""
+    """Growth fits by subject, from :func:`~isoturnover.growthfit.fit_growth_each`.
+
+    ``fits[subject]`` is a :class:`~isoturnover.growthfit.GrowthFit` or a
+    :class:`GrowthFitFailure`; :meth:`table` gives one row per subject and parameter.
+
+    Parameters
+    ----------
+    entries : dict
+        Subject → fit or failure, in the order of the masses table.
+    curve : str
+        Curve family of every fit.
+    scale : str
+        Fitting scale of every fit.
+    by : str
+        Name of the subject column (the first column of :meth:`table`).
+    """
 
     def __init__(self, entries: dict, curve: str, scale: str, by):
         self._entries = dict(entries)
@@ -1576,9 +899,16 @@ class GrowthFitSet(Mapping):
         return {k: v for k, v in self._entries.items() if isinstance(v, GrowthFitFailure)}
 
     def table(self) -> pd.DataFrame:
-        """Tidy table: subject, curve, scale, parameter, estimate, stderr, nobs, rss, aicc,
-        status ("ok", "not converged" or "failed") and reason."""
-        names = list(_get_curve(self.curve).params)
+        """Tidy table of every subject's parameters.
+
+        Returns
+        -------
+        DataFrame
+            One row per subject and parameter: subject (named as ``by``), curve, scale,
+            parameter, estimate, stderr, nobs, rss, aicc, status ("ok", "not converged" or
+            "failed") and reason (the failure, or the fit's warnings).
+        """
+        names = list(curve_law(self.curve).params)
         rows = []
         for subj, e in self._entries.items():
             if isinstance(e, GrowthFitFailure):
@@ -1587,8 +917,7 @@ class GrowthFitSet(Mapping):
                                      estimate=math.nan, stderr=math.nan, nobs=0, rss=math.nan,
                                      aicc=math.nan, status="failed", reason=e.reason))
                 continue
-            se = e.stderr
-            for name, v, s in zip(e.param_names, e.values, se, strict=True):
+            for name, v, s in zip(e.param_names, e.values, e.stderr, strict=True):
                 rows.append(dict(subject=subj, curve=e.curve, scale=e.scale, parameter=name,
                                  estimate=float(v), stderr=float(s), nobs=e.nobs, rss=e.rss,
                                  aicc=e.aicc, status="ok" if e.converged else "not converged",
@@ -1603,56 +932,3 @@ class GrowthFitSet(Mapping):
     def __repr__(self) -> str:
         return (f"<GrowthFitSet {self.curve} ({self.scale} scale): {len(self)} subjects, "
                 f"{len(self.failures)} failed>")
-
-
-def fit_growth_each(masses: pd.DataFrame, *, curve: str = "logistic", scale: str = "log",
-                    by="subject") -> GrowthFitSet:
-    """Fit one growth curve per subject.
-
-    Parameters
-    ----------
-    masses : DataFrame
-        The masses table: a ``by`` column (default ``subject``), ``time`` and ``mass``. It is
-        not modified.
-    curve, scale : str
-        As in :func:`fit_growth`.
-    by : str, default "subject"
-        Column identifying the animal.
-
-    Returns
-    -------
-    GrowthFitSet
-        Mapping subject → :class:`GrowthFit`; a subject whose fit fails is a
-        :class:`GrowthFitFailure` (status "failed", reason) instead of stopping the others.
-        Warnings of each fit are re-issued with the subject named.
-    """
-    _get_curve(curve)
-    _check_scale(scale)
-    if not isinstance(masses, pd.DataFrame):
-        raise DataError(f"masses must be a pandas DataFrame; got {type(masses).__name__}")
-    if not isinstance(by, str):
-        raise DataError(f"by must be a column name (str); got {by!r}")
-    need = [by, "time", "mass"]
-    missing = [col for col in need if col not in masses.columns]
-    if missing:
-        raise DataError(
-            f"masses needs columns {need}; missing {missing} (columns: {list(masses.columns)})"
-        )
-    keys = masses[by]
-    if keys.isna().any():
-        rows = masses.index[keys.isna().to_numpy()][:10].tolist()
-        raise DataError(f"masses: column {by!r} is empty in rows {rows} (row labels)")
-    entries: dict = {}
-    for key, grp in masses.groupby(by, sort=False):
-        subj = key.item() if isinstance(key, np.generic) else key
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            try:
-                entries[subj] = fit_growth(grp["time"].to_numpy(), grp["mass"].to_numpy(),
-                                           curve, scale=scale)
-            except (DataError, FitError) as e:
-                entries[subj] = GrowthFitFailure(subject=subj, curve=curve, scale=scale,
-                                                 reason=str(e))
-        for wmsg in caught:
-            warnings.warn(f"{by} {subj!r}: {wmsg.message}", wmsg.category, stacklevel=2)
-    return GrowthFitSet(entries, curve, scale, by)

@@ -34,18 +34,25 @@ value of the scale (for instance the 2024 VPDB re-determination).
 
 from __future__ import annotations
 
-import difflib
 import math
-from collections.abc import Mapping
-from dataclasses import dataclass
-from functools import cache
-from types import MappingProxyType
 
 import numpy as np
 import pandas as pd
-from scipy.optimize import brentq
 
-from .errors import DataError, ScaleError, UnknownIsotopeError
+from .errors import DataError, ScaleError
+from .references import (
+    ISOTOPES,
+    LAWS,
+    IsotopeSystem,
+    MinorIsotope,
+    check_law,
+    check_reference,
+    isotope_system,
+    minor_ratio_sum,
+    reference_ratio,
+    solve_log_ratio,
+    turning_point,
+)
 
 __all__ = [
     "MinorIsotope",
@@ -72,170 +79,9 @@ __all__ = [
 ]
 
 
-# ---------------------------------------------------------------------------------------------
-# Reference standards
-# ---------------------------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class MinorIsotope:
-    """A further minor isotope of O or S, tied to the main ratio by the mass-dependent law.
-
-    Attributes
-    ----------
-    isotope : str
-        The isotope, e.g. ``"17O"``.
-    ratio : float
-        Its ratio to the light isotope in the scale's standard (e.g. 17O/16O of VSMOW).
-    exponent : float
-        Mass-dependent exponent λ in ``R_j = R_j,std (R/R_std)**λ``, with R the main ratio.
-    source : str
-        Where ``ratio`` comes from.
-    exponent_source : str
-        Where ``exponent`` comes from.
-    """
-
-    isotope: str
-    ratio: float
-    exponent: float
-    source: str
-    exponent_source: str
-
-
-@dataclass(frozen=True)
-class IsotopeSystem:
-    """One isotope code: the ratio it reports and the standard that defines its zero.
-
-    Attributes
-    ----------
-    code : str
-        The code used in data tables (``"d13C"``, ...).
-    element : str
-        Element symbol.
-    heavy, light : str
-        The isotopes of the ratio ``heavy/light``.
-    scale : str
-        Name of the international scale whose zero point defines δ = 0 (VPDB, AIR, ...).
-    ratio : float
-        Heavy/light ratio of the scale's zero point (dimensionless).
-    source : str
-        Where ``ratio`` comes from ("from memory" marks values recalled, not seen in print).
-    minor : tuple of MinorIsotope
-        The element's other minor isotopes (empty for H, C, N, whose atom fraction is exact).
-    note : str
-        Other determinations and caveats.
-    """
-
-    code: str
-    element: str
-    heavy: str
-    light: str
-    scale: str
-    ratio: float
-    source: str
-    minor: tuple[MinorIsotope, ...] = ()
-    note: str = ""
-
-    @property
-    def ratio_name(self) -> str:
-        """The ratio as text, e.g. ``"13C/12C"``."""
-        return f"{self.heavy}/{self.light}"
-
-    @property
-    def two_isotope(self) -> bool:
-        """True when the element has just the two stable isotopes of the ratio (H, C, N)."""
-        return not self.minor
-
-
-ISOTOPES: Mapping[str, IsotopeSystem] = MappingProxyType(
-    {
-        "d13C": IsotopeSystem(
-            code="d13C", element="C", heavy="13C", light="12C", scale="VPDB",
-            # Zhang & Li 1990 (Chinese Sci. Bull. 35:290-296), the widely used value: from memory.
-            ratio=0.0111802,
-            source="Zhang & Li 1990 (widely used; from memory)",
-            note=("A 2024 re-determination gives 13C/12C(VPDB) = 0.0111105 (Rapid Commun. Mass "
-                  "Spectrom. 38:e9773); pass reference=0.0111105 to use it."),
-        ),
-        "d15N": IsotopeSystem(
-            code="d15N", element="N", heavy="15N", light="14N", scale="AIR",
-            # Junk & Svec 1958 (Geochim. Cosmochim. Acta 14:234-243), 14N/15N = 272.0,
-            # as recommended by IUPAC/CIAAW.
-            ratio=1.0 / 272.0,
-            source="Junk & Svec 1958 (14N/15N = 272.0 of atmospheric N2; IUPAC/CIAAW)",
-        ),
-        "d34S": IsotopeSystem(
-            code="d34S", element="S", heavy="34S", light="32S", scale="VCDT",
-            # Ding et al. 2001 (Geochim. Cosmochim. Acta 65:2433-2437): from memory.
-            ratio=0.0441626,
-            source="Ding et al. 2001 (from memory)",
-            minor=(
-                MinorIsotope(
-                    "33S", 0.0078772, 0.515,
-                    source="Ding et al. 2001 (from memory)",
-                    exponent_source=("conventional mass-dependent exponent for 33S vs 34S "
-                                     "(cf. Hulston & Thode 1965; from memory)"),
-                ),
-                MinorIsotope(
-                    "36S", 0.0001533, 1.90,
-                    source="Ding et al. 2001 (from memory)",
-                    exponent_source=("conventional mass-dependent exponent for 36S vs 34S "
-                                     "(cf. Hulston & Thode 1965; from memory)"),
-                ),
-            ),
-            note=("Atom fractions use the mass-dependent law for 33S and 36S; above "
-                  "δ34S ≈ 1.09e5 ‰ the law makes the 34S atom fraction fall as δ34S rises "
-                  "and conversions there are refused."),
-        ),
-        "d2H": IsotopeSystem(
-            code="d2H", element="H", heavy="2H", light="1H", scale="VSMOW",
-            # Hagemann, Nief & Roth 1970 (Tellus 22:712-715): from memory.
-            ratio=155.76e-6,
-            source="Hagemann et al. 1970 (from memory)",
-        ),
-        "d18O": IsotopeSystem(
-            code="d18O", element="O", heavy="18O", light="16O", scale="VSMOW",
-            # Baertschi 1976 (Earth Planet. Sci. Lett. 31:341-344): from memory.
-            ratio=2005.20e-6,
-            source="Baertschi 1976 (from memory)",
-            minor=(
-                MinorIsotope(
-                    "17O", 379.9e-6, 0.528,
-                    source="Li et al. 1988 (from memory)",
-                    exponent_source=("mass-dependent exponent of meteoric water (Meijer & Li "
-                                     "1998; Barkan & Luz 2005; from memory)"),
-                ),
-            ),
-            note="Atom fractions use the mass-dependent law for 17O.",
-        ),
-    }
-)
-"""Read-only mapping from isotope code to :class:`IsotopeSystem` (reference ratios with sources).
-
-=====  ========  =====  ==================  ============================================
-code   ratio     scale  value               source
-=====  ========  =====  ==================  ============================================
-d13C   13C/12C   VPDB   0.0111802           Zhang & Li 1990 (from memory); 2024: 0.0111105
-d15N   15N/14N   AIR    1/272.0             Junk & Svec 1958 (IUPAC/CIAAW)
-d34S   34S/32S   VCDT   0.0441626           Ding et al. 2001 (from memory)
-d2H    2H/1H     VSMOW  155.76e-6           Hagemann et al. 1970 (from memory)
-d18O   18O/16O   VSMOW  2005.20e-6          Baertschi 1976 (from memory)
-=====  ========  =====  ==================  ============================================
-
-Further minor isotopes: 17O/16O(VSMOW) = 379.9e-6 (Li et al. 1988, from memory);
-33S/32S(VCDT) = 0.0078772 and 36S/32S(VCDT) = 0.0001533 (Ding et al. 2001, from memory).
-"""
-
-LAWS = ("mass_dependent", "refuse")
-"""Allowed ``law=`` values for atom-fraction conversions of O and S."""
-
 SCALES = ("atom_fraction", "delta")
 """Allowed ``scale=`` values of :func:`mix` and :func:`source_fraction`."""
 
-# Largest number of Newton steps in the inversion x -> δ for O and S (convergence is monotone
-# and quadratic; natural abundance needs 3-4 steps).
-_MAX_NEWTON = 200
-_EPS = np.finfo(float).eps
 # Tolerance on Σ fractions = 1 (common practice; catches typed fractions that do not add up).
 _SUM_TOL = 1e-9
 
@@ -243,65 +89,6 @@ _SUM_TOL = 1e-9
 # ---------------------------------------------------------------------------------------------
 # Argument handling
 # ---------------------------------------------------------------------------------------------
-
-
-def _system(isotope) -> IsotopeSystem:
-    """Look up an isotope code; unknown codes raise UnknownIsotopeError with a suggestion."""
-    if isinstance(isotope, IsotopeSystem):
-        return isotope
-    known = ", ".join(ISOTOPES)
-    if not isinstance(isotope, str):
-        raise UnknownIsotopeError(
-            f"isotope must be a code string, one of {known}; got {isotope!r} "
-            f"({type(isotope).__name__})"
-        )
-    if isotope in ISOTOPES:
-        return ISOTOPES[isotope]
-    # Suggestions: case and the δ prefix are the usual slips ('13C', 'D13C', 'δ13C', 'd13c').
-    folded = isotope.strip().lower().replace("δ", "d")
-    if not folded.startswith("d"):
-        folded = "d" + folded
-    lowered = {c.lower(): c for c in ISOTOPES}
-    if folded in lowered:
-        close = [lowered[folded]]
-    else:
-        close = [lowered[m] for m in difflib.get_close_matches(folded, lowered, n=2, cutoff=0.6)]
-    hint = f"; did you mean {' or '.join(repr(c) for c in close)}?" if close else ""
-    raise UnknownIsotopeError(f"unknown isotope code {isotope!r}; known codes are {known}{hint}")
-
-
-def _reference(system: IsotopeSystem, reference, name: str = "reference") -> float:
-    """The scale's reference ratio or a validated override."""
-    if reference is None:
-        return system.ratio
-    try:
-        value = float(reference)
-    except (TypeError, ValueError):
-        raise DataError(
-            f"{name} must be a positive finite number (the {system.ratio_name} ratio of the "
-            f"{system.scale} zero point) or None; got {reference!r}"
-        ) from None
-    if not (math.isfinite(value) and value > 0.0):
-        raise DataError(
-            f"{name} must be a positive finite number (the {system.ratio_name} ratio of the "
-            f"{system.scale} zero point) or None; got {reference!r}"
-        )
-    return value
-
-
-def _check_law(system: IsotopeSystem, law: str) -> None:
-    if law not in LAWS:
-        raise ScaleError(f"law must be one of {', '.join(map(repr, LAWS))}; got {law!r}")
-    if law == "refuse" and not system.two_isotope:
-        others = " and ".join(m.isotope for m in system.minor)
-        verb = "enters" if len(system.minor) == 1 else "enter"
-        raise ScaleError(
-            f"atom fractions of {system.element} are not exact from {system.code} alone: "
-            f"{others} also {verb} the denominator and a δ of {system.ratio_name} does not fix "
-            "them; law='refuse' was given, so the atom-fraction scale is refused for "
-            f"{system.code} (use law='mass_dependent' to assume mass-dependent fractionation, "
-            "or work on the δ scale)"
-        )
 
 
 def _check_scale(scale: str) -> None:
@@ -416,37 +203,8 @@ def _broadcast(named_arrays) -> list[np.ndarray]:
 # ---------------------------------------------------------------------------------------------
 
 
-@cache
-def _turning_point(code: str) -> float:
-    """``u = R/R_std`` above which the mass-dependent law makes x_heavy fall (inf if never).
-
-    ``dx/dR`` has the sign of ``1 + Σ (1 − λ_j) R_j`` (differentiate x = R/(1 + R + Σ R_j)
-    with R_j ∝ R**λ_j); with an exponent above 1 (36S) this turns negative at large R.
-    """
-    system = ISOTOPES[code]
-    if all(m.exponent <= 1.0 for m in system.minor):
-        return math.inf
-
-    def slope_sign(s):
-        return 1.0 + sum((1.0 - m.exponent) * m.ratio * math.exp(m.exponent * s)
-                         for m in system.minor)
-
-    hi = 1.0
-    while slope_sign(hi) > 0.0:
-        hi *= 2.0
-    return math.exp(brentq(slope_sign, 0.0, hi, xtol=1e-15, rtol=4 * _EPS))
-
-
-def _minor_sum(system: IsotopeSystem, u: np.ndarray) -> np.ndarray:
-    """Σ R_j = Σ R_j,std u**λ_j of the further minor isotopes (0 for H, C, N)."""
-    total = np.zeros_like(u)
-    for m in system.minor:
-        total = total + m.ratio * u**m.exponent
-    return total
-
-
 def _check_turning(system, u, obj, name, reference) -> None:
-    u_max = _turning_point(system.code)
+    u_max = turning_point(system.code)
     if math.isinf(u_max):
         return
     flagged = u >= u_max
@@ -466,11 +224,11 @@ def _check_turning(system, u, obj, name, reference) -> None:
 
 def _fractions_from_u(system, u, reference, law, obj, name):
     """Heavy and light atom fractions for ``u = R/R_std = 1 + δ/1000`` (validated > 0)."""
-    _check_law(system, law)
+    check_law(system, law)
     if system.minor:
         _check_turning(system, u, obj, name, reference)
     r = reference * u
-    denom = 1.0 + r + _minor_sum(system, u)
+    denom = 1.0 + r + minor_ratio_sum(system, u)
     return r / denom, 1.0 / denom
 
 
@@ -479,15 +237,16 @@ def _delta_from_fraction(system, x, reference, law, obj, name, factor=1.0) -> np
 
     Two-isotope elements: ``δ = expm1(logit x − ln R_std)·1000`` in closed form. O and S:
     solve ``s − ln(1 + Σ R_j,std e^{λ_j s}) = logit x − ln R_std`` for ``s = ln(R/R_std)`` by
-    Newton's method. The left side is concave and increasing below the turning point, and the
-    start ``s_0 = logit x − ln R_std`` lies left of the root, so the iterates rise monotonically
-    to it (quadratic convergence; 3–4 steps at natural abundance, to ~1e-15 in ``ln R``).
+    Newton's method (:func:`~isoturnover.references.solve_log_ratio`). The left side is concave
+    and increasing below the turning point, and the start ``s_0 = logit x − ln R_std`` lies left
+    of the root, so the iterates rise monotonically to it (quadratic convergence; 3–4 steps at
+    natural abundance, to ~1e-15 in ``ln R``).
     """
-    _check_law(system, law)
+    check_law(system, law)
     target = np.log(x) - np.log1p(-x) - math.log(reference)
     if not system.minor:
         return np.expm1(target) * 1000.0
-    u_max = _turning_point(system.code)
+    u_max = turning_point(system.code)
     if not math.isinf(u_max):
         s_max = math.log(u_max)
         g_max = s_max - math.log1p(sum(m.ratio * u_max**m.exponent for m in system.minor))
@@ -505,53 +264,13 @@ def _delta_from_fraction(system, x, reference, law, obj, name, factor=1.0) -> np
             )
     finite = np.isfinite(target)
     out = np.full(target.shape, np.nan)
-    tgt = target[finite]
-    s = tgt.copy()
-    for _ in range(_MAX_NEWTON):
-        terms = [m.ratio * np.exp(m.exponent * s) for m in system.minor]
-        total = sum(terms)
-        g = s - np.log1p(total) - tgt
-        slope = 1.0 - sum(m.exponent * t for m, t in zip(system.minor, terms)) / (1.0 + total)
-        step = g / slope
-        s = s - step
-        scale = np.maximum(1.0, np.maximum(np.abs(s), np.abs(tgt)))
-        if np.all((np.abs(step) <= 8 * _EPS * scale) | (np.abs(g) <= 4 * _EPS * scale)):
-            break
-    else:  # pragma: no cover - monotone Newton converges; kept as a guard
-        raise ScaleError(f"{name}: the inversion to {system.code} did not converge")
-    out[finite] = np.expm1(s) * 1000.0
+    out[finite] = np.expm1(solve_log_ratio(system, target[finite], name)) * 1000.0
     return out
 
 
 # ---------------------------------------------------------------------------------------------
 # Public conversions
 # ---------------------------------------------------------------------------------------------
-
-
-def reference_ratio(isotope: str, ratio: float | None = None) -> float:
-    """Heavy/light ratio of the scale's zero point, or a validated override.
-
-    Parameters
-    ----------
-    isotope : str
-        Isotope code: ``"d13C"``, ``"d15N"``, ``"d34S"``, ``"d2H"`` or ``"d18O"``.
-    ratio : float, optional
-        A ratio to use instead of the tabulated one (must be finite and > 0), e.g. the 2024
-        VPDB re-determination 0.0111105.
-
-    Returns
-    -------
-    float
-        The ratio R_std (dimensionless).
-
-    Examples
-    --------
-    >>> reference_ratio("d15N") == 1 / 272.0
-    True
-    >>> reference_ratio("d13C", 0.0111105)
-    0.0111105
-    """
-    return _reference(_system(isotope), ratio, name="ratio")
 
 
 def delta_to_ratio(delta, isotope: str, *, reference: float | None = None):
@@ -576,8 +295,8 @@ def delta_to_ratio(delta, isotope: str, *, reference: float | None = None):
     >>> round(delta_to_ratio(0.0, "d15N") * 272.0, 12)
     1.0
     """
-    system = _system(isotope)
-    ref = _reference(system, reference)
+    system = isotope_system(isotope)
+    ref = check_reference(system, reference)
     d = _delta_array(delta, "delta")
     return _wrap(ref * (1.0 + d / 1000.0), [("delta", delta)])
 
@@ -599,8 +318,8 @@ def ratio_to_delta(ratio, isotope: str, *, reference: float | None = None):
     float, ndarray or Series
         δ in ‰, shaped like ``ratio``.
     """
-    system = _system(isotope)
-    ref = _reference(system, reference)
+    system = isotope_system(isotope)
+    ref = check_reference(system, reference)
     r = _as_array(ratio, "ratio")
     _check_values(r, ratio, "ratio", "finite and greater than 0", lambda a: a <= 0.0)
     return _wrap((r / ref - 1.0) * 1000.0, [("ratio", ratio)])
@@ -642,8 +361,8 @@ def delta_to_atom_fraction(delta, isotope: str, *, reference: float | None = Non
     >>> round(x * 273.0, 12)   # x = R/(1 + R) with R = 1/272
     1.0
     """
-    system = _system(isotope)
-    ref = _reference(system, reference)
+    system = isotope_system(isotope)
+    ref = check_reference(system, reference)
     d = _delta_array(delta, "delta")
     heavy, _ = _fractions_from_u(system, 1.0 + d / 1000.0, ref, law, delta, "delta")
     return _wrap(heavy, [("delta", delta)])
@@ -672,8 +391,8 @@ def atom_fraction_to_delta(x, isotope: str, *, reference: float | None = None,
     float, ndarray or Series
         δ in ‰, shaped like ``x``.
     """
-    system = _system(isotope)
-    ref = _reference(system, reference)
+    system = isotope_system(isotope)
+    ref = check_reference(system, reference)
     arr = _fraction_array(x, "x")
     return _wrap(_delta_from_fraction(system, arr, ref, law, x, "x"), [("x", x)])
 
@@ -682,13 +401,24 @@ def delta_to_atom_percent(delta, isotope: str, *, reference: float | None = None
                           law: str = "mass_dependent"):
     """Atom % of the heavy isotope from δ: ``100·x`` (see :func:`delta_to_atom_fraction`).
 
+    Parameters
+    ----------
+    delta : float, array-like or pandas Series/DataFrame
+        δ in ‰, > −1000 (NaN passes through).
+    isotope : str
+        Isotope code (see :data:`ISOTOPES`).
+    reference : float, optional
+        Override of the reference ratio R_std of the main isotope pair.
+    law : {"mass_dependent", "refuse"}, default="mass_dependent"
+        How O and S treat their further minor isotopes (see :func:`delta_to_atom_fraction`).
+
     Returns
     -------
     float, ndarray or Series
         Atom % in (0, 100), shaped like ``delta``.
     """
-    system = _system(isotope)
-    ref = _reference(system, reference)
+    system = isotope_system(isotope)
+    ref = check_reference(system, reference)
     d = _delta_array(delta, "delta")
     heavy, _ = _fractions_from_u(system, 1.0 + d / 1000.0, ref, law, delta, "delta")
     return _wrap(100.0 * heavy, [("delta", delta)])
@@ -696,15 +426,26 @@ def delta_to_atom_percent(delta, isotope: str, *, reference: float | None = None
 
 def atom_percent_to_delta(atom_percent, isotope: str, *, reference: float | None = None,
                           law: str = "mass_dependent"):
-    """δ (‰) from atom % of the heavy isotope (strictly between 0 and 100 %).
+    """δ (‰) from atom % of the heavy isotope; the inverse of :func:`delta_to_atom_percent`.
+
+    Parameters
+    ----------
+    atom_percent : float, array-like or pandas Series/DataFrame
+        Atom % of the heavy isotope, strictly between 0 and 100 (NaN passes through).
+    isotope : str
+        Isotope code (see :data:`ISOTOPES`).
+    reference : float, optional
+        Override of the reference ratio R_std of the main isotope pair.
+    law : {"mass_dependent", "refuse"}, default="mass_dependent"
+        How O and S treat their further minor isotopes (see :func:`delta_to_atom_fraction`).
 
     Returns
     -------
     float, ndarray or Series
         δ in ‰, shaped like ``atom_percent``.
     """
-    system = _system(isotope)
-    ref = _reference(system, reference)
+    system = isotope_system(isotope)
+    ref = check_reference(system, reference)
     ap = _fraction_array(atom_percent, "atom_percent", 100.0, " %")
     out = _delta_from_fraction(system, ap / 100.0, ref, law, atom_percent, "atom_percent",
                                factor=100.0)
@@ -723,16 +464,18 @@ def delta_to_atom_percent_excess(delta, isotope: str, baseline_delta, *,
         Isotope code.
     baseline_delta : float, array-like or pandas Series
         δ (‰) of the same material without the tracer (broadcast against ``delta``).
-    reference, law
-        See :func:`delta_to_atom_fraction`.
+    reference : float, optional
+        Override of the reference ratio R_std of the main isotope pair.
+    law : {"mass_dependent", "refuse"}, default="mass_dependent"
+        How O and S treat their further minor isotopes (see :func:`delta_to_atom_fraction`).
 
     Returns
     -------
     float, ndarray or Series
         Atom % excess (percentage points; negative when the sample is below the baseline).
     """
-    system = _system(isotope)
-    ref = _reference(system, reference)
+    system = isotope_system(isotope)
+    ref = check_reference(system, reference)
     named = [("delta", delta), ("baseline_delta", baseline_delta)]
     d = _delta_array(delta, "delta")
     b = _delta_array(baseline_delta, "baseline_delta")
@@ -757,16 +500,18 @@ def atom_percent_excess_to_delta(ape, isotope: str, baseline_delta, *,
         Isotope code.
     baseline_delta : float, array-like or pandas Series
         δ (‰) of the unenriched material.
-    reference, law
-        See :func:`delta_to_atom_fraction`.
+    reference : float, optional
+        Override of the reference ratio R_std of the main isotope pair.
+    law : {"mass_dependent", "refuse"}, default="mass_dependent"
+        How O and S treat their further minor isotopes (see :func:`delta_to_atom_fraction`).
 
     Returns
     -------
     float, ndarray or Series
         δ in ‰.
     """
-    system = _system(isotope)
-    ref = _reference(system, reference)
+    system = isotope_system(isotope)
+    ref = check_reference(system, reference)
     named = [("ape", ape), ("baseline_delta", baseline_delta)]
     e = _as_array(ape, "ape")
     _check_values(e, ape, "ape", "finite", lambda a: np.zeros(a.shape, dtype=bool))
@@ -915,6 +660,11 @@ def difference_form_error(delta_b, separation):
 def big_delta(delta_a, delta_b):
     """Difference-form separation ``Δ_A−B = δ_A − δ_B`` in ‰ (e.g. tissue minus diet).
 
+    Parameters
+    ----------
+    delta_a, delta_b : float, array-like or pandas Series
+        δ (‰) of phases A (e.g. tissue) and B (e.g. diet), each > −1000.
+
     Returns
     -------
     float, ndarray or Series
@@ -1031,8 +781,11 @@ def mix(values, fractions, isotope: str, scale: str = "atom_fraction", concentra
         Where the balance is done.
     concentrations : sequence or array-like, optional
         Element concentration of each source (> 0), laid out like ``fractions``.
-    reference, law
-        See :func:`delta_to_atom_fraction` (used on the ``"atom_fraction"`` scale).
+    reference : float, optional
+        Override of the reference ratio R_std of the main isotope pair.
+    law : {"mass_dependent", "refuse"}, default="mass_dependent"
+        How O and S treat their further minor isotopes (see
+        :func:`delta_to_atom_fraction`); used on the ``"atom_fraction"`` scale only.
 
     Returns
     -------
@@ -1049,8 +802,8 @@ def mix(values, fractions, isotope: str, scale: str = "atom_fraction", concentra
     >>> mix((2000.0, 0.0), (0.5, 0.5), "d15N", scale="delta")
     1000.0
     """
-    system = _system(isotope)
-    ref = _reference(system, reference)
+    system = isotope_system(isotope)
+    ref = check_reference(system, reference)
     _check_scale(scale)
     named = [("values", values), ("fractions", fractions), ("concentrations", concentrations)]
     _pandas_inputs(named)  # index agreement
@@ -1103,8 +856,10 @@ def source_fraction(value, source_a, source_b, isotope: str, scale: str = "atom_
         Isotope code.
     scale : {"atom_fraction", "delta"}
         Where the balance is done (see :func:`mix`).
-    reference, law
-        See :func:`delta_to_atom_fraction`.
+    reference : float, optional
+        Override of the reference ratio R_std of the main isotope pair.
+    law : {"mass_dependent", "refuse"}, default="mass_dependent"
+        How O and S treat their further minor isotopes (see :func:`delta_to_atom_fraction`).
 
     Returns
     -------
@@ -1116,8 +871,8 @@ def source_fraction(value, source_a, source_b, isotope: str, scale: str = "atom_
     >>> round(source_fraction(996.3503649635036, 0.0, 2000.0, "d15N"), 12)
     0.5
     """
-    system = _system(isotope)
-    ref = _reference(system, reference)
+    system = isotope_system(isotope)
+    ref = check_reference(system, reference)
     _check_scale(scale)
     named = [("value", value), ("source_a", source_a), ("source_b", source_b)]
     d = _delta_array(value, "value")

@@ -46,6 +46,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .conventions import check_choice
 from .diet import DietHistory
 from .errors import DataError, ScaleError
 
@@ -63,14 +64,6 @@ _SCALES = ("delta", "atom_fraction")
 _INITIALS = ("equilibrium", "free")
 # Elements with two stable isotopes: x = R/(1+R) is exact (Coplen 2011 definitions).
 _TWO_ISOTOPE_CODES = ("d13C", "d15N", "d2H")
-
-
-def _choice(name: str, value, allowed) -> str:
-    if not isinstance(value, str) or value not in allowed:
-        raise ValueError(
-            f"'{name}' must be one of {', '.join(repr(a) for a in allowed)}; got {value!r}"
-        )
-    return value
 
 
 # ----------------------------------------------------------------------------------------
@@ -134,14 +127,27 @@ def _chain_terms(tau, ka, kb):
 
 
 def remaining_parallel(tau, rates, fractions):
-    r"""Fraction of the change still to come, :math:`1 - F = \sum_i f_i e^{-k_i \tau}`.
+    r"""Fraction of a step change still to come for parallel pools.
+
+    .. math:: 1 - F(\tau) = \sum_i f_i e^{-k_i \tau}
+
+    the reaction progress variable of one step switch (Cerling et al. 2007, Oecologia
+    151:175-189), vectorised over ``tau``.
 
     Parameters
     ----------
-    tau : array-like
-        Time since a single step switch (negative values give 1).
-    rates, fractions : array-like of shape (n_pools,)
-        Rates (per time unit) and fractions summing to 1.
+    tau : float or array-like
+        Time since a single step switch, in the data's time unit (days by default); values
+        at or before the switch (τ ≤ 0) give 1.
+    rates : array-like of shape (n_pools,)
+        Turnover rates :math:`k_i` (per time unit, /d for days), > 0.
+    fractions : array-like of shape (n_pools,)
+        Pool fractions :math:`f_i`, summing to 1.
+
+    Returns
+    -------
+    float or ndarray
+        :math:`1 - F` (dimensionless), shaped like ``tau``.
     """
     tau = np.maximum(np.asarray(tau, dtype=float), 0.0)
     k = np.asarray(rates, dtype=float).reshape(-1, *([1] * tau.ndim))
@@ -150,7 +156,28 @@ def remaining_parallel(tau, rates, fractions):
 
 
 def remaining_chain(tau, k1, k2):
-    r"""Precursor–product chain: :math:`1 - F = (k_1 e^{-k_2\tau} - k_2 e^{-k_1\tau})/(k_1-k_2)`."""
+    r"""Fraction of a step change still to come for a precursor–product chain.
+
+    .. math:: 1 - F(\tau) = \frac{k_1 e^{-k_2\tau} - k_2 e^{-k_1\tau}}{k_1 - k_2}
+
+    the response of two first-order steps in series (DESIGN §2), evaluated in the stable form
+    :math:`e^{-k_2\tau}(1 + k_2\tau\,\psi((k_1-k_2)\tau))`, :math:`\psi(x) = (1-e^{-x})/x`,
+    which is exact through :math:`k_1 = k_2` (there :math:`e^{-k\tau}(1 + k\tau)`).
+
+    Parameters
+    ----------
+    tau : float or array-like
+        Time since a single step switch, in the data's time unit (days by default); values
+        at or before the switch give 1.
+    k1, k2 : float
+        Rates of the two steps (per time unit, /d for days), > 0; the curve is symmetric in
+        them.
+
+    Returns
+    -------
+    ndarray
+        :math:`1 - F` (dimensionless), shaped like ``tau``.
+    """
     tau = np.maximum(np.asarray(tau, dtype=float), 0.0)
     return _chain_terms(tau, float(k1), float(k2))[0]
 
@@ -248,12 +275,35 @@ class TurnoverKinetics:
         present) gives the dilution factor W(s)/W(t). Rates ``k1…kn`` are then catabolic.
     reference_ratio : float, optional
         Override of the isotope's reference ratio on the atom-fraction scale.
+    growth_params : bool, default=False
+        With a growth curve from :mod:`isoturnover.growth` (``fit_growth`` or
+        ``GrowthCurve``): make the curve's parameters parameters of the model
+        (``growth_<name>``), so a joint fit with the body masses estimates them.
 
     Attributes
     ----------
     param_names : tuple of str
         Names of the natural parameters, in the order of ``theta`` and of the Jacobian's
         columns.
+    n_params : int
+        Number of natural parameters.
+    switch_times : ndarray
+        Times of the diet switches (before any lag).
+    rate_index, fraction_index : list of int
+        Positions of the rates ``k1…`` and fractions ``f1…`` in ``theta``.
+    lag_index, growth_rate_index : int or None
+        Position of ``lag`` and of ``k_growth`` in ``theta``, if present.
+    growth_param_index : list of int
+        Positions of the growth curve's parameters (``growth_params=True``).
+
+    Raises
+    ------
+    DataError
+        For an option outside its allowed values or of the wrong type (the message names
+        the argument and what is expected), growth dilution with the chain, or a diet
+        history without a change.
+    ScaleError
+        For ``scale="atom_fraction"`` without a two-isotope ``isotope``.
     """
 
     def __init__(
@@ -272,29 +322,32 @@ class TurnoverKinetics:
         reference_ratio: float | None = None,
         growth_params: bool = False,
     ):
-        self.structure = _choice("structure", structure, _STRUCTURES)
+        self.structure = check_choice("structure", structure, _STRUCTURES)
         if self.structure == "chain":
             pools = 2
         if isinstance(pools, bool) or not isinstance(pools, (int, np.integer)) or not (
             1 <= pools <= MAX_POOLS
         ):
-            raise ValueError(f"'pools' must be an integer from 1 to {MAX_POOLS}; got {pools!r}")
+            kind = "" if isinstance(pools, (int, np.integer)) else f" ({type(pools).__name__})"
+            raise DataError(
+                f"'pools' must be an integer from 1 to {MAX_POOLS}; got {pools!r}{kind}")
         self.pools = int(pools)
         if diet is not None and not isinstance(diet, DietHistory):
-            raise TypeError(f"'diet' must be a DietHistory or None; got {type(diet).__name__}")
+            raise DataError("'diet' must be a DietHistory or None; "
+                            f"got {type(diet).__name__}")
         self.diet = diet
-        self.separation = _choice("separation", separation, _SEPARATIONS)
+        self.separation = check_choice("separation", separation, _SEPARATIONS)
         self.per_diet_separation = bool(per_diet_separation)
         self.lag = bool(lag)
-        self.initial = _choice("initial", initial, _INITIALS)
-        self.scale = _choice("scale", scale, _SCALES)
+        self.initial = check_choice("initial", initial, _INITIALS)
+        self.scale = check_choice("scale", scale, _SCALES)
         self.isotope = isotope
         self._atom = (
             _atom_scale(isotope, reference_ratio) if self.scale == "atom_fraction" else None
         )
         if isinstance(growth, str):
             if growth != "exponential":
-                raise ValueError(
+                raise DataError(
                     f"'growth' must be None, 'exponential' or a growth curve with predict(t); "
                     f"got {growth!r}"
                 )
@@ -303,15 +356,16 @@ class TurnoverKinetics:
             self.growth_kind = None
         else:
             if not hasattr(growth, "predict"):
-                raise TypeError(
+                raise DataError(
                     "'growth' must be None, 'exponential' or a growth curve with predict(t); "
                     f"got {type(growth).__name__}"
                 )
             self.growth_kind = "curve"
             if growth_params:
                 if not (hasattr(growth, "law") and hasattr(growth, "values")):
-                    raise TypeError("growth_params=True needs a growth curve from "
-                                    "isoturnover.growth (fit_growth or GrowthCurve)")
+                    raise DataError("'growth_params'=True needs a growth curve from "
+                                    "isoturnover.growth (fit_growth or GrowthCurve); got "
+                                    f"{type(growth).__name__}")
                 self.growth_kind = "curve_params"
         if self.growth_kind is not None and self.structure == "chain":
             # a DataError: a chain candidate beside body masses is one model that cannot be
@@ -332,7 +386,8 @@ class TurnoverKinetics:
             self.n_levels = 2
         else:
             if diet.n_diets < 2:
-                raise DataError("the diet history has no change; a turnover fit needs at least one")
+                raise DataError("'diet': the diet history has no change; a turnover fit needs "
+                                "at least one")
             self.switch_times = diet.switch_times
             vals = diet.values
             known = diet.known
@@ -419,13 +474,27 @@ class TurnoverKinetics:
 
     @property
     def separation_names(self) -> tuple[str, ...]:
+        """Names of the separation parameters (``discrimination…`` or ``epsilon…``)."""
         return tuple(n for n in self.param_names if n.startswith(("discrimination", "epsilon")))
 
     # -- levels ---------------------------------------------------------------------------
     def levels(self, theta) -> np.ndarray:
-        """Tissue equilibrium value (δ, ‰) for each diet period, shape (n_levels,).
+        """Tissue equilibrium value of each diet period.
 
-        With ``initial="free"`` the first entry is ``delta0``, the state at the first switch.
+        A known diet gives ``diet + discrimination`` (difference form) or
+        ``(1000 + diet)(1 + epsilon/1000) − 1000`` (ε form; Coplen 2011's definitions); an
+        unknown diet its fitted ``plateau_j``. With ``initial="free"`` the first entry is
+        ``delta0``, the state at the first switch.
+
+        Parameters
+        ----------
+        theta : array-like of shape (n_params,)
+            Natural parameters in the order of :attr:`param_names`.
+
+        Returns
+        -------
+        ndarray of shape (n_levels,)
+            δ (‰), one value per diet period, the initial diet first.
         """
         return self._levels(np.asarray(theta, dtype=float))[0]
 
@@ -442,13 +511,26 @@ class TurnoverKinetics:
     def evaluate(self, t, theta, jacobian: bool = False):
         """Tissue δ at times ``t`` (and the Jacobian), without input checks.
 
+        The superposition of step responses of the module docstring, vectorised over times
+        and switches; the Jacobian is exact (analytic partial derivatives of the same
+        formulas). :meth:`predict` is the checked version.
+
         Parameters
         ----------
         t : ndarray of shape (n,)
+            Times, in the data's time unit (days by default), finite.
         theta : ndarray of shape (n_params,)
-            Natural parameters in the order of :attr:`param_names`.
-        jacobian : bool
-            Also return d δ / d theta, shape (n, n_params).
+            Natural parameters in the order of :attr:`param_names` (rates per time unit,
+            δ values and separations in ‰).
+        jacobian : bool, default=False
+            Also return d δ / d theta.
+
+        Returns
+        -------
+        y : ndarray of shape (n,)
+            Tissue δ (‰).
+        J : ndarray of shape (n, n_params)
+            d δ / d theta; returned (as ``(y, J)``) only with ``jacobian=True``.
         """
         t = np.asarray(t, dtype=float)
         theta = np.asarray(theta, dtype=float)
@@ -613,69 +695,145 @@ class TurnoverKinetics:
 
     # -- checked public evaluation ------------------------------------------------------------
     def check_theta(self, theta) -> np.ndarray:
-        """Validate a natural parameter vector; return it as a float array."""
-        theta = np.asarray(theta, dtype=float)
+        r"""Validate a natural parameter vector.
+
+        Parameters
+        ----------
+        theta : array-like of shape (n_params,)
+            Natural parameters in the order of :attr:`param_names`.
+
+        Returns
+        -------
+        ndarray of shape (n_params,)
+            ``theta`` as a float array.
+
+        Raises
+        ------
+        DataError
+            When ``theta`` has the wrong length or a non-finite value, a rate is not
+            positive, fractions are negative or do not sum to 1 (to 1e-12), or
+            ``k_growth`` makes the animal lose mass faster than the slowest pool turns
+            over (:math:`k_d + k_g < 0`, where the pool model does not hold; DESIGN §2).
+        """
+        try:
+            theta = np.asarray(theta, dtype=float)
+        except (TypeError, ValueError):
+            raise DataError(f"'theta' must be an array of {self.n_params} numbers "
+                            f"({', '.join(self.param_names)}); got {theta!r:.80}") from None
         if theta.shape != (self.n_params,):
-            raise ValueError(
+            raise DataError(
                 f"'theta' must have {self.n_params} values ({', '.join(self.param_names)}); "
                 f"got shape {theta.shape}"
             )
         if not np.all(np.isfinite(theta)):
             bad = [n for n, v in zip(self.param_names, theta) if not math.isfinite(v)]
-            raise ValueError(f"parameters must be finite; got non-finite {', '.join(bad)}")
+            raise DataError(f"'theta': parameters must be finite; got non-finite "
+                            f"{', '.join(bad)}")
         k = theta[self.rate_index]
         if np.any(k <= 0):
-            raise ValueError(f"rates must be positive; got {dict(zip(self.rate_names, k))}")
+            raise DataError(f"'theta': rates must be positive; got "
+                            f"{dict(zip(self.rate_names, k.tolist()))}")
         if self.growth_rate_index is not None:
             # DESIGN §2: mass loss only while k_d + d ln W/dt >= 0; here d ln W/dt = k_growth
             kg = float(theta[self.growth_rate_index])
             if float(np.min(k)) + kg < 0:
-                raise ValueError(
-                    f"k_growth = {kg:.4g}: the animal loses mass faster than the slowest pool "
-                    f"turns over (k_d + k_growth = {float(np.min(k)) + kg:.4g} < 0); the pool "
-                    "model does not hold there"
+                raise DataError(
+                    f"'theta': k_growth = {kg:.4g}: the animal loses mass faster than the "
+                    f"slowest pool turns over (k_d + k_growth = {float(np.min(k)) + kg:.4g} "
+                    "< 0); the pool model does not hold there"
                 )
         if self.fraction_index:
             f = theta[self.fraction_index]
             if np.any(f < 0) or abs(f.sum() - 1.0) > 1e-12:
-                raise ValueError(
-                    f"pool fractions must be non-negative and sum to 1 (to 1e-12); got "
-                    f"{f.tolist()} (sum {f.sum():.15g})"
+                raise DataError(
+                    f"'theta': pool fractions must be non-negative and sum to 1 (to 1e-12); "
+                    f"got {f.tolist()} (sum {f.sum():.15g})"
                 )
         return theta
 
     @property
     def rate_names(self) -> tuple[str, ...]:
+        """Names of the rate parameters (``k1…kn``, fastest first)."""
         return tuple(self.param_names[i] for i in self.rate_index)
 
     @property
     def fraction_names(self) -> tuple[str, ...]:
+        """Names of the pool fractions (``f1…fn``; empty for the chain)."""
         return tuple(self.param_names[i] for i in self.fraction_index)
 
     def predict(self, t, theta, jacobian: bool = False):
-        """Checked version of :meth:`evaluate`: validates ``t`` and ``theta``.
+        """Tissue δ at times ``t`` (and the Jacobian), with the inputs checked.
 
-        ``theta`` may be an array in :attr:`param_names` order or a mapping name → value.
+        Checks ``t`` and ``theta`` (:meth:`check_theta`; with a growth curve also
+        :meth:`check_mass_loss`), then calls :meth:`evaluate`.
+
+        Parameters
+        ----------
+        t : float or array-like
+            Times, in the data's time unit (days by default), finite; flattened to 1-D.
+        theta : array-like, dict or lmfit.Parameters
+            Natural parameters: an array in :attr:`param_names` order, or a mapping name →
+            value (lmfit ``Parameters`` are read through ``valuesdict()``).
+        jacobian : bool, default=False
+            Also return d δ / d theta.
+
+        Returns
+        -------
+        y : ndarray of shape (n,)
+            Tissue δ (‰).
+        J : ndarray of shape (n, n_params)
+            d δ / d theta; returned (as ``(y, J)``) only with ``jacobian=True``.
+
+        Raises
+        ------
+        DataError
+            For a missing parameter, a bad ``theta`` (see :meth:`check_theta`), non-finite
+            times, or mass loss faster than the slowest pool turns over.
         """
         if isinstance(theta, dict) or hasattr(theta, "valuesdict"):
             d = theta.valuesdict() if hasattr(theta, "valuesdict") else theta
             missing = [n for n in self.param_names if n not in d]
             if missing:
-                raise ValueError(f"parameters missing: {', '.join(missing)}")
-            theta = np.array([float(d[n]) for n in self.param_names])
+                raise DataError(f"'theta': parameters missing: {', '.join(missing)}")
+            try:
+                theta = np.array([float(d[n]) for n in self.param_names])
+            except (TypeError, ValueError):
+                raise DataError(f"'theta' values must be numbers; got "
+                                f"{ {n: d[n] for n in self.param_names}!r:.120}") from None
         theta = self.check_theta(theta)
-        t = np.asarray(t, dtype=float)
+        try:
+            t = np.asarray(t, dtype=float)
+        except (TypeError, ValueError):
+            raise DataError(f"'t' must be a number or an array of numbers; got {t!r:.80}") \
+                from None
         if t.ndim != 1:
             t = np.atleast_1d(t).ravel()
         if not np.all(np.isfinite(t)):
-            raise ValueError(f"'t' must be finite; got {int((~np.isfinite(t)).sum())} "
-                             "non-finite value(s)")
+            raise DataError(f"'t' must be finite; got {int((~np.isfinite(t)).sum())} "
+                            "non-finite value(s)")
         if self.growth_kind in ("curve", "curve_params") and self.fraction_index and t.size:
             self.check_mass_loss(theta, t)
         return self.evaluate(t, theta, jacobian=jacobian)
 
     def check_mass_loss(self, theta, t):
-        """Mass loss is allowed only while k_d + d ln W/dt >= 0 for every pool (DESIGN §2)."""
+        r"""Refuse a growth curve that loses mass faster than the slowest pool turns over.
+
+        The pool model holds only while :math:`k_d + d\ln W/dt \ge 0` for every pool
+        (DESIGN §2); checked on 201 points from the first switch (or the earliest time) to
+        the last time.
+
+        Parameters
+        ----------
+        theta : array-like of shape (n_params,)
+            Natural parameters in the order of :attr:`param_names`.
+        t : array-like
+            The times to be evaluated, in the data's time unit.
+
+        Raises
+        ------
+        DataError
+            When :math:`\min_i k_{d,i} + d\ln W/dt < 0` somewhere on that grid.
+        """
         k_min = float(np.min(np.asarray(theta)[self.rate_index]))
         lo = min(float(np.min(t)), float(self.switch_times[0]))
         hi = float(np.max(t))
@@ -684,14 +842,30 @@ class TurnoverKinetics:
         worst = float(np.min(k_min + g))
         if worst < -1e-12:
             at = float(grid[int(np.argmin(k_min + g))])
-            raise ValueError(
-                f"the growth curve loses mass faster than the slowest pool turns over: "
+            raise DataError(
+                f"'growth': the growth curve loses mass faster than the slowest pool turns over: "
                 f"k_d + d ln W/dt = {worst:.4g} < 0 at t = {at:.4g}; the pool model does not "
                 "hold there"
             )
 
     def growth_rate(self, t, theta):
-        """Specific growth rate d ln W/dt at ``t`` (0 without growth)."""
+        r"""Specific growth rate :math:`g(t) = d\ln W/dt` of the model's growth.
+
+        ``k_growth`` for exponential growth, the curve's own rate (or a central difference
+        of its log mass) for a growth curve, 0 without growth.
+
+        Parameters
+        ----------
+        t : float or array-like
+            Times, in the data's time unit (days by default).
+        theta : array-like of shape (n_params,)
+            Natural parameters in the order of :attr:`param_names`.
+
+        Returns
+        -------
+        ndarray
+            :math:`d\ln W/dt` (per time unit, /d for days), shaped like ``t``.
+        """
         t = np.asarray(t, dtype=float)
         theta = np.asarray(theta, dtype=float)
         if self.growth_kind is None:
@@ -703,7 +877,24 @@ class TurnoverKinetics:
         return _growth_rate(self.growth, t)
 
     def log_mass(self, t, theta):
-        """ln W(t) up to a constant for exponential growth (ln W0 not a parameter)."""
+        r"""Log body mass :math:`\ln W(t)` under the model's growth.
+
+        Exponential growth: :math:`k_g t` (up to the constant :math:`\ln W_0`, not a
+        parameter); a growth curve: its log mass; no growth: 0. Only differences of it
+        enter the model (the dilution factor :math:`W(s)/W(t)`).
+
+        Parameters
+        ----------
+        t : float or array-like
+            Times, in the data's time unit (days by default).
+        theta : array-like of shape (n_params,)
+            Natural parameters in the order of :attr:`param_names`.
+
+        Returns
+        -------
+        ndarray
+            :math:`\ln W` (mass in the masses' unit), shaped like ``t``.
+        """
         t = np.asarray(t, dtype=float)
         theta = np.asarray(theta, dtype=float)
         if self.growth_kind == "exponential":
@@ -715,7 +906,24 @@ class TurnoverKinetics:
         return np.zeros_like(t)
 
     def remaining(self, tau, theta):
-        """1 − F after a single unit step (no growth curve, no lag) for these parameters."""
+        r"""Fraction of a single step change still to come, :math:`1 - F(\tau)`.
+
+        :func:`remaining_parallel` with the incorporation rates :math:`k_i + k_g`
+        (exponential growth), or :func:`remaining_chain`; a growth curve and the lag are not
+        applied (see :func:`isoturnover.quantities.remaining_after_switch` for the curve).
+
+        Parameters
+        ----------
+        tau : float or array-like
+            Time since the switch, in the data's time unit (days by default).
+        theta : array-like of shape (n_params,)
+            Natural parameters in the order of :attr:`param_names`.
+
+        Returns
+        -------
+        float or ndarray
+            :math:`1 - F` (dimensionless), shaped like ``tau``.
+        """
         theta = np.asarray(theta, dtype=float)
         k = theta[self.rate_index]
         if self.structure == "chain":

@@ -16,6 +16,7 @@ import warnings
 import lmfit
 import numpy as np
 
+from .conventions import check_choice
 from .diet import DietHistory
 from .engine import (
     LOSSES,
@@ -72,6 +73,17 @@ class TurnoverModel:
         Tissue at equilibrium with the first diet, or ``delta0`` fitted at the first switch.
     per_diet_separation : bool, default=False
         One separation per distinct diet value.
+    propagate_growth : bool, default=True
+        With a fitted growth curve that carries a covariance, fit its parameters jointly
+        (``growth_<p>``, held near their growth-fit values by a Gaussian penalty) so that
+        the curve's uncertainty reaches the turnover rates; ``False`` uses the curve as
+        fixed.
+
+    Raises
+    ------
+    DataError
+        From :attr:`kinetics`, :meth:`make_params` or :meth:`fit` when an option is not
+        valid (the constructor itself only stores them).
 
     Examples
     --------
@@ -102,7 +114,16 @@ class TurnoverModel:
 
     # -- configuration ------------------------------------------------------------------
     def config(self) -> dict:
-        """The configuration as a JSON-safe dict (growth curves as their own dicts)."""
+        """The model's configuration as a JSON-safe dict, to store beside a fit.
+
+        Returns
+        -------
+        dict
+            The constructor's arguments by name (``pools``, ``structure``, ``growth``,
+            ``lag``, ``diet``, ``separation``, ``scale``, ``isotope``, ``initial``,
+            ``per_diet_separation``, ``propagate_growth``); a diet history as its
+            ``to_dict()``, a growth curve object as ``{"curve": curve.to_dict()}``.
+        """
         g = self.growth
         if g is not None and not isinstance(g, str):
             g = {"curve": g.to_dict()} if hasattr(g, "to_dict") else {"curve": repr(g)}
@@ -128,8 +149,20 @@ class TurnoverModel:
 
     @property
     def kinetics(self) -> TurnoverKinetics:
-        """The kinetic model for this configuration (built once, rebuilt when an attribute
-        of the model changes)."""
+        """The kinetic model (forward model and exact Jacobian) of this configuration.
+
+        Built on first access and rebuilt when an attribute of the model changes.
+
+        Returns
+        -------
+        TurnoverKinetics
+
+        Raises
+        ------
+        DataError
+            When ``pools`` is not an integer from 1 to 4 (parallel structure), ``diet`` is
+            not a :class:`~isoturnover.DietHistory`, or another option is not valid.
+        """
         key = self._config_key()
         if self._kin is None or self._kin_key != key:
             self._kin = None
@@ -138,11 +171,11 @@ class TurnoverModel:
                 isinstance(pools, bool) or not isinstance(pools, (int, np.integer))
                 or not 1 <= pools <= MAX_POOLS
             ):
-                raise ValueError(
+                raise DataError(
                     f"'pools' must be an integer from 1 to {MAX_POOLS}; got {pools!r}"
                 )
             if self.diet is not None and not isinstance(self.diet, DietHistory):
-                raise TypeError(
+                raise DataError(
                     f"'diet' must be a DietHistory or None; got {type(self.diet).__name__}"
                 )
             self._kin = TurnoverKinetics(
@@ -163,6 +196,14 @@ class TurnoverModel:
 
     @property
     def param_names(self) -> tuple[str, ...]:
+        """Names of the model's natural parameters, in the kinetics' order.
+
+        Returns
+        -------
+        tuple of str
+            For example ``("delta0", "delta_eq", "k1", "k2", "f1", "f2")`` for two pools
+            after a step switch (rates in 1/time unit, levels in ‰, fractions unitless).
+        """
         return self.kinetics.param_names
 
     def make_params(self, **values) -> lmfit.Parameters:
@@ -188,6 +229,14 @@ class TurnoverModel:
         Returns
         -------
         lmfit.Parameters
+            One parameter per name of :attr:`param_names`, with the bounds and expressions
+            above; rates in 1/time unit, levels and separations in ‰.
+
+        Raises
+        ------
+        DataError
+            When a name in ``values`` is not a parameter of this model, or a value is not
+            finite.
 
         Examples
         --------
@@ -302,7 +351,13 @@ class TurnoverModel:
         return fixed, init, ties, bounds
 
     def describe(self) -> str:
-        """One line naming the model structure."""
+        """One line naming the model structure, for summaries and reports.
+
+        Returns
+        -------
+        str
+            For example ``"2 pools; step switch at t = 0"``.
+        """
         kin = self.kinetics
         if kin.structure == "chain":
             s = "precursor–product chain (2 steps)"
@@ -390,14 +445,22 @@ class TurnoverModel:
         Returns
         -------
         TurnoverFit
+            The finished fit: estimates, covariance, intervals on request, trust notes.
+
+        Raises
+        ------
+        DataError
+            For data or options that cannot be used (names the argument): an unknown
+            ``loss``, ``absolute_sigma`` without ``sigma``, exponential growth without
+            masses or a fixed ``k_growth``, ``masses`` without exponential growth, more
+            free parameters than time points, unknown names in ``fixed``/``init``/``params``.
+        FitError
+            When no start leads to a finite fit.
         """
         data = prepare_data(t_or_frame, y, sigma, time_unit)
-        if loss not in LOSSES:
-            raise ValueError(
-                f"'loss' must be one of {', '.join(repr(x) for x in LOSSES)}; got {loss!r}"
-            )
+        check_choice("loss", loss, LOSSES)
         if absolute_sigma and data["sigma"] is None:
-            raise ValueError("absolute_sigma=True needs 'sigma' (the known analytic sd)")
+            raise DataError("absolute_sigma=True needs 'sigma' (the known analytic sd)")
         kin = self.kinetics
         fixed = check_names(fixed, kin, "fixed")
         init = check_names(init, kin, "init")
@@ -414,13 +477,13 @@ class TurnoverModel:
             init = {**{k: v for k, v in p_init.items() if k not in fixed}, **init}
         tie_map = Ties(kin, ties) if ties else None
         if kin.growth_kind == "exponential" and masses is None and "k_growth" not in fixed:
-            raise ValueError(
+            raise DataError(
                 "growth='exponential' needs body masses (masses=(t_mass, mass)) or a fixed "
                 "'k_growth' (fixed={'k_growth': ...}); without them growth and catabolic "
                 "turnover cannot be told apart"
             )
         if masses is not None and kin.growth_kind != "exponential":
-            raise ValueError(
+            raise DataError(
                 "'masses' is used with growth='exponential' (joint fit); for other growth "
                 "curves fit them first with iso.fit_growth and pass the result as growth="
             )
@@ -435,9 +498,9 @@ class TurnoverModel:
             check_growth_coverage(kin, data["t"])
         n_free = Coordinates(kin, fixed, ties=tie_map, bounds=bounds).size
         if n_free > data["t"].size:
-            raise ValueError(
+            raise DataError(
                 f"the model has {n_free} free parameters but only {data['t'].size} time "
-                "points; fix parameters or use fewer pools"
+                "points in 't'; fix parameters or use fewer pools"
             )
         engine = Engine(kin, data, absolute_sigma=absolute_sigma, loss=loss, masses=masses,
                         ties=tie_map, bounds=bounds)
@@ -473,13 +536,25 @@ def fit_power_dilution(mass, y, sigma=None, *, mass0=None, absolute_sigma=False,
     sigma : array-like, optional
         Analytic sd (relative weights unless ``absolute_sigma``).
     mass0 : float, optional
-        Mass at the diet switch (default: the smallest mass).
+        Mass at the diet switch, in the unit of ``mass`` (default: the smallest mass).
+    absolute_sigma : bool, default=False
+        Treat ``sigma`` as the known analytic sd (no rescaling of the covariance).
+    label : str, optional
+        Name of the fit in summaries (default ``"power form (Fry & Arnold 1982)"``).
 
     Returns
     -------
     (TurnoverFit, DataFrame)
         The fit, and a one-row table of the exponent ``c`` with its interval (columns
         quantity, estimate, lower, upper, level, method, lower_status, upper_status).
+        The interval of ``c`` is the profile-likelihood interval of ``k1`` with its sign
+        changed (bounds and their statuses swapped).
+
+    Raises
+    ------
+    DataError
+        When a mass is not positive, ``mass0`` is not positive, or a mass lies below
+        ``mass0``.
     """
     m = as_1d("mass", mass)
     if np.any(m <= 0):

@@ -23,7 +23,7 @@ import warnings
 
 import numpy as np
 
-from .errors import IsoturnoverWarning
+from .errors import DataError, IsoturnoverWarning
 
 __all__ = [
     "OKABE_ITO",
@@ -82,7 +82,7 @@ def _color(i):
 def _new_axes(ax, size=SINGLE):
     if ax is not None:
         if not hasattr(ax, "plot") or not hasattr(ax, "figure"):
-            raise TypeError(f"'ax' must be a matplotlib Axes or None; got {type(ax).__name__}")
+            raise DataError(f"'ax' must be a matplotlib Axes or None; got {type(ax).__name__}")
         return ax
     import matplotlib.pyplot as plt
 
@@ -243,7 +243,7 @@ def _check_fit(fit, fname):
     from .results import TurnoverFit
 
     if not isinstance(fit, TurnoverFit):
-        raise TypeError(f"{fname}: 'fit' must be a TurnoverFit (from TurnoverModel.fit); got "
+        raise DataError(f"{fname}: 'fit' must be a TurnoverFit (from TurnoverModel.fit); got "
                         f"{type(fit).__name__}")
     return fit
 
@@ -264,6 +264,17 @@ def delta_label(isotope) -> str:
         Isotope code (``"d13C"``, ``"d15N"``, ``"d34S"``, ``"d2H"``, ``"d18O"``). ``None``
         gives the generic ``"δ (‰)"``.
 
+    Returns
+    -------
+    str
+        The δ symbol with the isotope as superscript mass number and element, then ‰ and
+        the international scale of its reference ratio (VPDB, AIR, VCDT, VSMOW).
+
+    Raises
+    ------
+    DataError
+        When ``isotope`` is not a known isotope code.
+
     Examples
     --------
     >>> delta_label("d15N")
@@ -277,8 +288,8 @@ def delta_label(isotope) -> str:
 
     code = str(isotope)
     if code not in ISOTOPES:
-        raise ValueError(f"'isotope' must be one of {', '.join(map(repr, ISOTOPES))} or None; "
-                         f"got {isotope!r}")
+        raise DataError(f"'isotope' must be one of {', '.join(map(repr, ISOTOPES))} or None; "
+                        f"got {isotope!r}")
     m = re.fullmatch(r"d(\d+)([A-Z][a-z]?)", code)
     name = f"δ{m.group(1).translate(_SUP)}{m.group(2)}" if m else code
     return f"{name} (‰, {ISOTOPES[code].scale})"
@@ -335,6 +346,7 @@ def plot_fit(fit, ax=None, *, band=True, level=0.95, show_switches=True, show_fl
     Parameters
     ----------
     fit : TurnoverFit
+        A fit from :meth:`~isoturnover.TurnoverModel.fit`.
     ax : matplotlib Axes, optional
         Drawn on when given; else a new 3.5 × 2.6 in figure.
     band : bool, default=True
@@ -356,6 +368,12 @@ def plot_fit(fit, ax=None, *, band=True, level=0.95, show_switches=True, show_fl
     Returns
     -------
     matplotlib Axes
+        The Axes drawn on: time in the data's unit against δ (‰).
+
+    Raises
+    ------
+    DataError
+        When ``fit`` is not a TurnoverFit, ``ax`` not an Axes or ``level`` not in (0, 1).
 
     Notes
     -----
@@ -376,7 +394,7 @@ def plot_fit(fit, ax=None, *, band=True, level=0.95, show_switches=True, show_fl
     fitted = fit.predict(grid)
     name = None if label is None else str(label)
     if band:
-        from .uncertainty import band as _band
+        from .bands import band as _band
 
         b = _band(fit, grid, level=level, kind="confidence")
         lower = np.asarray(b["lower"], dtype=float)
@@ -423,7 +441,9 @@ def plot_residuals(fit, ax=None, studentized=True):
     Parameters
     ----------
     fit : TurnoverFit
+        A fit from :meth:`~isoturnover.TurnoverModel.fit`.
     ax : matplotlib Axes, optional
+        Drawn on when given; else a new 3.5 × 2.6 in figure.
     studentized : bool, default=True
         Internally studentised residuals :math:`r_i/(s\sqrt{1-h_{ii}})` (dimensionless;
         guides at ±2 and ±3). ``False``: raw residuals y − ŷ in ‰ with guides at
@@ -433,10 +453,17 @@ def plot_residuals(fit, ax=None, studentized=True):
     Returns
     -------
     matplotlib Axes
+        The Axes drawn on. Flagged points (see :func:`plot_fit`) are ringed.
+
+    Raises
+    ------
+    DataError
+        When ``fit`` is not a TurnoverFit, ``ax`` not an Axes or ``studentized`` not a
+        bool.
     """
     fit = _check_fit(fit, "plot_residuals")
     if not isinstance(studentized, (bool, np.bool_)):
-        raise TypeError(f"'studentized' must be True or False; got {studentized!r}")
+        raise DataError(f"'studentized' must be True or False; got {studentized!r}")
     ax = _new_axes(ax)
     infl = fit.influence()
     t = fit.t
@@ -515,16 +542,20 @@ def plot_progress(fit, ax=None):
     Parameters
     ----------
     fit : TurnoverFit
+        A fit from :meth:`~isoturnover.TurnoverModel.fit`.
     ax : matplotlib Axes, optional
+        Drawn on when given; else a new 3.5 × 2.6 in figure.
 
     Returns
     -------
     matplotlib Axes
+        The Axes drawn on: time since the switch against :math:`\ln(1 - F)`.
 
     Raises
     ------
-    ValueError
-        When no sample lies in the first switch's period.
+    DataError
+        When no sample lies in the first switch's period, or ``fit``/``ax`` are of the
+        wrong kind.
     """
     import matplotlib.transforms as mtransforms
     from matplotlib.lines import Line2D
@@ -540,8 +571,8 @@ def plot_progress(fit, ax=None):
     n_after = int(np.sum(t > s1))
     if not inside.any():
         end = f"the second switch (t = {s1:g})" if np.isfinite(s1) else "the last sample"
-        raise ValueError(f"plot_progress: no sample between the first switch (t = {s0:g}) and "
-                         f"{end}; the reaction progress plot needs samples after a switch")
+        raise DataError(f"plot_progress: no sample between the first switch (t = {s0:g}) and "
+                        f"{end}; the reaction progress plot needs samples after a switch")
     tt, yy = t[inside], fit.y[inside]
     sd = None if fit.sigma is None else fit.sigma[inside]
     tab = reaction_progress(tt, yy, delta0=d0, delta_eq=deq, sd=sd)
@@ -639,13 +670,23 @@ def plot_pools(fit, ax=None, *, t_max=None):
     Parameters
     ----------
     fit : TurnoverFit
+        A fit from :meth:`~isoturnover.TurnoverModel.fit`.
     ax : matplotlib Axes, optional
+        Drawn on when given; else a new 3.5 × 2.6 in figure.
     t_max : float, optional
-        End of the time axis (time since the switch; default the last sample's).
+        End of the time axis, in the data's time unit (time since the switch; default the
+        last sample's).
 
     Returns
     -------
     matplotlib Axes
+        The Axes drawn on: time since the switch against the share of the change to come
+        (0–1).
+
+    Raises
+    ------
+    DataError
+        When ``t_max`` is not a positive number, or ``fit``/``ax`` are of the wrong kind.
     """
     fit = _check_fit(fit, "plot_pools")
     ax = _new_axes(ax)
@@ -658,9 +699,9 @@ def plot_pools(fit, ax=None, *, t_max=None):
     try:
         t_max = float(t_max)
     except (TypeError, ValueError):
-        raise ValueError(f"'t_max' must be a positive number; got {t_max!r}") from None
+        raise DataError(f"'t_max' must be a positive number; got {t_max!r}") from None
     if not (math.isfinite(t_max) and t_max > 0):
-        raise ValueError(f"'t_max' must be a positive number; got {t_max!r}")
+        raise DataError(f"'t_max' must be a positive number; got {t_max!r}")
     tau = np.linspace(0.0, t_max, 400)
     unit = _unit(fit)
     theta = np.array([v[n] for n in kin.param_names])
@@ -705,11 +746,13 @@ def _share_values(obj, n):
         for col in ("growth_share", "share"):
             if col in obj.columns:
                 return np.asarray(obj[col], dtype=float)
-        raise ValueError("growth_share_curve(t) returned a table without a 'growth_share' "
-                         f"or 'share' column (columns: {', '.join(map(str, obj.columns))})")
+        raise DataError("plot_growth: 'turnover_fit'.growth_share_curve(t) returned a table "
+                        "without a 'growth_share' or 'share' column (columns: "
+                        f"{', '.join(map(str, obj.columns))})")
     a = np.asarray(obj, dtype=float).ravel()
     if a.size != n:
-        raise ValueError(f"growth_share_curve(t) returned {a.size} values for {n} times")
+        raise DataError(f"plot_growth: 'turnover_fit'.growth_share_curve(t) returned {a.size} "
+                        f"values for {n} times")
     return a
 
 
@@ -721,6 +764,7 @@ def plot_growth(growth_fit, ax=None, *, turnover_fit=None, mass_unit=None, time_
     growth_fit : GrowthFit
         From :func:`isoturnover.fit_growth` (needs ``t``, ``mass`` and ``predict(t)``).
     ax : matplotlib Axes, optional
+        Drawn on when given; else a new 3.5 × 2.6 in figure.
     turnover_fit : TurnoverFit, optional
         A turnover fit with growth dilution. When it offers ``growth_share_curve(t)`` (the
         part of the change up to t that growth alone would have produced, divided by the
@@ -734,17 +778,23 @@ def plot_growth(growth_fit, ax=None, *, turnover_fit=None, mass_unit=None, time_
     -------
     matplotlib Axes
         The mass axis (the share axis, when drawn, is its twin: ``ax.right_ax``).
+
+    Raises
+    ------
+    DataError
+        When ``growth_fit`` lacks ``t``, ``mass`` or ``predict``, ``turnover_fit`` is not a
+        TurnoverFit with growth dilution, or its share curve has the wrong length.
     """
     for attr in ("t", "mass", "predict"):
         if not hasattr(growth_fit, attr):
-            raise TypeError(f"plot_growth: 'growth_fit' must be a GrowthFit (from fit_growth) "
+            raise DataError(f"plot_growth: 'growth_fit' must be a GrowthFit (from fit_growth) "
                             f"with t, mass and predict(); got {type(growth_fit).__name__}, "
                             f"which lacks {attr!r}")
     if turnover_fit is not None:
         _check_fit(turnover_fit, "plot_growth")
         if turnover_fit.rate_kind != "catabolic":
-            raise ValueError("plot_growth: 'turnover_fit' has no growth model (its rates are "
-                             "incorporation rates); pass a fit made with growth=…")
+            raise DataError("plot_growth: 'turnover_fit' has no growth model (its rates are "
+                            "incorporation rates); pass a fit made with growth=…")
     unit_code = time_unit or (turnover_fit.time_unit if turnover_fit is not None else "d")
     ax = _new_axes(ax)
     t = np.asarray(growth_fit.t, dtype=float)
@@ -813,14 +863,20 @@ def plot_weights(fitset, ax=None):
     Returns
     -------
     matplotlib Axes
+        The Axes drawn on: one horizontal bar per series, weights 0–1 along x.
+
+    Raises
+    ------
+    DataError
+        When ``fitset`` is not a FitSet or holds no series.
     """
     from .groups import FitSet
 
     if not isinstance(fitset, FitSet):
-        raise TypeError(f"plot_weights: 'fitset' must be a FitSet (from fit_each); got "
+        raise DataError(f"plot_weights: 'fitset' must be a FitSet (from fit_each); got "
                         f"{type(fitset).__name__}")
     if len(fitset) == 0:
-        raise ValueError("plot_weights: 'fitset' holds no series")
+        raise DataError("plot_weights: 'fitset' holds no series")
     n = len(fitset)
     longest = max(len(" / ".join(map(str, k))) for k in fitset)
     width = SINGLE[0] if longest <= 22 else DOUBLE[0]  # long labels: a two-column figure
@@ -880,6 +936,7 @@ def plot_overview(fit, *, level=0.95):
     Parameters
     ----------
     fit : TurnoverFit
+        A fit from :meth:`~isoturnover.TurnoverModel.fit`.
     level : float, default=0.95
         Level of the confidence band in panel (a).
 

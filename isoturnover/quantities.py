@@ -21,15 +21,31 @@ __all__ = [
     "mean_residence_time_grad",
     "log_mass_ratio",
     "growth_share_at",
+    "growth_share_instant",
 ]
 
 
 def remaining_after_switch(kin, tau, theta):
-    r"""1 − F a time ``tau`` after the first switch (no lag), growth curves included.
+    r"""Fraction of a step change still to come a time ``tau`` after the first switch.
 
-    Parallel pools :math:`\sum_i f_i e^{-\kappa_i\tau}` with :math:`\kappa_i = k_i (+k_g)`;
-    the chain's two-step response; with a growth curve the old material left is further
-    multiplied by :math:`W(s)/W(s+\tau)` (DESIGN §2).
+    Parallel pools :math:`1 - F = \sum_i f_i e^{-\kappa_i\tau}` with
+    :math:`\kappa_i = k_i (+k_g)`; the chain's two-step response; with a growth curve the
+    old material left is further multiplied by :math:`W(s)/W(s+\tau)` (growth dilution,
+    Hesslein et al. 1993; DESIGN §2). The lag is not applied.
+
+    Parameters
+    ----------
+    kin : TurnoverKinetics
+        The model (:class:`~isoturnover.kinetics.TurnoverKinetics`).
+    tau : float or array-like
+        Time since the first switch, in the data's time unit (days by default).
+    theta : ndarray of shape (n_params,)
+        Natural parameters in the order of ``kin.param_names`` (rates per time unit).
+
+    Returns
+    -------
+    float or ndarray
+        :math:`1 - F` (dimensionless), shaped like ``tau``.
     """
     rem = kin.remaining(tau, theta)
     if kin.growth_kind in ("curve", "curve_params"):
@@ -50,9 +66,25 @@ def _incorporation_rates(kin, theta):
 def time_to(kin, p: float, theta) -> float:
     r"""Time after the switch for the tissue to make a fraction ``p`` of a step change.
 
-    One pool :math:`-\ln(1-p)/\kappa` (4.32 half-lives for p = 0.95); several pools, the
-    chain and growth curves: the root of :math:`1 - F(\tau) = 1 - p` (Brent's method);
-    plus the lag.
+    One pool :math:`-\ln(1-p)/\kappa` (4.32 half-lives for p = 0.95; DESIGN §2); several
+    parallel pools: the root of :math:`\sum_i f_i e^{-\kappa_i\tau} = 1 - p` by Newton's
+    method from τ = 0 (monotone for a convex decreasing function); the chain, growth curves
+    and any case Newton does not settle: the root of :math:`1 - F(\tau) = 1 - p` by Brent's
+    method (``scipy.optimize.brentq``); plus the lag. :math:`\kappa_i = k_i (+k_g)`.
+
+    Parameters
+    ----------
+    kin : TurnoverKinetics
+        The model (:class:`~isoturnover.kinetics.TurnoverKinetics`).
+    p : float
+        Fraction of the change, in (0, 1) (0.5 gives the half-life of one pool).
+    theta : ndarray of shape (n_params,)
+        Natural parameters in the order of ``kin.param_names`` (rates per time unit).
+
+    Returns
+    -------
+    float
+        Time from the switch, in the data's time unit (days by default).
     """
     target = 1.0 - p
     lag = theta[kin.lag_index] if kin.lag_index is not None else 0.0
@@ -82,13 +114,20 @@ def _parallel_root(ks, f, target):
     convex function lies below it). Returns None when the iteration does not settle (a pool
     of rate ~0 holding more than ``target``), and the caller falls back to bracketing.
     """
-    if np.any(f < 0) or not 0 < target < 1:
+    kl = [float(v) for v in ks]
+    fl = [float(v) for v in f]
+    if any(v < 0 for v in fl) or not 0 < target < 1:
         return None
+    # plain floats: a handful of pools, where numpy's per-call cost would dominate
     tau = 0.0
+    pairs = list(zip(fl, kl))
     for _ in range(200):
-        e = f * np.exp(-ks * tau)
-        R = float(e.sum())
-        dR = -float((ks * e).sum())
+        R = 0.0
+        dR = 0.0
+        for fi, ki in pairs:
+            e = fi * math.exp(-ki * tau)
+            R += e
+            dR -= ki * e
         if not (dR < 0 and math.isfinite(R)):
             return None
         step = (R - target) / -dR
@@ -104,6 +143,22 @@ def time_to_grad(kin, p: float, tau_total: float, theta) -> np.ndarray:
     With :math:`R(\tau) = \sum_i f_i e^{-\kappa_i \tau} = 1 - p`, the implicit function
     theorem gives :math:`\partial\tau/\partial\theta = -(\partial R/\partial\theta)/
     (\partial R/\partial\tau)`; the lag adds 1.
+
+    Parameters
+    ----------
+    kin : TurnoverKinetics
+        The model (:class:`~isoturnover.kinetics.TurnoverKinetics`).
+    p : float
+        Fraction of the change, in (0, 1).
+    tau_total : float
+        The value of :func:`time_to` at ``theta`` (lag included), in the data's time unit.
+    theta : ndarray of shape (n_params,)
+        Natural parameters in the order of ``kin.param_names`` (rates per time unit).
+
+    Returns
+    -------
+    ndarray of shape (n_params,)
+        :math:`\partial\tau/\partial\theta` (time unit per unit of each parameter).
     """
     g = np.zeros(theta.size)
     lag = theta[kin.lag_index] if kin.lag_index is not None else 0.0
@@ -125,10 +180,26 @@ def time_to_grad(kin, p: float, tau_total: float, theta) -> np.ndarray:
 def mean_residence_time(kin, theta, span: float = 1.0) -> float:
     r"""Mean residence time of the step response, :math:`\int_0^\infty (1-F)\,d\tau`.
 
-    Parallel pools :math:`\sum_i f_i/\kappa_i`; chain :math:`1/k_1 + 1/k_2`; with a growth
-    curve the integral is taken numerically (``scipy.integrate.quad``) from the first
-    switch, and is infinite when the old material never leaves; plus the lag. ``span`` (the
-    sampling span) sets how far the numerical integral may look.
+    Parallel pools :math:`\sum_i f_i/\kappa_i`; chain :math:`1/k_1 + 1/k_2` (the integrals
+    of the exponential responses, by hand); with a growth curve the integral is taken
+    numerically (``scipy.integrate.quad``) from the first switch, and is infinite when the
+    old material never leaves; plus the lag.
+
+    Parameters
+    ----------
+    kin : TurnoverKinetics
+        The model (:class:`~isoturnover.kinetics.TurnoverKinetics`).
+    theta : ndarray of shape (n_params,)
+        Natural parameters in the order of ``kin.param_names`` (rates per time unit).
+    span : float, default=1.0
+        The sampling span (time unit); with a growth curve the numerical integral looks at
+        most :math:`10^6` spans ahead.
+
+    Returns
+    -------
+    float
+        Mean residence time, in the data's time unit (days by default); ``inf`` when old
+        material stays for good.
     """
     v = np.asarray(theta, dtype=float)
     ks = _incorporation_rates(kin, v)
@@ -156,7 +227,24 @@ def mean_residence_time(kin, theta, span: float = 1.0) -> float:
 
 
 def mean_residence_time_grad(kin, theta) -> np.ndarray:
-    """Gradient of :func:`mean_residence_time` in natural parameters (no growth curve)."""
+    r"""Gradient of :func:`mean_residence_time` in natural parameters (no growth curve).
+
+    :math:`\partial/\partial k_i = -f_i/\kappa_i^2`, :math:`\partial/\partial f_i =
+    1/\kappa_i` (chain: :math:`-1/k_i^2`), :math:`\partial/\partial k_g = \sum_i
+    \partial/\partial k_i`, :math:`\partial/\partial\,\mathrm{lag} = 1` (by hand).
+
+    Parameters
+    ----------
+    kin : TurnoverKinetics
+        The model (:class:`~isoturnover.kinetics.TurnoverKinetics`).
+    theta : ndarray of shape (n_params,)
+        Natural parameters in the order of ``kin.param_names`` (rates per time unit).
+
+    Returns
+    -------
+    ndarray of shape (n_params,)
+        The gradient (time unit per unit of each parameter).
+    """
     g = np.zeros(theta.size)
     ks = _incorporation_rates(kin, theta).astype(float)
     if kin.structure == "chain":
@@ -174,22 +262,148 @@ def mean_residence_time_grad(kin, theta) -> np.ndarray:
 
 
 def log_mass_ratio(kin, t0: float, t1: float, theta) -> float:
-    """ln W(t1) − ln W(t0) under the model's growth."""
+    """Log mass ratio :math:`\\ln W(t_1) - \\ln W(t_0)` under the model's growth.
+
+    Parameters
+    ----------
+    kin : TurnoverKinetics
+        The model (:class:`~isoturnover.kinetics.TurnoverKinetics`).
+    t0, t1 : float
+        The two times, in the data's time unit.
+    theta : ndarray of shape (n_params,)
+        Natural parameters in the order of ``kin.param_names`` (rates per time unit).
+
+    Returns
+    -------
+    float
+        :math:`\\ln(W(t_1)/W(t_0))` (0 without growth).
+    """
     lw = kin.log_mass(np.array([t0, t1], dtype=float), theta)
     return float(lw[1] - lw[0])
 
 
-def growth_share_at(kin, T: float, theta) -> float:
-    """Tissue growth share up to T after the first switch (DESIGN §2)."""
+# Gauss–Legendre nodes on [0, 1] and panels that halve towards the switch: the integrand
+# of the growth share decays like e^{-k τ}, so the panels near τ = 0 are the narrow ones
+_GL_X, _GL_W = np.polynomial.legendre.leggauss(24)
+_GL_X, _GL_W = 0.5 * (_GL_X + 1.0), 0.5 * _GL_W
+_PANEL_EDGES = np.r_[0.0, 2.0 ** -np.arange(12, -1, -1.0)]
+
+
+def _share_parts(kin, T: float, theta):
+    r"""(growth part, whole change) of the tissue's change up to ``T``, both per unit of
+    the total change :math:`\delta_{in} - \delta_0`; None at or before the switch."""
     s0 = float(kin.switch_times[0])
     if kin.lag_index is not None:
         s0 += float(theta[kin.lag_index])
     tau = T - s0
     if tau <= 0:
+        return None
+    k = np.asarray(theta[kin.rate_index], dtype=float)
+    f = np.asarray(theta[kin.fraction_index], dtype=float) if kin.fraction_index else \
+        np.ones(1)
+    D_T = math.exp(-log_mass_ratio(kin, s0, T, theta))  # W(s)/W(T)
+    whole = 1.0 - D_T * float(f @ np.exp(-k * tau))
+    if kin.growth_rate_index is not None:  # exponential growth: closed form
+        kg = float(theta[kin.growth_rate_index])
+        kappa = k + kg
+        with np.errstate(divide="ignore", invalid="ignore"):
+            integral = np.where(np.abs(kappa * tau) > 1e-12,
+                                -np.expm1(-kappa * tau) / kappa, tau)
+        return kg * float(f @ integral), whole
+    # a growth curve: composite Gauss–Legendre on panels [τ 2^-(j+1), τ 2^-j]
+    a, b = _PANEL_EDGES[:-1] * tau, _PANEL_EDGES[1:] * tau
+    x = (a[:, None] + (b - a)[:, None] * _GL_X[None, :]).ravel()  # times since s
+    wq = ((b - a)[:, None] * _GL_W[None, :]).ravel()
+    t = s0 + x
+    lw = kin.log_mass(np.r_[s0, t], theta)
+    D = np.exp(lw[0] - lw[1:])  # W(s)/W(t)
+    kg = kin.growth_rate(t, theta)
+    integrand = kg * D * (f @ np.exp(-np.outer(k, x)))
+    return float(wq @ integrand), whole
+
+
+def growth_share_at(kin, T: float, theta) -> float:
+    r"""Share of the tissue's isotopic change up to ``T`` carried by the growth flux.
+
+    Each pool follows :math:`d\delta_i/dt = (k_i + k_g(t))(\delta_{in} - \delta_i)`
+    with :math:`k_g = d\ln W/dt` (Hesslein et al. 1993, *Can. J. Fish. Aquat. Sci.*
+    50:2071–2076, journal details from memory: new tissue is laid down at the diet's
+    value, old tissue is replaced at the catabolic rate). The share is the part of the
+    change due to the growth term,
+
+    .. math::
+
+        \text{share}(T) = \frac{\int_s^T k_g(t) \sum_i f_i (\delta_{in} -
+        \delta_i(t))\,dt}{\delta(T) - \delta(s)}
+        = \frac{\int_s^T k_g(t) D(t) \sum_i f_i e^{-k_i (t-s)}\,dt}
+        {1 - D(T) \sum_i f_i e^{-k_i (T-s)}},
+
+    with :math:`D(t) = W(s)/W(t)` and :math:`s` the first switch (plus the lag). For one
+    pool and exponential growth it equals :math:`k_g/(k_g + k_d)` at every T (Hesslein et
+    al. 1993); for exponential growth the integral is in closed form, for a growth curve
+    it is computed by composite Gauss–Legendre quadrature (24 nodes on 13 panels that
+    halve towards the switch; relative error below 1e-10 for rates up to 1e4 per span).
+
+    Parameters
+    ----------
+    kin : TurnoverKinetics
+        The model (:class:`~isoturnover.kinetics.TurnoverKinetics`).
+    T : float
+        Time up to which the share is taken, in the data's time unit.
+    theta : ndarray of shape (n_params,)
+        Natural parameters in the order of ``kin.param_names`` (rates per time unit).
+
+    Returns
+    -------
+    float
+        The share (dimensionless, 0–1 while the animal grows); NaN at or before the
+        switch, or when there is no change.
+    """
+    parts = _share_parts(kin, T, theta)
+    if parts is None:
         return math.nan
-    ratio = math.exp(-log_mass_ratio(kin, s0, T, theta))  # W(s)/W(T)
-    k = theta[kin.rate_index]
-    f = theta[kin.fraction_index]
-    growth_alone = 1.0 - ratio
-    whole = 1.0 - ratio * float(np.sum(f * np.exp(-k * tau)))
-    return growth_alone / whole if whole > 0 else math.nan
+    growth, whole = parts
+    return growth / whole if whole != 0 and math.isfinite(whole) else math.nan
+
+
+def growth_share_instant(kin, t, theta) -> np.ndarray:
+    r"""Instantaneous share of the rate of isotopic change carried by the growth flux.
+
+    .. math::
+
+        \frac{k_g(t) \sum_i f_i (\delta_{in} - \delta_i)}{d\delta/dt}
+        = \frac{k_g(t) \sum_i f_i e^{-k_i (t-s)}}
+        {\sum_i f_i (k_i + k_g(t)) e^{-k_i (t-s)}}
+
+    (the dilution factor :math:`W(s)/W(t)` cancels). For one pool it is
+    :math:`k_g(t)/(k_g(t) + k_d)`.
+
+    Parameters
+    ----------
+    kin : TurnoverKinetics
+        The model.
+    t : array-like
+        Times, in the data's time unit.
+    theta : ndarray of shape (n_params,)
+        Natural parameters.
+
+    Returns
+    -------
+    ndarray
+        The share at each time; NaN at or before the switch.
+    """
+    t = np.atleast_1d(np.asarray(t, dtype=float))
+    s0 = float(kin.switch_times[0])
+    if kin.lag_index is not None:
+        s0 += float(theta[kin.lag_index])
+    x = t - s0
+    k = np.asarray(theta[kin.rate_index], dtype=float)
+    f = np.asarray(theta[kin.fraction_index], dtype=float) if kin.fraction_index else \
+        np.ones(1)
+    kg = kin.growth_rate(t, theta) * np.ones_like(t)
+    E = f[:, None] * np.exp(-np.outer(k, np.maximum(x, 0.0)))
+    num = kg * E.sum(axis=0)
+    den = ((k[:, None] + kg[None, :]) * E).sum(axis=0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = num / den
+    return np.where(x > 0, out, np.nan)

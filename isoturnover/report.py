@@ -27,6 +27,8 @@ from collections.abc import Mapping
 from pathlib import Path
 from urllib.parse import quote
 
+from .errors import DataError
+
 __all__ = ["write_report", "CAUTION", "POOL_STATEMENT"]
 
 #: Caution printed in every report.
@@ -261,14 +263,14 @@ def _collect(fits):
         items = [(None, f) for f in fits]
         where = "position"
     else:
-        raise TypeError("'fits' must be a FitSet (from fit_each), a dict label -> TurnoverFit "
+        raise DataError("'fits' must be a FitSet (from fit_each), a dict label -> TurnoverFit "
                         f"or a list of TurnoverFit; got {type(fits).__name__}")
     out = []
     seen = set()
     for i, (k, f) in enumerate(items):
         if not isinstance(f, TurnoverFit):
             at = repr(k) if where == "key" else str(i)
-            raise TypeError(f"'fits' {where} {at}: expected a TurnoverFit; got "
+            raise DataError(f"'fits' {where} {at}: expected a TurnoverFit; got "
                             f"{type(f).__name__}")
         name = str(k) if k is not None else (str(f.label) if f.label else f"series {i + 1}")
         if name in seen:
@@ -624,8 +626,9 @@ def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="p
         and the figures go to ``<stem>_figures/`` in the same folder, which must exist.
         Allowed suffixes: none, ``.md`` or ``.html``.
     title : str, default="Turnover analysis"
+        Title of both documents (non-empty).
     level : float, default=0.95
-        Confidence level of every interval and band.
+        Confidence level in (0, 1) of every interval and band.
     method : {"profile", "asymptotic"}, default="profile"
         Interval method (profile likelihood; robust fits always use asymptotic intervals).
     figures : bool, default=True
@@ -644,12 +647,13 @@ def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="p
 
     Raises
     ------
+    DataError
+        For ``fits``, ``path``, ``title``, ``level``, ``method``, ``figures`` or
+        ``overwrite`` of the wrong kind or value, and when the folder of ``path`` does not
+        exist. Nothing is written.
     FileExistsError
-        When a report file or the figures folder exists and ``overwrite`` is False.
-    FileNotFoundError
-        When the destination folder does not exist.
-    TypeError, ValueError
-        For ``fits``, ``path``, ``title``, ``level`` or ``method`` of the wrong kind.
+        When a report file or the figures folder exists and ``overwrite`` is False (or
+        appears while the report is written); nothing is replaced.
 
     Notes
     -----
@@ -671,26 +675,26 @@ def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="p
 
     series, fitset = _collect(fits)
     if not series:
-        raise ValueError("'fits' is empty: give at least one fit or a FitSet with series")
+        raise DataError("'fits' is empty: give at least one fit or a FitSet with series")
     if not isinstance(title, str) or not title.strip():
-        raise ValueError(f"'title' must be a non-empty string; got {title!r}")
+        raise DataError(f"'title' must be a non-empty string; got {title!r}")
     level = _check_level(level)
     method = _check_method(method, ("profile", "asymptotic"))
     if not isinstance(figures, bool):
-        raise TypeError(f"'figures' must be True or False; got {figures!r}")
+        raise DataError(f"'figures' must be True or False; got {figures!r}")
     if not isinstance(overwrite, bool):
-        raise TypeError(f"'overwrite' must be True or False; got {overwrite!r}")
+        raise DataError(f"'overwrite' must be True or False; got {overwrite!r}")
     try:
         p = Path(os.fspath(path))
     except TypeError:
-        raise TypeError(f"'path' must be a str or path-like; got {type(path).__name__}") from None
+        raise DataError(f"'path' must be a str or path-like; got {type(path).__name__}") from None
     if p.suffix.lower() not in ("", ".md", ".html"):
-        raise ValueError(f"'path' must end in .md, .html or have no suffix; got {str(p)!r}")
+        raise DataError(f"'path' must end in .md, .html or have no suffix; got {str(p)!r}")
     if not p.name or p.stem in ("", ".", ".."):
-        raise ValueError(f"'path' must name a file; got {str(p)!r}")
+        raise DataError(f"'path' must name a file; got {str(p)!r}")
     folder = p.parent if str(p.parent) else Path(".")
     if not folder.is_dir():
-        raise FileNotFoundError(f"'path': the folder {str(folder)!r} does not exist")
+        raise DataError(f"'path': the folder {str(folder)!r} does not exist")
     stem = p.stem if p.suffix.lower() in (".md", ".html") else p.name
     md_path = folder / f"{stem}.md"
     html_path = folder / f"{stem}.html"

@@ -24,6 +24,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from .conventions import check_choice
 from .errors import DataError
 
 __all__ = ["compare", "lr_test", "LRTestResult", "CRITERIA"]
@@ -51,7 +52,7 @@ def _label(fit, i):
 
 
 def compare(fits, *, criterion: str = "aicc", labels=None) -> pd.DataFrame:
-    """Compare fits of the same data by information criteria.
+    r"""Compare fits of the same data by information criteria.
 
     Parameters
     ----------
@@ -72,22 +73,33 @@ def compare(fits, *, criterion: str = "aicc", labels=None) -> pd.DataFrame:
     Raises
     ------
     DataError
-        When the fits were made on different data, or mix known and estimated σ.
+        When ``fits`` is empty or holds something that is not a fit, ``criterion`` or
+        ``labels`` is bad, the fits were made on different data, or they mix known and
+        estimated σ.
+
+    Notes
+    -----
+    With :math:`k` parameters, :math:`n` points and residual sum of squares RSS (χ² when σ
+    is known), the criteria are those of the fits (``fit.aic``, ``fit.aicc``, ``fit.bic``;
+    AICc = AIC + 2k(k+1)/(n−k−1), Burnham & Anderson 2002), and the Akaike weights
+    :math:`w_i = e^{-\Delta_i/2} / \sum_j e^{-\Delta_j/2}` over the fits with a finite
+    criterion (same source).
     """
-    fits = list(fits)
+    try:
+        fits = list(fits)
+    except TypeError:
+        raise DataError(f"'fits' must be a sequence of fits (TurnoverFit or GrowthFit); got "
+                        f"{type(fits).__name__}") from None
     if not fits:
-        raise ValueError("'fits' is empty: give at least one fit")
-    if criterion not in CRITERIA:
-        raise ValueError(
-            f"'criterion' must be one of {', '.join(repr(c) for c in CRITERIA)}; got "
-            f"{criterion!r}"
-        )
+        raise DataError("'fits' is empty: give at least one fit")
+    check_choice("criterion", criterion, CRITERIA)
     if labels is not None and len(labels) != len(fits):
-        raise ValueError(f"'labels' has {len(labels)} names for {len(fits)} fits")
+        raise DataError(f"'labels' has {len(labels)} names for {len(fits)} fits")
     fp = [getattr(f, "data_fingerprint", None) for f in fits]
     if any(x is None for x in fp):
         bad = [i for i, x in enumerate(fp) if x is None]
-        raise TypeError(f"fits at positions {bad} are not fits (no data fingerprint)")
+        raise DataError(f"'fits': the entries at positions {bad} are not fits (no data "
+                        "fingerprint); expected TurnoverFit or GrowthFit objects")
     if len(set(fp)) > 1:
         groups = {}
         for i, x in enumerate(fp):
@@ -137,7 +149,7 @@ def compare(fits, *, criterion: str = "aicc", labels=None) -> pd.DataFrame:
 class LRTestResult:
     """Result of :func:`lr_test`.
 
-    Attributes
+    Parameters
     ----------
     statistic : float
         Observed likelihood-ratio statistic: :math:`n\\ln(\\mathrm{rss}_0/\\mathrm{rss}_1)`
@@ -151,6 +163,8 @@ class LRTestResult:
         Replicates asked for, and those in which a fit failed (not counted in B; reported).
     null_distribution : ndarray
         The replicate statistics.
+    simple, complex : str
+        Labels of the two fits.
     """
 
     statistic: float
@@ -163,6 +177,7 @@ class LRTestResult:
 
     @property
     def n_used(self) -> int:
+        """Number of replicates that fitted (B, the size of ``null_distribution``)."""
         return int(self.null_distribution.size)
 
     def __str__(self):
@@ -178,7 +193,7 @@ def _stat(rss0, rss1, n, absolute):
 
 
 def lr_test(simple, complex, *, n_boot: int = 199, rng=None) -> LRTestResult:
-    """Parametric-bootstrap likelihood-ratio test of ``simple`` against ``complex``.
+    r"""Parametric-bootstrap likelihood-ratio test of ``simple`` against ``complex``.
 
     Replicate data sets are drawn from the fitted simpler model with normal errors of its
     residual sd (scaled by the weights; the given σ when known), both models are refitted
@@ -191,17 +206,38 @@ def lr_test(simple, complex, *, n_boot: int = 199, rng=None) -> LRTestResult:
     simple, complex : TurnoverFit
         Fits of the same data; ``complex`` must have more free parameters.
     n_boot : int, default=199
+        Number of bootstrap replicates B (199 makes :math:`(1 + \#)/(1 + B)` a multiple of
+        0.005).
     rng : int or numpy.random.Generator, optional
         Seed or generator (results are reproducible with a seed).
+
+    Returns
+    -------
+    LRTestResult
+        The observed statistic, the bootstrap p-value, the replicate statistics and the
+        count of replicates in which a fit failed.
+
+    Raises
+    ------
+    DataError
+        When the fits are not of the same data (see :func:`compare`), ``complex`` does not
+        have more free parameters than ``simple``, or ``n_boot`` is not a positive integer.
+
+    Notes
+    -----
+    The statistic is :math:`T = n\ln(\mathrm{rss}_0/\mathrm{rss}_1)` with σ estimated and
+    :math:`\chi^2_0 - \chi^2_1` with σ known (−2 log likelihood ratio of normal errors);
+    the p-value :math:`(1 + \#\{T^*_b \ge T\})/(1 + B)` (Davison & Hinkley 1997,
+    *Bootstrap Methods and their Application*, from memory).
     """
     compare([simple, complex])  # same data, same error model
     if complex.nvarys <= simple.nvarys:
-        raise ValueError(
+        raise DataError(
             f"'complex' must have more free parameters than 'simple'; got {complex.nvarys} and "
             f"{simple.nvarys}"
         )
-    if not isinstance(n_boot, (int, np.integer)) or n_boot < 1:
-        raise ValueError(f"'n_boot' must be a positive integer; got {n_boot!r}")
+    if isinstance(n_boot, bool) or not isinstance(n_boot, (int, np.integer)) or n_boot < 1:
+        raise DataError(f"'n_boot' must be a positive integer; got {n_boot!r}")
     rng = np.random.default_rng(rng)
     n = simple.nobs
     absolute = simple.absolute_sigma

@@ -10,23 +10,74 @@ import numpy as np
 
 from .diet import DietHistory
 from .engine import Engine, FitState, Solution, Ties, prepare_data
-from .growth import load_growth
+from .errors import DataError
+from .growthfit import load_growth
 from .model import TurnoverModel
 from .results import TurnoverFit
 
 __all__ = ["load_fit"]
 
+# The keys load_fit reads, by section of the record (TurnoverFit.to_dict, format version 1).
+_REQUIRED = {
+    "model": (),
+    "data": ("t", "y", "sigma", "time_unit"),
+    "options": ("absolute_sigma", "loss", "f_scale", "fixed", "init", "label"),
+    "solution": ("z", "theta", "status", "nfev", "message", "success", "jac_z",
+                 "starts_tried"),
+}
+
+
+def _check_record(d) -> dict:
+    """The record as a dict with every section and key :func:`load_fit` reads."""
+    if isinstance(d, (str, bytes)):
+        try:
+            d = json.loads(d)
+        except ValueError as e:
+            raise DataError(f"'d' is not valid JSON text ({e}); load_fit needs the dict made "
+                            "by TurnoverFit.to_dict() or its JSON text") from None
+    if not isinstance(d, dict) or d.get("format") != "isoturnover-fit":
+        got = f"a dict with format={d.get('format')!r}" if isinstance(d, dict) else \
+            type(d).__name__
+        raise DataError("load_fit needs a dict made by TurnoverFit.to_dict() "
+                        f"(key 'format' = 'isoturnover-fit'); 'd' is {got}")
+    for section, keys in _REQUIRED.items():
+        part = d.get(section)
+        if not isinstance(part, dict):
+            raise DataError(f"'d' is not a complete fit record: section {section!r} is "
+                            f"missing or not a dict (got {type(part).__name__})")
+        missing = [k for k in keys if k not in part]
+        if missing:
+            raise DataError(f"'d' is not a complete fit record: section {section!r} lacks "
+                            f"{', '.join(repr(k) for k in missing)}")
+    return d
+
 
 def load_fit(d) -> TurnoverFit:
-    """Rebuild a :class:`TurnoverFit` from :meth:`TurnoverFit.to_dict` (or its JSON text).
+    """Rebuild a fit from :meth:`TurnoverFit.to_dict` (or its JSON text).
 
-    The rebuilt fit predicts, tabulates and summarises exactly as the original.
+    The model is rebuilt from its configuration, the data and options from the record, and
+    the optimizer's solution is taken as stored (no refit), so the rebuilt fit predicts,
+    tabulates and summarises exactly as the original.
+
+    Parameters
+    ----------
+    d : dict or str
+        The dict made by :meth:`TurnoverFit.to_dict <isoturnover.TurnoverFit.to_dict>`
+        (``format = "isoturnover-fit"``), or its JSON text (:meth:`TurnoverFit.to_json`).
+        Not modified.
+
+    Returns
+    -------
+    TurnoverFit
+        The rebuilt fit.
+
+    Raises
+    ------
+    DataError
+        When ``d`` is not valid JSON, not such a record, or lacks a section or key the
+        rebuild needs.
     """
-    if isinstance(d, str):
-        d = json.loads(d)
-    if not isinstance(d, dict) or d.get("format") != "isoturnover-fit":
-        raise ValueError("load_fit needs a dict made by TurnoverFit.to_dict() "
-                         "(key 'format' = 'isoturnover-fit')")
+    d = _check_record(d)
     cfg = dict(d["model"])
     if cfg.get("diet") is not None:
         cfg["diet"] = DietHistory.from_dict(cfg["diet"])

@@ -222,3 +222,111 @@ def test_bad_jobs_through_the_installed_command(tmp_path):
     assert_one_error_line(r.stderr)
     assert "--jobs" in r.stderr
     assert not (tmp_path / "o").exists()
+
+
+# ----------------------------------------------------------------------------------------
+# warnings reach the terminal, one line each
+# ----------------------------------------------------------------------------------------
+def test_jobs_without_joblib_prints_one_warning_line_and_runs_serially(tmp_path, capsys,
+                                                                       monkeypatch):
+    from isoturnover import groups
+
+    monkeypatch.setattr(groups, "_joblib", None)
+    f = tmp_path / "samples.csv"
+    f.write_text(GOOD, encoding="utf-8")
+    out = tmp_path / "out"
+    code, stdout, err = run(["fit", str(f), "--out", str(out), "--no-figures",
+                             "--no-progress", "--jobs", "2"], capsys)
+    assert code == 0, err
+    assert err.splitlines() == ["warning: --jobs=2 asks for parallel workers, but joblib is "
+                                "not installed; running serially (pip install joblib, or "
+                                "isoturnover[fast])"]
+    assert "fitted 1 series; 0 could not be fitted" in stdout
+
+
+def test_table_warnings_are_printed_once_each_on_one_line(tmp_path, capsys):
+    # the same row twice: the samples reader warns (a DataWarning), the fit goes on
+    f = tmp_path / "samples.csv"
+    lines = GOOD.splitlines(keepends=True)
+    f.write_text("".join(lines + [lines[3]]), encoding="utf-8")
+    code, _, err = run(["fit", str(f), "--out", str(tmp_path / "out"), "--no-figures",
+                        "--no-progress"], capsys)
+    assert code == 0, err
+    warned = err.splitlines()
+    assert len(warned) == 1, err
+    assert warned[0].startswith("warning: ") and "exact duplicates" in warned[0], err
+
+
+def test_warnings_before_an_error_are_printed_too(tmp_path, capsys, monkeypatch):
+    from isoturnover import groups
+
+    monkeypatch.setattr(groups, "_joblib", None)
+    f = tmp_path / "samples.csv"
+    f.write_text("subject,tissue,isotope,time,value\na,plasma,d13C,0,-20\n"
+                 "a,plasma,d13C,1,-19\n", encoding="utf-8")
+    code, _, err = run(["fit", str(f), "--out", str(tmp_path / "o"), "--jobs", "2"], capsys)
+    assert code == 2
+    lines = err.splitlines()
+    assert len(lines) == 2, err
+    assert lines[0].startswith("warning: --jobs=2 asks for parallel workers")
+    assert lines[1].startswith("error: no series could be fitted")
+
+
+# ----------------------------------------------------------------------------------------
+# demo --jobs
+# ----------------------------------------------------------------------------------------
+def test_demo_accepts_jobs_and_passes_it_on(tmp_path, capsys, monkeypatch):
+    from isoturnover import analysis
+    from isoturnover.cli import build_parser
+
+    assert build_parser().parse_args(["demo", "--jobs", "-1"]).jobs == -1
+    assert build_parser().parse_args(["demo"]).jobs == 1
+    seen = []
+
+    def stop_at_the_first_part(samples, **kwargs):
+        seen.append(kwargs["n_jobs"])
+        raise iso_data_error("stopped after the first part (test)")
+
+    monkeypatch.setattr(analysis, "fit_each", stop_at_the_first_part)
+    code, _, err = run(["demo", "--out", str(tmp_path / "o"), "--jobs", "2"], capsys)
+    assert code == 2 and seen == [2], err
+    assert err.splitlines() == ["error: stopped after the first part (test)"]
+    assert not (tmp_path / "o").exists()
+
+
+def iso_data_error(message):
+    from isoturnover import DataError
+
+    return DataError(message)
+
+
+@pytest.mark.parametrize("bad", ["0", "-2", "two"])
+def test_demo_bad_jobs_one_error_line_exit_2(bad, tmp_path, capsys):
+    with pytest.raises(SystemExit) as e:
+        main(["demo", "--out", str(tmp_path / "o"), "--jobs", bad])
+    assert e.value.code == 2
+    err = capsys.readouterr().err
+    assert_one_error_line(err)
+    assert f"argument --jobs: must be a positive integer (number of parallel workers) or -1 " \
+           f"(all cores); got '{bad}'" in err
+    assert not (tmp_path / "o").exists()
+
+
+@pytest.mark.slow
+def test_demo_with_jobs_gives_the_results_of_one_process(tmp_path, capsys):
+    tables = {}
+    for jobs in ("1", "2"):
+        out = tmp_path / f"out{jobs}"
+        code, stdout, err = run(["demo", "--out", str(out), "--no-figures", "--no-progress",
+                                 "--jobs", jobs], capsys)
+        assert code == 0, err
+        assert "could not be fitted" in stdout
+        tables[jobs] = pd.read_csv(out / "results.csv")
+    one, two = tables["1"], tables["2"]
+    keys = ["part", "subject", "tissue", "isotope", "candidate", "status", "chosen"]
+    pd.testing.assert_frame_equal(two[keys], one[keys], check_exact=True)
+    # the chosen fits agree; a candidate the optimizer gives up on (a two-pool fit of one
+    # goat's red cells with k2 ~ 1e-9 per day stops at maxfev) ends where the last bits of
+    # the arithmetic in each process take it, and its AICc moves the weights by ~1e-13
+    chosen = one["chosen"].astype(bool)
+    pd.testing.assert_frame_equal(two[chosen], one[chosen], check_exact=False, rtol=1e-9)

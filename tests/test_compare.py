@@ -257,7 +257,7 @@ def test_unknown_criterion_and_bad_arguments(fits):
         iso.compare(list(fits), criterion="AICc")
     with pytest.raises(ValueError, match=r"'fits' is empty"):
         iso.compare([])
-    with pytest.raises(TypeError, match=r"positions \[1\] are not fits"):
+    with pytest.raises(iso.DataError, match=r"positions \[1\] are not fits"):
         iso.compare([fits[0], "2 pools"])
 
 

@@ -383,12 +383,12 @@ def test_drop_when_every_row_is_bad(tmp_path):
 
 
 def test_on_bad_rows_must_be_known():
-    with pytest.raises(DataError, match=r"on_bad_rows must be one of 'raise', 'drop'; got "
+    with pytest.raises(DataError, match=r"'on_bad_rows' must be one of 'raise', 'drop'; got "
                                         r"'skip'"):
         read_samples(frame(), on_bad_rows="skip")
-    with pytest.raises(DataError, match=r"on_bad_rows must be one of"):
+    with pytest.raises(DataError, match=r"'on_bad_rows' must be one of"):
         read_masses(frame(), on_bad_rows=True)
-    with pytest.raises(DataError, match=r"on_bad_rows must be one of"):
+    with pytest.raises(DataError, match=r"'on_bad_rows' must be one of"):
         read_diets(frame(), on_bad_rows="ignore")
 
 
@@ -580,7 +580,7 @@ def test_atom_percent_out_of_range_is_a_bad_row(tmp_path):
 
 def test_unit_and_baseline_arguments():
     df = read_samples(frame(), columns={"Animal": "subject", "Day": "time"})
-    with pytest.raises(DataError, match=r"unit must be one of 'delta', 'atom_percent', "
+    with pytest.raises(DataError, match=r"'unit' must be one of 'delta', 'atom_percent', "
                                         r"'atom_percent_excess'; got 'permil'"):
         read_samples(df, unit="permil")
     with pytest.raises(DataError, match=r"needs baseline="):

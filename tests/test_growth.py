@@ -1,4 +1,5 @@
-"""Tests of isoturnover.growth: growth curves, their fits, intervals and persistence.
+"""Tests of isoturnover.growth and isoturnover.growthfit: growth curves, their fits,
+intervals and persistence.
 
 External checks: NIST/ITL StRD nonlinear regression dataset Rat42 (certified values),
 numdifftools (independent numerical derivatives), statsmodels (independent least squares).
@@ -21,6 +22,7 @@ import pytest
 import statsmodels.api as sm
 
 from isoturnover import growth as G
+from isoturnover import growthfit as GF
 from isoturnover.errors import (
     ConvergenceWarning,
     DataError,
@@ -28,11 +30,9 @@ from isoturnover.errors import (
     FitError,
     IdentifiabilityWarning,
 )
-from isoturnover.growth import (
-    CURVES,
-    GrowthCurve,
+from isoturnover.growth import CURVES, GrowthCurve, GrowthFitFailure
+from isoturnover.growthfit import (
     GrowthFit,
-    GrowthFitFailure,
     fit_growth,
     fit_growth_each,
     load_growth,
@@ -351,6 +351,106 @@ def test_positive_parameter_lower_bound_at_zero():
     assert status > 0 and (rss - fit.rss) / s2 < stats.f.ppf(0.95, 1, 3)
 
 
+def test_profile_open_up_to_the_float_limit():
+    # the same invented scattered masses: as k grows, W0 → 0 and the curve meets only the
+    # last point, so the profile of k levels off below the F(1, n − p) cut-off; the search
+    # reaches k where W0·e^{k t} leaves the floating-point range before any crossing, and the
+    # upper bound is +inf, "open" (not a failure)
+    from scipy import stats
+
+    t = np.array([0.0, 1.0, 2.0, 3.0, 4.0])
+    w = np.array([10.0, 0.5, 12.0, 0.3, 11.0])
+    fit = fit_growth(t, w, "exponential", scale="natural")
+    ci = fit.conf_int().set_index("parameter")
+    assert ci.loc["k", "upper"] == math.inf and ci.loc["k", "upper_status"] == "open"
+    # check by hand: at k = 50 the refit puts W0 = 11 e^{−200} on the last point and the
+    # RSS is that of the first four masses, Σ w_i² = 244.34 (worked by hand), below the cut
+    v, rss, status = fit._problem.solve(np.array([1e-80, 50.0]), np.array([True, False]))
+    assert status > 0 and rss == pytest.approx(10.0**2 + 0.5**2 + 12.0**2 + 0.3**2, rel=1e-9)
+    assert (rss - fit.rss) / (fit.rss / 3) < stats.f.ppf(0.95, 1, 3)
+
+
+def _logistic_log_mass(t, theta):
+    # ln W of the logistic W = Winf/(1 + exp(−k (t − ti))), written out here independently
+    winf, k, ti = theta
+    return math.log(winf) - np.logaddexp(0.0, -k * (t - ti))
+
+
+def _brute_force_profile_bound(t, y, theta_hat, j, direction, step, level):
+    """Profile bound of parameter j by brute force (Bates & Watts 1988, §6.1, from memory
+    for the section: the profile-t interval is where ΔRSS/s² reaches F(1, n − p; level),
+    s² = RSS_min/(n − p)): scan θ_j outward on a grid, refit the other parameters at each
+    grid value with scipy.optimize.least_squares (warm-started along the scan), and
+    interpolate linearly where ΔRSS/s² crosses the cut-off on a fine grid inside the
+    bracketing cell."""
+    from scipy import optimize, stats
+
+    free = [i for i in range(3) if i != j]
+    tight = dict(method="lm", xtol=1e-13, ftol=1e-13, gtol=1e-13, max_nfev=20000)
+
+    def rss_full(theta):
+        r = y - _logistic_log_mass(t, theta)
+        return float(r @ r)
+
+    full = optimize.least_squares(lambda th: y - _logistic_log_mass(t, th), theta_hat, **tight)
+    rss_min = rss_full(full.x)
+    n, p = t.size, 3
+    s2 = rss_min / (n - p)
+    crit = stats.f.ppf(level, 1, n - p)
+
+    def refit(value, start):
+        def res(x):
+            th = np.empty(3)
+            th[j], th[free] = value, x
+            return y - _logistic_log_mass(t, th)
+
+        sol = optimize.least_squares(res, start, **tight)
+        return (2.0 * sol.cost - rss_min) / s2, sol.x
+
+    # coarse scan outward in steps of `step` until the cut-off is passed
+    start, inside = full.x[free], full.x[j]
+    for i in range(1, 101):
+        value = full.x[j] + direction * step * i
+        d, x = refit(value, start)
+        if d > crit:
+            break
+        start, inside = x, value
+    else:
+        raise AssertionError("the coarse scan did not bracket the bound")
+    # fine scan of the bracketing cell, then linear interpolation of ΔRSS/s²
+    fine = np.linspace(inside, value, 101)
+    d_fine = []
+    for v in fine:
+        d, start = refit(v, start)
+        d_fine.append(d)
+    d_fine = np.array(d_fine)
+    k = int(np.argmax(d_fine > crit))
+    w = (crit - d_fine[k - 1]) / (d_fine[k] - d_fine[k - 1])
+    return fine[k - 1] + w * (fine[k] - fine[k - 1])
+
+
+@pytest.fixture(scope="module")
+def logistic_profile():
+    # invented logistic masses with 3 % multiplicative scatter, fitted on the log scale
+    t, w = noisy_logistic(seed=21)
+    fit = fit_growth(t, w, "logistic")
+    return t, w, fit, fit.conf_int(level=0.95).set_index("parameter")
+
+
+@pytest.mark.parametrize("name", ["Winf", "k", "ti"])
+@pytest.mark.parametrize("direction", [-1, 1])
+def test_profile_bound_matches_brute_force_profile(logistic_profile, name, direction):
+    # the bound from the shared root finder (isoturnover.profiles.find_bound) against the
+    # brute-force profile scan above, to 1e-6 relative
+    t, w, fit, ci = logistic_profile
+    side = "lower" if direction < 0 else "upper"
+    assert ci.loc[name, f"{side}_status"] == "ok"
+    j = fit.param_names.index(name)
+    ref = _brute_force_profile_bound(t, np.log(w), fit.values, j, direction,
+                                     0.1 * fit.stderr[j], 0.95)
+    assert ci.loc[name, side] == pytest.approx(ref, rel=1e-6)
+
+
 def test_conf_int_bad_arguments():
     fit = fit_growth(T, 5.0 * np.exp(0.03 * T) * (1 + 0.01 * np.sin(T)), "exponential")
     with pytest.raises(DataError, match=r"method must be one of 'profile', 'asymptotic'; "
@@ -495,9 +595,10 @@ def test_known_curve():
     with pytest.raises(DataError, match=r"curve 'logistic' needs parameters Winf, k, ti; "
                                         r"missing: ti"):
         GrowthCurve("logistic", Winf=80.0, k=0.07)
-    with pytest.raises(DataError, match=r"params: unknown parameter 'W0' for curve 'logistic'"):
+    with pytest.raises(DataError, match=r"'params' has unknown parameter 'W0'.*the "
+                                        r"parameters of curve 'logistic'"):
         GrowthCurve("logistic", Winf=80.0, k=0.07, ti=3.0, W0=1.0)
-    with pytest.raises(DataError, match=r"params\['Winf'\] must be > 0 .* got -1.0"):
+    with pytest.raises(DataError, match=r"params\['Winf'\]' must be > 0 .* got -1.0"):
         GrowthCurve("logistic", Winf=-1.0, k=0.07, ti=3.0)
     with pytest.raises(DataError, match="mean_rate needs two different finite times"):
         g.mean_rate(5.0, 5.0)
@@ -586,24 +687,40 @@ def test_bad_input_messages():
         fit_growth(t, w, sigma=-1.0)
     with pytest.raises(DataError, match="sigma must have the same length as mass; got 2 and 5"):
         fit_growth(t, w, sigma=[1.0, 2.0])
-    with pytest.raises(DataError, match=r"fixed: unknown parameter 'Wmax' for curve 'logistic'; "
-                                        r"allowed: Winf, k, ti"):
+    with pytest.raises(DataError, match=r"'fixed' has unknown parameter 'Wmax'; the parameters of "
+                                        r"curve 'logistic' are Winf, k, ti"):
         fit_growth(t, w, fixed={"Wmax": 3.0})
-    with pytest.raises(DataError, match=r"init\['k'\] must be finite; got nan"):
+    with pytest.raises(DataError, match=r"'init\['k'\]' must be finite; got nan"):
         fit_growth(t, w, init={"k": float("nan")})
-    with pytest.raises(DataError, match=r"fixed\['W0'\] must be > 0 for curve 'exponential'"):
+    with pytest.raises(DataError, match=r"'fixed\['W0'\]' must be > 0 for curve 'exponential'"):
         fit_growth(t, w, "exponential", fixed={"W0": 0.0})
     with pytest.raises(DataError, match=r"given in both init and fixed"):
         fit_growth(t, w, "exponential", fixed={"W0": 5.0}, init={"W0": 4.0})
     with pytest.raises(DataError, match="fixed holds every parameter of curve 'exponential'"):
         fit_growth(t, w, "exponential", fixed={"W0": 5.0, "k": 0.1})
-    with pytest.raises(DataError, match="init must be a mapping"):
+    with pytest.raises(DataError, match="'init' must be a mapping"):
         fit_growth(t, w, init=[1.0, 2.0])
+
+
+def test_parameter_values_checked_by_the_shared_checker():
+    # growth parameter values go through conventions.check_named_values: a near miss gets a
+    # hint, a non-number names the entry, and the caller's dict is left as it was
+    t = np.array([0.0, 10.0, 20.0, 30.0, 40.0])
+    w = np.array([5.0, 7.0, 10.0, 14.0, 18.0])
+    with pytest.raises(DataError, match=r"'fixed' has unknown parameter 'Wnf' \(did you mean "
+                                        r"'Winf'\?\); the parameters of curve 'logistic' "
+                                        r"are Winf, k, ti"):
+        fit_growth(t, w, fixed={"Wnf": 30.0})
+    with pytest.raises(DataError, match=r"'init\['k'\]' must be a number; got 'fast'"):
+        fit_growth(t, w, init={"k": "fast"})
+    init = {"Winf": 30.0}
+    fit = fit_growth(t, w, init=init, fixed={"k": 0.06})
+    assert init == {"Winf": 30.0} and fit.values[1] == 0.06
 
 
 def test_no_convergence_is_fit_error(monkeypatch):
     # an evaluation budget far too small for the optimizer to converge from any start
-    monkeypatch.setattr(G, "_MAX_NFEV", 1)
+    monkeypatch.setattr(GF, "_MAX_NFEV", 1)
     t, w = noisy_logistic()
     with pytest.raises(FitError, match=r"curve 'logistic' \(log scale\) did not converge from "
                                        r"any of \d+ starting points within 1 evaluations "

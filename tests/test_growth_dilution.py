@@ -38,11 +38,10 @@ def test_hesslein_hand_worked_example():
     assert share.loc["pool_1", "estimate"] == pytest.approx(0.40, rel=1e-3)
     c = f.fry_arnold_exponent(method="asymptotic")["estimate"].iloc[0]
     assert c == pytest.approx(-2.5, rel=1e-3)
-    # the tissue-level share up to t (DESIGN §2) by hand for one pool, exponential growth:
-    # (1 − e^{−k_g t}) / (1 − e^{−(k_g + k_d) t})
-    t_end = T.max()
-    hand = (1 - math.exp(-kg * t_end)) / (1 - math.exp(-(kg + kd) * t_end))
-    assert share.loc["tissue", "estimate"] == pytest.approx(hand, rel=1e-3)
+    # the tissue-level share up to t (DESIGN §2): the part of the change carried by the
+    # growth flux, k_g/(k_g + k_d) = 0.40 at every t for one pool and exponential growth
+    # (Hesslein et al. 1993, by hand)
+    assert share.loc["tissue", "estimate"] == pytest.approx(0.40, rel=1e-3)
     # catabolic half-life ln 2/k_d, and the summary names the rates catabolic
     assert f.half_lives(method="asymptotic")["half_life"].iloc[0] == pytest.approx(
         LN2 / kd, rel=1e-3)
@@ -175,3 +174,102 @@ def test_fit_power_dilution_recovers_the_exponent_per_sample_mass():
         iso.fit_power_dilution(np.r_[w[:-1], 0.0], y)
     with pytest.raises(iso.DataError, match="at or above mass0"):
         iso.fit_power_dilution(w, y, mass0=10.0)
+
+
+@pytest.fixture(scope="module")
+def hesslein_fit():
+    # the hand-worked example above: k_g = 0.02/d, k_d = 0.03/d, tiny deterministic scatter
+    kg, kd = 0.02, 0.03
+    y = _exp_series(kg, kd) + 1e-4 * np.sin(T)
+    w = 10.0 * np.exp(kg * TM) * np.exp(1e-4 * np.cos(TM))
+    return iso.TurnoverModel(1, growth="exponential").fit(T, y, masses=(TM, w), warn=False)
+
+
+def test_mean_residence_times_catabolic_and_incorporation_by_hand(hesslein_fit):
+    # one pool: MRT = ∫ e^{-k τ} dτ = 1/k (by hand), so 1/k_d = 33.3 d (catabolic) and
+    # 1/(k_d + k_g) = 20 d (incorporation, growth and catabolic replacement together)
+    f = hesslein_fit
+    kd, kg = f.values["k1"], f.values["k_growth"]
+    assert f.mean_residence_time("catabolic") == pytest.approx(1 / kd, rel=1e-12)
+    assert f.mean_residence_time("incorporation") == pytest.approx(1 / (kd + kg), rel=1e-12)
+    assert f.mean_residence_time() == f.mean_residence_time("incorporation")  # default
+    assert f.mean_residence_time("catabolic") == pytest.approx(1 / 0.03, rel=2e-3)
+    assert f.mean_residence_time("incorporation") == pytest.approx(20.0, rel=2e-3)
+
+
+def test_mean_residence_times_in_table_summary_and_to_dict(hesslein_fit):
+    f = hesslein_fit
+    kd, kg = f.values["k1"], f.values["k_growth"]
+    tab = f.table(method="profile").set_index("quantity")
+    assert "mean_residence_time" not in tab.index  # each named for what it is
+    cat = tab.loc["mean_residence_time_catabolic"]
+    inc = tab.loc["mean_residence_time_incorporation"]
+    assert cat["estimate"] == pytest.approx(1 / kd, rel=1e-12)
+    assert inc["estimate"] == pytest.approx(1 / (kd + kg), rel=1e-12)
+    assert cat["unit"] == inc["unit"] == "days"
+    # the profile likelihood is invariant under the monotone map k_d -> 1/k_d, so the
+    # catabolic MRT's profile bounds are the rate's bounds inverted (by hand)
+    k = tab.loc["k1"]
+    assert cat["method"] == "profile"
+    assert cat["lower"] == pytest.approx(1 / k["upper"], rel=1e-4)
+    assert cat["upper"] == pytest.approx(1 / k["lower"], rel=1e-4)
+    row = f.mean_residence_time_interval(method="asymptotic", kind="catabolic").iloc[0]
+    assert row["kind"] == "catabolic" and row["lower"] < 1 / kd < row["upper"]
+    text = str(f.summary())
+    assert f"mean residence time, catabolic (from k_d alone): {1 / kd:.4g}" in text
+    assert f"mean residence time, incorporation (from k_d + k_g): {1 / (kd + kg):.4g}" in text
+    d = f.to_dict()
+    assert d["derived"] == {
+        "mean_residence_time_incorporation": pytest.approx(1 / (kd + kg), rel=1e-12),
+        "mean_residence_time_catabolic": pytest.approx(1 / kd, rel=1e-12)}
+    assert iso.load_fit(f.to_json()).to_dict()["derived"] == d["derived"]
+
+
+def test_mean_residence_time_without_growth_keeps_its_one_name():
+    # no growth model: incorporation rates, one MRT = 1/k (by hand), named as before
+    y = _exp_series(0.0, 0.05) + 1e-3 * np.sin(T)
+    f = iso.TurnoverModel(1).fit(T, y, warn=False)
+    tab = f.table(method="asymptotic").set_index("quantity")
+    assert tab.loc["mean_residence_time", "estimate"] == pytest.approx(1 / f.values["k1"],
+                                                                       rel=1e-12)
+    assert not any(q.startswith("mean_residence_time_") for q in tab.index)
+    assert f.to_dict()["derived"] == {"mean_residence_time": pytest.approx(1 / f.values["k1"],
+                                                                           rel=1e-12)}
+    assert f"mean residence time: {1 / f.values['k1']:.4g}" in str(f.summary(method="asymptotic"))
+
+
+def test_growth_share_outputs_are_the_flux_share(hesslein_fit):
+    f = hesslein_fit
+    kd, kg = f.values["k1"], f.values["k_growth"]
+    # one pool, exponential growth: the instantaneous share k_g/(k_g + k_d) at every time
+    # after the switch (Hesslein et al. 1993, by hand), NaN at the switch
+    curve = f.growth_share_curve(T)
+    assert math.isnan(curve[0])
+    np.testing.assert_allclose(curve[1:], kg / (kg + kd), rtol=1e-12)
+    tab = f.growth_share(method="asymptotic").set_index("quantity")
+    est = tab.loc["tissue", "estimate"]
+    assert est == pytest.approx(kg / (kg + kd), rel=1e-10)
+    # the summary's note says what the share is, with the same number
+    assert (f"growth share: the growth flux carries {100 * est:.3g} % of the isotopic change "
+            f"up to t = 70") in str(f.summary(method="asymptotic"))
+
+
+def test_growth_share_curve_is_instantaneous_for_two_pools():
+    # two pools: k_g Σ f_i e_i / Σ f_i (k_i + k_g) e_i with e_i = e^{-k_i t} (the growth
+    # flux over dδ/dt of the pool equations, written out by hand)
+    kg = 0.02
+    y = -12.0 - 13.0 * (0.4 * np.exp(-(0.3 + kg) * T) + 0.6 * np.exp(-(0.01 + kg) * T))
+    y = y + 1e-3 * np.sin(T)
+    w = 10.0 * np.exp(kg * TM) * np.exp(1e-3 * np.cos(TM))
+    f = iso.TurnoverModel(2, growth="exponential").fit(T, y, masses=(TM, w), warn=False)
+    v = f.values
+    k = np.array([v["k1"], v["k2"]])
+    fr = np.array([v["f1"], v["f2"]])
+    g = v["k_growth"]
+    tt = np.array([1.0, 10.0, 40.0])
+    e = fr[:, None] * np.exp(-np.outer(k, tt))
+    expected = g * e.sum(axis=0) / ((k[:, None] + g) * e).sum(axis=0)
+    np.testing.assert_allclose(f.growth_share_curve(tt), expected, rtol=1e-12)
+    # the per-pool rows stay k_g/(k_g + k_d,i) (by hand)
+    tab = f.growth_share(method="asymptotic").set_index("quantity")
+    assert tab.loc["pool_2", "estimate"] == pytest.approx(g / (g + v["k2"]), rel=1e-12)

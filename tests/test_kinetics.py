@@ -725,7 +725,7 @@ def test_diet_history_without_change_refused():
 
 
 def test_diet_must_be_a_history():
-    with pytest.raises(TypeError, match="'diet' must be a DietHistory or None; got list"):
+    with pytest.raises(DataError, match="'diet' must be a DietHistory or None; got list"):
         TurnoverKinetics(1, diet=[(0.0, -12.0)])
 
 
@@ -766,7 +766,7 @@ def test_growth_with_chain_refused():
 def test_growth_argument_checked():
     with pytest.raises(ValueError, match="'growth' must be None, 'exponential' or a growth curve"):
         TurnoverKinetics(1, growth="logistic")
-    with pytest.raises(TypeError, match="'growth' must be None, .* got float"):
+    with pytest.raises(DataError, match="'growth' must be None, .* got float"):
         TurnoverKinetics(1, growth=0.1)
 
 

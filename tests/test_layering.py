@@ -23,13 +23,15 @@ PACKAGE = Path(__file__).resolve().parents[1] / "isoturnover"
 LAYERS = {
     "errors": 0,
     "conventions": 1,
-    "isotopes": 1,
-    "diet": 2, "data": 2, "demo": 2, "progress": 2, "growth": 2,
+    "isotopes": 1, "references": 1,
+    "tables": 2, "sampletimes": 2, "diet": 2, "data": 2, "demo": 2, "progress": 2, "growth": 2,
+    "progressvariable": 2,
     "kinetics": 3,
-    "quantities": 4,
+    "quantities": 4, "coordinates": 4, "starts": 4, "projection": 4, "state": 4,
     "engine": 5, "profiles": 5,
-    "uncertainty": 6, "diagnostics": 6,
-    "results": 7,
+    "derived": 6, "diagnostics": 6, "resampling": 6, "mcmc": 6, "bands": 6,
+    "growthfit": 6,
+    "results": 7, "growthdilution": 7, "uncertainty": 7, "summary": 7,
     "model": 8, "selection": 8, "serialization": 8,
     "groups": 9,
     "plotting": 10,
@@ -40,7 +42,15 @@ LAYERS = {
 }
 # Same-layer imports that are allowed (one way only).
 SAME_LAYER = {("isotopes", "conventions"), ("data", "diet"), ("demo", "data"),
-              ("serialization", "model")}
+              ("isotopes", "references"),
+              ("serialization", "model"), ("data", "tables"), ("diet", "tables"),
+              ("data", "sampletimes"), ("sampletimes", "tables"),
+              ("coordinates", "quantities"), ("starts", "coordinates"),
+              ("projection", "coordinates"), ("projection", "starts"),
+              ("resampling", "derived"), ("mcmc", "derived"),
+              ("bands", "derived"), ("bands", "resampling"),
+              ("results", "summary"), ("results", "growthdilution"),
+              ("progress", "progressvariable")}
 
 
 def _modules():

@@ -95,7 +95,7 @@ def _bad_cases():
                               r"'t' must be one-dimensional; got shape \(16, 2\)"),
         "fixed unknown": (lambda: M(1).fit(t, y, fixed={"delta_0": -24.0}),
                           r"'fixed' has unknown parameter 'delta_0' \(did you mean "
-                          r"'delta0'\?\); this model's parameters are delta0, delta_eq, k1"),
+                          r"'delta0'\?\); the parameters of this model are delta0, delta_eq, k1"),
         "init unknown": (lambda: M(2).fit(t, y, init={"kk1": 0.1}),
                          r"'init' has unknown parameter 'kk1' \(did you mean 'k1'\?\)"),
         "fixed not a dict": (lambda: M(1).fit(t, y, fixed=[("k1", 0.1)]),

@@ -20,8 +20,8 @@ from matplotlib.collections import PolyCollection  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 
 import isoturnover as iso  # noqa: E402
+from isoturnover import fit_growth  # noqa: E402
 from isoturnover import plotting as P  # noqa: E402
-from isoturnover.growth import fit_growth  # noqa: E402
 from isoturnover.uncertainty import band as unc_band  # noqa: E402
 
 LN2 = math.log(2.0)
@@ -124,7 +124,7 @@ def test_delta_label_names_scale(code, expected):
 
 def test_delta_label_generic_and_unknown():
     assert P.delta_label(None) == "δ (‰)"
-    with pytest.raises(ValueError, match=r"'isotope' must be one of .*got 'd99X'"):
+    with pytest.raises(iso.DataError, match=r"'isotope' must be one of .*got 'd99X'"):
         P.delta_label("d99X")
 
 
@@ -269,11 +269,11 @@ def test_fit_diet_history_switch_lines(fit_diet):
 
 
 def test_fit_bad_input(fit1):
-    with pytest.raises(TypeError, match="'fit' must be a TurnoverFit"):
+    with pytest.raises(iso.DataError, match="'fit' must be a TurnoverFit"):
         P.plot_fit({"k1": 0.1})
-    with pytest.raises(ValueError, match="'level' must be between 0 and 1"):
+    with pytest.raises(iso.DataError, match="'level' must be between 0 and 1"):
         P.plot_fit(fit1, level=95)
-    with pytest.raises(TypeError, match="'ax' must be a matplotlib Axes"):
+    with pytest.raises(iso.DataError, match="'ax' must be a matplotlib Axes"):
         P.plot_fit(fit1, ax="left")
 
 
@@ -297,7 +297,7 @@ def test_residuals_raw_guides_scale_with_sigma(fit2):
     (g2,) = _label_of(ax, "±2")
     s = math.sqrt(fit2.s2)
     np.testing.assert_allclose(g2.get_ydata(), 2 * s * fit2.sigma)
-    with pytest.raises(TypeError, match="'studentized' must be True or False"):
+    with pytest.raises(iso.DataError, match="'studentized' must be True or False"):
         P.plot_residuals(fit2, studentized="yes")
 
 
@@ -403,7 +403,7 @@ def test_progress_without_samples_after_switch():
     sub = iso.TurnoverModel(1, diet=d).fit(t[:6], y[:6] + np.arange(6) * 0.01, warn=False,
                                            fixed={"k1": 0.1})
     assert P.plot_progress(f)  # has samples after t = 50
-    with pytest.raises(ValueError, match="no sample between the first switch"):
+    with pytest.raises(iso.DataError, match="no sample between the first switch"):
         P.plot_progress(sub)
 
 
@@ -423,7 +423,7 @@ def test_pools_parts_and_sum_by_hand(fit2):
     assert f"t½ = {hl:.3g} days" in p1.get_label()
     assert x.max() == pytest.approx(fit2.t.max())
     assert P.plot_pools(fit2, t_max=200).get_lines()[0].get_xdata().max() == 200
-    with pytest.raises(ValueError, match="'t_max' must be a positive number; got -1"):
+    with pytest.raises(iso.DataError, match="'t_max' must be a positive number; got -1"):
         P.plot_pools(fit2, t_max=-1)
 
 
@@ -478,10 +478,23 @@ def test_growth_without_turnover_fit_and_errors(growth_pair, fit1):
     ax = P.plot_growth(g, time_unit="w")
     assert ax.get_xlabel() == "Time (weeks)" and ax.get_ylabel() == "Body mass"
     assert not hasattr(ax, "right_ax")
-    with pytest.raises(TypeError, match="'growth_fit' must be a GrowthFit.*lacks 'mass'"):
+    with pytest.raises(iso.DataError, match="'growth_fit' must be a GrowthFit.*lacks 'mass'"):
         P.plot_growth(type("G", (), {"t": [1.0]})())
-    with pytest.raises(ValueError, match="'turnover_fit' has no growth model"):
+    with pytest.raises(iso.DataError, match="'turnover_fit' has no growth model"):
         P.plot_growth(g, turnover_fit=fit1)
+
+
+def test_growth_share_curve_of_the_wrong_form_is_refused(growth_pair, monkeypatch):
+    g, fg = growth_pair
+    monkeypatch.setattr(fg, "growth_share_curve", lambda t: pd.DataFrame({"time": t}))
+    with pytest.raises(iso.DataError, match=r"plot_growth: 'turnover_fit'\.growth_share_curve"
+                                            r"\(t\) returned a table without a 'growth_share' "
+                                            r"or 'share' column \(columns: time\)"):
+        P.plot_growth(g, turnover_fit=fg)
+    monkeypatch.setattr(fg, "growth_share_curve", lambda t: np.zeros(3))
+    with pytest.raises(iso.DataError, match=r"returned 3 values for 300 times"):
+        P.plot_growth(g, turnover_fit=fg)
+    plt.close("all")
 
 
 # ----------------------------------------------------------------------------------------
@@ -507,8 +520,10 @@ def test_weights_bars_and_unfitted_series(fitset):
 
 
 def test_weights_bad_input(fit1):
-    with pytest.raises(TypeError, match="'fitset' must be a FitSet"):
+    with pytest.raises(iso.DataError, match="'fitset' must be a FitSet"):
         P.plot_weights({"a": fit1})
+    with pytest.raises(iso.DataError, match="plot_weights: 'fitset' holds no series"):
+        P.plot_weights(iso.FitSet(("subject",), {}))
 
 
 # ----------------------------------------------------------------------------------------
@@ -521,7 +536,7 @@ def test_overview_three_panels(fit_diet):
     assert [a.get_title(loc="left") for a in fig.axes] == ["a", "b", "c"]
     assert tuple(fig.get_size_inches()) == pytest.approx((7.0, 5.0))
     assert "‰" in fig.axes[0].get_ylabel()
-    with pytest.raises(TypeError, match="plot_overview: 'fit' must be a TurnoverFit"):
+    with pytest.raises(iso.DataError, match="plot_overview: 'fit' must be a TurnoverFit"):
         P.plot_overview(None)
 
 

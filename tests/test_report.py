@@ -296,25 +296,25 @@ def test_figures_false_writes_two_files(fit1, tmp_path):
 # bad input
 # ----------------------------------------------------------------------------------------
 def test_bad_input(fit1, tmp_path):
-    with pytest.raises(TypeError, match="'fits' must be a FitSet.*got str"):
+    with pytest.raises(iso.DataError, match="'fits' must be a FitSet.*got str"):
         R.write_report("fits", tmp_path / "r")
-    with pytest.raises(TypeError, match="'fits' position 1: expected a TurnoverFit; got int"):
+    with pytest.raises(iso.DataError, match="'fits' position 1: expected a TurnoverFit; got int"):
         R.write_report([fit1, 3], tmp_path / "r")
-    with pytest.raises(TypeError, match="'fits' key 'b': expected a TurnoverFit"):
+    with pytest.raises(iso.DataError, match="'fits' key 'b': expected a TurnoverFit"):
         R.write_report({"a": fit1, "b": None}, tmp_path / "r")
-    with pytest.raises(ValueError, match="'fits' is empty"):
+    with pytest.raises(iso.DataError, match="'fits' is empty"):
         R.write_report([], tmp_path / "r")
-    with pytest.raises(ValueError, match=r"'path' must end in \.md, \.html .*got .*r\.txt"):
+    with pytest.raises(iso.DataError, match=r"'path' must end in \.md, \.html .*got .*r\.txt"):
         R.write_report([fit1], tmp_path / "r.txt")
-    with pytest.raises(FileNotFoundError, match="'path': the folder .* does not exist"):
+    with pytest.raises(iso.DataError, match="'path': the folder .* does not exist"):
         R.write_report([fit1], tmp_path / "missing" / "r.md")
-    with pytest.raises(ValueError, match="'level' must be between 0 and 1"):
+    with pytest.raises(iso.DataError, match="'level' must be between 0 and 1"):
         R.write_report([fit1], tmp_path / "r", level=95)
-    with pytest.raises(ValueError, match="'method' must be one of 'profile', 'asymptotic'"):
+    with pytest.raises(iso.DataError, match="'method' must be one of 'profile', 'asymptotic'"):
         R.write_report([fit1], tmp_path / "r", method="bootstrap")
-    with pytest.raises(ValueError, match="'title' must be a non-empty string"):
+    with pytest.raises(iso.DataError, match="'title' must be a non-empty string"):
         R.write_report([fit1], tmp_path / "r", title="")
-    with pytest.raises(TypeError, match="'overwrite' must be True or False"):
+    with pytest.raises(iso.DataError, match="'overwrite' must be True or False"):
         R.write_report([fit1], tmp_path / "r", overwrite="yes")
     assert _listing(tmp_path) == []
 

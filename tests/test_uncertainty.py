@@ -15,6 +15,8 @@ import pytest
 from scipy import integrate, optimize, stats
 
 import isoturnover as iso
+from isoturnover import mcmc as M
+from isoturnover import resampling as R
 from isoturnover import uncertainty as U
 
 REF = Path(__file__).parent / "reference_data"
@@ -319,13 +321,13 @@ def test_bca_formula_matches_scipy():
                           confidence_level=0.9, random_state=np.random.default_rng(8))
     theta_b = res.bootstrap_distribution
     jack = np.array([np.mean(np.delete(x, i)) for i in range(x.size)])
-    probs = U._bca_probs(theta_b, float(np.mean(x)), jack, 0.05)
-    lo = U._order_quantile(theta_b, probs[0])[0]
-    hi = U._order_quantile(theta_b, probs[1])[0]
+    probs = R._bca_probs(theta_b, float(np.mean(x)), jack, 0.05)
+    lo = R._order_quantile(theta_b, probs[0])[0]
+    hi = R._order_quantile(theta_b, probs[1])[0]
     assert lo == pytest.approx(res.confidence_interval.low, rel=1e-10)
     assert hi == pytest.approx(res.confidence_interval.high, rel=1e-10)
     # percentile positions follow numpy's default (linear) quantile
-    assert U._order_quantile(theta_b, 0.025)[0] == pytest.approx(np.quantile(theta_b, 0.025))
+    assert R._order_quantile(theta_b, 0.025)[0] == pytest.approx(np.quantile(theta_b, 0.025))
 
 
 def test_bootstrap_reproducible_and_independent_of_n_jobs(fit2):
@@ -357,16 +359,16 @@ def test_bootstrap_parametric_and_user_quantities(fit2):
 
 
 def test_failed_replicates_are_counted_and_kept(fit1, monkeypatch):
-    orig = U._Refitter.refit
+    orig = R._Refitter.refit
     calls = {"n": 0}
 
     def flaky(self, t, y, sigma):
         calls["n"] += 1
         if calls["n"] % 3 == 0:
-            return None, None, math.inf, U._FAILED
+            return None, None, math.inf, R._FAILED
         return orig(self, t, y, sigma)
 
-    monkeypatch.setattr(U._Refitter, "refit", flaky)
+    monkeypatch.setattr(R._Refitter, "refit", flaky)
     with pytest.warns(iso.ConvergenceWarning, match="10 of 30 bootstrap refits failed"):
         b = U.bootstrap(fit1, 30, rng=1)
     assert b.n_failed == 10
@@ -377,8 +379,8 @@ def test_failed_replicates_are_counted_and_kept(fit1, monkeypatch):
 
 
 def test_all_failed_gives_failed_intervals(fit1, monkeypatch):
-    monkeypatch.setattr(U._Refitter, "refit",
-                        lambda self, t, y, s: (None, None, math.inf, U._FAILED))
+    monkeypatch.setattr(R._Refitter, "refit",
+                        lambda self, t, y, s: (None, None, math.inf, R._FAILED))
     with pytest.warns(iso.ConvergenceWarning):
         b = U.bootstrap(fit1, 5, rng=1)
     iv = b.intervals().set_index("parameter")
@@ -418,7 +420,7 @@ def test_subjects_bootstrap_resamples_within_sampling_times():
     frame = _destructive_frame()
     fit = iso.TurnoverModel(1).fit(frame, warn=False)
     assert fit.data_info["design"] == "destructive"
-    rf = U._Refitter(fit, "subjects")
+    rf = R._Refitter(fit, "subjects")
     for seed in range(5):
         t_s, y_s, _ = rf.draw(np.random.default_rng(seed))
         np.testing.assert_array_equal(t_s, fit.t)
@@ -432,11 +434,11 @@ def test_subjects_bootstrap_resamples_within_sampling_times():
 def test_subjects_strata_with_one_animal_per_time():
     # animals alone at their time are pooled (pairs bootstrap); a lone one stays as it is
     t = np.array([0, 1, 1, 2, 3, 5.0])
-    assert [list(s) for s in U._time_strata(t)] == [[1, 2], [0, 3, 4, 5]]
-    assert [list(s) for s in U._time_strata(np.array([0, 1, 1.0]))] == [[1, 2]]
+    assert [list(s) for s in R._time_strata(t)] == [[1, 2], [0, 3, 4, 5]]
+    assert [list(s) for s in R._time_strata(np.array([0, 1, 1.0]))] == [[1, 2]]
     frame = _destructive_frame(per_time=1)
     fit = iso.TurnoverModel(1).fit(frame, warn=False)
-    rf = U._Refitter(fit, "subjects")
+    rf = R._Refitter(fit, "subjects")
     t_s, y_s, _ = rf.draw(np.random.default_rng(0))
     pairs = set(zip(fit.t, fit.y))
     assert all((a, b) in pairs for a, b in zip(t_s, y_s))
@@ -448,7 +450,7 @@ def test_bootstrap_options_run(fit2, capsys, monkeypatch):
     b = U.bootstrap(fit2, 20, rng=1, multi_start=False, leverage=False)
     assert a.n_failed == 0 and len(b.replicates) == 20
     # light text counter when tqdm is absent
-    monkeypatch.setattr(U, "HAS_TQDM", False)
+    monkeypatch.setattr(R, "HAS_TQDM", False)
     U.bootstrap(fit2, 10, rng=1, progress=True)
     assert "bootstrap (residual): 10/10" in capsys.readouterr().err
     U.bootstrap(fit2, 10, rng=1, progress=False)
@@ -587,7 +589,7 @@ def test_band_errors(fit1, fit2, boot1):
 # ----------------------------------------------------------------------------------------
 # MCMC
 # ----------------------------------------------------------------------------------------
-@pytest.mark.skipif(not U.HAS_EMCEE, reason="emcee not installed")
+@pytest.mark.skipif(not M.HAS_EMCEE, reason="emcee not installed")
 def test_mcmc_known_sigma_close_to_profile():
     t, y = one_pool(seed=3, sd=0.1)
     fit = iso.TurnoverModel(1).fit(t, y, sigma=np.full(t.size, 0.1), absolute_sigma=True,
@@ -607,7 +609,7 @@ def test_mcmc_known_sigma_close_to_profile():
     assert 0.2 < m.acceptance < 0.9
 
 
-@pytest.mark.skipif(not U.HAS_EMCEE, reason="emcee not installed")
+@pytest.mark.skipif(not M.HAS_EMCEE, reason="emcee not installed")
 def test_mcmc_estimated_sigma_and_short_chain_warning(fit1):
     with pytest.warns(iso.ConvergenceWarning, match="autocorrelation time"):
         m = U.sample(fit1, n_steps=60, rng=1)
@@ -616,7 +618,7 @@ def test_mcmc_estimated_sigma_and_short_chain_warning(fit1):
     assert np.median(m.draws["s"]) == pytest.approx(math.sqrt(fit1.s2), rel=0.3)
 
 
-@pytest.mark.skipif(not U.HAS_EMCEE, reason="emcee not installed")
+@pytest.mark.skipif(not M.HAS_EMCEE, reason="emcee not installed")
 def test_mcmc_prior_jacobian_integrates_to_one():
     # a normal prior density on k1 given in natural units must integrate to 1 over the
     # internal coordinate log k1 once the Jacobian |dk/dlog k| = k is included (quad)
@@ -624,14 +626,14 @@ def test_mcmc_prior_jacobian_integrates_to_one():
     fit = iso.TurnoverModel(1).fit(t, y, fixed={"delta0": -20.0, "delta_eq": -15.0},
                                    warn=False)
     prior = stats.norm(0.03, 0.004)
-    lo, hi, _ = U._prior_box(fit)
-    lp = U._make_log_prior(fit, {"k1": prior.logpdf}, lo, hi, True)
+    lo, hi, _ = M._prior_box(fit)
+    lp = M._make_log_prior(fit, {"k1": prior.logpdf}, lo, hi, True)
     val, _ = integrate.quad(lambda u: math.exp(lp(np.array([u]))), math.log(0.005),
                             math.log(0.08), points=[math.log(0.03)], limit=200)
     assert val == pytest.approx(1.0, rel=1e-6)
 
 
-@pytest.mark.skipif(not U.HAS_EMCEE, reason="emcee not installed")
+@pytest.mark.skipif(not M.HAS_EMCEE, reason="emcee not installed")
 @pytest.mark.filterwarnings("ignore::isoturnover.errors.ConvergenceWarning")
 def test_mcmc_user_prior_pulls_posterior(fit1):
     prior = stats.norm(0.02, 0.0005)  # invented, far from the data's 0.028 and tight
@@ -651,6 +653,6 @@ def test_mcmc_errors(fit1, monkeypatch):
         U.sample(fit1, n_walkers=4)
     with pytest.raises(ValueError, match="'burn' must be smaller than n_steps"):
         U.sample(fit1, n_steps=100, burn=100)
-    monkeypatch.setattr(U, "HAS_EMCEE", False)
+    monkeypatch.setattr(M, "HAS_EMCEE", False)
     with pytest.raises(ImportError, match=r"isoturnover\[mcmc\]"):
         U.sample(fit1)

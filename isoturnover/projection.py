@@ -1,0 +1,312 @@
+r"""Variable projection for a sum of exponentials after one diet switch.
+
+After a single step switch at :math:`t = 0` with no diet table, growth or lag, the model is
+
+.. math:: y(t) = a + \sum_{i=1}^n b_i e^{-k_i t^+},\qquad t^+ = \max(t, 0),
+
+with :math:`a = \delta_{eq}` and :math:`b_i = (\delta_0 - \delta_{eq}) f_i`. For given rates
+the model is linear in :math:`c = (a, b_1, \dots, b_n)`, so :math:`c` is solved by weighted
+linear least squares and only the log-rates :math:`u_i = \ln k_i` are iterated (variable
+projection; Golub & Pereyra 1973, *SIAM J. Numer. Anal.* 10:413–432).
+
+The iteration is Newton's method on the reduced sum of squares
+:math:`\phi(u) = \min_c \lVert W(y - X(u)c)\rVert^2` with its exact Hessian, the Schur
+complement of the full Hessian of :math:`F(u, c)` in the linear block,
+
+.. math:: \nabla^2\phi = F_{uu} - F_{uc} F_{cc}^{-1} F_{cu}
+
+(evaluated at :math:`c^*(u)`, where :math:`\partial F/\partial c = 0`, so the gradient of
+:math:`\phi` is :math:`F_u`), with Levenberg damping when the Hessian is not positive
+definite or a step does not lower :math:`\phi`. Gauss–Newton alone (the Kaufman 1975
+Jacobian) converges only linearly when the residuals are dominated by noise; the exact
+Hessian converges quadratically.
+
+With :math:`r = W(y - Xc)`, :math:`x_j` the weighted columns of :math:`X` (``x_0`` the
+constant), :math:`d_i = \partial x_i/\partial u_i = -W k_i t^+ e^{-k_i t^+}` and
+:math:`e_i = \partial d_i/\partial u_i = d_i + W k_i^2 (t^+)^2 e^{-k_i t^+}`, half the
+derivatives of :math:`F = \lVert r\rVert^2` are
+
+.. math::
+   g_i = -b_i\, r\cdot d_i,\quad
+   (F_{uu})_{il} = b_i b_l\, d_i\cdot d_l - \delta_{il} b_i\, r\cdot e_i,\quad
+   (F_{uc})_{ij} = b_i\, d_i\cdot x_j - \delta_{j,i} r\cdot d_i,\quad
+   F_{cc} = X^T W^2 X.
+
+Only the pure step-switch model uses this path; every other model (diets, growth, lags,
+fixed or tied parameters, bounds, robust losses) is fitted in the engine's coordinates.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+__all__ = ["ProjectedFit", "project_exponentials"]
+
+
+class ProjectedFit:
+    """Outcome of :func:`project_exponentials`.
+
+    Attributes
+    ----------
+    rates : ndarray of shape (n,)
+        Rates :math:`k_i` in 1/time unit, in the order of the starting rates (pools may
+        have changed places: callers check).
+    linear : ndarray of shape (n + 1,)
+        :math:`(a, b_1, \\dots, b_n)` in the order of ``rates``: the plateau
+        :math:`\\delta_{eq}` and the pool amplitudes :math:`(\\delta_0-\\delta_{eq}) f_i`.
+    rss : float
+        Weighted residual sum of squares.
+    n_eval : int
+        Number of evaluations of the reduced problem.
+    converged : bool
+        Newton's iteration met its tolerance within the iteration budget.
+    """
+
+    __slots__ = ("rates", "linear", "rss", "n_eval", "converged")
+
+    def __init__(self, rates, linear, rss, n_eval, converged):
+        self.rates = rates
+        self.linear = linear
+        self.rss = rss
+        self.n_eval = n_eval
+        self.converged = converged
+
+
+# -- small dense algebra in plain floats (matrices of order ≤ 4: cheaper than LAPACK calls)
+def _cholesky(A):
+    """Lower Cholesky factor of a symmetric list-of-lists matrix, or None if not SPD."""
+    n = len(A)
+    L = [[0.0] * n for _ in range(n)]
+    for i in range(n):
+        Li = L[i]
+        for j in range(i + 1):
+            Lj = L[j]
+            s = A[i][j]
+            for k in range(j):
+                s -= Li[k] * Lj[k]
+            if i == j:
+                if not s > 0.0:
+                    return None
+                Li[i] = math.sqrt(s)
+            else:
+                Li[j] = s / Lj[j]
+    return L
+
+
+def _cho_solve(L, b):
+    """Solve (L Lᵀ) x = b for a list ``b``."""
+    n = len(b)
+    y = [0.0] * n
+    for i in range(n):
+        s = b[i]
+        Li = L[i]
+        for k in range(i):
+            s -= Li[k] * y[k]
+        y[i] = s / Li[i]
+    x = [0.0] * n
+    for i in range(n - 1, -1, -1):
+        s = y[i]
+        for k in range(i + 1, n):
+            s -= L[k][i] * x[k]
+        x[i] = s / L[i][i]
+    return x
+
+
+class _Reduced:
+    r"""The reduced problem on fixed data: Gram matrices of the basis and its derivatives.
+
+    Rows of the basis matrix ``V``: the weighted constant, the weighted exponentials
+    :math:`x_i`, :math:`p_i = -d_i` and :math:`e_i` (module docstring), and the weighted
+    data centred on their weighted mean (the constant absorbs the shift; centring keeps
+    :math:`\phi = y\cdot y - 2c\cdot h + c^T G c` clear of cancellation).
+
+    Linear constraints ``C c = d`` on :math:`c = (a, b_1, \dots, b_n)` (a diet table fixes
+    :math:`\sum_i b_i`, the total change, when one separation serves both diets) are
+    honoured by :math:`c = c_p + N v` with :math:`N` a basis of the null space of ``C``:
+    only :math:`v` is solved, and the Schur complement uses :math:`N^T G N`.
+    """
+
+    def __init__(self, t, y, w, n, C=None, d=None):
+        self.tp = np.maximum(np.asarray(t, dtype=float), 0.0)
+        self.w = np.asarray(w, dtype=float)
+        y = np.asarray(y, dtype=float)
+        w2 = self.w * self.w
+        self.ybar = float(w2 @ y / w2.sum())
+        self.n = n
+        m = self.tp.size
+        self.V = np.empty((3 * n + 2, m))
+        self.V[0] = self.w
+        self.V[3 * n + 1] = self.w * (y - self.ybar)
+        self.yy = float(self.V[3 * n + 1] @ self.V[3 * n + 1])
+        self.N = None
+        if C is not None and len(C):
+            C = np.atleast_2d(np.asarray(C, dtype=float))
+            # the centred data shift the constant: C (c - ybar e_0) = d - ybar C e_0
+            d = np.asarray(d, dtype=float) - self.ybar * C[:, 0]
+            cp = np.linalg.lstsq(C, d, rcond=None)[0]
+            _, sv, vt = np.linalg.svd(C)
+            rank = int(np.sum(sv > 1e-12 * max(float(sv[0]), 1e-300)))
+            self.cp = cp.tolist()
+            self.N = vt[rank:].T.tolist()  # (q, q - rank)
+
+    def at(self, k):
+        """(c, φ, M, factor) at rates ``k`` (a list); None when the linear block is
+        singular. ``c`` is centred (its constant lacks ``ybar``)."""
+        n = self.n
+        V = self.V
+        A = np.multiply.outer(k, self.tp)  # k_i t
+        x = V[1:n + 1]
+        np.exp(-A, out=x)
+        x *= self.w
+        P = V[n + 1:2 * n + 1]
+        np.multiply(A, x, out=P)  # p_i = k_i t x_i = -d_i
+        A -= 1.0
+        np.multiply(P, A, out=V[2 * n + 1:3 * n + 1])  # e_i = p_i (k_i t - 1)
+        M = (V @ V.T).tolist()
+        q = n + 1
+        iy = 3 * n + 1
+        G = [row[:q] for row in M[:q]]
+        h = [M[j][iy] for j in range(q)]
+        N = self.N
+        if N is None:
+            L = _cholesky(G)
+            if L is None:
+                return None
+            c = _cho_solve(L, h)
+            phi = self.yy - sum(ci * hi for ci, hi in zip(c, h))
+            return c, max(phi, 0.0), M, L
+        cp = self.cp
+        r = len(N[0])
+        Gcp = [sum(G[i][j] * cp[j] for j in range(q)) for i in range(q)]
+        GN = [[sum(G[i][j] * N[j][a] for j in range(q)) for a in range(r)] for i in range(q)]
+        GNN = [[sum(N[i][a] * GN[i][b_] for i in range(q)) for b_ in range(r)]
+               for a in range(r)]
+        hN = [sum(N[i][a] * (h[i] - Gcp[i]) for i in range(q)) for a in range(r)]
+        L = _cholesky(GNN) if r else []
+        if L is None:
+            return None
+        v = _cho_solve(L, hN) if r else []
+        c = [cp[i] + sum(N[i][a] * v[a] for a in range(r)) for i in range(q)]
+        Gc = [sum(G[i][j] * c[j] for j in range(q)) for i in range(q)]
+        phi = self.yy - 2.0 * sum(ci * hi for ci, hi in zip(c, h)) + sum(
+            ci * gi for ci, gi in zip(c, Gc))
+        return c, max(phi, 0.0), M, L
+
+    def newton_parts(self, c, M, L):
+        """Gradient and exact Hessian of φ/2 in the log-rates (module docstring)."""
+        n = self.n
+        q = n + 1
+        iy = 3 * n + 1
+        b = c[1:]
+        # r·v = M[v][y] - Σ_j c_j M[v][x_j] for a basis row v
+        rP = [M[q + i][iy] - sum(c[j] * M[q + i][j] for j in range(q)) for i in range(n)]
+        rE = [M[q + n + i][iy] - sum(c[j] * M[q + n + i][j] for j in range(q))
+              for i in range(n)]
+        # with d = -p: g_i = -b_i r·d_i = b_i r·p_i
+        g = [b[i] * rP[i] for i in range(n)]
+        Fuu = [[b[i] * b[l] * M[q + i][q + l] for l in range(n)] for i in range(n)]
+        for i in range(n):
+            Fuu[i][i] -= b[i] * rE[i]
+        # (F_uc)_ij = b_i d_i·x_j - δ_{j,i+1} r·d_i = -b_i p_i·x_j + δ r·p_i
+        Fuc = [[-b[i] * M[q + i][j] for j in range(q)] for i in range(n)]
+        for i in range(n):
+            Fuc[i][i + 1] += rP[i]
+        N = self.N
+        if N is not None:  # the linear block is v: F_uv = F_uc N
+            r = len(N[0])
+            Fuc = [[sum(row[j] * N[j][a] for j in range(q)) for a in range(r)]
+                   for row in Fuc]
+            if not r:
+                return g, Fuu
+        Z = [_cho_solve(L, row) for row in Fuc]  # (linear Hessian)⁻¹ F_cu, per pool
+        m = len(Z[0])
+        H = [[Fuu[i][l] - sum(Fuc[i][j] * Z[l][j] for j in range(m)) for l in range(n)]
+             for i in range(n)]
+        return g, H
+
+
+def project_exponentials(t, y, w, rates0, *, C=None, d=None, max_eval=None, xtol=1e-6):
+    r"""Least-squares fit of :math:`a + \sum_i b_i e^{-k_i t^+}` by variable projection.
+
+    Parameters
+    ----------
+    t : ndarray of shape (m,)
+        Times since the switch (days or the fit's unit); times before it count as 0.
+    y : ndarray of shape (m,)
+        Observations (‰ or the scale in use).
+    w : ndarray of shape (m,)
+        Weights :math:`1/\sigma_i` (ones for an unweighted fit).
+    rates0 : sequence of float
+        Starting rates, one per pool (1/time unit), all positive and distinct.
+    C, d : array-like, optional
+        Linear equality constraints ``C @ (a, b_1, …, b_n) = d`` on the linear parameters
+        (for example a fixed total change :math:`\sum_i b_i`).
+    max_eval : int, optional
+        Evaluations of the reduced problem allowed (default ``40 + 20 n``); the fit is
+        then returned unconverged.
+    xtol : float, optional
+        Converged when an undamped Newton step changes no log-rate by more than ``xtol``
+        (Newton converges quadratically, so the log-rates are then within about
+        ``xtol**2`` of the minimum).
+
+    Returns
+    -------
+    ProjectedFit or None
+        None when the linear block is singular at the start (two rates equal, a rate run
+        to 0 or to infinity): the caller then fits in the engine's coordinates.
+    """
+    n = len(rates0)
+    red = _Reduced(t, y, w, n, C, d)
+    u = [math.log(float(k)) for k in rates0]
+    cur = red.at([math.exp(v) for v in u])
+    n_eval = 1
+    if cur is None:
+        return None
+    c, phi, M, L = cur
+    if max_eval is None:
+        max_eval = 40 + 20 * n
+    lam = 0.0
+    converged = False
+    big = 0.0
+    while n_eval < max_eval and not converged:
+        g, H = red.newton_parts(c, M, L)
+        scale = max(max(abs(H[i][i]) for i in range(n)), 1e-300)
+        accepted = False
+        while n_eval < max_eval:
+            Hd = [[H[i][j] + (lam * scale if i == j else 0.0) for j in range(n)]
+                  for i in range(n)]
+            LH = _cholesky(Hd)
+            if LH is None:
+                lam = max(lam * 10.0, 1e-3)
+                continue
+            step = [-s for s in _cho_solve(LH, g)]
+            big = max(abs(s) for s in step)
+            if big > 2.0:  # at most a factor e^2 in any rate per step
+                step = [s * 2.0 / big for s in step]
+            u_new = [ui + si for ui, si in zip(u, step)]
+            if max(abs(v) for v in u_new) > 700.0:
+                lam = max(lam * 10.0, 1e-3)
+                continue
+            new = red.at([math.exp(v) for v in u_new])
+            n_eval += 1
+            # φ = y·y − c·h carries rounding of ~1e-16 y·y: near the minimum a step is
+            # accepted when φ does not rise beyond that
+            if new is not None and new[1] <= phi + 1e-13 * red.yy:
+                accepted = True
+                u, (c, phi, M, L) = u_new, new
+                if lam == 0.0 and big <= xtol:
+                    converged = True
+                lam = 0.0 if lam <= 1e-6 else lam / 10.0
+                break
+            lam = max(lam * 10.0, 1e-3)
+        if not accepted:
+            # nothing lowers φ within rounding: a minimum if the Newton step was tiny
+            converged = big <= 1e-6
+            break
+        if converged:
+            break
+    lin = np.array(c, dtype=float)
+    lin[0] += red.ybar
+    return ProjectedFit(np.exp(u), lin, float(phi), n_eval, converged)
