@@ -104,7 +104,7 @@ def check_fit(fit, what, joint=False):
     """
     state = getattr(fit, "state", None)
     if not isinstance(state, FitState):
-        raise TypeError(f"{what} needs a TurnoverFit (the result of TurnoverModel.fit); got "
+        raise DataError(f"{what} needs a TurnoverFit (the result of TurnoverModel.fit); got "
                         f"{type(fit).__name__}")
     if not joint and state.engine.mass_block is not None:
         raise DataError(
@@ -593,7 +593,7 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
     check_fit(fit, "profile_derived", joint=True)
     level = _check_level(level)
     if not callable(fn):
-        raise TypeError(f"'fn' must be a function of the parameter vector; got "
+        raise DataError(f"'fn' must be a function of the parameter vector; got "
                         f"{type(fn).__name__}")
     if fit.loss != "linear":
         raise DataError(f"'fit': profile intervals need a least-squares fit (loss='linear'); "

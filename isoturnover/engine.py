@@ -270,18 +270,18 @@ def as_1d(name, a, n=None):
     try:
         arr = np.asarray(a, dtype=float)
     except (TypeError, ValueError):
-        raise ValueError(f"'{name}' must be numeric; got {a!r:.60}") from None
+        raise DataError(f"'{name}' must be numeric; got {a!r:.60}") from None
     if arr.ndim == 0 and n is not None:
         arr = np.full(n, float(arr))
     arr = np.atleast_1d(arr)
     if arr.ndim != 1:
-        raise ValueError(f"'{name}' must be one-dimensional; got shape {arr.shape}")
+        raise DataError(f"'{name}' must be one-dimensional; got shape {arr.shape}")
     if n is not None and arr.size != n:
-        raise ValueError(f"'{name}' has {arr.size} values but 't' has {n}; lengths must match")
+        raise DataError(f"'{name}' has {arr.size} values but 't' has {n}; lengths must match")
     bad = ~np.isfinite(arr)
     if np.any(bad):
         i = int(np.argmax(bad))
-        raise ValueError(
+        raise DataError(
             f"'{name}' must be finite; got {arr[i]!r} at position {i} "
             f"({int(bad.sum())} non-finite value(s))"
         )
@@ -296,7 +296,7 @@ def prepare_data(t_or_frame, y, sigma, time_unit):
             "tissue": None, "isotope": None}
     if isinstance(t_or_frame, pd.DataFrame):
         if y is not None or sigma is not None:
-            raise ValueError("with a samples frame, do not pass 'y' or 'sigma' (taken from "
+            raise DataError("with a samples frame, do not pass 'y' or 'sigma' (taken from "
                              "the frame's 'value' and 'sd' columns)")
         fs = frame_series(t_or_frame)
         t, yv, sd = fs.pop("t"), fs.pop("y"), fs.pop("sd")
@@ -306,15 +306,15 @@ def prepare_data(t_or_frame, y, sigma, time_unit):
             time_unit = t_or_frame.attrs.get("time_unit", "d")
     else:
         if y is None:
-            raise ValueError("'y' is required when 't' is an array")
+            raise DataError("'y' is required when 't' is an array")
         t = as_1d("t", t_or_frame)
         yv = as_1d("y", y, t.size)
         sd = None if sigma is None else as_1d("sigma", sigma, t.size)
     if sd is not None and np.any(sd <= 0):
         i = int(np.argmax(sd <= 0))
-        raise ValueError(f"'sigma' must be > 0; got {sd[i]!r} at position {i}")
+        raise DataError(f"'sigma' must be > 0; got {sd[i]!r} at position {i}")
     if t.size < 2:
-        raise ValueError(f"at least 2 time points are needed; got {t.size}")
+        raise DataError(f"at least 2 time points are needed; got {t.size}")
     order = np.argsort(t, kind="stable")
     return {"t": t[order], "y": yv[order], "sigma": None if sd is None else sd[order],
             "time_unit": time_unit or "d", "info": info, "order": order}
@@ -333,7 +333,7 @@ class MassBlock:
         try:
             tm, wm = masses
         except (TypeError, ValueError):
-            raise ValueError("'masses' must be a pair (t_mass, mass) of arrays") from None
+            raise DataError("'masses' must be a pair (t_mass, mass) of arrays") from None
         tm = as_1d("masses time", tm)
         wm = as_1d("masses mass", wm, tm.size)
         if np.any(wm <= 0):

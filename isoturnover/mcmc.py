@@ -255,14 +255,14 @@ def sample(fit, n_walkers=None, n_steps=2000, burn=None, thin=1, rng=None, sigma
     prior_fns = {}
     if priors is not None:
         if not isinstance(priors, dict):
-            raise TypeError(f"'priors' must be a dict of parameter name -> log-density; got "
+            raise DataError(f"'priors' must be a dict of parameter name -> log-density; got "
                             f"{type(priors).__name__}")
         for nm, fn in priors.items():
             if nm not in free_names:
                 raise DataError(f"'priors' has {nm!r}, which is not a free parameter of this "
                                 f"fit; free parameters: {', '.join(free_names)}")
             if not callable(fn):
-                raise TypeError(f"'priors[{nm!r}]' must be a log-density function; got "
+                raise DataError(f"'priors[{nm!r}]' must be a log-density function; got "
                                 f"{type(fn).__name__}")
             prior_fns[nm] = fn
     lo, hi, desc = _prior_box(fit)

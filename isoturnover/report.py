@@ -445,7 +445,10 @@ def _series_section(doc, idx, s, sm, level, method, figure_entries, crit):
     doc.table(["Parameter", "Estimate", "SE", "Lower", "Upper", "Method", "Unit"], rows)
     doc.h(3, "Derived quantities")
     names = {"time_to_95": "time to 95 % of a step change",
-             "mean_residence_time": "mean residence time"}
+             "mean_residence_time": "mean residence time",
+             "mean_residence_time_incorporation":
+                 "mean residence time, incorporation (from k_d + k_g)",
+             "mean_residence_time_catabolic": "mean residence time, catabolic (from k_d)"}
     rows = []
     for _, q in der.iterrows():
         nm = str(q["quantity"])

@@ -685,7 +685,7 @@ def _user_quantities(quantities, fit, reserved):
     if quantities is None:
         return {}
     if not isinstance(quantities, dict):
-        raise TypeError(f"'quantities' must be a dict of name -> function of theta; got "
+        raise DataError(f"'quantities' must be a dict of name -> function of theta; got "
                         f"{type(quantities).__name__}")
     out = {}
     for nm, fn in quantities.items():
@@ -695,7 +695,7 @@ def _user_quantities(quantities, fit, reserved):
             raise DataError(f"'quantities' name {nm!r} is already a reported quantity; choose "
                             "another name")
         if not callable(fn):
-            raise TypeError(f"'quantities[{nm!r}]' must be a function of theta; got "
+            raise DataError(f"'quantities[{nm!r}]' must be a function of theta; got "
                             f"{type(fn).__name__}")
         try:
             v = float(fn(fit.state.theta))

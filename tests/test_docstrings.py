@@ -138,7 +138,6 @@ def test_no_check_is_silenced_in_the_source():
     assert not hits, hits
 
 
-@pytest.mark.xfail(strict=False, reason="docstring audit in progress")
 @pytest.mark.parametrize("group", list(GROUPS))
 def test_public_docstrings(group):
     failures = _failures(_names(*GROUPS[group]))

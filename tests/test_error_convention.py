@@ -183,7 +183,6 @@ def test_the_scan_finds_plain_raises():
     assert len(list(PACKAGE.glob("*.py"))) > 10  # the scan reads the package's modules
 
 
-@pytest.mark.xfail(strict=False, reason="error convention being applied module by module")
 def test_no_plain_value_or_type_error():
     found = _plain_raises()
     assert not found, f"{len(found)} plain raise(s):\n" + "\n".join(found)

@@ -235,7 +235,7 @@ def test_profile_derived_statuses_and_fixed():
 
 
 def test_profile_errors(fit1):
-    with pytest.raises(TypeError, match="'fn' must be a function"):
+    with pytest.raises(iso.DataError, match="'fn' must be a function"):
         U.profile_derived(fit1, 3.0)
     with pytest.raises(ValueError, match="'level' must be between 0 and 1"):
         U.profile_derived(fit1, lambda th: th[2], 1.5)
@@ -251,7 +251,7 @@ def test_profile_errors(fit1):
         U.time_to_profile(fit1, 1.2)
     with pytest.raises(ValueError, match="'i' must be a pool number from 1 to 1"):
         U.half_life_ratio_profile(fit1, 2, 1)
-    with pytest.raises(TypeError, match="needs a TurnoverFit"):
+    with pytest.raises(iso.DataError, match="needs a TurnoverFit"):
         U.time_to_profile("fit", 0.95)
     t, y = one_pool()
     rob = iso.TurnoverModel(1).fit(t, y, loss="soft_l1", warn=False)
@@ -509,7 +509,7 @@ def test_bootstrap_errors(fit1):
         U.bootstrap(fit1, 10, kind="subjects")
     with pytest.raises(ValueError, match="'multi_start' must be"):
         U.bootstrap(fit1, 10, multi_start="sometimes")
-    with pytest.raises(TypeError, match="'quantities' must be a dict"):
+    with pytest.raises(iso.DataError, match="'quantities' must be a dict"):
         U.bootstrap(fit1, 10, quantities=[lambda th: 1.0])
     with pytest.raises(ValueError, match="'quantities' name 'k1' is already"):
         U.bootstrap(fit1, 10, quantities={"k1": lambda th: 1.0})
