@@ -89,6 +89,7 @@ class Problem:
         self.f_scale = f_scale
         # extra residual block: callable theta -> (r, dr/dtheta), e.g. body masses
         self.extra = extra
+        self._level_map = None  # the levels' affine map, read on first use
 
     def evaluate(self, coords: Coordinates, z):
         """Weighted residuals r(z) and their Jacobian dr/dz in internal coordinates."""
@@ -116,9 +117,154 @@ class Problem:
 
         return f
 
+    # -- variable projection (one switch) -------------------------------------------------
+    def projectable(self, coords) -> bool:
+        """Whether this problem can be solved by variable projection
+        (:mod:`isoturnover.projection`).
+
+        Parameters
+        ----------
+        coords : Coordinates
+            The coordinate map.
+
+        Returns
+        -------
+        bool
+            One diet switch (a step, or a diet table with two diets), parallel pools on
+            the δ scale, no growth, lag, extra residual block, tied parameter, bound or
+            robust loss, and more points than parameters.
+        """
+        kin = self.kin
+        return (kin.structure == "parallel" and kin.growth_kind is None and not kin.lag
+                and kin.scale == "delta" and kin.n_levels == 2
+                and kin.switch_times.size == 1 and self.loss == "linear"
+                and self.extra is None and coords.ties is None and not coords.has_bounds
+                and self.t.size > 2 * kin.pools + 1)
+
+    def level_map(self):
+        r"""The levels as an affine map of the parameters: :math:`L = c + M\theta`.
+
+        Read once from :meth:`~isoturnover.kinetics.TurnoverKinetics.levels` at the origin
+        and the unit vectors (the map is affine for every separation form).
+
+        Returns
+        -------
+        tuple of (ndarray, ndarray, list of int)
+            ``c``, ``M`` and the parameters the levels use.
+        """
+        if self._level_map is None:
+            kin = self.kin
+            c = kin.levels(np.zeros(kin.n_params))
+            M = np.array([kin.levels(e) for e in np.eye(kin.n_params)]).T - c[:, None]
+            cols = np.flatnonzero(np.any(M != 0, axis=0)).tolist()
+            self._level_map = (c, M, cols)
+        return self._level_map
+
+    def solve_projected(self, coords, rates0, *, n_eval0=0):
+        r"""Variable projection from starting rates (a fresh fit: nothing fixed).
+
+        After one switch at :math:`s`, :math:`\delta = L_1 + (L_0 - L_1)\sum_i f_i
+        e^{-k_i (t-s)^+}`: with :math:`a = L_1` and :math:`b_i = (L_0 - L_1) f_i` a sum of
+        exponentials whose linear parameters obey linear constraints:
+        :math:`(L_1, L_0) = (a, a + \sum_i b_i)` must lie in the image of the level
+        parameters (one separation shared by both diets fixes :math:`\sum_i b_i`).
+
+        Parameters
+        ----------
+        coords : Coordinates
+            The coordinate map (nothing fixed).
+        rates0 : array-like
+            Starting rates, fastest first.
+        n_eval0 : int, optional
+            Evaluations already spent (added to the solution's count).
+
+        Returns
+        -------
+        Solution or None
+            None when the projection does not apply or leaves the model's domain (a
+            non-positive fraction, merged rates, levels not determined); an unconverged
+            Solution (``success`` False) carries the evaluations spent.
+        """
+        kin = self.kin
+        n = kin.pools
+        if coords.fixed:
+            return None
+        c0, M, cols = self.level_map()
+        P = np.stack([M[1, cols], M[0, cols]])  # (L1, L0) = c + P ψ
+        nu = _left_null_space(P)
+        if nu is None:
+            return None  # the level parameters are not determined by (L1, L0)
+        C = d = None
+        if nu.size:  # ν·((a, a + Σ b) − (c1, c0)) = 0
+            T = np.zeros((2, n + 1))
+            T[0, 0] = 1.0
+            T[1, :] = 1.0
+            C, d = nu @ T, nu @ np.array([c0[1], c0[0]])
+        k0 = np.asarray(rates0, dtype=float)
+        if not (np.all(np.isfinite(k0)) and np.all(k0 > 0)):
+            return None
+        tau = self.t - float(kin.switch_times[0])
+        pf = project_exponentials(tau, self.y, self.w, k0, C=C, d=d)
+        if pf is None:
+            return None
+        n_eval = n_eval0 + pf.n_eval
+        if not pf.converged:
+            return Solution(np.zeros(coords.size), k0, math.inf, 0, n_eval,
+                            "variable projection did not converge", False)
+        # the constraints involve only Σ b: pools may change places, sort by rate
+        order = np.argsort(-pf.rates)
+        k = pf.rates[order].tolist()
+        a, *b = np.concatenate([pf.linear[:1], pf.linear[1:][order]]).tolist()
+        total = sum(b)
+        if not (total != 0 and all(v / total > 0 for v in b)
+                and all(0 < v < math.inf for v in k)
+                and all(k[i + 1] < k[i] * (1 - 1e-9) for i in range(n - 1))):
+            return None
+        th = np.zeros(kin.n_params)
+        rhs = np.array([a - c0[1], a + total - c0[0]])
+        if len(cols) == 1:
+            p_ = P[:, 0]
+            th[cols[0]] = float(p_ @ rhs) / float(p_ @ p_)
+        else:
+            th[cols] = np.linalg.lstsq(P, rhs, rcond=None)[0]
+        th[kin.rate_index] = k
+        th[kin.fraction_index] = [v / total for v in b]
+        z = coords.z_from_theta(th)
+        r, J = self.evaluate(coords, z)
+        cost = float(r @ r)
+        # the model must reproduce the projected fit (same sum of squares), and the full
+        # problem's gradient must vanish there
+        grad = J.T @ r
+        colsq = np.einsum("ij,ij->j", J, J)
+        if not (math.isfinite(cost) and abs(cost - pf.rss) <= 1e-7 * cost + 1e-12
+                * float(self.w @ self.w) and bool(np.all(
+                    grad * grad <= 1e-12 * colsq * max(cost, 1e-300) + 1e-300))):
+            return None
+        return Solution(z, coords.theta(z), cost, 1, n_eval,
+                        "variable projection converged (Newton, exact Hessian)", True, J)
+
     def solve(self, coords: Coordinates, z0, *, tol=1e-14, max_nfev=None) -> Solution:
-        """Least-squares solution from ``z0``: MINPACK ``lmder`` without bounds, scipy's
-        trust-region reflective method with bounds or a robust loss."""
+        """Least-squares solution from ``z0`` in the internal coordinates.
+
+        MINPACK ``lmder`` without bounds, scipy's trust-region reflective method with
+        bounds or a robust loss. (Warm-started refits — profiles, bootstraps — converge in a
+        few evaluations here; measured, variable projection does not pay for them.)
+
+        Parameters
+        ----------
+        coords : Coordinates
+            The coordinate map.
+        z0 : ndarray
+            Starting coordinates.
+        tol : float, optional
+            Tolerances (xtol, ftol, gtol) of the solver in the coordinates.
+        max_nfev : int, optional
+            Evaluation budget (default ``100 (p + 1)``).
+
+        Returns
+        -------
+        Solution
+        """
         t = self.t
         extra = self.extra
         _eval = self.cached_evaluate(coords)
@@ -218,6 +364,25 @@ class Problem:
         return sol
 
 
+def _left_null_space(P):
+    """Rows spanning the left null space of the 2 × m matrix ``P`` (shape (2 − rank, 2)),
+    or None when its columns are dependent (rank < m: parameters not determined)."""
+    m = P.shape[1]
+    if m == 1:
+        p1, p0 = float(P[0, 0]), float(P[1, 0])
+        norm = math.hypot(p1, p0)
+        if norm == 0:
+            return None
+        return np.array([[p0 / norm, -p1 / norm]])
+    if m == 2:
+        det = float(P[0, 0] * P[1, 1] - P[0, 1] * P[1, 0])
+        scale = float(np.max(np.abs(P)))
+        return np.zeros((0, 2)) if abs(det) > 1e-12 * scale * scale else None
+    if m == 0:
+        return np.eye(2)
+    return None  # more level parameters than the two levels can determine
+
+
 def check_growth_coverage(kin, t):
     """Refuse growth curves used far outside the masses they were fitted to."""
     g = kin.growth
@@ -267,8 +432,56 @@ def check_names(d, kin, what):
 
 
 def as_1d(name, a, n=None):
+    """A one-dimensional float array of finite values, checked and copied.
+
+    Parameters
+    ----------
+    name : str
+        The argument in messages (``"y"``).
+    a : array-like or scalar
+        The values. A scalar is repeated ``n`` times when ``n`` is given.
+    n : int, optional
+        The length required (that of ``t``).
+
+    Returns
+    -------
+    numpy.ndarray of float, shape (n,)
+        A new array; ``a`` is not changed.
+
+    Raises
+    ------
+    DataError
+        Naming ``name``: values that are not numbers, complex numbers (the imaginary part
+        would be lost), time spans or dates (they need a unit or a reference date), a
+        masked array with masked values (a mask cannot be honoured value by value here),
+        more than one dimension, a length other than ``n``, or a value that is not finite.
+    """
+    if isinstance(a, np.ma.MaskedArray) and np.ma.count_masked(a):
+        k = int(np.ma.count_masked(a))
+        raise DataError(
+            f"'{name}' is a masked array with {k} masked value{'s' if k > 1 else ''}; masked "
+            "values cannot be left out here: drop them (a.compressed()) or fill them"
+        )
     try:
-        arr = np.asarray(a, dtype=float)
+        raw = np.asarray(np.ma.getdata(a))
+    except (TypeError, ValueError):
+        raise DataError(f"'{name}' must be numeric; got {a!r:.60}") from None
+    kind = raw.dtype.kind
+    if kind == "c" or (kind == "O" and any(isinstance(v, complex) for v in raw.ravel())):
+        raise DataError(
+            f"'{name}' holds complex numbers; give real numbers (np.real(...) when the "
+            "imaginary parts are only rounding noise)"
+        )
+    if kind == "m":
+        raise DataError(f"'{name}' holds time spans (timedelta64); give plain numbers in "
+                        "the fit's time unit")
+    if kind == "M":
+        raise DataError(
+            f"'{name}' holds dates (datetime64); give times since the diet switch as numbers "
+            "(read_samples(..., switch_date=...) turns dates into times)"
+        )
+    try:
+        arr = np.asarray(raw, dtype=float)
     except (TypeError, ValueError):
         raise DataError(f"'{name}' must be numeric; got {a!r:.60}") from None
     if arr.ndim == 0 and n is not None:
@@ -288,9 +501,55 @@ def as_1d(name, a, n=None):
     return arr.copy()
 
 
-def prepare_data(t_or_frame, y, sigma, time_unit):
-    """Arrays (t, y, sigma) from arrays or a samples frame; never mutates the input."""
+def prepare_data(t_or_frame, y, sigma, time_unit, *, warn_repeats=True):
+    """Arrays (t, y, sigma) from arrays or a samples frame; never mutates the input.
+
+    Parameters
+    ----------
+    t_or_frame : array-like of shape (n,) or pandas.DataFrame
+        Times since the switch (numbers in ``time_unit``, or numpy/pandas time spans, which
+        are converted to ``time_unit``), or a samples frame of one series or one
+        destructive-sampling design (its ``sd`` must be given on every row or on none).
+    y : array-like of shape (n,) or None
+        δ values (‰); None with a frame.
+    sigma : array-like of shape (n,), scalar or None
+        Analytic 1σ of each value (> 0); None with a frame.
+    time_unit : str or None
+        Label of the time unit (default ``"d"``, or the frame's ``attrs``); for time spans
+        one of ``"d"``, ``"h"``, ``"w"``, ``"min"`` (or ``"days"``, ``"hours"``...).
+    warn_repeats : bool, default True
+        Warn when the times of arrays repeat (see below); False for data already checked
+        (a fit rebuilt from its record).
+
+    Returns
+    -------
+    dict
+        ``t``, ``y``, ``sigma`` (None when not given) sorted by time, ``time_unit``,
+        ``info`` (where the data came from), ``order`` (the sorting permutation).
+
+    Raises
+    ------
+    DataError
+        For arguments that cannot be used, naming them (see :func:`as_1d`); time spans with
+        a ``time_unit`` that is not a unit of time; a frame whose ``sd`` is blank on some
+        rows but not all (naming the rows: a fit cannot weight some points and not
+        others); ``sigma`` ≤ 0; fewer than 2 points.
+
+    Warns
+    -----
+    DataWarning
+        Masked values of numpy masked arrays (``t``, ``y``, ``sigma``) are left out, with
+        their number and positions. Repeated times in arrays are fitted as independent
+        points -- right for different animals sampled at one time (a destructive design),
+        not for analytic replicates of one sample -- and named in a warning: arrays carry
+        no subject to tell the two apart (a samples frame does, and averages replicates).
+    """
+    import warnings
+
     import pandas as pd
+
+    from .errors import DataWarning
+    from .tables import missing_cells
 
     info = {"source": "arrays", "n_replicates": None, "design": "series", "subjects": None,
             "tissue": None, "isotope": None}
@@ -298,6 +557,20 @@ def prepare_data(t_or_frame, y, sigma, time_unit):
         if y is not None or sigma is not None:
             raise DataError("with a samples frame, do not pass 'y' or 'sigma' (taken from "
                              "the frame's 'value' and 'sd' columns)")
+        if "sd" in t_or_frame.columns and len(t_or_frame):
+            blank = missing_cells(t_or_frame["sd"])
+            if blank.any() and not blank.all():
+                pos = np.flatnonzero(blank)
+                src = (t_or_frame.attrs or {}).get("source")
+                where = (f"the samples frame (read from {src})"
+                         if src and src != "<frame>" else "the samples frame")
+                labels = ", ".join(str(v) for v in t_or_frame.index[pos[:10]])
+                raise DataError(
+                    f"{where}: column 'sd' is blank on {pos.size} of {blank.size} rows (index "
+                    f"{labels}{', ...' if pos.size > 10 else ''}) while the others have an "
+                    "sd; a fit cannot weight some points and not others: give an sd for "
+                    "every row, or drop the 'sd' column for an unweighted fit"
+                )
         fs = frame_series(t_or_frame)
         t, yv, sd = fs.pop("t"), fs.pop("y"), fs.pop("sd")
         info.update(fs)
@@ -307,9 +580,83 @@ def prepare_data(t_or_frame, y, sigma, time_unit):
     else:
         if y is None:
             raise DataError("'y' is required when 't' is an array")
-        t = as_1d("t", t_or_frame)
-        yv = as_1d("y", y, t.size)
-        sd = None if sigma is None else as_1d("sigma", sigma, t.size)
+        given = {"t": t_or_frame, "y": y, "sigma": sigma}
+        # masked arrays: the union of their masks is left out of every argument
+        n_given = np.size(np.ma.getdata(t_or_frame))
+        masks = {k: np.ma.getmaskarray(v) for k, v in given.items()
+                 if isinstance(v, np.ma.MaskedArray) and np.ma.count_masked(v)
+                 and np.ndim(v) == 1 and np.size(v) == n_given}
+        keep_pos = np.arange(n_given)
+        if masks:
+            drop = np.zeros(n_given, dtype=bool)
+            for m in masks.values():
+                drop |= m
+            keep_pos = np.flatnonzero(~drop)
+            for k in masks:
+                given[k] = np.ma.getdata(given[k])[keep_pos]
+            for k, v in given.items():   # unmasked arrays of the same length lose them too
+                if k not in masks and v is not None and np.ndim(v) == 1 \
+                        and np.size(v) == n_given:
+                    given[k] = np.asarray(np.ma.getdata(v))[keep_pos]
+            dropped = np.flatnonzero(drop)
+            shown = ", ".join(str(int(i)) for i in dropped[:10])
+            warnings.warn(
+                f"dropped {dropped.size} masked point(s) of {n_given} (positions {shown}"
+                f"{', ...' if dropped.size > 10 else ''}; masked in "
+                f"{', '.join(repr(k) for k in masks)}); the fit uses the other "
+                f"{n_given - dropped.size}",
+                DataWarning, stacklevel=3,
+            )
+        traw = given["t"]
+        if not isinstance(traw, (pd.DataFrame, np.ma.MaskedArray)):
+            try:
+                tarr = np.asarray(traw)
+            except (TypeError, ValueError):
+                tarr = None
+            if tarr is not None and tarr.dtype.kind == "O" and tarr.size and all(
+                    isinstance(v, (pd.Timedelta, np.timedelta64)) or type(v).__name__ ==
+                    "timedelta" for v in tarr.ravel()):
+                tarr = pd.to_timedelta(tarr.ravel()).to_numpy().reshape(tarr.shape)
+            if tarr is not None and tarr.dtype.kind == "m":
+                seconds = {"d": 86400.0, "day": 86400.0, "days": 86400.0,
+                           "h": 3600.0, "hour": 3600.0, "hours": 3600.0,
+                           "w": 604800.0, "week": 604800.0, "weeks": 604800.0,
+                           "min": 60.0, "minute": 60.0, "minutes": 60.0}
+                unit = "d" if time_unit is None else time_unit
+                if not isinstance(unit, str) or unit.strip() not in seconds:
+                    raise DataError(
+                        f"'t' holds time spans (timedelta); time_unit {unit!r} is not a unit "
+                        "of time this conversion knows: use 'd', 'h', 'w' or 'min' (or "
+                        "give 't' as plain numbers)"
+                    )
+                # exact: the spans in seconds (as floats) over the unit's length in seconds
+                traw = (tarr / np.timedelta64(1, "s")) / seconds[unit.strip()]
+        t = as_1d("t", traw)
+        yv = as_1d("y", given["y"], t.size)
+        sd = None if given["sigma"] is None else as_1d("sigma", given["sigma"], t.size)
+        if warn_repeats and t.size > 1:
+            vals, inverse, counts = np.unique(t, return_inverse=True, return_counts=True)
+            rep = np.flatnonzero(counts > 1)
+            if rep.size:
+                groups = [keep_pos[np.flatnonzero(inverse == j)] for j in rep]
+                listing = "; ".join(
+                    f"t = {vals[j]:g} at positions {', '.join(str(int(p)) for p in g)}"
+                    for j, g in zip(rep[:5], groups[:5])) + ("; ..." if rep.size > 5 else "")
+                n_pts = int(counts[rep].sum())
+                cols = [t, yv] + ([] if sd is None else [sd])
+                n_dup = t.size - np.unique(np.column_stack(cols), axis=0).shape[0]
+                dup = (f"; {n_dup} exact duplicate{'s' if n_dup > 1 else ''} of another "
+                       "point (same t, y" + ("" if sd is None else " and sigma") + ")"
+                       if n_dup else "")
+                warnings.warn(
+                    f"'t' repeats {rep.size} time{'s' if rep.size > 1 else ''} ({listing}): "
+                    f"these {n_pts} points are fitted as {n_pts} independent points{dup}. "
+                    "That is right for different animals sampled at one time (a destructive "
+                    "design), not for analytic replicates of one sample, which count as one "
+                    "point: average those first (iso.average_replicates), or fit the "
+                    "samples frame, which averages the replicates of each animal",
+                    DataWarning, stacklevel=3,
+                )
     if sd is not None and np.any(sd <= 0):
         i = int(np.argmax(sd <= 0))
         raise DataError(f"'sigma' must be > 0; got {sd[i]!r} at position {i}")
@@ -482,7 +829,6 @@ class Engine:
         self.problem = Problem(kin, self.t, self.y, self.w, loss="linear",
                                 extra=self.mass_block)
         self.block_scale = None  # (s_delta, s_mass) of the joint fit
-        self._lm = None  # the levels' affine map, read on first use
 
     def coords(self, fixed, rate_anchor=None, fraction_anchor=None):
         key = (tuple(sorted(fixed)), rate_anchor, fraction_anchor)
@@ -592,7 +938,8 @@ class Engine:
         return best, tried
 
     def projectable(self, coords) -> bool:
-        """Whether the fit can run by variable projection (:mod:`isoturnover.projection`).
+        """Whether a fresh fit can run by variable projection (see
+        :meth:`Problem.projectable`; nothing may be fixed).
 
         Parameters
         ----------
@@ -602,112 +949,40 @@ class Engine:
         Returns
         -------
         bool
-            One diet switch (a step, or a diet table with two diets), parallel pools on
-            the δ scale, no growth, lag, mass block, tied parameter, bound or robust loss,
-            and more points than parameters.
         """
-        kin = self.kin
-        return (kin.structure == "parallel" and kin.growth_kind is None and not kin.lag
-                and kin.scale == "delta" and kin.n_levels == 2
-                and kin.switch_times.size == 1 and self.loss == "linear"
-                and self.mass_block is None and not coords.fixed
-                and coords.ties is None and not coords.has_bounds
-                and self.t.size > 2 * kin.pools + 1)
-
-    def _level_map(self):
-        r"""The levels as an affine map of the parameters: :math:`L = c + M\theta`.
-
-        Read from :meth:`~isoturnover.kinetics.TurnoverKinetics.levels` at the origin and
-        the unit vectors (the map is affine for every separation form). Returns
-        ``(c, M, level_columns)``; ``level_columns`` are the parameters the levels use.
-        """
-        kin = self.kin
-        c = kin.levels(np.zeros(kin.n_params))
-        M = np.array([kin.levels(e) for e in np.eye(kin.n_params)]).T - c[:, None]
-        cols = [j for j in range(kin.n_params) if np.any(M[:, j] != 0)]
-        return c, M, cols
+        return (self.loss == "linear" and not coords.fixed
+                and self.problem.projectable(coords))
 
     def fit_projected(self, coords):
         r"""Fit by variable projection from the best grid start.
 
-        After one switch at :math:`s`, :math:`\delta = L_1 + (L_0 - L_1)\sum_i f_i
-        e^{-k_i (t-s)^+}`: with :math:`a = L_1` and :math:`b_i = (L_0 - L_1) f_i` a sum of
-        exponentials whose linear parameters obey the constraints the levels impose
-        (:math:`(L_1, L_0) = (a, a + \sum_i b_i)` must lie in the image of the level
-        parameters; one separation shared by both diets, for example, fixes
-        :math:`\sum_i b_i`).
-
         Returns ``(solution, starts tried)``, or ``(None, 0)`` when the projected fit
         leaves the model's domain (a non-positive pool fraction, merged rates, no change),
         the level parameters cannot be recovered, or it does not converge; the caller then
-        fits in the internal coordinates.
+        fits in the internal coordinates. The best grid start is used, and the next
+        distinct one only when the first does not converge to a point inside the model's
+        domain (over 200 seeded two- and three-pool series the second start never found a
+        lower minimum).
+
+        Parameters
+        ----------
+        coords : Coordinates
+            The coordinate map (nothing fixed).
+
+        Returns
+        -------
+        tuple of (Solution or None, int)
         """
-        kin = self.kin
-        n = kin.pools
-        if self._lm is None:
-            self._lm = self._level_map()
-        c0, M, cols = self._lm
-        P = np.stack([M[1, cols], M[0, cols]])  # (L1, L0) = (c1, c0) + P ψ
-        U, sv, _ = np.linalg.svd(P)
-        rank = int(np.sum(sv > 1e-12 * max(float(sv[0]) if sv.size else 0.0, 1e-300)))
-        if rank < len(cols):
-            return None, 0  # the level parameters are not determined by (L1, L0)
-        T = np.zeros((2, n + 1))
-        T[0, 0] = 1.0
-        T[1, :] = 1.0
-        nu = U[:, rank:].T  # left null space of P: ν·((L1, L0) − (c1, c0)) = 0
-        C, d = (nu @ T, nu @ np.array([c0[1], c0[0]])) if nu.size else (None, None)
-        s = float(kin.switch_times[0])
-        tau = self.t - s
-        # the best grid start, and the next distinct one only when the first does not
-        # converge to a point inside the model's domain (over 200 seeded two- and
-        # three-pool series the second start never found a lower minimum)
+        n = self.kin.pools
+        tau = self.t - float(self.kin.switch_times[0])
         starts = projected_rate_starts(tau, self.y, self.w, n, 1 if n == 1 else 2)
         n_eval = 0
         for tried, k0 in enumerate(starts, 1):
-            pf = project_exponentials(tau, self.y, self.w, k0, C=C, d=d)
-            if pf is None:
-                continue
-            n_eval += pf.n_eval
-            if pf.converged:
-                # the constraints here involve only Σ b: pools may be relabelled by rate
-                order = np.argsort(-pf.rates)
-                pf.rates = pf.rates[order]
-                pf.linear = np.concatenate([pf.linear[:1], pf.linear[1:][order]])
-                sol = self._projected_solution(coords, pf, n_eval, c0, P, cols)
-                if sol is not None:
-                    return sol, tried
+            sol = self.problem.solve_projected(coords, k0, n_eval0=n_eval)
+            if sol is not None and sol.success:
+                return sol, tried
+            n_eval = sol.nfev if sol is not None else n_eval
         return None, 0
-
-    def _projected_solution(self, coords, best, n_eval, c0, P, cols):
-        """The engine's :class:`Solution` at a projected fit, or None outside the domain."""
-        kin = self.kin
-        n = kin.pools
-        k = best.rates.tolist()
-        a, *b = best.linear.tolist()
-        total = sum(b)
-        if not (total != 0 and all(v / total > 0 for v in b)
-                and all(0 < v < math.inf for v in k)
-                and all(k[i + 1] < k[i] * (1 - 1e-9) for i in range(n - 1))):
-            return None
-        th = np.zeros(kin.n_params)
-        th[cols] = np.linalg.lstsq(P, np.array([a - c0[1], a + total - c0[0]]),
-                                   rcond=None)[0]
-        th[kin.rate_index] = k
-        th[kin.fraction_index] = [v / total for v in b]
-        z = coords.z_from_theta(th)
-        r, J = self.problem.evaluate(coords, z)
-        cost = float(r @ r)
-        # the model must reproduce the projected fit (same sum of squares), and the full
-        # problem's gradient must vanish there
-        JtJ = J.T @ J
-        grad = J.T @ r
-        if not (math.isfinite(cost) and abs(cost - best.rss) <= 1e-7 * cost + 1e-12
-                * float(self.w @ self.w) and bool(np.all(
-                    grad * grad <= 1e-12 * np.diag(JtJ) * max(cost, 1e-300) + 1e-300))):
-            return None
-        return Solution(z, coords.theta(z), cost, 1, n_eval,
-                        "variable projection converged (Newton, exact Hessian)", True, J)
 
     def _joint_block_weights(self, coords, sol):
         """Iterate the block weights of a joint δ + mass fit to their residual variances.

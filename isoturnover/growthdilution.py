@@ -32,8 +32,6 @@ __all__ = [
     "finite_array",
     "interval_row",
     "half_life_frame",
-    "catabolic_mean_residence_time",
-    "catabolic_mean_residence_time_grad",
 ]
 
 LN2 = math.log(2.0)
@@ -121,73 +119,6 @@ def half_life_frame(rows) -> pd.DataFrame:
     cols = [c for c in df.columns if c != "estimate"]
     i = cols.index("upper_status") + 1
     return df[cols[:i] + ["estimate"] + cols[i:]]
-
-
-def catabolic_mean_residence_time(kin, theta) -> float:
-    r"""Mean residence time from the catabolic rates alone (growth left out).
-
-    Parallel pools :math:`\sum_i f_i/k_{d,i}`, chain :math:`1/k_1 + 1/k_2`, plus the lag:
-    the integral :math:`\int_0^\infty \sum_i f_i e^{-k_{d,i}\tau}\,d\tau` of the step
-    response of a non-growing animal with these catabolic rates (by hand; one pool
-    :math:`1/k_d`). With growth in the model the step response's own mean residence time
-    (:func:`isoturnover.quantities.mean_residence_time`) uses :math:`k_{d,i} + k_g`
-    instead: that is the incorporation one.
-
-    Parameters
-    ----------
-    kin : TurnoverKinetics
-        The model (:class:`~isoturnover.kinetics.TurnoverKinetics`).
-    theta : ndarray of shape (n_params,)
-        Natural parameters in the order of ``kin.param_names`` (rates per time unit).
-
-    Returns
-    -------
-    float
-        In the data's time unit; ``inf`` when a catabolic rate is 0.
-    """
-    v = np.asarray(theta, dtype=float)
-    ks = v[kin.rate_index]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        if kin.structure == "chain":
-            m = float(np.sum(1.0 / ks))
-        else:
-            m = float(np.sum(v[kin.fraction_index] / ks))
-    if kin.lag_index is not None:
-        m += float(v[kin.lag_index])
-    return m
-
-
-def catabolic_mean_residence_time_grad(kin, theta) -> np.ndarray:
-    r"""Gradient of :func:`catabolic_mean_residence_time` in natural parameters.
-
-    :math:`\partial/\partial k_i = -f_i/k_i^2`, :math:`\partial/\partial f_i = 1/k_i`
-    (chain: :math:`-1/k_i^2`), :math:`\partial/\partial\,\mathrm{lag} = 1`, 0 for the
-    growth parameters (by hand).
-
-    Parameters
-    ----------
-    kin : TurnoverKinetics
-        The model (:class:`~isoturnover.kinetics.TurnoverKinetics`).
-    theta : ndarray of shape (n_params,)
-        Natural parameters in the order of ``kin.param_names`` (rates per time unit).
-
-    Returns
-    -------
-    ndarray of shape (n_params,)
-        Time unit per unit of each parameter.
-    """
-    v = np.asarray(theta, dtype=float)
-    g = np.zeros(v.size)
-    ks = v[kin.rate_index]
-    if kin.structure == "chain":
-        g[kin.rate_index] = -1.0 / ks**2
-    else:
-        f = v[kin.fraction_index]
-        g[kin.rate_index] = -f / ks**2
-        g[kin.fraction_index] = 1.0 / ks
-    if kin.lag_index is not None:
-        g[kin.lag_index] = 1.0
-    return g
 
 
 class GrowthDilution:

@@ -14,7 +14,8 @@ Intervals. :meth:`GrowthFit.conf_int` profiles the likelihood: each bound is fou
 :func:`isoturnover.profiles.find_bound`, the root finder of every profile bound of the
 package (Newton on the profile-t statistic of Bates & Watts 1988, with the envelope-theorem
 derivative of the residual sum of squares), so growth curves and turnover fits report their
-bounds with the same statuses.
+bounds with the same statuses. The least-squares problem itself (residuals, analytic
+Jacobian, the Levenberg–Marquardt solve) is :class:`isoturnover.growthproblem.CurveProblem`.
 
 Animal experiments need the approval of the local animal-care authority; this library
 supports the analysis of such experiments and does not replace that approval.
@@ -30,7 +31,7 @@ from collections.abc import Mapping
 import lmfit
 import numpy as np
 import pandas as pd
-from scipy import optimize, stats
+from scipy import stats
 
 from .conventions import INTERVAL_COLUMNS, check_level
 from .errors import (
@@ -49,6 +50,7 @@ from .growth import (
     check_curve_values,
     curve_law,
 )
+from .growthproblem import SOLVE_MAX_NFEV, CurveProblem, growth_response
 from .profiles import find_bound
 
 __all__ = [
@@ -63,14 +65,12 @@ __all__ = [
 SCALES = ("log", "natural")
 
 # Optimizer settings (module attributes so a test can tighten them to force a failure).
-_TOL = 1e-15
-_MAX_NFEV = 2000
+_MAX_NFEV = SOLVE_MAX_NFEV  # evaluation budget of the fits of fit_growth
 _PROFILE_MAX_NFEV = 500
 _PROFILE_TOL = 1e-12  # inner fits of a profile: RSS to ~1e-12 relative is ample for ΔRSS/s²
 _PROFILE_D_TOL = 1e-9  # find_bound: |ΔRSS/s² − crit| ≤ 1e-9 crit (refits here are cheap)
 _N_RUNS = 4  # multi-start: optimise the best few automatic starts (by starting RSS)
 _HUGE = math.exp(690.0)  # a positive parameter near the float limit (exp(709.8))
-_STATIONARY = 1e-6  # residual–Jacobian cosine below which a point is stationary
 _CORR_LIMIT = 0.99  # |correlation| above this is flagged (common practice)
 _ASYMPTOTE_REACHED = 0.5  # data below half the fitted asymptote: Winf extrapolated (common
 # practice)
@@ -112,130 +112,6 @@ def _fingerprint(t, y, w) -> str:
 def _json_float(x):
     x = float(x)
     return x if math.isfinite(x) else None
-
-
-def _response(mass, sigma, scale):
-    """Fitted response and weights: ln W with weights W/σ (delta method), or W with 1/σ."""
-    if scale == "log":
-        y = np.log(mass)
-        w = np.ones_like(mass) if sigma is None else mass / sigma
-    else:
-        y = mass.copy()
-        w = np.ones_like(mass) if sigma is None else 1.0 / sigma
-    return y, w
-
-
-# ---------------------------------------------------------------------------------------
-# the least-squares problem
-# ---------------------------------------------------------------------------------------
-class _Problem:
-    """Weighted least squares of one curve on one data set, on an internal vector.
-
-    Positive parameters are optimised as their logarithm (no hard bounds); the others as
-    they are. Residuals r = w (y − f(t; θ)) with y = ln W (log scale) or W (natural scale).
-    """
-
-    def __init__(self, curve, t, y, w, scale):
-        self.curve, self.t, self.y, self.w, self.scale = curve, t, y, w, scale
-        self.is_log = np.array([p in curve.positive for p in curve.params])
-        self.big = 1e10 * (1.0 + float(np.max(np.abs(y))))
-
-    def model(self, v):
-        if self.scale == "log":
-            return np.asarray(self.curve.log_mass(self.t, v), dtype=float)
-        return np.asarray(self.curve.mass(self.t, v), dtype=float)
-
-    def model_jac(self, v):
-        if self.scale == "log":
-            return np.asarray(self.curve.log_jac(self.t, v), dtype=float)
-        return np.asarray(self.curve.mass_jac(self.t, v), dtype=float)
-
-    def residuals(self, v):
-        with np.errstate(all="ignore"):
-            return self.w * (self.y - self.model(v))
-
-    def rss(self, v) -> float:
-        with np.errstate(all="ignore"):
-            r = self.residuals(v)
-            out = float(r @ r) if np.all(np.isfinite(r)) else math.inf
-        return out if math.isfinite(out) else math.inf
-
-    def _full(self, x, free, base):
-        v = base.copy()
-        xi = np.where(self.is_log[free], np.exp(np.clip(x, -700.0, 700.0)), x)
-        v[free] = xi
-        return v
-
-    def max_cosine(self, v, free) -> float:
-        """Largest |cosine| between the residual vector and a Jacobian column (internal
-        scale) of the free parameters: about 0 at a stationary point; 0 for a perfect fit."""
-        r = self.residuals(v)
-        rn = float(np.linalg.norm(r))
-        if rn <= 1e-10 * max(float(np.linalg.norm(self.w * self.y)), 1e-300):
-            return 0.0
-        j = self.w[:, None] * self.model_jac(v)[:, free]
-        j = np.where(self.is_log[free][None, :], j * v[free][None, :], j)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            cos = np.abs(j.T @ r) / (np.linalg.norm(j, axis=0) * rn)
-        if cos.size == 0:
-            return 0.0
-        return float(np.max(cos)) if np.all(np.isfinite(cos)) else math.inf
-
-    def rss_derivative(self, v, j: int) -> float:
-        """dRSS/dθ_j = −2 r·(w ∂f/∂θ_j) at ``v`` (the envelope-theorem slope of a profile
-        when the other free parameters are at their constrained optimum)."""
-        with np.errstate(all="ignore"):
-            col = self.w * self.model_jac(v)[:, j]
-            return float(-2.0 * (self.residuals(v) @ col))
-
-    def solve(self, v0, free, tol: float | None = None, max_nfev: int | None = None):
-        """Minimise over the parameters where ``free`` is True, from ``v0``.
-
-        Returns (v, rss, status) with status > 0 for a converged solve: scipy's codes 1–4,
-        or 5 for the evaluation limit reached at a stationary point (every residual–Jacobian
-        cosine below 1e-6).
-        """
-        tol = _TOL if tol is None else tol
-        max_nfev = _MAX_NFEV if max_nfev is None else max_nfev
-        v0 = np.asarray(v0, dtype=float)
-        if not free.any():
-            return v0.copy(), self.rss(v0), 1
-        if not self.curve.valid_params(v0) or not math.isfinite(self.rss(v0)):
-            return v0.copy(), math.inf, -1
-        logf = self.is_log[free]
-        x0 = np.where(logf, np.log(np.where(logf, v0[free], 1.0)), v0[free])
-
-        def fun(x):
-            r = self.residuals(self._full(x, free, v0))
-            if not np.all(np.isfinite(r)):
-                return np.full_like(self.y, self.big)
-            return r
-
-        def jac(x):
-            v = self._full(x, free, v0)
-            j = -self.w[:, None] * self.model_jac(v)[:, free]
-            j = np.where(logf[None, :], j * v[free][None, :], j)
-            if not np.all(np.isfinite(j)):
-                return np.zeros_like(j)
-            return j
-
-        m = int(free.sum())
-        if self.y.size < m:  # pragma: no cover - guarded by the caller
-            return v0.copy(), math.inf, -1
-        with np.errstate(all="ignore"):
-            res = optimize.least_squares(
-                fun, x0, jac=jac, method="lm", xtol=tol, ftol=tol, gtol=tol,
-                max_nfev=max_nfev, x_scale="jac",
-            )
-        v = self._full(res.x, free, v0)
-        rss = self.rss(v)
-        status = int(res.status) if math.isfinite(rss) else -1
-        if status == 0 and self.max_cosine(v, free) <= _STATIONARY:
-            # evaluation limit reached in a flat valley where the residuals are already
-            # orthogonal to the Jacobian: a stationary point (the RSS cannot be lowered),
-            # the tolerances of 1e-15 being too tight to be met there
-            status = 5
-        return v, rss, status
 
 
 # ---------------------------------------------------------------------------------------
@@ -286,8 +162,8 @@ class GrowthFit(GrowthCurve):
         self._converged = bool(converged)
         self._warnings = list(warn_list)
         self._nfev = int(nfev)
-        self._y, self._w = _response(self._mass, self._sigma, scale)
-        self._problem = _Problem(curve, self._t, self._y, self._w, scale)
+        self._y, self._w = growth_response(self._mass, self._sigma, scale)
+        self._problem = CurveProblem(curve, self._t, self._y, self._w, scale)
         self._resid = self._problem.residuals(self._values)
         self._resid.setflags(write=False)
         self._rss = float(self._resid @ self._resid)
@@ -693,8 +569,8 @@ def fit_growth(t, mass, curve: str = "logistic", *, scale: str = "log", sigma=No
     mass : array-like of shape (n,)
         Body masses (> 0, any mass unit). Decreasing masses (loss) are allowed.
     curve : {"exponential", "linear", "logistic", "gompertz", "von_bertalanffy", "richards"}
-        Curve family, default "logistic"; formulas and sources in
-        :mod:`isoturnover.growth` (module and curve docstrings).
+        Curve family, default "logistic"; formulas in :mod:`isoturnover.growth` (module
+        docstring), sources in :mod:`isoturnover.growthlaws` (curve docstrings).
     scale : {"log", "natural"}, default "log"
         ``"log"`` fits ln W (multiplicative error, usual for masses); ``"natural"`` fits W.
     sigma : array-like of shape (n,), optional
@@ -780,8 +656,8 @@ def fit_growth(t, mass, curve: str = "logistic", *, scale: str = "log", sigma=No
             f"distinct times; got {n_times}"
         )
 
-    y, w = _response(mass, sigma, scale)
-    prob = _Problem(c, t, y, w, scale)
+    y, w = growth_response(mass, sigma, scale)
+    prob = CurveProblem(c, t, y, w, scale)
     given = {**init_d, **fixed_d}
     with np.errstate(all="ignore"):
         auto = c.starts(t, mass, given)
@@ -817,7 +693,7 @@ def fit_growth(t, mass, curve: str = "logistic", *, scale: str = "log", sigma=No
     best = None
     last = None
     for s in chosen:
-        v, rss, status = prob.solve(s, free)
+        v, rss, status = prob.solve(s, free, max_nfev=_MAX_NFEV)
         if math.isfinite(rss) and (last is None or rss < last[1]):
             last = (v, rss)
         if status > 0 and math.isfinite(rss) and (best is None or rss < best[1]):
@@ -847,7 +723,7 @@ def fit_growth(t, mass, curve: str = "logistic", *, scale: str = "log", sigma=No
     return fit
 
 
-def _trust_checks(fit: GrowthFit, prob: _Problem) -> list[tuple[str, type]]:
+def _trust_checks(fit: GrowthFit, prob: CurveProblem) -> list[tuple[str, type]]:
     """Trust signals on a fit: (message, warning class) pairs."""
     out: list[tuple[str, type]] = []
     free = fit._vary

@@ -36,19 +36,22 @@ stable form :math:`e^{-k_2\tau}\,(1 + k_2\tau\,\psi((k_1-k_2)\tau))` with
 :math:`k_1 = k_2` (where it is :math:`e^{-k\tau}(1 + k\tau)`).
 
 A lag shifts every switch time by ``lag``. On the atom-fraction scale the pools mix in atom
-fraction :math:`x = R/(1+R)` and the tissue value is returned as δ.
+fraction :math:`x = R/(1+R)` and the tissue value is returned as δ. The step responses, the
+chain's stable form with its derivatives and the atom-fraction scale live in
+:mod:`isoturnover.responses`; :func:`remaining_parallel` and :func:`remaining_chain` are
+re-exported here.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import numpy as np
 
 from .conventions import check_choice
 from .diet import DietHistory
-from .errors import DataError, ScaleError
+from .errors import DataError
+from .responses import atom_scale, chain_terms, remaining_chain, remaining_parallel
 
 __all__ = [
     "TurnoverKinetics",
@@ -62,167 +65,6 @@ _STRUCTURES = ("parallel", "chain")
 _SEPARATIONS = ("difference", "epsilon")
 _SCALES = ("delta", "atom_fraction")
 _INITIALS = ("equilibrium", "free")
-# Elements with two stable isotopes: x = R/(1+R) is exact (Coplen 2011 definitions).
-_TWO_ISOTOPE_CODES = ("d13C", "d15N", "d2H")
-
-
-# ----------------------------------------------------------------------------------------
-# Step responses (fraction of the old value remaining after a unit step at time 0)
-# ----------------------------------------------------------------------------------------
-def _psi(x):
-    """psi(x) = (1 - exp(-x)) / x for x >= 0, exact near 0 (series)."""
-    x = np.asarray(x, dtype=float)
-    small = np.abs(x) < 1e-2
-    xs = np.where(small, 1.0, x)
-    out = np.where(small, 0.0, -np.expm1(-xs) / xs)
-    if np.any(small):
-        z = x[small] if x.ndim else x
-        # psi = sum_n (-x)^n / (n+1)!
-        ser = 1 - z / 2 + z**2 / 6 - z**3 / 24 + z**4 / 120 - z**5 / 720 + z**6 / 5040
-        if x.ndim:
-            out = out.copy()
-            out[small] = ser
-        else:
-            out = np.asarray(ser)
-    return out
-
-
-def _dpsi(x):
-    """psi'(x) = (e^{-x}(1 + x) - 1)/x^2, exact near 0 (series)."""
-    x = np.asarray(x, dtype=float)
-    small = np.abs(x) < 1e-2
-    xs = np.where(small, 1.0, x)
-    out = np.where(small, 0.0, (np.exp(-xs) * (1 + xs) - 1) / xs**2)
-    if np.any(small):
-        z = x[small] if x.ndim else x
-        # psi' = sum_{n>=1} n (-1)^n x^{n-1} / (n+1)!
-        ser = -1 / 2 + z / 3 - z**2 / 8 + z**3 / 30 - z**4 / 144 + z**5 / 840 - z**6 / 5760
-        if x.ndim:
-            out = out.copy()
-            out[small] = ser
-        else:
-            out = np.asarray(ser)
-    return out
-
-
-def _chain_terms(tau, ka, kb):
-    """Chain response Phi and its partials (d/dka, d/dkb, d/dtau) for tau >= 0.
-
-    Symmetric in (ka, kb); computed with the larger rate first so the stable form never
-    overflows.
-    """
-    swap = kb > ka
-    a, b = (kb, ka) if swap else (ka, kb)
-    x = (a - b) * tau
-    eb = np.exp(-b * tau)
-    ps = _psi(x)
-    dps = _dpsi(x)
-    phi = eb * (1 + b * tau * ps)
-    d_a = eb * b * tau * tau * dps
-    d_b = eb * tau * (-1 - b * tau * ps + ps - b * tau * dps)
-    d_tau = -a * b * tau * eb * ps
-    if swap:
-        d_a, d_b = d_b, d_a
-    return phi, d_a, d_b, d_tau
-
-
-def remaining_parallel(tau, rates, fractions):
-    r"""Fraction of a step change still to come for parallel pools.
-
-    .. math:: 1 - F(\tau) = \sum_i f_i e^{-k_i \tau}
-
-    the reaction progress variable of one step switch (Cerling et al. 2007, Oecologia
-    151:175-189), vectorised over ``tau``.
-
-    Parameters
-    ----------
-    tau : float or array-like
-        Time since a single step switch, in the data's time unit (days by default); values
-        at or before the switch (τ ≤ 0) give 1.
-    rates : array-like of shape (n_pools,)
-        Turnover rates :math:`k_i` (per time unit, /d for days), > 0.
-    fractions : array-like of shape (n_pools,)
-        Pool fractions :math:`f_i`, summing to 1.
-
-    Returns
-    -------
-    float or ndarray
-        :math:`1 - F` (dimensionless), shaped like ``tau``.
-    """
-    tau = np.maximum(np.asarray(tau, dtype=float), 0.0)
-    k = np.asarray(rates, dtype=float).reshape(-1, *([1] * tau.ndim))
-    f = np.asarray(fractions, dtype=float).reshape(-1, *([1] * tau.ndim))
-    return np.sum(f * np.exp(-k * tau), axis=0)
-
-
-def remaining_chain(tau, k1, k2):
-    r"""Fraction of a step change still to come for a precursor–product chain.
-
-    .. math:: 1 - F(\tau) = \frac{k_1 e^{-k_2\tau} - k_2 e^{-k_1\tau}}{k_1 - k_2}
-
-    the response of two first-order steps in series (DESIGN §2), evaluated in the stable form
-    :math:`e^{-k_2\tau}(1 + k_2\tau\,\psi((k_1-k_2)\tau))`, :math:`\psi(x) = (1-e^{-x})/x`,
-    which is exact through :math:`k_1 = k_2` (there :math:`e^{-k\tau}(1 + k\tau)`).
-
-    Parameters
-    ----------
-    tau : float or array-like
-        Time since a single step switch, in the data's time unit (days by default); values
-        at or before the switch give 1.
-    k1, k2 : float
-        Rates of the two steps (per time unit, /d for days), > 0; the curve is symmetric in
-        them.
-
-    Returns
-    -------
-    ndarray
-        :math:`1 - F` (dimensionless), shaped like ``tau``.
-    """
-    tau = np.maximum(np.asarray(tau, dtype=float), 0.0)
-    return _chain_terms(tau, float(k1), float(k2))[0]
-
-
-# ----------------------------------------------------------------------------------------
-# Atom-fraction scale
-# ----------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class _AtomScale:
-    """Exact δ ↔ atom fraction for a two-isotope element: x = R/(1+R), R = Rs(1 + δ/1000)."""
-
-    rs: float
-
-    def to_x(self, d):
-        r = self.rs * (1.0 + np.asarray(d, dtype=float) / 1000.0)
-        return r / (1.0 + r)
-
-    def dx_dd(self, d):
-        r = self.rs * (1.0 + np.asarray(d, dtype=float) / 1000.0)
-        return (self.rs / 1000.0) / (1.0 + r) ** 2
-
-    def to_delta(self, x):
-        x = np.asarray(x, dtype=float)
-        return 1000.0 * (x / (1.0 - x) / self.rs - 1.0)
-
-    def dd_dx(self, x):
-        x = np.asarray(x, dtype=float)
-        return 1000.0 / (self.rs * (1.0 - x) ** 2)
-
-
-def _atom_scale(isotope, reference_ratio=None) -> _AtomScale:
-    if isotope is None:
-        raise ScaleError("scale='atom_fraction' needs the isotope (isotope='d15N', say); got None")
-    if isotope not in _TWO_ISOTOPE_CODES:
-        raise ScaleError(
-            f"scale='atom_fraction' is exact only for the two-isotope elements "
-            f"({', '.join(_TWO_ISOTOPE_CODES)}); got isotope={isotope!r}. Oxygen and sulfur have "
-            "further minor isotopes whose abundances a tracer need not follow; use "
-            "scale='delta' for natural-abundance work with these elements"
-        )
-    if reference_ratio is None:
-        from .isotopes import reference_ratio as _ref
-
-        reference_ratio = _ref(isotope)
-    return _AtomScale(float(reference_ratio))
 
 
 # ----------------------------------------------------------------------------------------
@@ -343,7 +185,7 @@ class TurnoverKinetics:
         self.scale = check_choice("scale", scale, _SCALES)
         self.isotope = isotope
         self._atom = (
-            _atom_scale(isotope, reference_ratio) if self.scale == "atom_fraction" else None
+            atom_scale(isotope, reference_ratio) if self.scale == "atom_fraction" else None
         )
         if isinstance(growth, str):
             if growth != "exponential":
@@ -553,7 +395,7 @@ class TurnoverKinetics:
         k = theta[self.rate_index]
         want = jacobian
         if self.structure == "chain":
-            phi, d_a, d_b, d_tau = _chain_terms(taup, k[0], k[1])
+            phi, d_a, d_b, d_tau = chain_terms(taup, k[0], k[1])
             E = np.where(on, phi, 0.0)  # (m, n)
             R = on - E  # response to each step
             y = Lw[0] + step @ R

@@ -20,7 +20,6 @@ from .conventions import check_choice
 from .diet import DietHistory
 from .engine import (
     LOSSES,
-    Coordinates,
     Engine,
     FitState,
     Ties,
@@ -496,14 +495,14 @@ class TurnoverModel:
             check_growth_coverage(kin, data["t"])
         elif kin.growth_kind == "curve":
             check_growth_coverage(kin, data["t"])
-        n_free = Coordinates(kin, fixed, ties=tie_map, bounds=bounds).size
+        engine = Engine(kin, data, absolute_sigma=absolute_sigma, loss=loss, masses=masses,
+                        ties=tie_map, bounds=bounds)
+        n_free = engine.coords(fixed).size  # the map the fit will use (cached)
         if n_free > data["t"].size:
             raise DataError(
                 f"the model has {n_free} free parameters but only {data['t'].size} time "
                 "points in 't'; fix parameters or use fewer pools"
             )
-        engine = Engine(kin, data, absolute_sigma=absolute_sigma, loss=loss, masses=masses,
-                        ties=tie_map, bounds=bounds)
         sol, starts_tried = engine.fit_best(fixed, init, use_lmfit=params is not None)
         fit = TurnoverFit(self, FitState(engine, sol, fixed), init=init,
                           starts_tried=starts_tried, label=label)

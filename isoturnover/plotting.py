@@ -12,18 +12,44 @@ figures and presentations that are friendly to colorblind people*). Flagged poin
 different marker as well as a different colour, so they do not depend on colour alone.
 
 Axes carry δ notation with the scale of the isotope ("δ¹³C (‰, VPDB)"; δ as defined by
-Coplen 2011) and the time unit of the data ("Time since diet switch (days)").
+Axes carry δ notation with the scale of the isotope ("δ¹³C (‰, VPDB)"; δ as defined by
+Coplen 2011) and the time unit of the data ("Time since diet switch (days)"). The palette,
+sizes, labels and legend placement the panels share live in :mod:`isoturnover.plotkit`;
+:data:`OKABE_ITO` and :func:`delta_label` are re-exported here.
 """
 
 from __future__ import annotations
 
 import math
-import re
 import warnings
 
 import numpy as np
 
 from .errors import DataError, IsoturnoverWarning
+from .plotkit import (
+    DOUBLE,
+    FLAG,
+    GREY,
+    LABEL_PT,
+    LEGEND_PT,
+    OKABE_ITO,
+    SINGLE,
+    TICK_PT,
+    check_fit,
+    compact_number,
+    delta_label,
+    fine_grid,
+    finite_points,
+    keep_clear,
+    model_name,
+    new_axes,
+    place_legend,
+    series_color,
+    style_axes,
+    time_label,
+    time_unit_word,
+    tissue_label,
+)
 
 __all__ = [
     "OKABE_ITO",
@@ -36,304 +62,6 @@ __all__ = [
     "plot_weights",
     "plot_overview",
 ]
-
-#: Okabe–Ito colour-blind-safe palette (Okabe & Ito 2008), name → hex.
-OKABE_ITO = {
-    "black": "#000000",
-    "orange": "#E69F00",
-    "sky_blue": "#56B4E9",
-    "bluish_green": "#009E73",
-    "yellow": "#F0E442",
-    "blue": "#0072B2",
-    "vermillion": "#D55E00",
-    "reddish_purple": "#CC79A7",
-}
-# order for series of categories (yellow last: weak on white)
-_CYCLE = ("blue", "orange", "bluish_green", "reddish_purple", "sky_blue", "vermillion",
-          "black", "yellow")
-_GREY = "#777777"
-_FLAG = OKABE_ITO["vermillion"]
-
-SINGLE = (3.5, 2.6)  # in: one journal column
-DOUBLE = (7.0, 2.6)  # in: two columns
-_LABEL_PT = 8
-_TICK_PT = 7
-_LEGEND_PT = 7
-_SUP = str.maketrans("0123456789", "⁰¹²³⁴⁵⁶⁷⁸⁹")
-
-
-# ----------------------------------------------------------------------------------------
-# helpers
-# ----------------------------------------------------------------------------------------
-def _num(x, digits=3):
-    """Compact number for labels: 3 significant digits, no exponent below 10^6, true minus."""
-    x = float(x)
-    if not math.isfinite(x):
-        return "∞" if x > 0 else ("−∞" if x < 0 else "—")
-    r = round(x, digits - 1 - int(math.floor(math.log10(abs(x))))) if x != 0 else 0.0
-    out = f"{r:,.0f}" if 1e3 <= abs(r) < 1e6 else f"{x:.{digits}g}"
-    return out.replace("-", "−")
-
-
-def _color(i):
-    return OKABE_ITO[_CYCLE[i % len(_CYCLE)]]
-
-
-def _new_axes(ax, size=SINGLE):
-    if ax is not None:
-        if not hasattr(ax, "plot") or not hasattr(ax, "figure"):
-            raise DataError(f"'ax' must be a matplotlib Axes or None; got {type(ax).__name__}")
-        return ax
-    import matplotlib.pyplot as plt
-
-    _, ax = plt.subplots(figsize=size, layout="constrained")
-    return ax
-
-
-def _style(ax, xlabel, ylabel):
-    ax.set_xlabel(xlabel, fontsize=_LABEL_PT)
-    ax.set_ylabel(ylabel, fontsize=_LABEL_PT)
-    ax.tick_params(labelsize=_TICK_PT)
-
-
-def _legend(ax, first=(), keep=None, **kw):
-    """Legend at the emptiest place; entries whose label starts with one of ``first`` lead.
-
-    ``keep``: points (data coordinates, shape (n, 2)) the legend must not cover; see
-    :func:`_keep_clear`.
-    """
-    handles, labels = ax.get_legend_handles_labels()
-    if not handles:
-        return None
-
-    def rank(i):
-        for j, p in enumerate(first):
-            if labels[i].startswith(p):
-                return (j, i)
-        return (len(first), i)
-
-    order = sorted(range(len(labels)), key=rank)
-    handles = [handles[i] for i in order]
-    labels = [labels[i] for i in order]
-    kw.setdefault("loc", "best")
-    kw.setdefault("framealpha", 0.85)
-    kw.setdefault("fontsize", _LEGEND_PT)
-    kw.setdefault("title_fontsize", _LEGEND_PT)
-    kw.setdefault("labelspacing", 0.3)
-    kw.setdefault("borderpad", 0.35)
-    kw.setdefault("handlelength", 1.6)
-    kw.setdefault("handletextpad", 0.5)
-    leg = ax.legend(handles, labels, **kw)
-    if keep is not None:
-        _keep_clear(ax, [leg], keep)
-    return leg
-
-
-def _points(*pairs):
-    """Stack (x, y) pairs into finite points of shape (n, 2)."""
-    parts = [np.column_stack([np.asarray(x, dtype=float).ravel(),
-                              np.asarray(y, dtype=float).ravel()]) for x, y in pairs]
-    xy = np.concatenate(parts) if parts else np.empty((0, 2))
-    return xy[np.all(np.isfinite(xy), axis=1)]
-
-
-_LOCS = ("upper right", "upper left", "lower left", "lower right", "center right",
-         "center left", "upper center", "lower center")
-
-
-def _box_at(loc, w, h, ab, pad):
-    """Display box (x0, y0, x1, y1) of a w × h legend placed at ``loc`` inside ``ab``."""
-    v, hz = loc.split()
-    if hz == "left":
-        x0 = ab.x0 + pad
-    elif hz == "right":
-        x0 = ab.x1 - pad - w
-    else:
-        x0 = (ab.x0 + ab.x1 - w) / 2
-    if v == "upper":
-        y0 = ab.y1 - pad - h
-    elif v == "lower":
-        y0 = ab.y0 + pad
-    else:
-        y0 = (ab.y0 + ab.y1 - h) / 2
-    return x0, y0, x0 + w, y0 + h
-
-
-def _hits(pts, box, pad=3.0):
-    x0, y0, x1, y1 = box
-    under_x = (pts[:, 0] >= x0 - pad) & (pts[:, 0] <= x1 + pad)
-    return under_x, under_x & (pts[:, 1] >= y0 - pad) & (pts[:, 1] <= y1 + pad)
-
-
-def _overlap(a, b, pad=3.0):
-    """Do two display boxes (x0, y0, x1, y1) overlap (within ``pad`` pixels)?"""
-    return a[0] < b[2] + pad and b[0] < a[2] + pad and a[1] < b[3] + pad and b[1] < a[3] + pad
-
-
-def _keep_clear(ax, boxes, xy, tries=4):
-    """Keep legends and text boxes inside the axes off the points ``xy`` (data coordinates).
-
-    The figure is laid out without rendering. A legend that covers points moves to the first
-    free place among the usual positions; when there is none, the y range is widened on the
-    side that needs least room, just enough for the box to sit beyond the points, and the
-    legend is pinned there. A text box stays where it is and the y range widens on its side.
-    A legend taller than 60 % of the axes goes outside, to the right.
-    """
-    xy = np.asarray(xy, dtype=float).reshape(-1, 2)
-    boxes = [b for b in boxes if b is not None]
-    if xy.size == 0 or not boxes:
-        return
-    fig = ax.figure
-    for _ in range(tries):
-        fig.draw_without_rendering()
-        changed = False
-        for box in boxes:
-            ab = ax.get_window_extent()
-            pts = ax.transData.transform(xy)
-            bb = box.get_window_extent()
-            cur = (bb.x0, bb.y0, bb.x1, bb.y1)
-            is_legend = hasattr(box, "set_loc")
-            # a legend must not cover the other boxes (a text box) either
-            others = [o.get_window_extent() for o in boxes if o is not box] if is_legend \
-                else []
-            others = [(o.x0, o.y0, o.x1, o.y1) for o in others]
-            if not _hits(pts, cur)[1].any() and not any(_overlap(cur, o) for o in others):
-                continue
-            hfrac = (bb.height + 9.0) / ab.height
-            if is_legend and hfrac > 0.6:
-                box.set_loc("upper left")
-                box.set_bbox_to_anchor((1.02, 1.0), transform=ax.transAxes)
-                changed = True
-                continue
-            if is_legend:
-                pad = box.borderaxespad * box.prop.get_size_in_points() * fig.dpi / 72.0
-                free = [loc for loc in _LOCS
-                        if not _hits(pts, _box_at(loc, bb.width, bb.height, ab, pad))[1].any()
-                        and not any(_overlap(_box_at(loc, bb.width, bb.height, ab, pad), o)
-                                    for o in others)]
-                if free:
-                    box.set_loc(free[0])
-                    changed = True
-                    continue
-                options = [(loc, _box_at(loc, bb.width, bb.height, ab, pad))
-                           for loc in _LOCS[:4]]
-            else:
-                top = (bb.y0 + bb.y1) / 2 > (ab.y0 + ab.y1) / 2
-                options = [("upper" if top else "lower", cur)]
-            y0, y1 = ax.get_ylim()
-            best = None
-            for loc, bx in options:
-                under_x, _ = _hits(pts, bx)
-                ys = xy[under_x, 1]
-                if loc.startswith("upper"):
-                    new = (y0, y0 + (float(np.max(ys)) - y0) / (1.0 - hfrac))
-                else:
-                    new = (y1 - (y1 - float(np.min(ys))) / (1.0 - hfrac), y1)
-                if best is None or new[1] - new[0] < best[1][1] - best[1][0]:
-                    best = (loc, new)
-            ax.set_ylim(*best[1])
-            if is_legend:
-                box.set_loc(best[0])
-            changed = True
-        if not changed:
-            return
-
-
-def _check_fit(fit, fname):
-    from .results import TurnoverFit
-
-    if not isinstance(fit, TurnoverFit):
-        raise DataError(f"{fname}: 'fit' must be a TurnoverFit (from TurnoverModel.fit); got "
-                        f"{type(fit).__name__}")
-    return fit
-
-
-def _unit(fit_or_unit):
-    from .conventions import unit_word as _unit_word
-
-    u = fit_or_unit if isinstance(fit_or_unit, str) else fit_or_unit.time_unit
-    return _unit_word(u)
-
-
-def delta_label(isotope) -> str:
-    """Axis label in δ notation with the isotope's scale, e.g. ``"δ¹³C (‰, VPDB)"``.
-
-    Parameters
-    ----------
-    isotope : str or None
-        Isotope code (``"d13C"``, ``"d15N"``, ``"d34S"``, ``"d2H"``, ``"d18O"``). ``None``
-        gives the generic ``"δ (‰)"``.
-
-    Returns
-    -------
-    str
-        The δ symbol with the isotope as superscript mass number and element, then ‰ and
-        the international scale of its reference ratio (VPDB, AIR, VCDT, VSMOW).
-
-    Raises
-    ------
-    DataError
-        When ``isotope`` is not a known isotope code.
-
-    Examples
-    --------
-    >>> delta_label("d15N")
-    'δ¹⁵N (‰, AIR)'
-    >>> delta_label(None)
-    'δ (‰)'
-    """
-    if isotope is None:
-        return "δ (‰)"
-    from .isotopes import ISOTOPES
-
-    code = str(isotope)
-    if code not in ISOTOPES:
-        raise DataError(f"'isotope' must be one of {', '.join(map(repr, ISOTOPES))} or None; "
-                        f"got {isotope!r}")
-    m = re.fullmatch(r"d(\d+)([A-Z][a-z]?)", code)
-    name = f"δ{m.group(1).translate(_SUP)}{m.group(2)}" if m else code
-    return f"{name} (‰, {ISOTOPES[code].scale})"
-
-
-def _isotope_of(fit):
-    iso_ = getattr(fit.model, "isotope", None) or fit.data_info.get("isotope")
-    if iso_ is None and fit.model.diet is not None:
-        iso_ = getattr(fit.model.diet, "isotope", None)
-    from .isotopes import ISOTOPES
-
-    return iso_ if iso_ in ISOTOPES else None
-
-
-def _y_label(fit):
-    lab = delta_label(_isotope_of(fit))
-    tissue = fit.data_info.get("tissue")
-    name = str(tissue).replace("_", " ")
-    return f"{name[:1].upper() + name[1:]} {lab}" if tissue else f"Tissue {lab}"
-
-
-def _time_label(fit):
-    s = np.asarray(fit.kinetics.switch_times, dtype=float)
-    unit = _unit(fit)
-    if s.size and s[0] == 0.0:
-        what = "diet switch" if s.size == 1 else "first diet switch"
-        return f"Time since {what} ({unit})"
-    return f"Time ({unit})"
-
-
-def _fine_grid(fit, lo, hi, n=400):
-    g = np.linspace(lo, hi, n)
-    kin = fit.kinetics
-    lag = fit.values.get("lag", 0.0)
-    extra = np.concatenate([kin.switch_times, kin.switch_times + lag])
-    extra = extra[(extra >= lo) & (extra <= hi)]
-    return np.union1d(g, extra)
-
-
-def _short_model(fit):
-    kin = fit.kinetics
-    if kin.structure == "chain":
-        return "chain"
-    return f"{kin.pools} pool{'s' if kin.pools > 1 else ''}"
 
 
 # ----------------------------------------------------------------------------------------
@@ -381,16 +109,16 @@ def plot_fit(fit, ax=None, *, band=True, level=0.95, show_switches=True, show_fl
     """
     from .conventions import check_level as _check_level
 
-    fit = _check_fit(fit, "plot_fit")
+    fit = check_fit(fit, "plot_fit")
     level = _check_level(level)
-    ax = _new_axes(ax)
+    ax = new_axes(ax)
     curve_c = color or OKABE_ITO["blue"]
     data_c = color or OKABE_ITO["black"]
     t, y = fit.t, fit.y
     sw = np.asarray(fit.kinetics.switch_times, dtype=float)
     lo = float(min(t.min(), sw.min()))
     hi = float(t.max())
-    grid = _fine_grid(fit, lo, hi)
+    grid = fine_grid(fit, lo, hi)
     fitted = fit.predict(grid)
     name = None if label is None else str(label)
     if band:
@@ -406,7 +134,7 @@ def plot_fit(fit, ax=None, *, band=True, level=0.95, show_switches=True, show_fl
             ax.plot([], [], linestyle="none",
                     label="confidence band not available (covariance singular)")
     ax.plot(grid, fitted, color=curve_c, linewidth=1.3,
-            label=f"{name}: fitted" if name else f"fitted ({_short_model(fit)})")
+            label=f"{name}: fitted" if name else f"fitted ({model_name(fit)})")
     ekw = dict(fmt="o", markersize=3.5, color=data_c, markerfacecolor=data_c,
                markeredgewidth=0.5, elinewidth=0.8, capsize=1.5, label=name or "data",
                zorder=4)
@@ -418,17 +146,17 @@ def plot_fit(fit, ax=None, *, band=True, level=0.95, show_switches=True, show_fl
         infl = fit.influence()
         fl = infl["flagged"].to_numpy(dtype=bool)
         if fl.any():
-            ax.scatter(t[fl], y[fl], s=60, facecolors="none", edgecolors=_FLAG,
+            ax.scatter(t[fl], y[fl], s=60, facecolors="none", edgecolors=FLAG,
                        linewidths=1.2, marker="s", zorder=5,
                        label=f"flagged, kept in fit (n = {int(fl.sum())})")
     if show_switches:
         for i, s in enumerate(sw):
-            ax.axvline(s, color=_GREY, linestyle="--", linewidth=0.8,
+            ax.axvline(s, color=GREY, linestyle="--", linewidth=0.8,
                        label="diet switch" if i == 0 else None)
-    _style(ax, _time_label(fit), _y_label(fit))
+    style_axes(ax, time_label(fit), tissue_label(fit))
     sig = fit.sigma if fit.sigma is not None else 0.0
-    keep = _points((t, y), (t, y + sig), (t, y - sig), (grid[::8], fitted[::8]))
-    _legend(ax, first=(name or "data",), keep=keep)
+    keep = finite_points((t, y), (t, y + sig), (t, y - sig), (grid[::8], fitted[::8]))
+    place_legend(ax, first=(name or "data",), keep=keep)
     return ax
 
 
@@ -461,10 +189,10 @@ def plot_residuals(fit, ax=None, studentized=True):
         When ``fit`` is not a TurnoverFit, ``ax`` not an Axes or ``studentized`` not a
         bool.
     """
-    fit = _check_fit(fit, "plot_residuals")
+    fit = check_fit(fit, "plot_residuals")
     if not isinstance(studentized, (bool, np.bool_)):
         raise DataError(f"'studentized' must be True or False; got {studentized!r}")
-    ax = _new_axes(ax)
+    ax = new_axes(ax)
     infl = fit.influence()
     t = fit.t
     fl = infl["flagged"].to_numpy(dtype=bool)
@@ -480,7 +208,7 @@ def plot_residuals(fit, ax=None, studentized=True):
             ylabel = "Standardized residual (leverage not available)"
         for g, ls in ((2, ":"), (3, "--")):
             for sign in (-1, 1):
-                ax.axhline(sign * g, color=_GREY, linestyle=ls, linewidth=0.7,
+                ax.axhline(sign * g, color=GREY, linestyle=ls, linewidth=0.7,
                            label=f"±{g}" if sign > 0 else None)
     else:
         r = fit.residuals
@@ -489,22 +217,22 @@ def plot_residuals(fit, ax=None, studentized=True):
         scale = s * (fit.sigma if fit.sigma is not None else np.ones_like(t))
         for g, ls in ((2, ":"), (3, "--")):
             for sign in (-1, 1):
-                ax.plot(t[order], sign * g * scale[order], color=_GREY, linestyle=ls,
+                ax.plot(t[order], sign * g * scale[order], color=GREY, linestyle=ls,
                         linewidth=0.7, label=f"±{g} ŝ" if sign > 0 else None)
     ax.axhline(0.0, color=OKABE_ITO["black"], linewidth=0.8)
     ax.plot(t, r, "o", markersize=3.5, color=OKABE_ITO["blue"], linestyle="none",
             label="residual")
     if fl.any():
-        ax.scatter(t[fl], r[fl], s=60, facecolors="none", edgecolors=_FLAG, linewidths=1.2,
+        ax.scatter(t[fl], r[fl], s=60, facecolors="none", edgecolors=FLAG, linewidths=1.2,
                    marker="s", zorder=5, label=f"flagged (n = {int(fl.sum())})")
     finite = r[np.isfinite(r)]
     top = max(3.6 if studentized else 0.0, float(np.max(np.abs(finite))) * 1.15
               if finite.size else 1.0)
     if studentized:
         ax.set_ylim(-top, top)
-    _style(ax, _time_label(fit), ylabel)
-    _legend(ax, first=("residual",), ncol=3, columnspacing=1.0, handlelength=1.5,
-            keep=_points((t, r)))
+    style_axes(ax, time_label(fit), ylabel)
+    place_legend(ax, first=("residual",), ncol=3, columnspacing=1.0, handlelength=1.5,
+            keep=finite_points((t, r)))
     return ax
 
 
@@ -562,8 +290,8 @@ def plot_progress(fit, ax=None):
 
     from .progress import reaction_progress
 
-    fit = _check_fit(fit, "plot_progress")
-    ax = _new_axes(ax)
+    fit = check_fit(fit, "plot_progress")
+    ax = new_axes(ax)
     s0, s1, d0, deq = _progress_window(fit)
     t = fit.t
     inside = (t >= s0) & (t <= s1)  # a sample on the switch day reflects the old diet
@@ -583,12 +311,12 @@ def plot_progress(fit, ax=None):
     ok = flag == "ok"
     # fitted curve on the window
     hi = float(tt.max())
-    grid = _fine_grid(fit, s0, hi) if hi > s0 else np.array([s0])
+    grid = fine_grid(fit, s0, hi) if hi > s0 else np.array([s0])
     with np.errstate(divide="ignore", invalid="ignore"):
         u = (fit.predict(grid) - deq) / (d0 - deq)
         lcurve = np.where(u > 0, np.log(np.where(u > 0, u, 1.0)), np.nan)
     ax.plot(grid - s0, lcurve, color=OKABE_ITO["blue"], linewidth=1.3,
-            label=f"fit, {_short_model(fit)}")
+            label=f"fit, {model_name(fit)}")
     ekw = dict(fmt="o", markersize=3.5, color=OKABE_ITO["black"], elinewidth=0.8, capsize=1.5,
                label="data")
     if np.all(np.isfinite(sdl[ok])) and ok.any() and sd is not None:
@@ -612,7 +340,7 @@ def plot_progress(fit, ax=None):
     before = flag == "F<=0"
     if past.any():
         ax.plot(tau[past], np.full(past.sum(), 0.03), marker="v", linestyle="none",
-                markersize=5, color=_FLAG, transform=trans, clip_on=False,
+                markersize=5, color=FLAG, transform=trans, clip_on=False,
                 label=f"F ≥ 1, at edge (n = {int(past.sum())})")
     if before.any():
         ax.plot(tau[before], np.full(before.sum(), 0.97), marker="^", linestyle="none",
@@ -626,7 +354,7 @@ def plot_progress(fit, ax=None):
     if n_after:
         notes.append(f"not shown: {n_after} point{'s' if n_after > 1 else ''} after the "
                      "2nd switch")
-    _style(ax, f"Time since diet switch ({_unit(fit)})", "ln(1 − F)")
+    style_axes(ax, f"Time since diet switch ({time_unit_word(fit)})", "ln(1 − F)")
     # ln(1 - F) falls from 0 at the switch: the upper right and lower left stay empty
     if fit.model.diet is None:
         tag0 = "fixed" if "delta0" in fit.fixed else "fitted"
@@ -640,10 +368,10 @@ def plot_progress(fit, ax=None):
     if past.any() or before.any():
         ax.add_line(Line2D([], [], linestyle="none", label="(no ln(1 − F) for these)"))
     txt = ax.text(0.03, 0.05, ends, transform=ax.transAxes, ha="left", va="bottom",
-                  fontsize=_LEGEND_PT, color="#333333")
-    keep = _points((tau[ok], logv[ok]), ((grid - s0)[shown][::8], lcurve[shown][::8]))
-    leg = _legend(ax, first=("data",), loc="upper right")
-    _keep_clear(ax, [leg, txt], keep)
+                  fontsize=LEGEND_PT, color="#333333")
+    keep = finite_points((tau[ok], logv[ok]), ((grid - s0)[shown][::8], lcurve[shown][::8]))
+    leg = place_legend(ax, first=("data",), loc="upper right")
+    keep_clear(ax, [leg, txt], keep)
     return ax
 
 
@@ -688,8 +416,8 @@ def plot_pools(fit, ax=None, *, t_max=None):
     DataError
         When ``t_max`` is not a positive number, or ``fit``/``ax`` are of the wrong kind.
     """
-    fit = _check_fit(fit, "plot_pools")
-    ax = _new_axes(ax)
+    fit = check_fit(fit, "plot_pools")
+    ax = new_axes(ax)
     kin = fit.kinetics
     v = fit.values
     s0 = float(kin.switch_times[0])
@@ -703,14 +431,14 @@ def plot_pools(fit, ax=None, *, t_max=None):
     if not (math.isfinite(t_max) and t_max > 0):
         raise DataError(f"'t_max' must be a positive number; got {t_max!r}")
     tau = np.linspace(0.0, t_max, 400)
-    unit = _unit(fit)
+    unit = time_unit_word(fit)
     theta = np.array([v[n] for n in kin.param_names])
     rk = "catabolic" if fit.rate_kind == "catabolic" else "incorporation"
     if kin.structure == "chain":
         total = kin.remaining(tau, theta)
         hl = [math.log(2) / v[n] for n in kin.rate_names]
         ax.plot(tau, total, color=OKABE_ITO["black"], linewidth=1.4,
-                label=f"chain: t½ {_num(hl[0])} and {_num(hl[1])} {unit}")
+                label=f"chain: t½ {compact_number(hl[0])} and {compact_number(hl[1])} {unit}")
     else:
         ks = np.array([v[n] for n in kin.rate_names])
         fs = np.array([v[n] for n in kin.fraction_names])
@@ -722,17 +450,17 @@ def plot_pools(fit, ax=None, *, t_max=None):
         parts = fs[:, None] * np.exp(-ks[:, None] * tau[None, :]) * factor[None, :]
         for i in range(ks.size):
             hl = math.log(2) / ks[i]
-            ax.plot(tau, parts[i], color=_color(i), linewidth=1.2,
+            ax.plot(tau, parts[i], color=series_color(i), linewidth=1.2,
                     linestyle=("-", "--", "-.", ":")[i % 4],
-                    label=f"pool {i + 1}: f = {fs[i]:.2f}, t½ = {_num(hl)} {unit}")
+                    label=f"pool {i + 1}: f = {fs[i]:.2f}, t½ = {compact_number(hl)} {unit}")
         if ks.size > 1:
             ax.plot(tau, parts.sum(axis=0), color=OKABE_ITO["black"], linewidth=1.5,
                     label="sum, 1 − F")
     ax.set_ylim(0.0, 1.05)
     ax.set_xlim(0.0, t_max)
-    _style(ax, f"Time since diet switch ({unit})", "Share of change to come, 1 − F")
+    style_axes(ax, f"Time since diet switch ({unit})", "Share of change to come, 1 − F")
     lines = [(ln.get_xdata()[::8], ln.get_ydata()[::8]) for ln in ax.get_lines()]
-    _legend(ax, title=f"{rk} half-lives", keep=_points(*lines))
+    place_legend(ax, title=f"{rk} half-lives", keep=finite_points(*lines))
     return ax
 
 
@@ -791,12 +519,12 @@ def plot_growth(growth_fit, ax=None, *, turnover_fit=None, mass_unit=None, time_
                             f"with t, mass and predict(); got {type(growth_fit).__name__}, "
                             f"which lacks {attr!r}")
     if turnover_fit is not None:
-        _check_fit(turnover_fit, "plot_growth")
+        check_fit(turnover_fit, "plot_growth")
         if turnover_fit.rate_kind != "catabolic":
             raise DataError("plot_growth: 'turnover_fit' has no growth model (its rates are "
                             "incorporation rates); pass a fit made with growth=…")
     unit_code = time_unit or (turnover_fit.time_unit if turnover_fit is not None else "d")
-    ax = _new_axes(ax)
+    ax = new_axes(ax)
     t = np.asarray(growth_fit.t, dtype=float)
     m = np.asarray(growth_fit.mass, dtype=float)
     grid = np.linspace(float(t.min()), float(t.max()), 300)
@@ -806,9 +534,9 @@ def plot_growth(growth_fit, ax=None, *, turnover_fit=None, mass_unit=None, time_
     mass_curve = np.asarray(growth_fit.predict(grid), dtype=float)
     ax.plot(grid, mass_curve, color=OKABE_ITO["blue"], linewidth=1.3,
             label=f"fitted {str(curve).replace('_', ' ')} curve")
-    xlabel = (f"Time since diet switch ({_unit(unit_code)})" if turnover_fit is not None
-              else f"Time ({_unit(unit_code)})")
-    _style(ax, xlabel, f"Body mass ({mass_unit})" if mass_unit else "Body mass")
+    xlabel = (f"Time since diet switch ({time_unit_word(unit_code)})" if turnover_fit is not None
+              else f"Time ({time_unit_word(unit_code)})")
+    style_axes(ax, xlabel, f"Body mass ({mass_unit})" if mass_unit else "Body mass")
     handles, labels = ax.get_legend_handles_labels()
     if turnover_fit is not None:
         if hasattr(turnover_fit, "growth_share_curve"):
@@ -818,8 +546,8 @@ def plot_growth(growth_fit, ax=None, *, turnover_fit=None, mass_unit=None, time_
             ln = ax2.plot(grid, share, color=c, linewidth=1.2, linestyle="--",
                           label="growth share of the change")
             ax2.set_ylim(0.0, 1.05)  # a share of 1 stays visible
-            ax2.set_ylabel("Growth share of the change", fontsize=_LABEL_PT, color=c)
-            ax2.tick_params(labelsize=_TICK_PT, colors=c, axis="y")
+            ax2.set_ylabel("Growth share of the change", fontsize=LABEL_PT, color=c)
+            ax2.tick_params(labelsize=TICK_PT, colors=c, axis="y")
             handles += ln
             labels += [ln[0].get_label()]
             ax.right_ax = ax2
@@ -829,12 +557,12 @@ def plot_growth(growth_fit, ax=None, *, turnover_fit=None, mass_unit=None, time_
     if hasattr(ax, "right_ax"):
         # two y axes: the legend goes above the plot, where it can cover neither curve
         ax.legend(handles, labels, loc="lower left", bbox_to_anchor=(0.0, 1.01), ncol=2,
-                  frameon=False, fontsize=_LEGEND_PT, borderaxespad=0.0, handlelength=1.6,
+                  frameon=False, fontsize=LEGEND_PT, borderaxespad=0.0, handlelength=1.6,
                   columnspacing=1.0)
         return ax
-    leg = ax.legend(handles, labels, loc="best", framealpha=0.85, fontsize=_LEGEND_PT,
+    leg = ax.legend(handles, labels, loc="best", framealpha=0.85, fontsize=LEGEND_PT,
                     labelspacing=0.3, borderpad=0.35, handlelength=1.6)
-    _keep_clear(ax, [leg], _points((t, m), (grid[::8], mass_curve[::8])))
+    keep_clear(ax, [leg], finite_points((t, m), (grid[::8], mass_curve[::8])))
     return ax
 
 
@@ -880,22 +608,22 @@ def plot_weights(fitset, ax=None):
     n = len(fitset)
     longest = max(len(" / ".join(map(str, k))) for k in fitset)
     width = SINGLE[0] if longest <= 22 else DOUBLE[0]  # long labels: a two-column figure
-    ax = _new_axes(ax, size=(width, 1.0 + 0.25 * n))
+    ax = new_axes(ax, size=(width, 1.0 + 0.25 * n))
     cands = []
     for r in fitset.values():
         for lab in list(r.reasons) + list(r.fits):
             if lab not in cands:
                 cands.append(lab)
-    colors = {c: _color(i) for i, c in enumerate(cands)}
+    colors = {c: series_color(i) for i, c in enumerate(cands)}
     ylabels = []
     drawn = set()
     for yi, (key, r) in enumerate(fitset.items()):
         ylabels.append(" / ".join(map(str, key)))
         if r.status != "ok" or r.comparison is None:
-            ax.barh(yi, 1.0, height=0.7, fill=False, edgecolor=_GREY, linestyle="--",
+            ax.barh(yi, 1.0, height=0.7, fill=False, edgecolor=GREY, linestyle="--",
                     linewidth=0.8)
             ax.text(0.5, yi, f"not fitted: {str(r.status).replace('_', ' ')}", ha="center",
-                    va="center", fontsize=_LEGEND_PT - 0.5, color="#444444")
+                    va="center", fontsize=LEGEND_PT - 0.5, color="#444444")
             continue
         w = dict(zip(r.comparison["label"].astype(str), r.comparison["weight"].astype(float)))
         left = 0.0
@@ -912,7 +640,7 @@ def plot_weights(fitset, ax=None):
     ax.set_ylim(n - 0.5, -0.5)
     ax.set_xlim(0.0, 1.0)
     crit = _CRIT.get(fitset.criterion, str(fitset.criterion))
-    _style(ax, f"{'Akaike' if crit != 'BIC' else 'Model'} weight ({crit})", "")
+    style_axes(ax, f"{'Akaike' if crit != 'BIC' else 'Model'} weight ({crit})", "")
     from matplotlib.patches import Patch
 
     # every candidate in the legend, also those with weight ~0 everywhere
@@ -922,7 +650,7 @@ def plot_weights(fitset, ax=None):
     if handles:
         ax.legend([handles[i] for i in order], [labels[i] for i in order], loc="lower left",
                   bbox_to_anchor=(0.0, 1.01), ncol=min(len(handles), 4), frameon=False,
-                  fontsize=_LEGEND_PT, borderaxespad=0.0, handlelength=1.2,
+                  fontsize=LEGEND_PT, borderaxespad=0.0, handlelength=1.2,
                   columnspacing=1.0)
     return ax
 
@@ -948,7 +676,7 @@ def plot_overview(fit, *, level=0.95):
     """
     import matplotlib.pyplot as plt
 
-    fit = _check_fit(fit, "plot_overview")
+    fit = check_fit(fit, "plot_overview")
     fig = plt.figure(figsize=(DOUBLE[0], 5.0), layout="constrained")
     try:
         gs = fig.add_gridspec(2, 2)
@@ -958,9 +686,9 @@ def plot_overview(fit, *, level=0.95):
         plot_residuals(fit, axes[1])
         plot_progress(fit, axes[2])
         for a, letter in zip(axes, "abc"):
-            a.set_title(letter, loc="left", fontsize=_LABEL_PT + 1, fontweight="bold")
+            a.set_title(letter, loc="left", fontsize=LABEL_PT + 1, fontweight="bold")
         if fit.label:
-            fig.suptitle(str(fit.label), fontsize=_LABEL_PT)
+            fig.suptitle(str(fit.label), fontsize=LABEL_PT)
     except BaseException:
         plt.close(fig)
         raise

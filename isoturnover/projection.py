@@ -145,9 +145,10 @@ class _Reduced:
             C = np.atleast_2d(np.asarray(C, dtype=float))
             # the centred data shift the constant: C (c - ybar e_0) = d - ybar C e_0
             d = np.asarray(d, dtype=float) - self.ybar * C[:, 0]
-            cp = np.linalg.lstsq(C, d, rcond=None)[0]
-            _, sv, vt = np.linalg.svd(C)
+            u_, sv, vt = np.linalg.svd(C)
             rank = int(np.sum(sv > 1e-12 * max(float(sv[0]), 1e-300)))
+            # minimum-norm particular solution and null space from the one decomposition
+            cp = vt[:rank].T @ ((u_[:, :rank].T @ d) / sv[:rank])
             self.cp = cp.tolist()
             self.N = vt[rank:].T.tolist()  # (q, q - rank)
 

@@ -177,13 +177,16 @@ def time_to_grad(kin, p: float, tau_total: float, theta) -> np.ndarray:
     return g
 
 
-def mean_residence_time(kin, theta, span: float = 1.0) -> float:
+def mean_residence_time(kin, theta, span: float = 1.0, catabolic: bool = False) -> float:
     r"""Mean residence time of the step response, :math:`\int_0^\infty (1-F)\,d\tau`.
 
     Parallel pools :math:`\sum_i f_i/\kappa_i`; chain :math:`1/k_1 + 1/k_2` (the integrals
     of the exponential responses, by hand); with a growth curve the integral is taken
     numerically (``scipy.integrate.quad``) from the first switch, and is infinite when the
-    old material never leaves; plus the lag.
+    old material never leaves; plus the lag. :math:`\kappa_i = k_{d,i} + k_g` with growth
+    (the incorporation residence time); ``catabolic=True`` leaves growth out
+    (:math:`\kappa_i = k_{d,i}`: the residence time against catabolic replacement alone,
+    one pool :math:`1/k_d`).
 
     Parameters
     ----------
@@ -194,6 +197,8 @@ def mean_residence_time(kin, theta, span: float = 1.0) -> float:
     span : float, default=1.0
         The sampling span (time unit); with a growth curve the numerical integral looks at
         most :math:`10^6` spans ahead.
+    catabolic : bool, default=False
+        From the catabolic rates alone (growth left out).
 
     Returns
     -------
@@ -202,8 +207,8 @@ def mean_residence_time(kin, theta, span: float = 1.0) -> float:
         material stays for good.
     """
     v = np.asarray(theta, dtype=float)
-    ks = _incorporation_rates(kin, v)
-    if kin.growth_kind in ("curve", "curve_params"):
+    ks = v[kin.rate_index] if catabolic else _incorporation_rates(kin, v)
+    if kin.growth_kind in ("curve", "curve_params") and not catabolic:
         def rem(x):
             return float(remaining_after_switch(kin, np.array([x]), v)[0])
 
@@ -217,16 +222,18 @@ def mean_residence_time(kin, theta, span: float = 1.0) -> float:
         else:
             pts = np.geomspace(max(upper * 1e-6, 1e-12), upper, 12)
             m = float(integrate.quad(rem, 0.0, upper, points=pts[:-1], limit=400)[0])
-    elif kin.structure == "chain":
-        m = float(np.sum(1.0 / ks))
     else:
-        m = float(np.sum(v[kin.fraction_index] / ks))
+        with np.errstate(divide="ignore", invalid="ignore"):  # a rate of 0: inf
+            if kin.structure == "chain":
+                m = float(np.sum(1.0 / ks))
+            else:
+                m = float(np.sum(v[kin.fraction_index] / ks))
     if kin.lag_index is not None:
         m += float(v[kin.lag_index])
     return m
 
 
-def mean_residence_time_grad(kin, theta) -> np.ndarray:
+def mean_residence_time_grad(kin, theta, catabolic: bool = False) -> np.ndarray:
     r"""Gradient of :func:`mean_residence_time` in natural parameters (no growth curve).
 
     :math:`\partial/\partial k_i = -f_i/\kappa_i^2`, :math:`\partial/\partial f_i =
@@ -239,14 +246,17 @@ def mean_residence_time_grad(kin, theta) -> np.ndarray:
         The model (:class:`~isoturnover.kinetics.TurnoverKinetics`).
     theta : ndarray of shape (n_params,)
         Natural parameters in the order of ``kin.param_names`` (rates per time unit).
+    catabolic : bool, default=False
+        Of the catabolic residence time (growth left out).
 
     Returns
     -------
     ndarray of shape (n_params,)
         The gradient (time unit per unit of each parameter).
     """
+    theta = np.asarray(theta, dtype=float)
     g = np.zeros(theta.size)
-    ks = _incorporation_rates(kin, theta).astype(float)
+    ks = theta[kin.rate_index] if catabolic else _incorporation_rates(kin, theta)
     if kin.structure == "chain":
         dk = -1.0 / ks**2
     else:
@@ -254,7 +264,7 @@ def mean_residence_time_grad(kin, theta) -> np.ndarray:
         dk = -f / ks**2
         g[kin.fraction_index] = 1.0 / ks
     g[kin.rate_index] = dk
-    if kin.growth_rate_index is not None:
+    if kin.growth_rate_index is not None and not catabolic:
         g[kin.growth_rate_index] = float(np.sum(dk))
     if kin.lag_index is not None:
         g[kin.lag_index] = 1.0

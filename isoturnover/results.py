@@ -1,44 +1,36 @@
 r"""TurnoverFit: the result of one fit — it caches and tabulates.
 
 A :class:`TurnoverFit` wraps a finished :class:`~isoturnover.engine.FitState` (error model,
-covariance, information criteria: see its docstring). Fitting computes no interval: each
-interval is computed on its first request and cached on the fit. The numerics live below:
-parameter intervals in :mod:`isoturnover.profiles` (``parameter_interval``,
-``asymptotic_interval``), derived quantities in :func:`isoturnover.derived.profile_derived`
-and :func:`isoturnover.profiles.delta_interval`, resampling in :mod:`isoturnover.resampling`
-and :mod:`isoturnover.mcmc`, bands in :mod:`isoturnover.bands`; the summary, notes, tidy
-table and lmfit views (``params``, ``lmfit_result``: :class:`~isoturnover.summary.LmfitViews`)
-in :mod:`isoturnover.summary`; growth dilution (growth shares, incorporation half-lives, the
-power-form exponent: :class:`~isoturnover.growthdilution.GrowthDilution`) in
-:mod:`isoturnover.growthdilution`. ``TurnoverFit`` inherits both mixins.
+covariance, information criteria: see its docstring). Fitting computes no interval: each is
+computed on its first request and cached on the fit. Here: parameters, their intervals
+(:mod:`isoturnover.profiles`), half-lives, time to a fraction of a change, mean residence
+times, tables and the summary. ``TurnoverFit`` inherits four mixins: lmfit's views
+(:class:`~isoturnover.summary.LmfitViews`), growth dilution
+(:class:`~isoturnover.growthdilution.GrowthDilution`), the interval cache with derived
+intervals, bootstrap, MCMC and bands (:class:`~isoturnover.intervalcache.IntervalCache`),
+and the fit's record, ``to_dict`` (:class:`~isoturnover.records.FitRecord`).
 """
 
 from __future__ import annotations
 
-import hashlib
-import json
 import math
 
 import numpy as np
 import pandas as pd
 
 from . import profiles, quantities
-from .bands import band as _band
 from .conventions import METHODS, STATUSES, check_choice, check_level, check_method
-from .derived import profile_derived
 from .diagnostics import TrustNote, trust_notes
 from .engine import FitState
 from .errors import DataError
 from .growthdilution import (
     GrowthDilution,
-    catabolic_mean_residence_time,
-    catabolic_mean_residence_time_grad,
     finite_array,
     half_life_frame,
     interval_row,
 )
-from .mcmc import sample as _sample
-from .resampling import bootstrap as _bootstrap
+from .intervalcache import IntervalCache
+from .records import FitRecord
 from .summary import (
     LmfitViews,
     Summary,
@@ -57,12 +49,7 @@ _GROWTH_CURVES = ("curve", "curve_params")
 MRT_KINDS = ("incorporation", "catabolic")
 
 
-def _bounds(iv):
-    """(lower, upper, lower_status, upper_status) of an interval object."""
-    return iv.lower, iv.upper, iv.lower_status, iv.upper_status
-
-
-class TurnoverFit(LmfitViews, GrowthDilution):
+class TurnoverFit(LmfitViews, GrowthDilution, IntervalCache, FitRecord):
     """Result of :meth:`TurnoverModel.fit <isoturnover.TurnoverModel.fit>`.
 
     Parameters
@@ -134,56 +121,9 @@ class TurnoverFit(LmfitViews, GrowthDilution):
             setattr(self, name, getattr(state, name))
         self.rate_kind = "catabolic" if self.kinetics.growth_kind is not None \
             else "incorporation"
-        self._cache = {}
-        self._boot = self._mcmc = None
         self.warnings = trust_notes(self)
 
-    # -- basic quantities ---------------------------------------------------------------
-    @property
-    def values(self) -> dict:
-        """Natural parameter values, name → float."""
-        return dict(zip(self.kinetics.param_names, self._theta.tolist()))
-
-    @property
-    def stderr(self) -> dict:
-        """Standard errors of the natural parameters, name → float (NaN when not available;
-        the square roots of the diagonal of :attr:`covar`)."""
-        d = np.sqrt(np.clip(np.diag(self.covar), 0, None))
-        return dict(zip(self.kinetics.param_names, d.tolist()))
-
-    @property
-    def residuals(self) -> np.ndarray:
-        """y − fitted (‰), in time order."""
-        return self.y - self.best_fit
-
-    @property
-    def best_fit(self) -> np.ndarray:
-        """Fitted tissue δ (‰) at the sampling times."""
-        return self.kinetics.evaluate(self.t, self._theta)
-
-    @property
-    def rates_at_zero(self) -> tuple:
-        """Rates run to their lower edge: no change within the sampling span
-        (k·max(span, 1) ≤ 1e-12); their half-life is reported as infinite."""
-        span = max(float(np.ptp(self.t)), 1.0)
-        return tuple(nm for nm in self.kinetics.rate_names if self.values[nm] * span <= 1e-12)
-
-    @property
-    def data_fingerprint(self) -> str:
-        """SHA-1 of the fitted data (times, values, weights): equal for fits of the same data."""
-        h = hashlib.sha1()
-        for a in (self.t, self.y, np.ones_like(self.t) if self.sigma is None else self.sigma):
-            h.update(np.ascontiguousarray(a, dtype=float).tobytes())
-        mb = self.state.engine.mass_block
-        if mb is not None and mb.kind == "prior":
-            h.update(b"growth-prior")
-            h.update(str(getattr(self.kinetics.growth, "data_fingerprint", "")).encode())
-        elif mb is not None:
-            h.update(b"masses")
-            h.update(np.ascontiguousarray(mb.t, dtype=float).tobytes())
-            h.update(np.ascontiguousarray(mb.mass, dtype=float).tobytes())
-        return h.hexdigest()
-
+    # -- predictions ---------------------------------------------------------------------
     def predict(self, t) -> np.ndarray:
         """Fitted tissue δ at given times.
 
@@ -201,24 +141,14 @@ class TurnoverFit(LmfitViews, GrowthDilution):
         return self.kinetics.evaluate(t.ravel(), self._theta).reshape(t.shape)
 
     # -- interval machinery (cached) ----------------------------------------------------
-    def _cached(self, key, make):
-        """The cached value under ``key``, computed by ``make()`` on first request."""
-        if key not in self._cache:
-            self._cache[key] = make()
-        return self._cache[key]
-
-    def _forget(self, method):
-        """Drop cached results made from the previous draws of ``method`` (new draws)."""
-        self._cache = {k: v for k, v in self._cache.items() if method not in k}
-
     def _implicit_fixed(self):
         """Parameters fixed by construction (the fraction of a single pool)."""
         return fixed_by_construction(self.kinetics)
 
     def _profile(self, name, level):
         """Profile-likelihood bounds of a free natural parameter (cached)."""
-        return self._cached((name, round(level, 12)), lambda: _bounds(
-            profiles.parameter_interval(self.state, name, level)))
+        return self.cached((name, round(level, 12)),
+                           lambda: profiles.parameter_interval(self.state, name, level).bounds)
 
     def _interval(self, name, level, method):
         """(lower, upper, lower_status, upper_status) of a natural parameter."""
@@ -226,181 +156,19 @@ class TurnoverFit(LmfitViews, GrowthDilution):
             v = self.fixed[name] if name in self.fixed else float(self.values[name])
             return v, v, "fixed", "fixed"
         if method in ("bootstrap", "mcmc"):
-            return self._resampled_interval(name, level, method)
+            return self.resampled_interval(name, level, method)
         if method == "profile" and self.loss == "linear":
             if name in self.tied:
                 # a parameter set by an expression is a derived quantity: constrained profile
                 j = self.kinetics.param_names.index(name)
-                return self._cached((name, round(level, 12)), lambda: _bounds(self.profile(
-                    lambda th: th[j], level, name=name,
-                    positive=name in self.kinetics.rate_names)))
+
+                def make():
+                    r = self.profile(lambda th: th[j], level, name=name,
+                                     positive=name in self.kinetics.rate_names)
+                    return r.lower, r.upper, r.lower_status, r.upper_status
+                return self.cached((name, round(level, 12)), make)
             return self._profile(name, level)
         return profiles.asymptotic_interval(self.state, name, level).bounds
-
-    def derived_interval(self, key, fn, estimate, level=0.95, method="profile", scale="log",
-                         grad=None) -> tuple:
-        """Interval of a derived quantity ``fn(theta)``, cached on the fit under ``key``.
-
-        Profile likelihood (:func:`isoturnover.derived.profile_derived`, constrained refits)
-        for least-squares fits and ``method="profile"``; otherwise the delta method on
-        ``scale`` (:func:`isoturnover.profiles.delta_interval`).
-
-        Parameters
-        ----------
-        key : tuple
-            Name of the quantity in the fit's cache (e.g. ``("time_to", 0.95)``); the same
-            key must always mean the same ``fn``.
-        fn : callable
-            ``fn(theta) -> float`` of the natural parameter vector.
-        estimate : float
-            ``fn`` at the fitted parameters.
-        level : float, default=0.95
-            Confidence level.
-        method : {"profile", "asymptotic", "bootstrap", "mcmc"}, default="profile"
-            Anything but ``"profile"`` on a least-squares fit gives the delta method.
-        scale : {"log", "logit", "linear"}, default="log"
-            Scale of the delta method; log and logit also keep a profile positive.
-        grad : callable, optional
-            ``grad(theta)``, the gradient of ``fn`` in natural parameters (else central
-            differences).
-
-        Returns
-        -------
-        tuple
-            ``(lower, upper, lower_status, upper_status, method)``, method being
-            ``"profile"`` or ``"asymptotic"``.
-        """
-        level, method = check_level(level), check_method(method)
-        check_choice("scale", scale, ("log", "logit", "linear"))
-        key = tuple(key) if isinstance(key, (tuple, list)) else (key,)
-
-        def make():
-            if method == "profile" and self.loss == "linear":
-                r = profile_derived(self, fn, level, positive=scale in ("log", "logit"),
-                                    grad=grad)
-                return (*_bounds(r), "profile")
-            iv = profiles.delta_interval(self.state, fn, estimate, level, scale)
-            return (*iv.bounds, "asymptotic")
-        return self._cached((*key, round(level, 12), method), make)
-
-    def method_used(self, method) -> str:
-        """Name of the interval method that a request for ``method`` actually uses.
-
-        Parameters
-        ----------
-        method : {"profile", "asymptotic", "bootstrap", "mcmc"}
-            The method asked for.
-
-        Returns
-        -------
-        str
-            ``"asymptotic"`` for ``"profile"`` on a robust-loss fit (no RSS profile),
-            ``"bootstrap (percentile)"`` for ``"bootstrap"``, otherwise ``method``.
-        """
-        if method == "profile" and self.loss != "linear":
-            return "asymptotic"
-        if method == "bootstrap":
-            return "bootstrap (percentile)"
-        return method
-
-    def _resampled_interval(self, name, level, method):
-        """Interval of a parameter or derived quantity from the stored bootstrap / MCMC."""
-        if method == "bootstrap":
-            boot = self._boot if self._boot is not None else self.bootstrap()
-            tab = boot.intervals(level, method="percentile")
-        else:
-            tab = (self._mcmc if self._mcmc is not None else self.sample()).intervals(level)
-        row = tab[tab["parameter"] == name]
-        if not len(row):
-            return math.nan, math.nan, "not_available", "not_available"
-        r = row.iloc[0]
-        return float(r["lower"]), float(r["upper"]), str(r["lower_status"]), \
-            str(r["upper_status"])
-
-    # -- resampling, profiles of derived quantities, bands --------------------------------
-    def bootstrap(self, n=999, kind="residual", rng=0, n_jobs=1, progress=None,
-                  quantities=None, **kwargs):
-        """Bootstrap this fit and keep the result on it.
-
-        ``method="bootstrap"`` in :meth:`conf_int`, :meth:`half_lives`, :meth:`time_to` and
-        :meth:`table` then uses it (percentile intervals).
-
-        Parameters
-        ----------
-        n, kind, rng, n_jobs, progress, quantities, **kwargs
-            As :func:`isoturnover.resampling.bootstrap`; seeded (``rng=0``) by default and
-            reproducible whatever ``n_jobs``.
-
-        Returns
-        -------
-        BootstrapResult
-        """
-        self._boot = _bootstrap(self, n=n, kind=kind, rng=rng, n_jobs=n_jobs,
-                                progress=progress, quantities=quantities, **kwargs)
-        self._forget("bootstrap")
-        return self._boot
-
-    def sample(self, **kwargs):
-        """MCMC draws of this fit's posterior, kept on the fit for ``method="mcmc"``.
-
-        Parameters
-        ----------
-        **kwargs
-            As :func:`isoturnover.mcmc.sample` (``rng=0`` by default). Needs the ``mcmc``
-            extra (emcee).
-
-        Returns
-        -------
-        MCMCResult
-        """
-        kwargs.setdefault("rng", 0)
-        self._mcmc = _sample(self, **kwargs)
-        self._forget("mcmc")
-        return self._mcmc
-
-    def profile(self, fn, level=0.95, **kwargs):
-        """Profile-likelihood interval of a derived quantity ``fn(theta)``.
-
-        Parameters
-        ----------
-        fn : callable
-            ``fn(theta) -> float`` of the natural parameter vector (in the order of
-            ``fit.kinetics.param_names``).
-        level : float, default=0.95
-        **kwargs
-            As :func:`isoturnover.derived.profile_derived` (``name``, ``positive``, ``grad``,
-            ``natural``, ``limits``).
-
-        Returns
-        -------
-        ProfileInterval
-        """
-        return profile_derived(self, fn, check_level(level), **kwargs)
-
-    def band(self, t, level=0.95, kind="confidence", method="delta", boot=None, **kwargs):
-        """Confidence or prediction band of the fitted curve.
-
-        Parameters
-        ----------
-        t : array-like
-            Times (in :attr:`time_unit`).
-        level : float, default=0.95
-        kind : {"confidence", "prediction"}, default="confidence"
-        method : str, default="delta"
-            As :func:`isoturnover.bands.band`; ``"bootstrap"`` uses (or runs) this fit's
-            bootstrap.
-        boot : BootstrapResult, optional
-        **kwargs
-            Passed to :func:`isoturnover.bands.band`.
-
-        Returns
-        -------
-        DataFrame
-            Columns time, fitted, lower, upper (‰).
-        """
-        if method == "bootstrap" and boot is None:
-            boot = self._boot if self._boot is not None else self.bootstrap()
-        return _band(self, t, level=level, kind=kind, method=method, boot=boot, **kwargs)
 
     # -- interval tables ------------------------------------------------------------------
     def conf_int(self, level=0.95, method="profile", params=None) -> pd.DataFrame:
@@ -548,7 +316,7 @@ class TurnoverFit(LmfitViews, GrowthDilution):
                           hs, ls)
                 m = "fixed" if "k1" in self.fixed else self.method_used(method)
             elif method == "bootstrap" and abs(p - 0.95) < 1e-12:
-                bounds = self._resampled_interval("time_to_95", level, "bootstrap")
+                bounds = self.resampled_interval("time_to_95", level, "bootstrap")
                 m = "bootstrap (percentile)"
             else:
                 grad = None
@@ -574,7 +342,7 @@ class TurnoverFit(LmfitViews, GrowthDilution):
         :math:`1/k_1 + 1/k_2`; with a growth curve the integral is taken numerically from
         the first switch. ``"catabolic"`` (fits with a growth model only): growth left out,
         :math:`\sum_i f_i/k_{d,i}` (chain :math:`1/k_1 + 1/k_2`,
-        :func:`~isoturnover.growthdilution.catabolic_mean_residence_time`). Both include
+        :func:`~isoturnover.quantities.mean_residence_time` with ``catabolic=True``). Both include
         the lag. For one pool with exponential growth they are :math:`1/(k_d + k_g)` and
         :math:`1/k_d` (by hand). Without a growth model the rates are incorporation rates
         and only the incorporation kind exists.
@@ -604,7 +372,7 @@ class TurnoverFit(LmfitViews, GrowthDilution):
             raise DataError("kind='catabolic' needs a fit with a growth model "
                             "(TurnoverModel(growth=...)); without one the rates are "
                             "incorporation rates and so is the mean residence time")
-        return lambda th: catabolic_mean_residence_time(kin, th)
+        return lambda th: quantities.mean_residence_time(kin, th, catabolic=True)
 
     def mean_residence_time_interval(self, level=0.95, method="profile",
                                      kind="incorporation") -> pd.DataFrame:
@@ -633,13 +401,13 @@ class TurnoverFit(LmfitViews, GrowthDilution):
         fn = self._mrt_function(kind)
         mrt = fn(self._theta)
         if kind == "incorporation" and method == "bootstrap":
-            *bounds, m = (*self._resampled_interval("mean_residence_time", level, method),
+            *bounds, m = (*self.resampled_interval("mean_residence_time", level, method),
                           "bootstrap (percentile)")
         elif not np.isfinite(mrt):
             *bounds, m = math.nan, math.inf, "not_available", "open", method
         elif kind == "catabolic":
             def grad_c(th):
-                return catabolic_mean_residence_time_grad(self.kinetics, th)
+                return quantities.mean_residence_time_grad(self.kinetics, th, catabolic=True)
             *bounds, m = self.derived_interval(
                 ("mean_residence_time_catabolic",), fn, mrt, level,
                 "profile" if method == "profile" else "asymptotic", scale="log", grad=grad_c)
@@ -654,6 +422,20 @@ class TurnoverFit(LmfitViews, GrowthDilution):
         return pd.DataFrame([interval_row({}, mrt, bounds, level, m, time_unit=self.time_unit,
                                           kind=kind)])
 
+    def mean_residence_times(self) -> dict:
+        """Every mean residence time this fit reports, named as in :meth:`table`.
+
+        Returns
+        -------
+        dict
+            ``mean_residence_time`` or, with a growth model,
+            ``mean_residence_time_incorporation`` and ``mean_residence_time_catabolic``
+            (:func:`~isoturnover.summary.mean_residence_time_names`) → the value of
+            :meth:`mean_residence_time` of that kind, in :attr:`time_unit`.
+        """
+        return {q: self.mean_residence_time(kind)
+                for q, kind in mean_residence_time_names(self)}
+
     # -- tables, notes and summary ----------------------------------------------------------
     def influence(self) -> pd.DataFrame:
         """Studentised residuals, leverage and Cook's distance of every point.
@@ -667,7 +449,7 @@ class TurnoverFit(LmfitViews, GrowthDilution):
             Columns time, value, fitted, residual, studentized, leverage, cooks_distance,
             flagged.
         """
-        return self._cached(("influence",), lambda: influence_table(self)).copy()
+        return self.cached(("influence",), lambda: influence_table(self)).copy()
 
     def table(self, level=0.95, method="profile") -> pd.DataFrame:
         """One tidy row per parameter and derived quantity (see :func:`.summary.fit_table`).
@@ -711,7 +493,7 @@ class TurnoverFit(LmfitViews, GrowthDilution):
             ``str()`` for text, ``_repr_html_`` in notebooks.
         """
         level, method = check_level(level), check_method(method)
-        return self._cached(("summary", round(level, 12), method),
+        return self.cached(("summary", round(level, 12), method),
                             lambda: Summary(self, level, method))
 
     def __repr__(self):
@@ -722,91 +504,3 @@ class TurnoverFit(LmfitViews, GrowthDilution):
 
     def _repr_html_(self):
         return self.summary()._repr_html_()
-
-    # -- serialisation -----------------------------------------------------------------------
-    def to_dict(self) -> dict:
-        """A JSON-safe description from which :func:`~isoturnover.load_fit` rebuilds this fit.
-
-        Returns
-        -------
-        dict
-            ``format``, ``version``, ``model`` (configuration), ``data``, ``options``,
-            ``solution`` (coordinates, natural parameters, Jacobian, optimizer status) and
-            ``derived``: the mean residence times named as in :meth:`table`
-            (``mean_residence_time``, or with a growth model ``…_incorporation`` and
-            ``…_catabolic``), in :attr:`time_unit`, ``None`` when infinite — for readers;
-            :func:`~isoturnover.load_fit` recomputes them.
-        """
-        def fl(a):
-            return None if a is None else [float(x) for x in np.asarray(a).ravel()]
-
-        def finite(x):
-            return float(x) if np.isfinite(x) else None
-
-        st = self.state
-        sol, mb = st.solution, st.engine.mass_block
-        return {
-            "format": "isoturnover-fit", "version": 1,
-            "model": self.model.config(),
-            "data": {"t": fl(self.t), "y": fl(self.y), "sigma": fl(self.sigma),
-                     "time_unit": self.time_unit, "info": json_safe(self.data_info),
-                     "masses": [fl(mb.t), fl(mb.mass)] if getattr(mb, "kind", None)
-                     == "masses" else None,
-                     "block_scale": None if self.block_scale is None else
-                     list(self.block_scale)},
-            "options": {"absolute_sigma": self.absolute_sigma, "loss": self.loss,
-                        "f_scale": self.f_scale, "fixed": self.fixed, "init": self.init,
-                        "label": self.label, "tied": self.tied,
-                        "bounds": {k: [float(a) if np.isfinite(a) else None,
-                                       float(b) if np.isfinite(b) else None]
-                                   for k, (a, b) in self.bounds.items()}},
-            "solution": {"z": fl(sol.z), "theta": fl(self._theta),
-                         "jac_z": None if sol.jac_z is None else
-                         np.asarray(sol.jac_z).tolist(),
-                         "status": sol.status, "nfev": self.nfev,
-                         "message": self.message, "success": st.optimizer_ok,
-                         "starts_tried": self.starts_tried,
-                         "coords": {"rate_anchor": st.coords.rate_anchor,
-                                    "fraction_anchor": st.coords.fraction_anchor}},
-            "derived": {q: finite(self.mean_residence_time(kind))
-                        for q, kind in mean_residence_time_names(self)},
-        }
-
-    def to_json(self, **kwargs) -> str:
-        """:meth:`to_dict` as a JSON string.
-
-        Parameters
-        ----------
-        **kwargs
-            Passed to :func:`json.dumps` (``indent=2``, …).
-
-        Returns
-        -------
-        str
-        """
-        return json.dumps(self.to_dict(), **kwargs)
-
-
-def json_safe(d) -> dict:
-    """A copy of a flat dict with numpy scalars and arrays turned into Python numbers/lists.
-
-    Parameters
-    ----------
-    d : dict
-
-    Returns
-    -------
-    dict
-    """
-    out = {}
-    for k, v in d.items():
-        if isinstance(v, np.integer):
-            v = int(v)
-        elif isinstance(v, np.floating):
-            v = float(v)
-        elif isinstance(v, np.ndarray):
-            v = v.tolist()
-        elif isinstance(v, (list, tuple)):
-            v = [x.item() if hasattr(x, "item") else x for x in v]
-        out[k] = v
-    return out

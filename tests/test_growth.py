@@ -21,8 +21,8 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from isoturnover import growth as G
 from isoturnover import growthfit as GF
+from isoturnover import growthlaws as G
 from isoturnover.errors import (
     ConvergenceWarning,
     DataError,
