@@ -409,7 +409,7 @@ def _parse_pools(pools):
 def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("parallel",),
             by=None, ci="profile", level=0.95, time_unit="d", growth_curve="logistic",
             per_diet_separation=False, lag=False, progress=False, n_boot=499, seed=1,
-            title="Turnover analysis", n_jobs=1) -> Analysis:
+            title="Turnover analysis", n_jobs=1, date_format=None) -> Analysis:
     """Fit every series of a samples table and choose the number of pools (AICc).
 
     Parameters
@@ -452,6 +452,9 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
         Parallel workers (joblib; -1: all cores) for the series' fits and the bootstrap
         refits. The results are those of ``n_jobs=1``; without joblib a warning is given
         and the work runs serially.
+    date_format : str, optional
+        How text dates that are not ISO 8601 are written in the tables (``"%d/%m/%Y"``),
+        passed to the readers (:func:`~isoturnover.read_samples`).
 
     Returns
     -------
@@ -472,9 +475,11 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
     n_jobs = parallel_workers(n_jobs)  # 1 (after one warning) when joblib is missing
     _check_seed(seed)
     pools = _parse_pools(pools)
-    s = read_samples(samples, time_unit=time_unit)
-    d = read_diets(diets, time_unit=time_unit) if diets is not None else None
-    m = read_masses(masses, time_unit=time_unit) if masses is not None else None
+    s = read_samples(samples, time_unit=time_unit, date_format=date_format)
+    d = (read_diets(diets, time_unit=time_unit, date_format=date_format)
+         if diets is not None else None)
+    m = (read_masses(masses, time_unit=time_unit, date_format=date_format)
+         if masses is not None else None)
     if by is None:
         per = s.groupby(["subject", "tissue", "isotope"])["time"].nunique()
         by = ("tissue", "isotope") if int(per.max()) == 1 and s["subject"].nunique() > 1 \

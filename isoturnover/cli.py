@@ -117,6 +117,10 @@ def build_parser() -> argparse.ArgumentParser:
                    "bootstrap)")
     f.add_argument("--level", type=float, default=0.95, help="confidence level (0.95)")
     f.add_argument("--time-unit", default="d", help="time unit of the tables: d, h or w")
+    f.add_argument("--date-format", metavar="FMT", default=None,
+                   help="how dates that are not ISO 8601 (YYYY-MM-DD) are written in the "
+                   "tables, e.g. %%d/%%m/%%Y (day first) or %%m/%%d/%%Y (month first); "
+                   "without it such dates are refused, as day and month cannot be told apart")
     f.add_argument("--growth-curve", default="logistic",
                    help="growth curve fitted to --masses (logistic, gompertz, exponential, ...)")
     f.add_argument("--per-diet-separation", action="store_true",
@@ -169,7 +173,8 @@ def _cmd_fit(args):
                 structures=structures, by=by, ci=args.ci, level=args.level,
                 time_unit=args.time_unit, growth_curve=args.growth_curve,
                 per_diet_separation=args.per_diet_separation, lag=args.lag,
-                progress=_progress_default(args), n_boot=args.n_boot, n_jobs=jobs)
+                progress=_progress_default(args), n_boot=args.n_boot, n_jobs=jobs,
+                date_format=args.date_format)
     if a.n_fitted() == 0:
         reasons = "; ".join(f"{' / '.join(map(str, k[1:]))}: {why}"
                             for k, why in list(a.failures().items())[:10])

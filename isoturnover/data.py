@@ -44,25 +44,27 @@ from __future__ import annotations
 import difflib
 import math
 import re
-import warnings
 from collections.abc import Mapping
 
 import numpy as np
 import pandas as pd
 
 from .conventions import check_choice
-from .errors import DataError, DataWarning
-from .sampletimes import time_column
+from .errors import DataError
+from .sampletimes import check_date_format, time_column
 from .tables import (
     MAX_LISTED,
     Issues,
     Table,
     apply_columns,
     cell_text,
+    extra_columns,
     load_table,
     missing_column,
     number_column,
     text_column,
+    warn_duplicate_rows,
+    warn_partly_blank,
 )
 
 __all__ = [
@@ -158,38 +160,6 @@ def _isotopes(table: Table, issues: Issues) -> pd.Series:
 # ------------------------------------------------------------------------------------------
 # the frames the readers return
 # ------------------------------------------------------------------------------------------
-def _warn_duplicates(out: pd.DataFrame, table: Table, ignore=()) -> None:
-    cols = [c for c in out.columns if c not in ignore]
-    dup = out.duplicated(subset=cols, keep=False).to_numpy()
-    if dup.any():
-        pos = np.flatnonzero(dup)
-        warnings.warn(
-            f"{table.label}: {pos.size} rows are exact duplicates of another row "
-            f"({table.rows_text(pos)}); they are kept, not merged -- check for a double "
-            "entry (analytic replicates are best told apart by a 'replicate' column)",
-            DataWarning, stacklevel=3,
-        )
-
-
-def _extras(table: Table, canonical) -> dict[str, pd.Series]:
-    """Columns that are not canonical, kept; from files, numeric-looking ones become numbers."""
-    out = {}
-    for c in table.frame.columns:
-        if c in canonical:
-            continue
-        col = table.frame[c]
-        if table.from_file:
-            text, blank = cell_text(col, table.clean)
-            conv = text.str.replace(",", ".", regex=False) if table.decimal_comma else text
-            num = pd.to_numeric(conv.where(~blank), errors="coerce")
-            if (num.notna().to_numpy() | blank).all() and not blank.all():
-                col = num.astype(float)
-            else:
-                col = col.where(~blank)
-        out[c] = col
-    return out
-
-
 def _finish(out: pd.DataFrame, table: Table, keep: np.ndarray, attrs: dict) -> pd.DataFrame:
     out.index = table.labels[keep] if not table.from_file else pd.RangeIndex(int(keep.sum()))
     out.attrs = attrs
@@ -298,7 +268,7 @@ def _convert_units(values, sd, codes: pd.Series, ok: np.ndarray, unit: str, base
 # ------------------------------------------------------------------------------------------
 def read_samples(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
                  switch_dates=None, unit="delta", baseline=None, on_bad_rows="raise",
-                 sheet=None) -> pd.DataFrame:
+                 sheet=None, date_format=None) -> pd.DataFrame:
     r"""Read and validate a samples table (one row per measurement).
 
     Parameters
@@ -323,6 +293,14 @@ def read_samples(path_or_frame, *, columns=None, time_unit="d", switch_date=None
         when the table has no ``group`` column); a frame with a ``switch_date`` column and a
         ``group`` and/or ``subject`` column; or the name of a column that holds each row's
         switch date.
+    date_format : str, optional
+        How text dates that are not ISO 8601 are written, as a strptime format: ``"%d/%m/%Y"``
+        (day first), ``"%m/%d/%Y"`` (month first), ``"%d.%m.%y"``... Used for the ``date``
+        cells and the switch dates. Without it only ISO 8601 text (``2024-03-31``, optionally
+        ``2024-03-31T08:30``) and date cells of a workbook are read; a date such as
+        ``03/04/2025`` is refused (a DataError naming the file, row and column), since the
+        day and the month cannot be told apart. A cell that does not match the format is a
+        bad cell.
     unit : {"delta", "atom_percent", "atom_percent_excess"}, default "delta"
         Unit of ``value``: δ in ‰ against the isotope's international standard, atom % or
         atom % excess. Atom values are converted to δ by
@@ -359,13 +337,16 @@ def read_samples(path_or_frame, *, columns=None, time_unit="d", switch_date=None
     ------
     DataError
         Missing or unreadable file, empty table, missing or duplicate columns, bad cells
-        (blank, non-numeric, not finite, unknown isotope code, ``sd`` ≤ 0, unreadable date),
-        bad arguments.
+        (blank, non-numeric, not finite, unknown isotope code, ``sd`` ≤ 0, unreadable date,
+        a number in a date column), day/month dates without ``date_format``, bad arguments.
 
     Warns
     -----
     DataWarning
-        Exact duplicate rows (kept, not merged); rows dropped with ``on_bad_rows="drop"``.
+        Exact duplicate rows (kept: a fit averages them as analytic replicates of one
+        sample); an ``sd`` column blank on some rows but not all (a fit of such a series
+        cannot weight its points: :meth:`TurnoverModel.fit` and :func:`series` refuse it);
+        rows dropped with ``on_bad_rows="drop"``.
 
     Examples
     --------
@@ -383,6 +364,7 @@ def read_samples(path_or_frame, *, columns=None, time_unit="d", switch_date=None
     """
     check_choice("on_bad_rows", on_bad_rows, _ON_BAD_ROWS)
     tu = _time_unit(time_unit)
+    date_format = check_date_format(date_format)
     check_choice("unit", unit, VALUE_UNITS)
     if unit == "atom_percent_excess" and baseline is None:
         raise DataError("unit='atom_percent_excess' needs baseline= (δ in ‰ of the unenriched "
@@ -413,7 +395,7 @@ def read_samples(path_or_frame, *, columns=None, time_unit="d", switch_date=None
     keys = {k: data[k] for k in ("group", "subject") if k in data}
     times, dates, meta = time_column(table, issues, what="samples", time_col="time",
                                      switch_date=switch_date, switch_dates=switch_dates,
-                                     unit=tu, keys=keys)
+                                     unit=tu, keys=keys, date_format=date_format)
     data["time"] = times
     if dates is not None:
         data["date"] = dates.to_numpy()
@@ -455,7 +437,7 @@ def read_samples(path_or_frame, *, columns=None, time_unit="d", switch_date=None
     for name in ("segment_start", "segment_end"):
         if name in data:
             out[name] = data[name][keep]
-    for c, col in _extras(table, SAMPLE_COLUMNS).items():
+    for c, col in extra_columns(table, SAMPLE_COLUMNS).items():
         out[c] = _take(col, keep)
     if original is not None:
         out["value_original"] = original[0][keep]
@@ -463,7 +445,15 @@ def read_samples(path_or_frame, *, columns=None, time_unit="d", switch_date=None
             out["sd_original"] = original[1][keep]
     frame = pd.DataFrame(out)
     kept = table.subset(keep)
-    _warn_duplicates(frame, kept)
+    warn_duplicate_rows(frame, kept, (
+        "they are kept, and a fit averages them as analytic replicates of one sample (with "
+        "an sd, that point then weighs as two measurements)"))
+    if "sd" in frame.columns:
+        warn_partly_blank(frame["sd"].to_numpy(), kept, "sd", (
+            "while other rows have an sd. A fit weights a series only when every point of "
+            "it has an sd: TurnoverModel.fit and series() refuse a series with some sd "
+            "blank, and fit_each fits it without weights (every sd of that series unused). "
+            "Give an sd for every row, or leave it blank for every row of a series"))
     rep_key = ["subject", "tissue", "isotope", "time"] + [
         c for c in ("segment_start", "segment_end") if c in frame.columns]
     frame["is_replicate_group"] = frame.duplicated(subset=rep_key, keep=False).to_numpy()
@@ -482,7 +472,8 @@ def _replicate_ids(col: pd.Series, clean: bool = False) -> np.ndarray:
 
 
 def read_diets(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
-               switch_dates=None, on_bad_rows="raise", sheet=None) -> pd.DataFrame:
+               switch_dates=None, on_bad_rows="raise", sheet=None,
+               date_format=None) -> pd.DataFrame:
     r"""Read and validate a diets table: which diet each group (or subject) ate from when.
 
     Parameters
@@ -502,6 +493,9 @@ def read_diets(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
         unsorted start times are always an error: which row to drop cannot be guessed.
     sheet : str or int, optional
         Excel sheet name or 0-based index.
+    date_format : str, optional
+        How text dates that are not ISO 8601 are written (``"%d/%m/%Y"``); see
+        :func:`read_samples`.
 
     Returns
     -------
@@ -519,6 +513,7 @@ def read_diets(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
     """
     check_choice("on_bad_rows", on_bad_rows, _ON_BAD_ROWS)
     tu = _time_unit(time_unit)
+    date_format = check_date_format(date_format)
     table = load_table(path_or_frame, sheet)
     apply_columns(table, columns, DIET_COLUMNS, "diets")
     cols = table.frame.columns
@@ -536,19 +531,20 @@ def read_diets(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
     starts, dates, meta = time_column(table, issues, what="diets", time_col="start",
                                       date_col="start", switch_date=switch_date,
                                       switch_dates=switch_dates, unit=tu,
-                                      keys={c: data[c] for c in by})
+                                      keys={c: data[c] for c in by},
+                                      date_format=date_format)
     data["start"] = starts
     if dates is not None:
         data["start_date"] = dates.to_numpy()
     data["value"] = number_column(table, issues, "value", required=False)
     keep = issues.resolve(on_bad_rows)
     out = {k: _take(v, keep) for k, v in data.items()}
-    for c, col in _extras(table, DIET_COLUMNS).items():
+    for c, col in extra_columns(table, DIET_COLUMNS).items():
         out[c] = _take(col, keep)
     frame = pd.DataFrame(out)
     kept = table.subset(keep)
     _check_diet_order(frame, kept, by)
-    _warn_duplicates(frame, kept)
+    warn_duplicate_rows(frame, kept, "they are kept")
     attrs = _base_attrs(table, "diets", tu)
     attrs["value_unit"] = "delta"
     attrs.update(meta)
@@ -591,7 +587,8 @@ def _check_diet_order(frame: pd.DataFrame, table: Table, by: list[str]) -> None:
 
 
 def read_masses(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
-                switch_dates=None, on_bad_rows="raise", sheet=None) -> pd.DataFrame:
+                switch_dates=None, on_bad_rows="raise", sheet=None,
+                date_format=None) -> pd.DataFrame:
     """Read and validate a body-mass table: ``subject``, ``time`` (or ``date``), ``mass``.
 
     Parameters
@@ -608,6 +605,9 @@ def read_masses(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
         What to do with bad rows (see :func:`read_samples`).
     sheet : str or int, optional
         Excel sheet name or 0-based index.
+    date_format : str, optional
+        How text dates that are not ISO 8601 are written (``"%d/%m/%Y"``); see
+        :func:`read_samples`.
 
     Returns
     -------
@@ -623,6 +623,7 @@ def read_masses(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
     """
     check_choice("on_bad_rows", on_bad_rows, _ON_BAD_ROWS)
     tu = _time_unit(time_unit)
+    date_format = check_date_format(date_format)
     table = load_table(path_or_frame, sheet)
     apply_columns(table, columns, MASS_COLUMNS, "masses")
     cols = table.frame.columns
@@ -637,17 +638,18 @@ def read_masses(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
     keys = {k: data[k] for k in ("group", "subject") if k in data}
     times, dates, meta = time_column(table, issues, what="masses", time_col="time",
                                      switch_date=switch_date, switch_dates=switch_dates,
-                                     unit=tu, keys=keys)
+                                     unit=tu, keys=keys, date_format=date_format)
     data["time"] = times
     if dates is not None:
         data["date"] = dates.to_numpy()
     data["mass"] = number_column(table, issues, "mass", required=True, positive=True)
     keep = issues.resolve(on_bad_rows)
     out = {k: _take(v, keep) for k, v in data.items()}
-    for c, col in _extras(table, MASS_COLUMNS).items():
+    for c, col in extra_columns(table, MASS_COLUMNS).items():
         out[c] = _take(col, keep)
     frame = pd.DataFrame(out)
-    _warn_duplicates(frame, table.subset(keep))
+    warn_duplicate_rows(frame, table.subset(keep),
+                        "they are kept and count as separate measurements")
     attrs = _base_attrs(table, "masses", tu)
     attrs.update(meta)
     return _finish(frame, table, keep, attrs)
@@ -800,6 +802,14 @@ def _describe_series(frame: pd.DataFrame, limit: int = 20) -> str:
 def series(samples: pd.DataFrame, subject=None, tissue=None, isotope=None, average=True):
     """Arrays ``(t, y, sd)`` of one series (one subject, tissue and isotope), sorted by time.
 
+    A selection of one tissue and isotope that holds several subjects is one series when
+    every subject was sampled at a single time: a destructive design (one animal per
+    sample), as :meth:`TurnoverModel.fit` and :func:`~isoturnover.fit_each` take it. Its
+    arrays hold one point per animal (an animal's analytic replicates averaged), so a time
+    repeats when several animals were sampled at it. Fitting the selected rows as a frame
+    (``model.fit(frame)``) gives the same fit and records the design; fitting these arrays
+    warns about the repeated times, which arrays cannot tell from analytic replicates.
+
     Parameters
     ----------
     samples : pandas.DataFrame
@@ -823,7 +833,9 @@ def series(samples: pd.DataFrame, subject=None, tissue=None, isotope=None, avera
     ------
     DataError
         When the selection is empty or holds several series (the message lists those that
-        exist), or when some but not all points of the series have an sd.
+        exist; several subjects of one tissue and isotope are one series only when each
+        was sampled at a single time), or when some but not all points of the series have an
+        sd.
     """
     _require_columns(samples, (*_SERIES_KEYS, "time", "value"), "series")
     chosen = {"subject": subject, "tissue": tissue, "isotope": isotope}
@@ -844,10 +856,24 @@ def series(samples: pd.DataFrame, subject=None, tissue=None, isotope=None, avera
     n_series = len(sel[list(_SERIES_KEYS)].drop_duplicates())
     if n_series > 1:
         open_keys = [k for k in _SERIES_KEYS if sel[k].nunique(dropna=False) > 1]
-        raise DataError(
-            f"series(): the selection {given} holds {n_series} series; choose one with "
-            f"{', '.join(k + '=' for k in open_keys)}: {_describe_series(sel)}"
-        )
+        why = ""
+        if open_keys == ["subject"]:
+            # several animals of one tissue and isotope: a destructive design when each one
+            # was sampled at a single time (replicates of one animal share their time)
+            per = sel.groupby(sel["subject"].astype(str), sort=True)["time"].nunique()
+            if int(per.max()) == 1:
+                n_series = 1
+            else:
+                many = per[per > 1]
+                shown = ", ".join(f"{k} is sampled at {int(v)} times"
+                                  for k, v in many.iloc[:MAX_LISTED].items())
+                why = (f" (several subjects are one series only in a destructive design, one "
+                       f"sampling time per animal; here {shown})")
+        if n_series > 1:
+            raise DataError(
+                f"series(): the selection {given} holds {n_series} series; choose one with "
+                f"{', '.join(k + '=' for k in open_keys)}: {_describe_series(sel)}{why}"
+            )
     if average:
         sel = average_replicates(sel)
     t = pd.to_numeric(sel["time"], errors="coerce").to_numpy(dtype=float, na_value=np.nan)

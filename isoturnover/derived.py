@@ -54,13 +54,13 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import optimize
 
 from . import quantities
+from .constrained import ConstrainedProblem, QuantityScale
 from .conventions import check_level as _check_level
 from .engine import FitState
 from .errors import DataError
-from .profiles import find_bound
+from .profiles import EvaluationBudget, check_budget, find_bound, numerical_gradient
 
 __all__ = [
     "ProfileInterval",
@@ -146,10 +146,19 @@ def fit_time_to(fit, p):
     -------
     callable
         ``fn(theta) -> float``: :func:`isoturnover.quantities.time_to` with the fit's
-        kinetics (one pool: :math:`-\ln(1-p)/k` + lag), in the fit's time unit.
+        kinetics (one pool: :math:`-\ln(1-p)/k` + lag), in the fit's time unit; NaN for
+        a θ outside the model's domain (an incorporation rate :math:`k_i (+k_g)` that is
+        not positive and finite: the change is then never completed, and the root search
+        would not end), see :func:`~isoturnover.quantities.incorporation_rates_positive`.
     """
     kin = fit.kinetics
-    return lambda th: quantities.time_to(kin, p, th)
+
+    def fn(th):
+        if not quantities.incorporation_rates_positive(kin, th):
+            return math.nan
+        return quantities.time_to(kin, p, th)
+
+    return fn
 
 
 def fit_mrt(fit):
@@ -227,6 +236,13 @@ class ProfileInterval:
     crit : float
         Critical value: :math:`F_{1,n-p}` quantile (σ estimated) or :math:`\\chi^2_1`
         quantile (σ known).
+    evaluations : tuple of int, default=()
+        Evaluations each side spent (lower, upper): evaluations of the quantity and of the
+        model's residuals and Jacobian, each counted once; at most the side's budget
+        (``max_evaluations``).
+    reasons : tuple of str, default=()
+        Why each side (lower, upper) ended ``failed`` (``"budget"``: the evaluation budget
+        was spent; see :class:`~isoturnover.profiles.BoundSearch`); "" otherwise.
     """
 
     quantity: str
@@ -238,6 +254,8 @@ class ProfileInterval:
     level: float
     method: str = "profile"
     crit: float = math.nan
+    evaluations: tuple = ()
+    reasons: tuple = ()
 
     def as_dict(self) -> dict:
         """The interval as one row of an interval table.
@@ -265,281 +283,8 @@ class ProfileInterval:
         return pd.DataFrame([self.as_dict()], columns=INTERVAL_COLUMNS)
 
 
-class _Scale:
-    """Monotone increasing map between a quantity c and the search coordinate u."""
-
-    def __init__(self, lo, hi):
-        self.lo, self.hi = float(lo), float(hi)
-        if math.isfinite(self.lo) and math.isfinite(self.hi):
-            self.kind = "logit"
-        elif math.isfinite(self.lo):
-            self.kind = "log_lo"
-        elif math.isfinite(self.hi):
-            self.kind = "log_hi"
-        else:
-            self.kind = "plain"
-
-    def to_u(self, c):
-        with np.errstate(all="ignore"):
-            if self.kind == "plain":
-                return c
-            if self.kind == "log_lo":
-                return math.log(c - self.lo) if c > self.lo else math.nan
-            if self.kind == "log_hi":
-                return -math.log(self.hi - c) if c < self.hi else math.nan
-            s = (c - self.lo) / (self.hi - self.lo)
-            return math.log(s / (1 - s)) if 0 < s < 1 else math.nan
-
-    def du_dc(self, c):
-        if self.kind == "plain":
-            return 1.0
-        if self.kind == "log_lo":
-            return 1.0 / (c - self.lo)
-        if self.kind == "log_hi":
-            return 1.0 / (self.hi - c)
-        w = self.hi - self.lo
-        s = (c - self.lo) / w
-        return 1.0 / (w * s * (1 - s))
-
-    def from_u(self, u):
-        if self.kind == "plain":
-            return u
-        if self.kind == "log_lo":
-            return self.lo + math.exp(u)
-        if self.kind == "log_hi":
-            return self.hi - math.exp(-u)
-        return self.lo + (self.hi - self.lo) / (1 + math.exp(-u))
-
-
-def _num_grad(fun, z):
-    """Central differences of a scalar function of z (step 1e-6 max(1, |z_i|))."""
-    g = np.empty(z.size)
-    for i in range(z.size):
-        h = 1e-6 * max(1.0, abs(z[i]))
-        zp, zm = z.copy(), z.copy()
-        zp[i] += h
-        zm[i] -= h
-        g[i] = (fun(zp) - fun(zm)) / (2 * h)
-    return g
-
-
-class _ConstrainedProblem:
-    """min ||r(z)||^2 subject to u(g(theta(z))) = u_c, by elimination of coordinate j."""
-
-    def __init__(self, fit, fn, grad, scale, j):
-        self.fit = fit
-        self.kin = fit.kinetics
-        self.coords = fit.state.coords
-        self.fn = fn
-        self.grad = grad
-        self.scale = scale
-        self.j = j
-        p = self.coords.size
-        self.rest = np.array([i for i in range(p) if i != j], dtype=int)
-        # the engine's residuals: weights (with a joint fit's block scale) and any extra
-        # block (body masses, growth-curve prior) exactly as the fit minimised them
-        prob = fit.state.engine.problem
-        self.t = prob.t
-        self.y = prob.y
-        self.w = prob.w
-        self.extra = prob.extra
-        # box for the reduced problem: the coordinate map is flat beyond a log-gap of 4 and
-        # logits beyond ±40 are fractions of 0 or 1 to machine precision
-        lo = np.array(self.coords.lower, dtype=float)
-        hi = np.full(p, np.inf)
-        for c, lab in enumerate(self.coords.labels):
-            if lab.startswith("log_gap"):
-                lo[c], hi[c] = max(lo[c], -30.0), 4.0
-            elif lab.startswith(("logit_", "stick_")):
-                lo[c], hi[c] = max(lo[c], -40.0), 40.0
-        self.lower, self.upper = lo, hi
-
-    # the constraint function h(z) = u(g(theta(z))) - u_c and its gradient in z
-    def _h(self, z, u_c):
-        try:
-            with np.errstate(all="ignore"):
-                v = float(self.fn(self.coords.theta(z)))
-        except (ValueError, ArithmeticError, RuntimeError):
-            return math.nan
-        return self.scale.to_u(v) - u_c if math.isfinite(v) else math.nan
-
-    def _grad_h(self, z):
-        if self.grad is not None:
-            th, A = self.coords.theta(z, jac=True)
-            with np.errstate(all="ignore"):
-                v = float(self.fn(th))
-                gt = np.asarray(self.grad(th), dtype=float)
-                return self.scale.du_dc(v) * (gt @ A)
-        return _num_grad(lambda zz: self._h(zz, 0.0), z)
-
-    def _dh_dzj(self, z):
-        j = self.j
-        if self.grad is not None:
-            return float(self._grad_h(z)[j])
-        hstep = 1e-6 * max(1.0, abs(z[j]))
-        zp, zm = z.copy(), z.copy()
-        zp[j] += hstep
-        zm[j] -= hstep
-        return (self._h(zp, 0.0) - self._h(zm, 0.0)) / (2 * hstep)
-
-    def root(self, z, u_c):
-        """z with z_j moved so that the constraint holds, or None."""
-        j = self.j
-        z = np.array(z, dtype=float)
-        tol = 1e-12 * max(1.0, abs(u_c))
-        hx = self._h(z, u_c)
-        # Newton with step control
-        if math.isfinite(hx):
-            for _ in range(40):
-                if abs(hx) <= tol:
-                    return z
-                d = self._dh_dzj(z)
-                if not (math.isfinite(d) and d != 0):
-                    break
-                step = -hx / d
-                step = max(min(step, 5.0), -5.0)
-                for _ in range(30):
-                    zn = z.copy()
-                    zn[j] += step
-                    if zn[j] < self.lower[j]:
-                        zn[j] = self.lower[j]
-                    hn = self._h(zn, u_c)
-                    if math.isfinite(hn) and abs(hn) < abs(hx):
-                        break
-                    step *= 0.5
-                else:
-                    break
-                z, hx = zn, hn
-            if abs(hx) <= tol:
-                return z
-        # bracket and bisect
-        x0 = z[j]
-        base = self._h(z, u_c)
-
-        def hj(x):
-            zz = z.copy()
-            zz[j] = x
-            return self._h(zz, u_c)
-
-        if not math.isfinite(base):
-            return None
-        for direction in (1.0, -1.0):
-            step = 0.1 * max(1.0, abs(x0))
-            a, ha = x0, base
-            for _ in range(60):
-                b = a + direction * step
-                if b < self.lower[j]:
-                    break
-                hb = hj(b)
-                if not math.isfinite(hb):
-                    break
-                if ha * hb <= 0:
-                    lo_, hi_ = (a, b) if a < b else (b, a)
-                    try:
-                        x = optimize.brentq(hj, lo_, hi_, xtol=1e-15, rtol=4.5e-16,
-                                            maxiter=200)
-                    except (ValueError, RuntimeError):
-                        return None
-                    zz = z.copy()
-                    zz[j] = x
-                    return zz
-                a, ha = b, hb
-                step *= 2.0
-        return None
-
-    def solve(self, c, z_start):
-        """Constrained minimum at quantity value c: (cost, z, ok, reason)."""
-        u_c = self.scale.to_u(c)
-        z0 = self.root(z_start, u_c)
-        if z0 is None:
-            return math.inf, None, False, "unreachable"
-        kin, t, y, w, coords, extra = self.kin, self.t, self.y, self.w, self.coords, self.extra
-        n_res = t.size + (0 if extra is None else extra.size)
-
-        def resid(zf):
-            with np.errstate(all="ignore"):
-                th = coords.theta(zf)
-                r = w * (y - kin.evaluate(t, th))
-                if extra is not None:
-                    r = np.concatenate([r, extra(th)[0]])
-            return r
-
-        if self.rest.size == 0:
-            r = resid(z0)
-            cost = float(r @ r)
-            return cost, z0, math.isfinite(cost), ""
-        cache = {"z": z0.copy()}
-        rest, j = self.rest, self.j
-
-        def full(zr):
-            key = zr.tobytes()
-            if cache.get("key") == key:
-                return cache.get("zfull")
-            guess = cache["z"].copy()
-            guess[rest] = zr
-            zf = self.root(guess, u_c)
-            cache["key"] = key
-            cache["zfull"] = zf
-            if zf is not None:
-                cache["z"] = zf
-            return zf
-
-        def fun(zr):
-            zf = full(zr)
-            if zf is None:
-                return np.full(n_res, np.nan)
-            return resid(zf)
-
-        def jac(zr):
-            zf = full(zr)
-            if zf is None:
-                return np.full((n_res, rest.size), np.nan)
-            with np.errstate(all="ignore"):
-                th, A = coords.theta(zf, jac=True)
-                _, Jm = kin.evaluate(t, th, jacobian=True)
-                Jz = -(w[:, None] * (Jm @ A))
-                if extra is not None:
-                    Jz = np.vstack([Jz, extra(th)[1] @ A])
-                gh = self._grad_h(zf)
-            dzj = -gh[rest] / gh[j]
-            return Jz[:, rest] + Jz[:, [j]] * dzj[None, :]
-
-        lo, hi = self.lower[rest], self.upper[rest]
-        zr0 = np.clip(z0[rest], lo, hi)
-        hard = bool(np.any(np.isfinite(self.coords.lower[rest])))  # a real bound (lag >= 0)
-        for _ in range(2):  # a second, polishing run when the budget ran out
-            try:
-                with np.errstate(all="ignore"):
-                    if hard or n_res < rest.size:
-                        res = optimize.least_squares(
-                            fun, zr0, jac=jac, method="trf", bounds=(lo, hi), xtol=1e-12,
-                            ftol=1e-12, gtol=1e-12, x_scale="jac",
-                            max_nfev=100 * (rest.size + 1))
-                        x, status = res.x, res.status
-                    else:
-                        # no real bound: MINPACK's Levenberg–Marquardt (the caps on log-gaps
-                        # and logits are where the coordinate map is flat anyway)
-                        x, _, _, _, ier = optimize.leastsq(
-                            fun, zr0, Dfun=jac, full_output=True, xtol=1e-12, ftol=1e-12,
-                            gtol=1e-12, maxfev=100 * (rest.size + 1))
-                        x = np.clip(x, lo, hi)
-                        status = ier if ier in (1, 2, 3, 4) else (0 if ier == 5 else -1)
-            except (ValueError, np.linalg.LinAlgError, FloatingPointError):
-                return math.inf, None, False, "solver"
-            if status != 0:
-                break
-            zr0 = x
-        zf = full(x)
-        if zf is None:
-            return math.inf, None, False, "unreachable"
-        r = fun(x)
-        cost = float(r @ r)
-        ok = bool(status > 0) and math.isfinite(cost)
-        return cost, zf, ok, "" if ok else "solver"
-
-
 def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, natural=None,
-                    limits=None) -> ProfileInterval:
+                    limits=None, max_evaluations=None) -> ProfileInterval:
     r"""Profile-likelihood interval of a derived quantity :math:`q = g(\theta)`.
 
     For trial values c the weighted RSS is minimised subject to :math:`g(\theta(z)) = c`
@@ -584,14 +329,33 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
         estimate on the log scale; for unbounded quantities ±max(200 se, 100 max(|q|, 1))).
         Reaching a limit without crossing gives an ``open`` bound, reported as the natural
         end — never as the limit.
+    max_evaluations : int, optional
+        Evaluation budget of each side: evaluations of ``fn`` and of the model's residuals
+        and Jacobian, each counted once, over every constrained refit and root search of
+        that side; default :data:`isoturnover.profiles.MAX_EVALUATIONS`. A side that spends
+        it ends ``failed`` (NaN) with the reason ``"budget"``.
 
     Returns
     -------
     ProfileInterval
-        Estimate, bounds (in the quantity's units) and each bound's status.
+        Estimate, bounds (in the quantity's units), each bound's status, the evaluations
+        each side spent and why a side failed.
+
+    Raises
+    ------
+    DataError
+        For a bad ``fit``, ``fn``, ``level``, ``natural``, ``limits`` or
+        ``max_evaluations``, or an estimate outside the natural range.
+
+    Notes
+    -----
+    Trial parameter vectors whose incorporation rates (:math:`k_i`, plus :math:`k_g` with
+    exponential growth) are not all positive lie outside the model's domain and are not
+    used (when the estimate lies inside it).
     """
     check_fit(fit, "profile_derived", joint=True)
     level = _check_level(level)
+    limit_evals = check_budget(max_evaluations)
     if not callable(fn):
         raise DataError(f"'fn' must be a function of the parameter vector; got "
                         f"{type(fn).__name__}")
@@ -614,11 +378,12 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
     if not lo_nat < est < hi_nat:
         raise DataError(f"'fn': the quantity's estimate {est!r} is outside its natural range "
                         f"({lo_nat:g}, {hi_nat:g}); pass positive=False or natural=(lo, hi)")
-    scale = _Scale(lo_nat, hi_nat)
+    scale = QuantityScale(lo_nat, hi_nat)
     crit = fit.state.critical_value(level)
 
-    def result(lo, hi, ls, hs):
-        return ProfileInterval(name, est, lo, hi, ls, hs, level, "profile", crit)
+    def result(lo, hi, ls, hs, evaluations=(0, 0), reasons=("", "")):
+        return ProfileInterval(name, est, lo, hi, ls, hs, level, "profile", crit,
+                               tuple(evaluations), tuple(reasons))
 
     coords = fit.state.coords
     p = coords.size
@@ -640,7 +405,7 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
         th, A = coords.theta(z_hat, jac=True)
         gz = scale.du_dc(est) * (np.asarray(grad(th), dtype=float) @ A)
     else:
-        gz = _num_grad(h0, z_hat)
+        gz = numerical_gradient(h0, z_hat)
     if not np.all(np.isfinite(gz)):
         return result(math.nan, math.nan, "failed", "failed")
     if np.max(np.abs(gz)) == 0:
@@ -653,7 +418,7 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
     # the quantity one way only)
     sens[np.abs(z_hat) > 300] *= 1e-12
     j = int(np.argmax(sens))
-    prob = _ConstrainedProblem(fit, fn, grad, scale, j)
+    prob = ConstrainedProblem(fit, fn, grad, scale, j)
 
     u_hat = scale.to_u(est)
     se_u = math.sqrt(float(gz @ cov @ gz)) if fit.state.cov_ok else math.nan
@@ -697,12 +462,14 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
         return (cost - rss0) / s2, z, ok, reason
 
     engine_problem = fit.state.engine.problem
-    bounds = []
+    bounds, spent, why = [], [], []
     for direction in (-1, 1):
         limit = ul[0] if direction < 0 else ul[1]
         warm = {"u": u_hat, "z": z_hat, "dz": dz_du0}
+        budget = EvaluationBudget(limit_evals)
+        prob.budget = budget
 
-        def evaluate(u, warm=warm):
+        def evaluate(u, warm=warm, budget=budget):
             d, z, ok, reason = D(u, warm["z"], warm["dz"], warm["u"])
             if not ok or not math.isfinite(d):
                 return math.nan, math.nan, False, reason
@@ -715,9 +482,10 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
             # envelope theorem: d rss/du is the constraint's multiplier, the component of
             # the rss gradient 2 J^T r along the constraint's gradient
             slope = math.nan
+            budget.spend()
             with np.errstate(all="ignore"):
                 r, J = engine_problem.evaluate(coords, z)
-                gh = prob._grad_h(z)
+                gh = prob.grad_h(z)
             gg = float(gh @ gh)
             if gg > 0 and np.all(np.isfinite(gh)):
                 slope = 2.0 * float((J.T @ r) @ gh) / gg / s2
@@ -726,16 +494,20 @@ def profile_derived(fit, fn, level=0.95, *, name="", positive=True, grad=None, n
         step = math.sqrt(crit) * se_u
         if scale.kind != "plain":
             step = min(step, 1.0)  # at most a factor e (or one logit unit) at first
-        res = find_bound(evaluate, u_hat, direction, step, limit, crit, max_refits=80)
+        res = find_bound(evaluate, u_hat, direction, step, limit, crit, max_refits=80,
+                         budget=budget)
         status = res.status
         bound = scale.from_u(res.u) if status in ("ok", "at_bound") else math.nan
         if status == "open":
             bound = lo_nat if direction < 0 else hi_nat
         bounds.append((bound, status))
-    return result(bounds[0][0], bounds[1][0], bounds[0][1], bounds[1][1])
+        spent.append(budget.used)
+        why.append(res.reason if status == "failed" else "")
+    prob.budget = None
+    return result(bounds[0][0], bounds[1][0], bounds[0][1], bounds[1][1], spent, why)
 
 
-def time_to_profile(fit, fraction=0.95, level=0.95) -> ProfileInterval:
+def time_to_profile(fit, fraction=0.95, level=0.95, *, max_evaluations=None) -> ProfileInterval:
     r"""Profile interval of the time to a ``fraction`` p of a step change.
 
     One pool: :math:`\tau_p = -\ln(1-p)/k` (+ lag); several pools and the chain: the root of
@@ -750,6 +522,8 @@ def time_to_profile(fit, fraction=0.95, level=0.95) -> ProfileInterval:
         Fraction p of the change, in (0, 1) (0.95 = 95 %).
     level : float, default=0.95
         Confidence level.
+    max_evaluations : int, optional
+        Evaluation budget of each side (see :func:`profile_derived`).
 
     Returns
     -------
@@ -776,10 +550,10 @@ def time_to_profile(fit, fraction=0.95, level=0.95) -> ProfileInterval:
     return profile_derived(fit, ttp, level,
                            name=f"time_to_{round(100 * p):d}" if abs(100 * p - round(100 * p))
                            < 1e-9 else f"time_to_{p:g}", positive=True, grad=grad,
-                           limits=limits)
+                           limits=limits, max_evaluations=max_evaluations)
 
 
-def mean_residence_time_profile(fit, level=0.95) -> ProfileInterval:
+def mean_residence_time_profile(fit, level=0.95, *, max_evaluations=None) -> ProfileInterval:
     r"""Profile interval of the mean residence time :math:`\sum_i f_i/k_i` (+ lag).
 
     The quantity is :func:`isoturnover.quantities.mean_residence_time` (parallel pools:
@@ -793,6 +567,8 @@ def mean_residence_time_profile(fit, level=0.95) -> ProfileInterval:
         A least-squares fit (``loss="linear"``).
     level : float, default=0.95
         Confidence level.
+    max_evaluations : int, optional
+        Evaluation budget of each side (see :func:`profile_derived`).
 
     Returns
     -------
@@ -808,10 +584,12 @@ def mean_residence_time_profile(fit, level=0.95) -> ProfileInterval:
     return profile_derived(fit, mrt, level, name="mean_residence_time", positive=True,
                            grad=((lambda th: quantities.mean_residence_time_grad(kin, th))
                                  if closed_form else None),
-                           limits=(min(est, first) * 1e-4, max(est, span) * 1e4))
+                           limits=(min(est, first) * 1e-4, max(est, span) * 1e4),
+                           max_evaluations=max_evaluations)
 
 
-def half_life_ratio_profile(fit, i, j, level=0.95) -> ProfileInterval:
+def half_life_ratio_profile(fit, i, j, level=0.95, *,
+                            max_evaluations=None) -> ProfileInterval:
     r"""Profile interval of the ratio of two half-lives :math:`t_{1/2,i}/t_{1/2,j} = k_j/k_i`.
 
     Pools (or chain steps) are numbered from 1, fastest first, so for ``i > j`` the ratio
@@ -826,6 +604,8 @@ def half_life_ratio_profile(fit, i, j, level=0.95) -> ProfileInterval:
         Pool numbers, from 1 (fastest) to the number of pools; different.
     level : float, default=0.95
         Confidence level.
+    max_evaluations : int, optional
+        Evaluation budget of each side (see :func:`profile_derived`).
 
     Returns
     -------
@@ -855,6 +635,6 @@ def half_life_ratio_profile(fit, i, j, level=0.95) -> ProfileInterval:
 
     natural = (1.0, math.inf) if i > j else (0.0, 1.0)  # rates ordered by construction
     return profile_derived(fit, fn, level, name=f"half_life_ratio_{i}_{j}", grad=grad,
-                           natural=natural)
+                           natural=natural, max_evaluations=max_evaluations)
 
 

@@ -2,10 +2,12 @@
 
 :func:`trust_notes` reads a finished fit (its public attributes and its
 :class:`~isoturnover.engine.FitState`) and returns :class:`TrustNote` objects: parameter at a
-bound, pools too close to separate, tiny pool, |correlation| near 1, too few points after the
-switch, plateau not reached, optimizer not converged, χ²/dof far above 1 with known σ, and
-the growth-dilution signals. Each becomes a warning of the fit and a numbered note of its
-summary.
+bound, a rate too fast for the sampling to resolve, pools too close to separate, tiny pool,
+|correlation| near 1, no or too few samples after the switch, plateau not reached (judged by
+the incorporation rates when growth is modelled), optimizer not converged, a χ² test against
+known σ, and the growth-dilution signals. Each becomes a warning of the fit and a numbered
+note of its summary. :func:`after_switch_reason` and :func:`open_unresolved` are the checks
+that series tables and interval tables share with these notes.
 """
 
 from __future__ import annotations
@@ -14,6 +16,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import optimize, stats
 
 from . import quantities
 from .conventions import unit_word
@@ -25,9 +28,18 @@ from .errors import (
     IdentifiabilityWarning,
 )
 
-__all__ = ["TrustNote", "trust_notes", "slowest_rate"]
+__all__ = ["TrustNote", "trust_notes", "slowest_rate", "plateau_time", "unresolved_rates",
+           "open_unresolved", "after_switch_reason", "FAST_LIMIT", "CHI2_ALPHA"]
 
 LN2 = math.log(2.0)
+
+#: :math:`k\,t_{first}` above which a pool is complete before the first sample after the
+#: switch (:math:`e^{-20} \approx 2\times10^{-9}` of its change left): its rate is not
+#: resolved by the sampling (rule of thumb, not a published cut-off).
+FAST_LIMIT = 20.0
+
+#: Level of the χ² test of the scatter against σ treated as known (``chi2_high``).
+CHI2_ALPHA = 1e-3
 
 
 @dataclass(frozen=True)
@@ -37,9 +49,10 @@ class TrustNote:
     Parameters
     ----------
     code : str
-        Short name of the signal (``"at_bound"``, ``"pools_close"``, ``"tiny_pool"``,
-        ``"correlation"``, ``"few_points"``, ``"plateau_not_reached"``, ``"not_converged"``,
-        ``"singular"``, ``"growth_dominates"``, ``"mass_coverage"``, ``"chi2_high"``).
+        Short name of the signal (``"at_bound"``, ``"unidentifiable"``, ``"pools_close"``,
+        ``"tiny_pool"``, ``"correlation"``, ``"no_sample_after_switch"``, ``"few_points"``,
+        ``"plateau_not_reached"``, ``"not_converged"``, ``"singular"``,
+        ``"growth_dominates"``, ``"mass_coverage"``, ``"chi2_high"``).
     category : type
         The warning class it is issued as (a subclass of
         :class:`~isoturnover.errors.IsoturnoverWarning`).
@@ -67,14 +80,19 @@ def trust_notes(fit) -> list:
 
     The fit's warnings and the numbered notes of its summary. Reads only the fit's public
     attributes and its state. The thresholds are rules of thumb (the design card's list,
-    not published cut-offs): a rate with :math:`k t_{first} > 20` (complete before the
-    first sample) or :math:`k \\cdot span < 0.01` (barely moving), rates within a factor
-    1.5, a fraction below 0.02, |correlation| above 0.99, fewer than ``nvarys + 2`` samples
-    after the switch, a last sample before two half-lives of the slowest pool, a growth
-    share above 0.9 (the share of the isotopic change up to the last sample carried by the
-    growth flux, :func:`isoturnover.quantities.growth_share_at`; :math:`k_g/(k_g + k_d)`
-    for one pool with exponential growth; common practice), masses covering less than the
-    samples' span minus 10 % at either end, and χ²/dof above 4 with σ known.
+    not published cut-offs): a rate with :math:`k t_{first} >` :data:`FAST_LIMIT` (the pool
+    complete before the first sample: the rate is unidentifiable, only a lower limit; see
+    :func:`unresolved_rates`) or :math:`k \\cdot span < 0.01` (barely moving), rates within a
+    factor 1.5, a fraction below 0.02, |correlation| above 0.99, no sample after the switch
+    (:func:`after_switch_reason`) or fewer than ``nvarys + 2``, a last sample before two
+    half-lives of the slowest pool (:func:`plateau_time`: judged by the incorporation rates
+    :math:`k_{d,i} + k_g(t)` when growth is modelled), a growth share above 0.9 (the share
+    of the isotopic change up to the last sample carried by the growth flux,
+    :func:`isoturnover.quantities.growth_share_at`; :math:`k_g/(k_g + k_d)` for one pool
+    with exponential growth; common practice), masses covering less than the samples' span
+    minus 10 % at either end, and, with σ known, the χ² test of the weighted residual sum
+    of squares on the fit's degrees of freedom, :math:`P(\\chi^2_{dof} \\ge RSS) <`
+    :data:`CHI2_ALPHA` (``scipy.stats.chi2.sf``).
 
     Parameters
     ----------
@@ -139,15 +157,19 @@ def trust_notes(fit) -> list:
                     f"{nm} = {v[nm]:.6g} is at its {side} bound ({b:g}, set in params): "
                     "the data would put it beyond; its interval stops at the bound"))
     first = float(pos[0]) if pos.size else math.nan
+    unit = unit_word(fit.time_unit)
+    fast = unresolved_rates(fit)
     for nm in kin.rate_names:
         if nm in fit.fixed:
             continue
         k = v[nm]
-        if pos.size and k * first > 20:
+        if nm in fast:
             notes.append(TrustNote(
-                "at_bound", BoundWarning,
-                f"{nm} = {k:.4g} per {fit.time_unit}: the pool is complete before the first "
-                f"sample after the switch (t = {first:g}); its rate is only a lower limit"))
+                "unidentifiable", IdentifiabilityWarning,
+                f"{nm} = {k:.4g} per {unit[:-1]} is not identifiable: the pool is complete "
+                f"before the first sample after the switch (t = {first:g} {unit}, "
+                f"{nm}·t = {fast[nm]:.3g} > {FAST_LIMIT:g}); the data give only a lower "
+                "limit, so its interval is open above (its half-life's open below)"))
         if span > 0 and k * span < 0.01:
             notes.append(TrustNote(
                 "at_bound", BoundWarning,
@@ -192,19 +214,28 @@ def trust_notes(fit) -> list:
                 f"{worst[0]} and {worst[1]} are correlated at {worst[2]:+.3f}: the data "
                 "hardly separate them"))
     n_after = int(np.sum(tau > 0))
-    if n_after < fit.nvarys + 2:
+    none_after = after_switch_reason(fit.t, float(kin.switch_times[0]), fit.time_unit)
+    if none_after is not None:
+        notes.append(TrustNote("no_sample_after_switch", DesignWarning, none_after))
+    elif n_after < fit.nvarys + 2:
         notes.append(TrustNote(
             "few_points", DesignWarning,
             f"only {n_after} sample(s) after the switch for {fit.nvarys} free parameters "
             f"(at least {fit.nvarys + 2} advised)"))
     if span > 0:
-        slow = slowest_rate(fit)
-        if slow > 0 and span < 2 * LN2 / slow:
+        t_two = plateau_time(fit)
+        if span < t_two:  # NaN (no rate to judge by) never fires
+            growing = kin.growth_kind is not None
+            judged = ""
+            if growing:
+                kg = "k_g(t)" if kin.growth_kind in ("curve", "curve_params") else "k_g"
+                judged = f", judged by its incorporation rate k_d + {kg},"
+            when = (f"({t_two:.4g} {unit})" if math.isfinite(t_two) else
+                    "(never, under the fitted rates and growth curve)")
             notes.append(TrustNote(
                 "plateau_not_reached", DesignWarning,
-                f"the last sample ({span:.4g} {unit_word(fit.time_unit)} after the first "
-                f"switch) comes before two half-lives of the slowest pool "
-                f"({2 * LN2 / slow:.4g} {unit_word(fit.time_unit)}): the new plateau is "
+                f"the last sample ({span:.4g} {unit} after the first switch) comes before "
+                f"two half-lives of the slowest pool{judged} {when}: the new plateau is "
                 "extrapolated and the slow half-life is poorly bounded"))
     if kin.growth_kind is not None and span > 0:
         t_end = float(fit.t.max())
@@ -236,21 +267,27 @@ def trust_notes(fit) -> list:
                     "mass_coverage", DesignWarning,
                     f"body masses cover t = {cov[0]:g} to {cov[1]:g} but the isotope "
                     f"samples run from {t_lo:g} to {t_hi:g}: growth is extrapolated"))
-    if fit.absolute_sigma and fit.dof > 0 and fit.redchi > 4:
-        notes.append(TrustNote(
-            "chi2_high", GoodnessOfFitWarning,
-            f"χ²/dof = {fit.redchi:.3g} with σ treated as known: the scatter between time "
-            "points is far above the analytic sd (usual for living animals); the "
-            "intervals are too narrow — refit with absolute_sigma=False"))
+    if fit.absolute_sigma and fit.dof > 0:
+        # χ² test of the weighted RSS on the fit's degrees of freedom (scipy)
+        p_chi2 = float(stats.chi2.sf(fit.rss, fit.dof))
+        if p_chi2 < CHI2_ALPHA:
+            notes.append(TrustNote(
+                "chi2_high", GoodnessOfFitWarning,
+                f"χ² = {fit.rss:.4g} on {fit.dof} degrees of freedom (χ²/dof = "
+                f"{fit.redchi:.3g}, p = {p_chi2:.2g} < {CHI2_ALPHA:g}) with σ treated as "
+                "known: the scatter between time points is far above the analytic sd "
+                "(usual for living animals); the intervals are too narrow — refit with "
+                "absolute_sigma=False"))
     return notes
 
 
 def slowest_rate(fit) -> float:
     """Give the rate that sets how long the tissue takes to settle after a switch.
 
-    The smallest pool rate (incorporation rates :math:`k_i + k_g` with exponential growth);
-    for the chain :math:`1/(1/k_1 + 1/k_2)`, since it needs about as long as its two
-    half-lives together.
+    The smallest pool rate (incorporation rates :math:`k_i + k_g` with exponential growth;
+    with a growth curve the catabolic rate alone, as :math:`k_g(t)` varies: judge plateaus
+    by :func:`plateau_time`, which includes it); for the chain :math:`1/(1/k_1 + 1/k_2)`,
+    since it needs about as long as its two half-lives together (0 when a step has rate 0).
 
     Parameters
     ----------
@@ -267,7 +304,155 @@ def slowest_rate(fit) -> float:
     ks = [v[nm] for nm in kin.rate_names]
     if kin.structure == "chain":
         # the chain needs about as long as its two half-lives together
-        return 1.0 / (1.0 / ks[0] + 1.0 / ks[1])
+        return 1.0 / (1.0 / ks[0] + 1.0 / ks[1]) if min(ks) > 0 else 0.0
     if kin.growth_rate_index is not None:
         ks = [k + v["k_growth"] for k in ks]
     return float(min(ks))
+
+
+def plateau_time(fit) -> float:
+    r"""Time after the first switch for the slowest pool to be two half-lives along.
+
+    The slowest pool is the one of smallest incorporation rate
+    :math:`\kappa_i = k_{d,i} + k_g` (exponential growth) or :math:`k_i` (no growth model:
+    the rates are incorporation rates already). Two half-lives leave a quarter of its
+    change to come, :math:`2\ln 2/\kappa_i` (by hand). With a growth curve the pool's old
+    material left is :math:`e^{-k_i\tau}\,W(s)/W(s+\tau)` (growth dilution, Hesslein et
+    al. 1993), so the time is the root of that being 1/4, found by
+    :func:`isoturnover.quantities.time_to` with the pool's fraction set to 1 (Brent's
+    method). The chain uses :func:`slowest_rate`, :math:`2\ln 2\,(1/k_1 + 1/k_2)`.
+
+    Parameters
+    ----------
+    fit : TurnoverFit
+        A finished fit.
+
+    Returns
+    -------
+    float
+        The time, in the fit's time unit (days by default); ``inf`` when the slowest pool
+        never gets that far under the fitted rates and growth curve (a rate at 0 and growth
+        that stops); NaN when there is no positive rate to judge by (no growth curve).
+    """
+    kin = fit.kinetics
+    if kin.structure == "chain":
+        slow = slowest_rate(fit)
+        return 2 * LN2 / slow if slow > 0 else math.nan
+    theta = np.array(fit.state.theta, dtype=float)
+    ks = theta[list(kin.rate_index)]
+    if kin.growth_rate_index is not None:
+        ks = ks + theta[kin.growth_rate_index]
+    i = int(np.argmin(ks))
+    k = float(ks[i])
+    if kin.growth_kind not in ("curve", "curve_params"):
+        return 2 * LN2 / k if k > 0 else math.nan
+    th = theta.copy()
+    if kin.fraction_index:
+        th[list(kin.fraction_index)] = 0.0
+        th[kin.fraction_index[i]] = 1.0
+
+    def left(tau):  # the pool's share of its change still to come, growth included
+        return float(quantities.remaining_after_switch(kin, np.array([tau]), th)[0]) - 0.25
+
+    t = fit.t - float(kin.switch_times[0])
+    scale = max(float(t.max()), 1.0)
+    horizon = 1e6 * scale
+    if k > 0:
+        horizon = min(horizon, max(50.0 / k, scale))
+    try:
+        if not left(horizon) < 0:
+            return math.inf
+        if k > 0:
+            lag = float(th[kin.lag_index]) if kin.lag_index is not None else 0.0
+            return float(quantities.time_to(kin, 0.75, th)) - lag
+        return float(optimize.brentq(left, 0.0, horizon, xtol=1e-12, rtol=1e-12))
+    except (ArithmeticError, ValueError):
+        return math.nan
+
+
+def unresolved_rates(fit) -> dict:
+    r"""Rates too fast for the sampling to resolve: each pool complete before the first sample.
+
+    A free rate with :math:`k\,t_{first} >` :data:`FAST_LIMIT` (:math:`t_{first}` the first
+    sample after the first switch) leaves :math:`e^{-k t_{first}} < 2\times10^{-9}` of its
+    pool's change for the data to see: any larger rate fits as well, so the rate is not
+    identifiable and the data give only a lower limit. Rates fixed by the user are not
+    listed.
+
+    Parameters
+    ----------
+    fit : TurnoverFit
+        A finished fit.
+
+    Returns
+    -------
+    dict of str to float
+        Rate name → :math:`k\,t_{first}` (dimensionless), in the order of the rates; empty
+        when every rate is resolved or no sample follows the switch.
+    """
+    kin = fit.kinetics
+    tau = np.asarray(fit.t, dtype=float) - float(kin.switch_times[0])
+    pos = tau[tau > 0]
+    if not pos.size:
+        return {}
+    first = float(pos.min())
+    v = fit.values
+    return {nm: float(v[nm]) * first for nm in kin.rate_names
+            if nm not in fit.fixed and float(v[nm]) * first > FAST_LIMIT}
+
+
+def open_unresolved(fit, name, bounds) -> tuple:
+    """Interval bounds of a parameter with the upper bound of an unresolved rate opened.
+
+    A rate of :func:`unresolved_rates` is only a lower limit: whatever finite upper bound a
+    profile or a covariance gives for it is an artefact of where the search stopped, so the
+    upper bound becomes ``inf`` with status ``"open"``; the lower bound is kept. Any other
+    parameter's bounds are returned unchanged.
+
+    Parameters
+    ----------
+    fit : TurnoverFit
+        A finished fit.
+    name : str
+        The parameter (``"k1"``, …).
+    bounds : tuple
+        ``(lower, upper, lower_status, upper_status)`` as the interval code gives them.
+
+    Returns
+    -------
+    tuple
+        ``(lower, upper, lower_status, upper_status)``.
+    """
+    lo, hi, ls, hs = bounds
+    if name in unresolved_rates(fit):
+        return lo, math.inf, ls, "open"
+    return lo, hi, ls, hs
+
+
+def after_switch_reason(t, switch: float, time_unit: str = "d"):
+    """Why a series cannot show a switch's effect, when no sample follows the switch.
+
+    Parameters
+    ----------
+    t : array-like
+        Sampling times, in ``time_unit`` from the experiment's origin.
+    switch : float
+        Time of the (first) diet switch, same unit.
+    time_unit : str, default="d"
+        Code of the time unit (for the message).
+
+    Returns
+    -------
+    str or None
+        The reason (every sample at or before the switch: the change cannot be seen, so
+        the new plateau and the rates are not determined); None when at least one sample
+        follows the switch.
+    """
+    t = np.asarray(t, dtype=float).ravel()
+    if t.size and np.any(t > switch):
+        return None
+    unit = unit_word(time_unit)
+    last = f" (the last at t = {float(t.max()):g} {unit})" if t.size else ""
+    return (f"no sample follows the switch at t = {switch:g} {unit}: all {t.size} "
+            f"sample(s) are at or before it{last}, so the data cannot show the change; "
+            "the new plateau and the rates are not determined")

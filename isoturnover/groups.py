@@ -26,6 +26,7 @@ import pandas as pd
 from scipy import stats
 
 from .conventions import check_choice, check_level, check_method, check_n_jobs
+from .diagnostics import after_switch_reason
 from .diet import DietHistory
 from .engine import Coordinates, check_names
 from .errors import DataError, DataWarning, IsoturnoverError, IsoturnoverWarning
@@ -41,7 +42,11 @@ except ImportError:  # pragma: no cover - depends on the environment
 __all__ = ["fit_each", "FitSet", "SeriesResult", "STATUS", "SERIES_ERRORS",
            "parallel_workers"]
 
-STATUS = ("ok", "failed", "too_few_points", "no_change", "no_diet")
+#: Status of a series (:attr:`SeriesResult.status`) and of a row of :meth:`FitSet.table`:
+#: ``"not_eligible"`` marks a fitted candidate whose criterion is undefined (AICc with
+#: n − k − 1 ≤ 0), which takes no part in the choice; a series none of whose candidates is
+#: eligible is ``"too_few_points"`` (or ``"failed"``), with the reasons.
+STATUS = ("ok", "failed", "too_few_points", "no_change", "no_diet", "not_eligible")
 _KEYS = ("subject", "tissue", "isotope")
 #: Exceptions that make one series (or one candidate model of it) a failed row with its
 #: reason: the library's own errors and numerical breakdowns. Anything else propagates.
@@ -92,9 +97,11 @@ class SeriesResult:
         Every candidate model by its label (``"1 pool"``, ``"2 pools"``, ``"chain"``);
         None for a candidate that could not be fitted.
     reasons : dict label -> str
-        Why a candidate has no fit ("" when it has one).
+        Why a candidate has no fit, or why its fit is not eligible for the choice (its
+        criterion undefined, :func:`~isoturnover.selection.not_eligible_reason`); "" for
+        an eligible fit.
     status : str
-        ``"ok"`` when at least one candidate fitted, else the reason's code (one of
+        ``"ok"`` when a candidate was chosen, else the reason's code (one of
         :data:`STATUS`).
     reason : str
         Why the series was not fitted ("" when it was).
@@ -229,6 +236,11 @@ class FitSet(Mapping):
         ------
         DataError
             For a bad ``level`` or ``method``.
+
+        Notes
+        -----
+        A fitted candidate whose criterion is undefined (AICc with n − k − 1 ≤ 0) keeps its
+        estimates with status ``"not_eligible"`` and the reason; it is never chosen.
         """
         level = self.level if level is None else level
         method = self.method if method is None else method
@@ -246,10 +258,12 @@ class FitSet(Mapping):
                     rows.append(row)
                     continue
                 crow = cmp[cmp["label"] == label].iloc[0]
+                why = r.reasons.get(label, "")
                 row.update({
                     "structure": f.kinetics.structure,
                     "pools": len(f.kinetics.rate_names),
-                    "status": "ok", "reason": "", "nobs": f.nobs,
+                    "status": "not_eligible" if why and label != r.chosen else "ok",
+                    "reason": why, "nobs": f.nobs,
                     "n_params": int(crow["n_params"]), "rss": f.rss, "aicc": f.aicc,
                     "delta_aicc": float(crow["delta_aicc"]), "weight": float(crow["weight"]),
                     "chosen": label == r.chosen, "converged": f.converged,
@@ -365,6 +379,54 @@ def _interval_columns(f, vals, level_names, level, method) -> dict:
     return row
 
 
+def _names(what, value, example):
+    """A non-empty tuple of distinct strings from a string or a sequence of strings."""
+    if isinstance(value, str):
+        return (value,)
+    if isinstance(value, Mapping) or not isinstance(value, (list, tuple, np.ndarray, range)):
+        raise DataError(f"'{what}' must be a string or a sequence of strings ({example}); got "
+                        f"{value!r} ({type(value).__name__})")
+    out = tuple(value)
+    if not out:
+        raise DataError(f"'{what}' is empty: give at least one ({example})")
+    bad = [v for v in out if not isinstance(v, str)]
+    if bad:
+        raise DataError(f"'{what}' entries must be strings ({example}); got {bad[0]!r} "
+                        f"({type(bad[0]).__name__})")
+    dup = sorted({v for v in out if out.count(v) > 1})
+    if dup:
+        raise DataError(f"'{what}' names {', '.join(map(repr, dup))} more than once; got "
+                        f"{value!r}")
+    return out
+
+
+def _check_pools(pools, structures):
+    """``pools`` as a tuple of distinct pool numbers (empty only without parallel models).
+
+    A bare integer is one candidate; a string, a float, None or a mapping is refused with
+    a DataError naming what is expected (not the TypeError of iterating it)."""
+    example = f"integers from 1 to {MAX_POOLS}, e.g. pools=2 or pools=(1, 2)"
+    if isinstance(pools, (int, np.integer)) and not isinstance(pools, bool):
+        pools = (pools,)
+    elif isinstance(pools, Mapping) or not isinstance(pools, (list, tuple, np.ndarray, range)):
+        raise DataError(f"'pools' must be a number of pools or a sequence of them ({example}); "
+                        f"got {pools!r} ({type(pools).__name__})")
+    pools = tuple(pools)
+    for p in pools:
+        if isinstance(p, bool) or not isinstance(p, (int, np.integer)) \
+                or not 1 <= p <= MAX_POOLS:
+            raise DataError(f"'pools' entries must be integers from 1 to {MAX_POOLS}; got "
+                            f"{p!r} ({type(p).__name__}); e.g. pools=2 or pools=(1, 2)")
+    dup = sorted({int(p) for p in pools if pools.count(p) > 1})
+    if dup:
+        raise DataError(f"'pools' names {', '.join(map(str, dup))} more than once; got "
+                        f"{pools!r}")
+    if not pools and "parallel" in structures:
+        raise DataError(f"'pools' is empty, so no parallel model would be fitted: give "
+                        f"{example} (or structures=('chain',) alone)")
+    return tuple(int(p) for p in pools)
+
+
 def _candidates(pools, structures):
     out = []
     for s in structures:
@@ -416,8 +478,10 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
         Columns that define a series. Use ``("tissue", "isotope")`` for destructive
         sampling (one sample per animal): the animals of a tissue and isotope form one
         series.
-    pools : sequence of int, default=(1, 2)
-        Numbers of parallel pools to try.
+    pools : int or sequence of int, default=(1, 2)
+        Numbers of parallel pools to try (distinct, each from 1 to
+        :data:`~isoturnover.kinetics.MAX_POOLS`); empty only when ``structures`` holds no
+        ``"parallel"``.
     structures : sequence of {"parallel", "chain"}, default=("parallel",)
         Model structures to try: parallel pools (``pools``) and/or the two-step
         precursor–product chain.
@@ -472,7 +536,8 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     DataError
         For a bad table or option (``by``, ``pools``, ``structures``, ``criterion``,
         ``loss``, ``level``, ``method``, ``fixed``, ``n_jobs``, model options), before any
-        series is fitted.
+        series is fitted: an empty, repeated or wrong-typed ``pools``, ``by`` or
+        ``structures`` too.
 
     Notes
     -----
@@ -480,6 +545,14 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     becomes a row with status ``"failed"`` (or a more specific code) and the error as its
     reason. Other exceptions (TypeError, KeyError, ...) are programming errors: they stop
     the run.
+
+    A candidate needs more time points than free parameters to be fitted, and its
+    criterion must be defined to be chosen: AICc = AIC + 2k(k+1)/(n−k−1) needs
+    n − k − 1 > 0, with k counting the residual variance (Burnham & Anderson 2002). A
+    fitted candidate without it has status ``"not_eligible"``; a series with no eligible
+    candidate is ``"too_few_points"`` with every candidate's reason. With a single
+    candidate no choice is made: its fit is kept (status ``"ok"``) and its row's reason
+    says that its criterion is undefined.
     """
     from .data import average_replicates, read_samples
 
@@ -491,7 +564,12 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     if fixed is not None and not isinstance(fixed, dict):
         raise DataError(f"'fixed' must be a dict of parameter name -> value, or None; got "
                         f"{type(fixed).__name__}")
-    by = tuple([by] if isinstance(by, str) else by)
+    by = _names("by", by, "column names, e.g. by=('subject', 'tissue', 'isotope')")
+    structures = _names("structures", structures,
+                        "model structures, e.g. structures=('parallel', 'chain')")
+    pools = _check_pools(pools, structures)
+    cands = _candidates(pools, structures)
+    _check_candidates(cands, lag=lag, separation=separation, initial=initial)
     s = _validated(read_samples, samples, "samples", time_unit=_unit_of(samples))
     for col in by:
         if col not in s.columns:
@@ -501,10 +579,6 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
         if col not in by and s[col].nunique() > 1:
             raise DataError(f"'by' must include {col!r}: the table holds several "
                             f"({', '.join(sorted(s[col].astype(str).unique()))})")
-    pools = tuple([pools] if isinstance(pools, (int, np.integer)) else pools)
-    cands = _candidates(pools, tuple([structures] if isinstance(structures, str)
-                                     else structures))
-    _check_candidates(cands, lag=lag, separation=separation, initial=initial)
     time_unit = s.attrs.get("time_unit", "d")
     if diets is not None:
         from .data import read_diets
@@ -518,15 +592,17 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
                             time_unit=_unit_of(masses, s.attrs.get("time_unit", "d")))
     keys_df = s[list(by)].astype(str)
     groups = {}
-    for key, idx in keys_df.groupby(list(by), sort=True).groups.items():
+    # row positions, not index labels: a table with repeated index labels (frames joined
+    # without ignore_index) would otherwise pull rows of other series into each series
+    for key, pos in keys_df.groupby(list(by), sort=True).indices.items():
         key = key if isinstance(key, tuple) else (key,)
-        groups[key] = idx
+        groups[key] = pos
     options = dict(diets=diets, masses=masses, criterion=criterion, lag=lag,
                    separation=separation, initial=initial, fixed=fixed,
                    absolute_sigma=absolute_sigma, loss=loss, growth_curve=growth_curve,
                    average=average_replicates, per_diet_separation=per_diet_separation,
                    time_unit=time_unit)
-    tasks = [(s.loc[idx], key, dict(zip(by, key))) for key, idx in groups.items()]
+    tasks = [(s.iloc[pos], key, dict(zip(by, key))) for key, pos in groups.items()]
     if workers == 1 or len(tasks) < 2:
         done = [_fit_one(sub, key, key_map, cands, options)
                 for sub, key, key_map in _progress(tasks, progress, "fitting series")]
@@ -654,8 +730,13 @@ def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, sepa
     sd = None
     if "sd" in avg.columns and avg["sd"].notna().all():
         sd = avg["sd"].to_numpy(dtype=float)
-    # is there a change at all?
-    if np.ptp(y) == 0:
+    # does any sample follow the switch? (before "no change": that is why there is none)
+    switch = float(diet.switch_times[0]) if diet is not None else 0.0
+    why = after_switch_reason(t, switch, time_unit)
+    if why is not None:
+        return _all_failed(res, cands, "too_few_points", why)
+    # is there a change at all? (one point alone is too few points, said per candidate)
+    if n > 1 and np.ptp(y) == 0:
         return _all_failed(res, cands, "no_change", "all values are equal: nothing to fit")
     ok_any = False
     for label, structure, p in cands:
@@ -710,11 +791,39 @@ def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, sepa
         res.fits = {k: None for k in res.fits}
         res.reasons = {k: res.reason for k in res.reasons}
         return res
-    cmp = compare(list(fitted.values()), criterion=criterion, labels=list(fitted))
+    with warnings.catch_warnings():
+        # a candidate that is not eligible says so in its row (status and reason)
+        warnings.simplefilter("ignore", IsoturnoverWarning)
+        cmp = compare(list(fitted.values()), criterion=criterion, labels=list(fitted))
     res.comparison = cmp
+    not_eligible = cmp.attrs.get("not_eligible", {})
+    res.reasons.update(not_eligible)
+    if len(cands) == 1 and len(fitted) == 1:
+        # one candidate asked for: no choice is made, so it is kept even when its
+        # criterion is undefined (its row's reason says so)
+        res.chosen = next(iter(fitted))
+        res.status = "ok"
+        return res
+    if not cmp["best"].any():
+        # nothing can be chosen: a listed failure with every candidate's reason
+        short = all(_too_few(fitted[lab], criterion) for lab in not_eligible) and all(
+            "time point" in why for lab, why in res.reasons.items() if lab not in fitted)
+        res.status = "too_few_points" if short else "failed"
+        name = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}[criterion]
+        res.reason = (f"no candidate can be chosen by {name} with {n} time "
+                      "point(s): " + "; ".join(f"{lab}: {why}"
+                                               for lab, why in res.reasons.items()))
+        res.chosen = None
+        return res
     res.chosen = str(cmp.loc[cmp["best"], "label"].iloc[0])
     res.status = "ok"
     return res
+
+
+def _too_few(fit, criterion):
+    """Whether a fit's criterion is undefined for want of points (AICc, n − k − 1 ≤ 0)."""
+    k = int(getattr(fit, "n_criteria_params", fit.nvarys))
+    return criterion == "aicc" and int(fit.nobs) - k - 1 <= 0
 
 
 def _has_change(fit):

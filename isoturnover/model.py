@@ -28,7 +28,7 @@ from .engine import (
     check_names,
     prepare_data,
 )
-from .errors import DataError
+from .errors import DataError, DataWarning
 from .kinetics import MAX_POOLS, TurnoverKinetics
 from .results import TurnoverFit
 
@@ -566,8 +566,12 @@ def fit_power_dilution(mass, y, sigma=None, *, mass0=None, absolute_sigma=False,
     if np.any(x < -1e-12):
         raise DataError("the power form needs masses at or above mass0 (a growing animal); "
                         f"the smallest mass is {float(np.min(m)):g} < mass0 = {m0:g}")
-    fit = TurnoverModel(1).fit(x, y, sigma, absolute_sigma=absolute_sigma, time_unit="ln(W/W0)",
-                               label=label or "power form (Fry & Arnold 1982)", warn=False)
+    with warnings.catch_warnings():
+        # equal masses are separate animals or weighings, not repeated sampling times
+        warnings.filterwarnings("ignore", message="'t' repeats", category=DataWarning)
+        fit = TurnoverModel(1).fit(x, y, sigma, absolute_sigma=absolute_sigma,
+                                   time_unit="ln(W/W0)",
+                                   label=label or "power form (Fry & Arnold 1982)", warn=False)
     ci = fit.conf_int(params=["k1"]).iloc[0]
     table = _pd().DataFrame([{
         "quantity": "fry_arnold_c", "estimate": -float(ci["estimate"]),

@@ -47,9 +47,96 @@ import numpy as np
 from .conventions import check_choice, check_level
 from .errors import DataError
 
-__all__ = ["BoundSearch", "find_bound", "Interval", "parameter_scale", "search_limits",
-           "parameter_interval", "asymptotic_interval", "grad_z", "delta_interval",
-           "share_at_edge"]
+__all__ = ["numerical_gradient", "BoundSearch", "find_bound", "Interval", "parameter_scale",
+           "search_limits", "parameter_interval", "asymptotic_interval", "grad_z", "delta_interval",
+           "share_at_edge", "EvaluationBudget", "BudgetExhausted", "MAX_EVALUATIONS",
+           "check_budget"]
+
+#: Default evaluation budget of one side of one profile (model evaluations, residual and
+#: Jacobian evaluations, and evaluations of a derived quantity all count one each). A
+#: well-determined bound costs a few hundred; a side that spends the budget ends
+#: ``failed`` with the reason ``"budget"`` instead of running on.
+MAX_EVALUATIONS = 100000
+
+
+class BudgetExhausted(Exception):
+    """Raised by :meth:`EvaluationBudget.spend` when the budget is spent.
+
+    Control flow only: the profile code that owns the budget catches it and ends the search
+    with status ``failed`` (reason ``"budget"``); it never reaches the user.
+    """
+
+
+class EvaluationBudget:
+    """A limit on the evaluations one profile search may spend.
+
+    Work charged before it is done (:meth:`spend`) is refused once the budget is spent;
+    an optimizer's run is charged after it (:meth:`record`), and :meth:`check` refuses the
+    next one.
+
+    Parameters
+    ----------
+    limit : int
+        Number of evaluations allowed (model evaluations, residual or Jacobian evaluations,
+        evaluations of a derived quantity: each counts one).
+
+    Attributes
+    ----------
+    used : int
+        Evaluations spent so far: at most ``limit`` when every evaluation is charged
+        before it is made (:meth:`spend`); a charge after the fact (:meth:`record`) may
+        take it past ``limit`` by that charge.
+    """
+
+    def __init__(self, limit: int):
+        self.limit = int(limit)
+        self.used = 0
+
+    @property
+    def exhausted(self) -> bool:
+        """Whether the budget is spent (``used >= limit``)."""
+        return self.used >= self.limit
+
+    def check(self) -> None:
+        """Refuse further work once the budget is spent.
+
+        Raises
+        ------
+        BudgetExhausted
+            When ``used >= limit``.
+        """
+        if self.used >= self.limit:
+            raise BudgetExhausted(f"evaluation budget of {self.limit} spent")
+
+    def spend(self, n: int = 1) -> None:
+        """Charge ``n`` evaluations about to be made.
+
+        Parameters
+        ----------
+        n : int, default=1
+            Evaluations about to be made.
+
+        Raises
+        ------
+        BudgetExhausted
+            When the budget is already spent (nothing is charged: the evaluations are not
+            to be made).
+        """
+        self.check()
+        self.used += int(n)
+
+    def record(self, n: int) -> None:
+        """Count ``n`` evaluations already made (an optimizer's run, charged after it).
+
+        Parameters
+        ----------
+        n : int
+            Evaluations made.
+        """
+        self.used += int(n)
+
+    def __repr__(self):
+        return f"EvaluationBudget(used={self.used}, limit={self.limit})"
 
 
 @dataclass
@@ -64,15 +151,20 @@ class BoundSearch:
     status : {"ok", "open", "at_bound", "failed"}
     refits : int
         Number of constrained refits spent.
+    reason : str, default=""
+        Why a search ended ``failed``: ``"budget"`` (the evaluation budget was spent),
+        ``"max_refits"`` (the refit budget was spent), ``"refits failed"`` (six refits in a
+        row failed) or ``"jump"`` (the profile jumps across a vanishing bracket); "" otherwise.
     """
 
     u: float
     status: str
     refits: int
+    reason: str = ""
 
 
 def find_bound(evaluate, u_hat, direction, step, limit, crit, *, tol=1e-6, newton_tol=1e-4,
-               max_refits=40, stop_on_unreachable=True):
+               max_refits=40, stop_on_unreachable=True, budget=None):
     r"""Find the profile bound on one side of the estimate.
 
     Parameters
@@ -102,6 +194,11 @@ def find_bound(evaluate, u_hat, direction, step, limit, crit, *, tol=1e-6, newto
     stop_on_unreachable : bool
         When every one of six failed refits in a row was ``"unreachable"``, report the last
         good value as ``at_bound`` instead of ``failed``.
+    budget : EvaluationBudget, optional
+        The evaluation budget that ``evaluate`` charges. The search ends ``failed`` with
+        reason ``"budget"`` once it is spent (checked before each refit), when
+        ``evaluate`` raises :class:`BudgetExhausted`, or when it reports the reason
+        ``"budget"``.
 
     Returns
     -------
@@ -116,18 +213,25 @@ def find_bound(evaluate, u_hat, direction, step, limit, crit, *, tol=1e-6, newto
     err_prev = math.inf
     verified = None
     while refits < max_refits:
+        if budget is not None and budget.exhausted:
+            return BoundSearch(math.nan, "failed", refits, "budget")
         at_limit = (u - limit) * direction >= 0
         if at_limit:
             u = limit
-        D, dD, ok, reason = evaluate(u)
+        try:
+            D, dD, ok, reason = evaluate(u)
+        except BudgetExhausted:
+            return BoundSearch(math.nan, "failed", refits + 1, "budget")
         refits += 1
+        if reason == "budget":
+            return BoundSearch(math.nan, "failed", refits, "budget")
         if not ok or not math.isfinite(D):
             fails += 1
             unreachable += reason == "unreachable"
             if fails >= 6:
                 if stop_on_unreachable and unreachable == fails:
                     return BoundSearch(u_last_good, "at_bound", refits)
-                return BoundSearch(math.nan, "failed", refits)
+                return BoundSearch(math.nan, "failed", refits, "refits failed")
             # back toward the last good point
             u = u_in + 0.5 * (u - u_in) if u_out is None else 0.5 * (u_in + u_out)
             continue
@@ -172,7 +276,7 @@ def find_bound(evaluate, u_hat, direction, step, limit, crit, *, tol=1e-6, newto
                 if tau_out - tau_in > 0.1 * target:
                     # the profile jumps across a vanishing bracket: the refits on the two
                     # sides found different minima; no trustworthy crossing
-                    return BoundSearch(math.nan, "failed", refits)
+                    return BoundSearch(math.nan, "failed", refits, "jump")
                 # bracket closed: interpolate tau linearly
                 w = (target - tau_in) / (tau_out - tau_in) if tau_out > tau_in else 0.5
                 return BoundSearch(u_in + w * (u_out - u_in), "ok", refits)
@@ -196,7 +300,7 @@ def find_bound(evaluate, u_hat, direction, step, limit, crit, *, tol=1e-6, newto
             else:
                 d = max(dist, step)  # flat profile: double the distance
             u = u + direction * d
-    return BoundSearch(math.nan, "failed", refits)
+    return BoundSearch(math.nan, "failed", refits, "max_refits")
 
 
 # ----------------------------------------------------------------------------------------
@@ -338,7 +442,7 @@ def _fixed_interval(state, name):
     return None
 
 
-def parameter_interval(state, name, level=0.95) -> Interval:
+def parameter_interval(state, name, level=0.95, *, max_evaluations=None) -> Interval:
     r"""Profile-likelihood interval of one natural parameter.
 
     For trial values c the parameter is fixed and the weighted RSS minimised over all the
@@ -356,6 +460,10 @@ def parameter_interval(state, name, level=0.95) -> Interval:
         A natural parameter of the fit (not one set by an expression).
     level : float, default=0.95
         Confidence level.
+    max_evaluations : int, optional
+        Evaluation budget of each side (function evaluations of the constrained refits,
+        as their optimizers count them); default :data:`MAX_EVALUATIONS`. A side that
+        spends it ends ``failed`` (NaN) instead of running on.
 
     Returns
     -------
@@ -364,7 +472,7 @@ def parameter_interval(state, name, level=0.95) -> Interval:
         end (0 or inf for a rate, 0 or 1 for a fraction, ±inf, or the user's bound with
         status ``at_bound``); the lag's lower end is ``at_bound`` at 0. Fixed parameters
         (and the fraction of a single pool) have status ``fixed``; NaN with ``failed``
-        when the residual variance is not positive or a search fails.
+        when the residual variance is not positive, a search fails or spends its budget.
 
     Raises
     ------
@@ -374,6 +482,7 @@ def parameter_interval(state, name, level=0.95) -> Interval:
     """
     j = _check_name(state, name)
     level = check_level(level)
+    limit_evals = check_budget(max_evaluations)
     done = _fixed_interval(state, name)
     if done is not None:
         return done
@@ -400,24 +509,32 @@ def parameter_interval(state, name, level=0.95) -> Interval:
         se_c = se if np.isfinite(se) and se > 0 else 0.1 * scale
     se_c = min(max(se_c, 1e-6), 1e3)
 
-    def deviance(c, theta_start):
-        """Scaled ΔRSS of the refit with the parameter fixed at from_c(c), and the refit."""
+    def deviance(c, theta_start, budget):
+        """Scaled ΔRSS of the refit with the parameter fixed at from_c(c), and the refit.
+        Every refit's evaluations are charged to ``budget`` (BudgetExhausted when spent)."""
         fx = dict(state.fixed)
         fx[name] = from_c(c)
         coords = engine.coords(fx, rate_anchor=rate_anchor, fraction_anchor=fraction_anchor)
         z_start = coords.z_from_theta(theta_start)
+        budget.check()
         sol = engine.problem.solve(coords, z_start, tol=1e-11, max_nfev=40 * (coords.size + 1))
+        budget.record(max(sol.nfev, 1))
         d = (sol.cost - rss0) / s2
         if not sol.success and np.isfinite(d) and d > crit:
             # not settled: a larger budget before deciding which side of the cut it is
+            budget.check()
             sol2 = engine.problem.solve(coords, sol.z, tol=1e-11,
                                         max_nfev=200 * (coords.size + 1))
+            budget.record(max(sol2.nfev, 1))
             if np.isfinite(sol2.cost) and sol2.cost <= sol.cost:
                 sol = sol2
                 d = (sol.cost - rss0) / s2
         if not sol.success and np.isfinite(d) and d > crit:
             # still unsettled above the cut: the automatic starts as well, the lowest wins
+            # (charged by what its best run reports; started only with budget to spare)
+            budget.check()
             alt = engine.quick_fit(fx, sol.z, multi_start=True, tol=1e-11)
+            budget.record(max(alt.nfev, 1))
             if np.isfinite(alt.cost) and alt.cost < sol.cost:
                 sol = alt
                 d = (sol.cost - rss0) / s2
@@ -437,9 +554,10 @@ def parameter_interval(state, name, level=0.95) -> Interval:
     for direction in (-1, 1):
         limit = lo_limit if direction < 0 else hi_limit
         warm = {"theta": state.theta}
+        budget = EvaluationBudget(limit_evals)
 
-        def evaluate(c, warm=warm):
-            d, sol = deviance(c, warm["theta"])
+        def evaluate(c, warm=warm, budget=budget):
+            d, sol = deviance(c, warm["theta"], budget)
             if not np.isfinite(d):
                 return math.nan, math.nan, False, ""
             if d <= crit:
@@ -456,7 +574,8 @@ def parameter_interval(state, name, level=0.95) -> Interval:
         step = math.sqrt(crit) * se_c
         if kind in ("rate", "fraction"):
             step = min(step, 1.0)  # at most a factor e (or one logit unit) at first
-        res = find_bound(evaluate, c_hat, direction, step, limit, crit, max_refits=80)
+        res = find_bound(evaluate, c_hat, direction, step, limit, crit, max_refits=80,
+                         budget=budget)
         status = res.status
         bound = from_c(res.u) if status == "ok" else None
         if status == "open" and (kind == "lag" or (name in bounds and limit in bounds[name])):
@@ -467,6 +586,34 @@ def parameter_interval(state, name, level=0.95) -> Interval:
             bound = math.nan
         results.append((bound, status))
     return Interval(est, results[0][0], results[1][0], results[0][1], results[1][1])
+
+
+def check_budget(max_evaluations):
+    """Check an evaluation budget argument (``max_evaluations``) of a profile.
+
+    Parameters
+    ----------
+    max_evaluations : int or None
+        Evaluations allowed per profile side; None for :data:`MAX_EVALUATIONS` (read at
+        call time, so a change of the module constant applies).
+
+    Returns
+    -------
+    int
+        The budget.
+
+    Raises
+    ------
+    DataError
+        When ``max_evaluations`` is not a positive integer (a bool, 0, 1.5, "10" ...).
+    """
+    if max_evaluations is None:
+        return int(MAX_EVALUATIONS)
+    if isinstance(max_evaluations, bool) or not isinstance(max_evaluations, (int, np.integer)) \
+            or max_evaluations < 1:
+        raise DataError(f"'max_evaluations' must be a positive integer; got "
+                        f"{max_evaluations!r}")
+    return int(max_evaluations)
 
 
 def asymptotic_interval(state, name, level=0.95) -> Interval:
@@ -534,14 +681,34 @@ def grad_z(state, g) -> np.ndarray:
     -------
     ndarray of shape (n_coordinates,)
     """
-    z = state.z
-    grad = np.zeros(z.size)
+    return numerical_gradient(lambda zz: g(state.coords.theta(zz)), state.z)
+
+
+def numerical_gradient(fun, z):
+    r"""Central differences of a scalar function of the coordinates.
+
+    Step :math:`10^{-6}\max(1, |z_i|)` in each coordinate (error of order the step squared
+    times the third derivative; common practice for smooth functions in double precision).
+
+    Parameters
+    ----------
+    fun : callable
+        ``fun(z) -> float``.
+    z : ndarray of shape (p,)
+        Where the gradient is taken.
+
+    Returns
+    -------
+    ndarray of shape (p,)
+    """
+    z = np.asarray(z, dtype=float)
+    grad = np.empty(z.size)
     for i in range(z.size):
         h = 1e-6 * max(1.0, abs(z[i]))
         zp, zm = z.copy(), z.copy()
         zp[i] += h
         zm[i] -= h
-        grad[i] = (g(state.coords.theta(zp)) - g(state.coords.theta(zm))) / (2 * h)
+        grad[i] = (fun(zp) - fun(zm)) / (2 * h)
     return grad
 
 

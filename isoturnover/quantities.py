@@ -16,6 +16,7 @@ from scipy import integrate, optimize
 __all__ = [
     "remaining_after_switch",
     "time_to",
+    "incorporation_rates_positive",
     "time_to_grad",
     "mean_residence_time",
     "mean_residence_time_grad",
@@ -63,6 +64,35 @@ def _incorporation_rates(kin, theta):
     return ks
 
 
+def incorporation_rates_positive(kin, theta) -> bool:
+    r"""Whether every incorporation rate of θ is positive and finite.
+
+    The incorporation rate of pool (or chain step) i is :math:`\kappa_i = k_i` without
+    growth and :math:`k_i + k_g` with exponential growth fitted jointly (Hesslein et al.
+    1993: synthesis of new tissue is turnover plus growth, and cannot be negative). With a
+    fitted growth curve the rates alone are checked (:math:`k_g(t)` varies in time).
+
+    Parameters
+    ----------
+    kin : TurnoverKinetics
+        The model (``fit.kinetics``).
+    theta : array-like
+        Natural parameters in the order of ``kin.param_names`` (rates per time unit).
+
+    Returns
+    -------
+    bool
+        True when every :math:`\kappa_i` is finite and > 0.
+    """
+    # plain floats: a handful of rates, checked in every evaluation of a profile
+    g = 0.0 if kin.growth_rate_index is None else float(theta[kin.growth_rate_index])
+    for i in kin.rate_index:
+        k = float(theta[i]) + g
+        if not (k > 0 and k < math.inf):
+            return False
+    return True
+
+
 def time_to(kin, p: float, theta) -> float:
     r"""Time after the switch for the tissue to make a fraction ``p`` of a step change.
 
@@ -100,10 +130,15 @@ def time_to(kin, p: float, theta) -> float:
     def g(tau):
         return float(remaining_after_switch(kin, np.array([tau]), theta)[0]) - target
 
-    hi = 1.0 / float(np.min(ks))
-    while g(hi) > 0:
+    k_min = float(np.min(ks))
+    if not k_min > 0:
+        return math.inf  # a pool that never turns over: the fraction is never reached
+    hi = 1.0 / k_min
+    for _ in range(1100):  # 2^1100 beyond 1/k_min overflows: the change never completes
+        if not g(hi) > 0:
+            return optimize.brentq(g, 0.0, hi, xtol=1e-12, rtol=1e-12) + lag
         hi *= 2
-    return optimize.brentq(g, 0.0, hi, xtol=1e-12, rtol=1e-12) + lag
+    return math.inf
 
 
 def _parallel_root(ks, f, target):

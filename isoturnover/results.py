@@ -20,7 +20,7 @@ import pandas as pd
 
 from . import profiles, quantities
 from .conventions import METHODS, STATUSES, check_choice, check_level, check_method
-from .diagnostics import TrustNote, trust_notes
+from .diagnostics import TrustNote, open_unresolved, trust_notes
 from .engine import FitState
 from .errors import DataError
 from .growthdilution import (
@@ -151,7 +151,12 @@ class TurnoverFit(LmfitViews, GrowthDilution, IntervalCache, FitRecord):
                            lambda: profiles.parameter_interval(self.state, name, level).bounds)
 
     def _interval(self, name, level, method):
-        """(lower, upper, lower_status, upper_status) of a natural parameter."""
+        """(lower, upper, lower_status, upper_status) of a natural parameter; the upper
+        bound of a rate the sampling cannot resolve is open (diagnostics.open_unresolved)."""
+        return open_unresolved(self, name, self._raw_interval(name, level, method))
+
+    def _raw_interval(self, name, level, method):
+        """(lower, upper, lower_status, upper_status) as the interval method gives them."""
         if name in self.fixed or name in self._implicit_fixed():
             v = self.fixed[name] if name in self.fixed else float(self.values[name])
             return v, v, "fixed", "fixed"

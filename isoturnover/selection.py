@@ -19,15 +19,16 @@ problem of the number of mixture components).
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
 from .conventions import check_choice
-from .errors import DataError
+from .errors import DataError, IsoturnoverWarning
 
-__all__ = ["compare", "lr_test", "LRTestResult", "CRITERIA"]
+__all__ = ["compare", "lr_test", "LRTestResult", "CRITERIA", "not_eligible_reason"]
 
 CRITERIA = ("aicc", "aic", "bic")
 
@@ -51,6 +52,53 @@ def _label(fit, i):
     return f"fit {i + 1}"
 
 
+_NAMES = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}
+
+
+def not_eligible_reason(fit, criterion: str = "aicc") -> str:
+    r"""Why a fit cannot take part in a choice by ``criterion`` ("" when it can).
+
+    A fit is eligible when its criterion is finite. AICc = AIC + 2k(k+1)/(n−k−1) is
+    undefined when :math:`n - k - 1 \le 0` (Burnham & Anderson 2002, *Model Selection and
+    Multimodel Inference*, §2.4 — from memory for the section), with n the points and k
+    the parameters of the criterion (the free parameters and the residual variance when it
+    is estimated: ``fit.n_criteria_params``); every criterion is :math:`-\infty` for a fit
+    that passes through every point (RSS = 0, σ estimated).
+
+    Parameters
+    ----------
+    fit : TurnoverFit or GrowthFit
+        A finished fit.
+    criterion : {"aicc", "aic", "bic"}, default="aicc"
+        The information criterion of the choice.
+
+    Returns
+    -------
+    str
+        "" for an eligible fit, else the reason, naming n and k.
+
+    Raises
+    ------
+    DataError
+        For a bad ``criterion``.
+    """
+    check_choice("criterion", criterion, CRITERIA)
+    value = float(getattr(fit, criterion))
+    if math.isfinite(value):
+        return ""
+    n = int(fit.nobs)
+    k = int(getattr(fit, "n_criteria_params", fit.nvarys))
+    name = _NAMES[criterion]
+    if criterion == "aicc" and n - k - 1 <= 0:
+        return (f"AICc undefined: n − k − 1 = {n} − {k} − 1 = {n - k - 1} ≤ 0 ({n} points, "
+                f"k = {k} parameters counting the residual variance; at least {k + 2} points "
+                "are needed): not eligible for selection")
+    if float(fit.rss) <= 0:
+        return (f"{name} is {value} (the fit passes through every one of the {n} points, "
+                "RSS = 0): not eligible for selection")
+    return f"{name} is not finite ({value}): not eligible for selection"
+
+
 def compare(fits, *, criterion: str = "aicc", labels=None) -> pd.DataFrame:
     r"""Compare fits of the same data by information criteria.
 
@@ -68,7 +116,11 @@ def compare(fits, *, criterion: str = "aicc", labels=None) -> pd.DataFrame:
     DataFrame
         One row per fit, in the given order: label, structure, pools, n_params, nobs, rss,
         aic, aicc, bic, delta_aicc (Δ of the chosen criterion), weight (Akaike weight),
-        best.
+        best. A fit whose criterion is not finite (AICc with n − k − 1 ≤ 0, say) is not
+        eligible: its Δ and weight are NaN and ``best`` False; ``attrs["not_eligible"]``
+        maps its label to the reason (:func:`not_eligible_reason`), and an
+        :class:`~isoturnover.IsoturnoverWarning` says so. When no fit is eligible, no row
+        is ``best``.
 
     Raises
     ------
@@ -126,6 +178,12 @@ def compare(fits, *, criterion: str = "aicc", labels=None) -> pd.DataFrame:
     df = pd.DataFrame(rows)
     crit = df[criterion].to_numpy(dtype=float)
     finite = np.isfinite(crit)
+    not_eligible = {str(df.loc[i, "label"]): not_eligible_reason(f, criterion)
+                    for i, f in enumerate(fits) if not finite[i]}
+    if not_eligible:
+        warnings.warn("compare(): " + "; ".join(f"{lab!r}: {why}" for lab, why
+                                                 in not_eligible.items()),
+                      IsoturnoverWarning, stacklevel=2)
     delta = np.full(crit.size, math.nan)
     weight = np.full(crit.size, math.nan)
     if finite.any():
@@ -142,6 +200,7 @@ def compare(fits, *, criterion: str = "aicc", labels=None) -> pd.DataFrame:
         best[int(np.nanargmin(np.where(finite, crit, np.inf)))] = True
     df["best"] = best
     df.attrs["criterion"] = criterion
+    df.attrs["not_eligible"] = not_eligible
     return df
 
 
@@ -230,7 +289,10 @@ def lr_test(simple, complex, *, n_boot: int = 199, rng=None) -> LRTestResult:
     the p-value :math:`(1 + \#\{T^*_b \ge T\})/(1 + B)` (Davison & Hinkley 1997,
     *Bootstrap Methods and their Application*, from memory).
     """
-    compare([simple, complex])  # same data, same error model
+    with warnings.catch_warnings():
+        # only the checks matter here (same data, same error model), not the criteria
+        warnings.simplefilter("ignore", IsoturnoverWarning)
+        compare([simple, complex])
     if complex.nvarys <= simple.nvarys:
         raise DataError(
             f"'complex' must have more free parameters than 'simple'; got {complex.nvarys} and "

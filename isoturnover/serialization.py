@@ -88,7 +88,7 @@ def load_fit(d) -> TurnoverFit:
     dd = d["data"]
     data = prepare_data(np.array(dd["t"]), np.array(dd["y"]),
                         None if dd["sigma"] is None else np.array(dd["sigma"]),
-                        dd["time_unit"])
+                        dd["time_unit"], warn_repeats=False)
     data["info"].update(dd.get("info") or {})
     opt = d["options"]
     masses = dd.get("masses")

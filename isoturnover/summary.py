@@ -25,7 +25,15 @@ from . import quantities
 from .conventions import INTERVAL_COLUMNS, check_level, check_method, unit_word
 
 __all__ = ["Summary", "fit_table", "fit_notes", "influence_table", "LmfitViews",
-           "fixed_by_construction", "mean_residence_time_names", "growth_share_note"]
+           "fixed_by_construction", "mean_residence_time_names", "growth_share_note",
+           "residual_text", "fraction_note", "VALUE_UNIT", "FRACTION_SPAN"]
+
+#: Unit of the observations and residuals: δ in ‰ on every scale (a model that mixes in
+#: atom fraction converts its prediction back to δ before it meets the data).
+VALUE_UNIT = "‰"
+
+#: Width of a pool fraction's interval (of 0–1) from which the fraction is "not determined".
+FRACTION_SPAN = 0.9
 
 #: How the summary names each kind of mean residence time of a fit with a growth model.
 _MRT_LABELS = {"incorporation": "mean residence time, incorporation (from k_d + k_g)",
@@ -151,6 +159,93 @@ def growth_share_note(fit):
             f"to t = {T:g} (∫ k_g Σ f_i (δ_in − δ_i) dt / (δ(T) − δ(0)); k_g/(k_g + k_d) "
             "for one pool with exponential growth, Hesslein et al. 1993); the rest is "
             "catabolic replacement")
+
+
+def residual_text(fit) -> str:
+    r"""The residual sum of squares and residual sd of a fit, each with its unit.
+
+    Without σ: :math:`RSS = \sum r_i^2` in ‰² and :math:`s = \sqrt{RSS/(n-p)}` in ‰.
+    With σ as relative weights: the weighted RSS :math:`\sum (r_i/\sigma_i)^2` and
+    :math:`s` as a multiple of σ (each point's residual sd is :math:`s\,\sigma_i`). With σ
+    known: the weighted RSS is the χ² statistic and :math:`s = 1` by construction. Joint
+    fits with body masses or a growth prior: the δ block's own RSS and sd, from the δ
+    residuals alone with :math:`p_\delta` = free parameters less those of the other block
+    (the growth rate, or the growth-curve parameters), not the blocks' combined objective.
+
+    Parameters
+    ----------
+    fit : TurnoverFit
+        A finished fit.
+
+    Returns
+    -------
+    str
+        E.g. ``"RSS 0.4312 ‰², s = 0.1821 ‰"``.
+    """
+    u = VALUE_UNIT
+    if fit.joint:
+        mb = fit.state.engine.mass_block
+        w = 1.0 / fit.sigma if fit.sigma is not None else np.ones(fit.nobs)
+        r = w * (fit.y - fit.best_fit)
+        rss_d = float(r @ r)
+        p_d = fit.nvarys - (mb.size if mb.kind == "prior" else 1)
+        dof_d = fit.nobs - p_d
+        s_d = math.sqrt(rss_d / dof_d) if dof_d > 0 else math.nan
+        if fit.sigma is None:
+            text = f"RSS {_fmt(rss_d)} {u}² (δ block), s = {_fmt(s_d)} {u} (δ residuals)"
+        else:
+            text = (f"RSS {_fmt(rss_d)} (δ block, weighted by 1/σ²), s = {_fmt(s_d)} × σ "
+                    "(δ residuals)")
+        if mb.kind == "masses":
+            rm = mb.raw_residuals(fit.state.theta)
+            text += f"; ln(body mass) block RSS {_fmt(float(rm @ rm))}"
+        return text
+    s = math.sqrt(fit.s2) if fit.s2 > 0 else math.nan
+    if fit.sigma is None:
+        return f"RSS {_fmt(fit.rss)} {u}², s = {_fmt(s)} {u}"
+    if fit.absolute_sigma:
+        return f"χ² (RSS weighted by 1/σ²) {_fmt(fit.rss)}, s = 1 × σ (σ known, not rescaled)"
+    return f"RSS {_fmt(fit.rss)} (weighted by 1/σ²), s = {_fmt(s)} × σ"
+
+
+def fraction_note(parameters):
+    """The note on pool fractions whose interval spans nearly all of 0–1.
+
+    A fraction whose interval is at least :data:`FRACTION_SPAN` wide (an ``open`` bound
+    counts as reaching its end of 0–1; a ``failed`` bound as unknown) is not determined by
+    the data: any split of the change between the pools fits about as well.
+
+    Parameters
+    ----------
+    parameters : DataFrame
+        A fit's ``conf_int`` (columns parameter, lower, upper, level, method,
+        lower_status, upper_status).
+
+    Returns
+    -------
+    str or None
+        The note naming the fractions and their intervals; None when every fraction is
+        narrower (or fixed, or of a single pool).
+    """
+    hits = []
+    for _, r in parameters.iterrows():
+        nm = str(r["parameter"])
+        if not (nm.startswith("f") and nm[1:].isdigit()) or r["method"] == "fixed":
+            continue
+        if "failed" in (r["lower_status"], r["upper_status"]):
+            continue
+        lo = 0.0 if r["lower_status"] == "open" else float(r["lower"])
+        hi = 1.0 if r["upper_status"] == "open" else float(r["upper"])
+        if np.isfinite(lo) and np.isfinite(hi) and hi - lo >= FRACTION_SPAN:
+            hits.append(f"{nm} [{_bound(r['lower'], r['lower_status'])}, "
+                        f"{_bound(r['upper'], r['upper_status'])}]")
+    if not hits:
+        return None
+    level = float(parameters["level"].iloc[0])
+    return (f"fraction not determined: the {level:.0%} interval of "
+            + ", ".join(hits) + " spans nearly all of 0–1 (at least "
+            f"{FRACTION_SPAN:g} wide); these data do not fix how the change splits between "
+            "the pools — fewer pools, or samples where the pools differ, would")
 
 
 def fit_table(fit, level=0.95, method="profile") -> pd.DataFrame:
@@ -279,7 +374,8 @@ class Summary:
     parameters, half_lives, time_to : DataFrame
         ``fit.conf_int``, ``fit.half_lives`` and ``fit.time_to(0.95)`` at ``level``.
     notes : list of str
-        :func:`fit_notes`.
+        :func:`fit_notes`, with :func:`fraction_note` (which needs the intervals) after the
+        trust warnings.
     """
 
     def __init__(self, fit, level=0.95, method="profile"):
@@ -290,7 +386,11 @@ class Summary:
         self.parameters = fit.conf_int(self.level, self.method)
         self.half_lives = fit.half_lives(self.level, self.method)
         self.time_to = fit.time_to(0.95, self.level, self.method)
-        self.notes = fit.notes()
+        notes = list(fit.notes())
+        frac = fraction_note(self.parameters)
+        if frac is not None:  # a trust signal: after the fit's warnings, before the rest
+            notes.insert(len(fit.warnings), frac)
+        self.notes = notes
 
     def _header(self):
         f = self.fit
@@ -312,13 +412,6 @@ class Summary:
             weighting = "weights 1/σ² with σ known (absolute); no rescaling"
         else:
             weighting = "weights 1/σ² (relative); residual variance estimated"
-        if f.joint:
-            raw = f.y - f.best_fit
-            p_d = f.nvarys - (mb.size if mb.kind == "prior" else 1)
-            s_text = (f"{_fmt(math.sqrt(float(raw @ raw) / max(f.nobs - p_d, 1)))} ‰ "
-                      "(δ residuals)")
-        else:
-            s_text = _fmt(math.sqrt(f.s2)) if f.s2 > 0 else "—"
         rows = [
             ("Data", f"{f.label + ': ' if f.label else ''}{f.nobs} time points, "
                      f"t = {f.t.min():g} to {f.t.max():g} {unit}"),
@@ -327,7 +420,7 @@ class Summary:
                        f" loss), {f.starts_tried} start(s); intervals: "
                        f"{f.method_used(self.method)}, {self.level:.0%}"),
             ("Weighting", weighting),
-            ("Fit", f"RSS {_fmt(f.rss)}, s = {s_text}, "
+            ("Fit", f"{residual_text(f)}, "
                     f"AICc {_fmt(f.aicc, 5)}, BIC {_fmt(f.bic, 5)}, "
                     f"{'converged' if f.converged else 'NOT converged'}"),
         ]

@@ -35,9 +35,13 @@ __all__ = [
     "apply_columns",
     "missing_column",
     "cell_text",
+    "extra_columns",
+    "missing_cells",
     "text_column",
     "number_column",
     "show_value",
+    "warn_duplicate_rows",
+    "warn_partly_blank",
 ]
 
 # Column names users often give to a canonical column (our own short list, common practice);
@@ -632,6 +636,101 @@ class Issues:
         return ~bad
 
 
+def extra_columns(table: Table, canonical) -> dict[str, pd.Series]:
+    """The columns that are not canonical, kept; from files, numeric-looking ones as numbers.
+
+    Parameters
+    ----------
+    table : Table
+        The table.
+    canonical : collection of str
+        The canonical column names of the table (left out).
+
+    Returns
+    -------
+    dict of str to pandas.Series
+        Each other column: as floats when read from a file and every non-blank cell is a
+        number, else as given with blank cells missing.
+    """
+    out = {}
+    for c in table.frame.columns:
+        if c in canonical:
+            continue
+        col = table.frame[c]
+        if table.from_file:
+            text, blank = cell_text(col, table.clean)
+            conv = text.str.replace(",", ".", regex=False) if table.decimal_comma else text
+            num = pd.to_numeric(conv.where(~blank), errors="coerce")
+            if (num.notna().to_numpy() | blank).all() and not blank.all():
+                col = num.astype(float)
+            else:
+                col = col.where(~blank)
+        out[c] = col
+    return out
+
+
+def _listed(table: Table, pos: np.ndarray) -> str:
+    """Rows named in a message: the first :data:`MAX_LISTED`, then ``...``."""
+    return table.rows_text(pos[:MAX_LISTED]) + (", ..." if pos.size > MAX_LISTED else "")
+
+
+def warn_duplicate_rows(out: pd.DataFrame, table: Table, consequence: str) -> None:
+    """Warn about rows equal in every column to another row, naming them.
+
+    Parameters
+    ----------
+    out : pandas.DataFrame
+        The parsed rows, one per row of ``table``.
+    table : Table
+        The table they came from (file and row numbers for the message).
+    consequence : str
+        What becomes of such rows, e.g. ``"they are kept"``.
+
+    Warns
+    -----
+    DataWarning
+        Naming the table and the duplicated rows.
+    """
+    dup = out.duplicated(keep=False).to_numpy()
+    if dup.any():
+        pos = np.flatnonzero(dup)
+        warnings.warn(
+            f"{table.label}: {pos.size} rows are exact duplicates of another row "
+            f"({_listed(table, pos)}); {consequence} -- check for a double entry (analytic "
+            "replicates are best told apart by a 'replicate' column)",
+            DataWarning, stacklevel=3,
+        )
+
+
+def warn_partly_blank(values: np.ndarray, table: Table, column: str, consequence: str) -> None:
+    """Warn when a column is blank (NaN) on some rows but not on all, naming those rows.
+
+    Parameters
+    ----------
+    values : numpy.ndarray of float, shape (n_rows,)
+        The parsed column of the rows of ``table``; NaN where blank.
+    table : Table
+        The table they came from (file and row numbers for the message).
+    column : str
+        Canonical name of the column.
+    consequence : str
+        The rest of the message, after "blank on k of n rows (rows ...)".
+
+    Warns
+    -----
+    DataWarning
+        Naming the table, the column and the blank rows.
+    """
+    blank = ~np.isfinite(values)
+    if blank.any() and not blank.all():
+        pos = np.flatnonzero(blank)
+        warnings.warn(
+            f"{table.label}: column {table.col(column)} is blank on {pos.size} of "
+            f"{blank.size} rows ({_listed(table, pos)}) {consequence}",
+            DataWarning, stacklevel=3,
+        )
+
+
 def cell_text(col: pd.Series, clean: bool = False) -> tuple[pd.Series, np.ndarray]:
     """Stripped text of each cell (``""`` where blank; whole floats as ``"1"``), blank mask.
 
@@ -662,6 +761,25 @@ def cell_text(col: pd.Series, clean: bool = False) -> tuple[pd.Series, np.ndarra
     text.index = col.index
     blank = missing | (text == "").to_numpy()
     return text, blank
+
+
+def missing_cells(col: pd.Series, clean: bool = False) -> np.ndarray:
+    """Cells that hold no value: missing, blank text, or a missing-value marker (``NA``...).
+
+    Parameters
+    ----------
+    col : pandas.Series
+        One column of cells.
+    clean : bool, default False
+        The cells are already stripped text without missing values (:attr:`Table.clean`).
+
+    Returns
+    -------
+    numpy.ndarray of bool
+        True where the cell holds no value.
+    """
+    text, blank = cell_text(col, clean)
+    return blank | text.isin(_NA_SPELLINGS).to_numpy()
 
 
 def text_column(table: Table, issues: Issues, name: str, *, required: bool) -> pd.Series:

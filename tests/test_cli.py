@@ -330,3 +330,40 @@ def test_demo_with_jobs_gives_the_results_of_one_process(tmp_path, capsys):
     # the arithmetic in each process take it, and its AICc moves the weights by ~1e-13
     chosen = one["chosen"].astype(bool)
     pd.testing.assert_frame_equal(two[chosen], one[chosen], check_exact=False, rtol=1e-9)
+
+
+# ----------------------------------------------------------------------------------------
+# --date-format
+# ----------------------------------------------------------------------------------------
+def test_date_format_reaches_the_readers(tmp_path, capsys, monkeypatch):
+    from isoturnover import data
+
+    f = tmp_path / "samples.csv"
+    f.write_text(GOOD, encoding="utf-8")
+    # not a format: refused by the readers, one error line, nothing written
+    code, _, err = run(["fit", str(f), "--out", str(tmp_path / "o"), "--date-format",
+                        "dd/mm/yyyy"], capsys)
+    assert code == 2
+    assert_one_error_line(err)
+    assert "date_format must be a format such as '%d/%m/%Y'" in err, err
+    assert not (tmp_path / "o").exists()
+    # a format: handed to the samples reader as given
+    seen = []
+    real = data.read_samples
+
+    def spy(*args, **kwargs):
+        seen.append(kwargs.get("date_format"))
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(data, "read_samples", spy)
+    code, _, err = run(["fit", str(f), "--out", str(tmp_path / "o2"), "--no-figures",
+                        "--no-progress", "--ci", "asymptotic", "--pools", "1",
+                        "--date-format", "%d/%m/%Y"], capsys)
+    assert code == 0, err
+    assert seen[0] == "%d/%m/%Y"
+
+
+def test_date_format_in_help(capsys):
+    with pytest.raises(SystemExit):
+        main(["fit", "--help"])
+    assert "--date-format" in capsys.readouterr().out

@@ -319,7 +319,8 @@ def test_sd_must_be_positive(tmp_path, bad):
 
 def test_blank_sd_is_missing_not_an_error(tmp_path):
     text = GOOD.replace("a2,plasma,d13C,14,-14.8,0.15", "a2,plasma,d13C,14,-14.8,")
-    s = read_samples(write(tmp_path, text))
+    with pytest.warns(DataWarning, match=r"column 'sd' is blank on 1 of 6 rows \(row 7\)"):
+        s = read_samples(write(tmp_path, text))
     assert math.isnan(s["sd"].iloc[5]) and s["sd"].iloc[4] == 0.15
 
 
@@ -345,7 +346,8 @@ def test_first_bad_row_and_count_of_further_bad_rows(tmp_path):
 def test_exact_duplicate_rows_warn_with_row_numbers(tmp_path):
     text = GOOD + "a1,plasma,d13C,14,-15.0,0.1,21\n"
     with pytest.warns(DataWarning, match=r"2 rows are exact duplicates of another row "
-                                         r"\(rows 5, 8\); they are kept, not merged"):
+                                         r"\(rows 5, 8\); they are kept, and a fit averages "
+                                         r"them as analytic replicates of one sample"):
         s = read_samples(write(tmp_path, text))
     assert len(s) == 7
 
@@ -718,7 +720,8 @@ def test_series_selection_sorting_and_errors(tmp_path):
 
 def test_series_with_partial_sd_is_refused(tmp_path):
     text = GOOD.replace("a2,plasma,d13C,14,-14.8,0.15", "a2,plasma,d13C,14,-14.8,")
-    s = read_samples(write(tmp_path, text))
+    with pytest.warns(DataWarning, match=r"column 'sd' is blank on 1 of 6 rows"):
+        s = read_samples(write(tmp_path, text))
     with pytest.raises(DataError, match=r"1 of 2 points have no sd \(at times \[14\.0\]\)"):
         series(s, subject="a2")
 

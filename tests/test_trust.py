@@ -3,8 +3,9 @@
 For every signal (the codes of ``TurnoverFit.warnings``) the test checks three things: the
 code is on the result, its message is a numbered note ``[i] …`` of ``str(fit.summary())``,
 and ``fit()`` issues a warning of the right category with that message. The thresholds
-(rate ratio 1.5, fraction 0.02, |r| 0.99, χ²/dof 4, two half-lives of the slowest pool)
-are common practice, not published rules.
+(k·t_first 20, rate ratio 1.5, fraction 0.02, |r| 0.99, two half-lives of the slowest pool)
+are common practice, not published rules; the χ² test against known σ is scipy's
+``chi2.sf`` on the fit's degrees of freedom at p < 0.001.
 
 All series are invented (closed forms written out below, seeded Gaussian noise).
 """
@@ -92,6 +93,11 @@ def _case_few_points():
     return iso.TurnoverModel(1), (t, one_pool(t, half_life=3.0) + noise(5, 0.1)), {}
 
 
+def _case_no_sample_after_switch():
+    t = np.array([-40, -30, -20, -15, -10, -5, -1.0])  # every sample before the switch at 0
+    return iso.TurnoverModel(1), (t, -25.0 + noise(7, 0.1)), {}
+
+
 def _case_plateau_not_reached():
     t = np.linspace(0, 15, 16)  # stops at 1.5 half-lives
     return iso.TurnoverModel(1), (t, one_pool(t) + noise(16, 0.1)), {}
@@ -129,8 +135,10 @@ CASES = {
                  "the covariance matrix is singular"),
     "at_bound lag": ("at_bound", _case_lag_at_zero, iso.BoundWarning,
                      "lag is at its lower bound 0"),
-    "at_bound fast rate": ("at_bound", _case_rate_complete_before_first_sample,
-                           iso.BoundWarning, "complete before the first sample"),
+    "unidentifiable fast rate": ("unidentifiable", _case_rate_complete_before_first_sample,
+                                 iso.IdentifiabilityWarning,
+                                 "is not identifiable: the pool is complete before the first "
+                                 "sample"),
     "at_bound slow rate": ("at_bound", _case_rate_barely_moving, iso.BoundWarning,
                            "barely moves within the sampling period"),
     "pools_close": ("pools_close", _case_pools_close, iso.IdentifiabilityWarning,
@@ -141,6 +149,8 @@ CASES = {
                     "the data hardly separate them"),
     "few_points": ("few_points", _case_few_points, iso.DesignWarning,
                    "sample(s) after the switch for 3 free parameters"),
+    "no_sample_after_switch": ("no_sample_after_switch", _case_no_sample_after_switch,
+                               iso.DesignWarning, "no sample follows the switch"),
     "plateau_not_reached": ("plateau_not_reached", _case_plateau_not_reached,
                             iso.DesignWarning, "before two half-lives of the slowest pool"),
     "chi2_high": ("chi2_high", _case_chi2_high, iso.GoodnessOfFitWarning,
@@ -198,8 +208,9 @@ def test_chi2_high_silent_when_sigma_estimated():
     fit = model.fit(*args, sigma=0.1, warn=False)
     assert "chi2_high" not in [w.code for w in fit.warnings]
     fit_known = model.fit(*args, warn=False, **kwargs)
-    # χ²/dof far above 1 (the threshold is 4) and a tiny goodness-of-fit p-value
+    # χ²/dof far above 1 and a tiny goodness-of-fit p-value (scipy.stats.chi2.sf)
     assert fit_known.redchi > 4 and fit_known.chisqr_pvalue < 1e-6
+    assert "chi2_high" in [w.code for w in fit_known.warnings]
 
 
 @pytest.mark.parametrize("absolute_sigma", [False, True])

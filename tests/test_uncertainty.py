@@ -656,3 +656,149 @@ def test_mcmc_errors(fit1, monkeypatch):
     monkeypatch.setattr(M, "HAS_EMCEE", False)
     with pytest.raises(ImportError, match=r"isoturnover\[mcmc\]"):
         U.sample(fit1)
+
+
+# ----------------------------------------------------------------------------------------
+# evaluation budgets of profiles and root searches (issue 14, item 7)
+# ----------------------------------------------------------------------------------------
+def _three_pools_on_one_pool_data():
+    """Invented: 11 samples of a one-pool switch (k = 0.08 /d, sd 0.15 ‰), fitted with three
+    pools, so most of the parameters are not identified and the profiles run far out."""
+    t = np.array([0, 2, 4, 7, 10, 14, 21, 28, 42, 56, 70], dtype=float)
+    rng = np.random.default_rng(4)
+    y = -24 + 6 * (1 - np.exp(-0.08 * t)) + rng.normal(0, 0.15, t.size)
+    return iso.TurnoverModel(3).fit(t, y, warn=False)
+
+
+def _joint_growth_fit_with_a_vanishing_pool():
+    """Invented: a growing animal (k_g = 0.01 /d) with a second pool of 2 % (k_d = 0.005 /d)
+    that the δ data barely see, δ and body masses fitted jointly."""
+    rng = np.random.default_rng(0)
+    t = np.array([0, 3, 7, 10, 14, 21, 28, 35, 42, 56, 70, 84], dtype=float)
+    kg, kd1, kd2, f2 = 0.01, 0.05, 0.005, 0.02
+    y = -24 + 8 * (1 - (1 - f2) * np.exp(-(kd1 + kg) * t) - f2 * np.exp(-(kd2 + kg) * t))
+    y = y + rng.normal(0, 0.15, t.size)
+    tm = np.array([0, 14, 28, 42, 56, 70, 84], dtype=float)
+    w = 20 * np.exp(kg * tm) * np.exp(rng.normal(0, 0.02, tm.size))
+    return iso.TurnoverModel(2, growth="exponential").fit(t, y, masses=(tm, w), warn=False)
+
+
+class _Runaway(Exception):
+    """Raised by the call counters below: a search that would otherwise run on."""
+
+
+def _count(monkeypatch, owner, name, counts, cap=None):
+    orig = getattr(owner, name)
+
+    def counted(*args, **kwargs):
+        counts[name] = counts.get(name, 0) + 1
+        if cap is not None and counts[name] > cap:
+            raise _Runaway(f"{name} called more than {cap} times")
+        return orig(*args, **kwargs)
+
+    monkeypatch.setattr(owner, name, counted)
+
+
+def test_find_bound_stops_when_its_budget_is_spent():
+    from isoturnover.profiles import BudgetExhausted, EvaluationBudget, find_bound
+
+    budget = EvaluationBudget(500)
+    calls = []
+
+    def flat(u):  # a profile that never leaves zero: the search would run to its limit
+        budget.spend(37)
+        calls.append(u)
+        return 0.0, 0.0, True, ""
+
+    res = find_bound(flat, 0.0, 1, 1.0, 1e300, 3.84, max_refits=10**6, budget=budget)
+    assert (res.status, res.reason) == ("failed", "budget")
+    assert math.isnan(res.u)
+    # charged before each refit: 14 charges of 37 reach 500, and nothing more is charged
+    assert len(calls) == math.ceil(500 / 37) and budget.used == 37 * len(calls)
+    # a budget spent inside a refit ends the search the same way
+    inner = EvaluationBudget(3)
+
+    def costly(u):
+        for _ in range(10):
+            inner.spend()
+        return 1.0, 1.0, True, ""
+
+    res = find_bound(costly, 0.0, -1, 1.0, -50.0, 3.84, budget=inner)
+    assert (res.status, res.reason, res.refits) == ("failed", "budget", 1)
+    with pytest.raises(BudgetExhausted):
+        inner.spend()
+    # without a budget the refit count still bounds the search
+    res = find_bound(lambda u: (0.0, 0.0, True, ""), 0.0, 1, 1.0, 1e300, 3.84, max_refits=25)
+    assert (res.status, res.reason, res.refits) == ("failed", "max_refits", 25)
+
+
+def test_three_pool_time_to_profile_keeps_its_budget(monkeypatch):
+    from isoturnover import kinetics, profiles, quantities
+    from isoturnover.conventions import STATUSES
+
+    fit = _three_pools_on_one_pool_data()
+    budget = 3000
+    monkeypatch.setattr(profiles, "MAX_EVALUATIONS", budget, raising=False)
+    counts = {}
+    _count(monkeypatch, quantities, "time_to", counts)
+    _count(monkeypatch, kinetics.TurnoverKinetics, "evaluate", counts)
+    tt = fit.time_to(0.95)
+    assert set(tt[["lower_status", "upper_status"]].iloc[0]) <= set(STATUSES)
+    # two sides, each at most `budget` charges; a charge is one evaluation of the model, or
+    # of the quantity (plus the one inside its gradient); a few more to set up
+    assert counts["time_to"] <= 2 * 2 * budget + 50
+    assert counts["evaluate"] <= 2 * budget + 50
+    # the profile itself reports what each side spent
+    r = U.time_to_profile(fit, 0.95, max_evaluations=budget)
+    assert all(e <= budget for e in r.evaluations)
+    for status, reason in zip((r.lower_status, r.upper_status), r.reasons):
+        assert status in STATUSES and (reason == "" or status == "failed")
+    # the whole table: every profile ends with a status from the list
+    table = fit.table()
+    assert set(table["lower_status"]) | set(table["upper_status"]) <= set(STATUSES)
+
+
+def test_budget_spent_is_a_failed_bound_with_its_reason():
+    fit = _three_pools_on_one_pool_data()
+    r = U.time_to_profile(fit, 0.95, max_evaluations=40)
+    assert r.lower_status == r.upper_status == "failed"
+    assert r.reasons == ("budget", "budget")
+    assert math.isnan(r.lower) and math.isnan(r.upper)
+    assert r.evaluations == (40, 40)
+    from isoturnover import profiles
+
+    iv = profiles.parameter_interval(fit.state, "k3", max_evaluations=30)
+    assert (iv.lower_status, iv.upper_status) == ("failed", "failed")
+    iv = profiles.parameter_interval(fit.state, "k3")
+    assert "failed" not in (iv.lower_status, iv.upper_status)
+
+
+def test_time_to_profile_of_a_joint_growth_fit_ends(monkeypatch):
+    from isoturnover import derived, quantities
+    from isoturnover.conventions import STATUSES
+
+    fit = _joint_growth_fit_with_a_vanishing_pool()
+    kin = fit.kinetics
+    # the profile never hands the quantity a parameter vector outside the model's domain
+    # (an incorporation rate k_i + k_g <= 0: the change is never completed there)
+    seen = []
+
+    def t95(th):
+        kappa = th[kin.rate_index] + th[kin.growth_rate_index]
+        seen.append(float(kappa.min()))
+        return quantities.time_to(kin, 0.95, th) if kappa.min() > 0 else math.nan
+
+    r = U.profile_derived(fit, t95, name="t95", max_evaluations=20000)
+    assert min(seen) > 0
+    assert all(e <= 20000 for e in r.evaluations)
+    assert {r.lower_status, r.upper_status} <= set(STATUSES)
+    # time to 95 % at a growth rate that makes k2 + k_g negative: NaN, not an endless search
+    counts = {}
+    _count(monkeypatch, quantities, "remaining_after_switch", counts, cap=10**5)
+    bad = fit.state.theta.copy()
+    bad[kin.growth_rate_index] = -0.1
+    assert math.isnan(derived.fit_time_to(fit, 0.95)(bad))
+    # and the fit's own time_to ends with statuses (it ran past 10 minutes before)
+    tt = fit.time_to(0.95).iloc[0]
+    assert tt["lower_status"] in STATUSES and tt["upper_status"] in STATUSES
+    assert tt["lower"] < tt["estimate"]
