@@ -1,7 +1,8 @@
 """The main job end to end: samples in; fits, choices, intervals, figures and a report out.
 
 :func:`analyse` fits every series of a samples table (with diets and masses when given),
-chooses the number of pools by AICc and computes intervals; :class:`Analysis` writes
+chooses each series' model (number of pools, one or per-diet separations) by AICc and
+computes intervals; :class:`Analysis` writes
 ``results.csv`` (one row per series and candidate), ``fits.json`` (reloadable with
 :func:`load_fits` or, one fit at a time, :func:`~isoturnover.load_fit`), a Markdown and HTML
 report with figures. :func:`run_demo` does all of it on the invented demo experiment.
@@ -408,9 +409,9 @@ def _parse_pools(pools):
 
 def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("parallel",),
             by=None, ci="profile", level=0.95, time_unit="d", growth_curve="logistic",
-            per_diet_separation=False, lag=False, progress=False, n_boot=499, seed=1,
+            per_diet_separation="auto", lag=False, progress=False, n_boot=499, seed=1,
             title="Turnover analysis", n_jobs=1, date_format=None) -> Analysis:
-    """Fit every series of a samples table and choose the number of pools (AICc).
+    """Fit every series of a samples table and choose its model (pools, separation) by AICc.
 
     Parameters
     ----------
@@ -436,8 +437,9 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
         Time unit of the tables.
     growth_curve : str, default="logistic"
         Growth curve fitted to the masses (:func:`~isoturnover.fit_growth`).
-    per_diet_separation : bool, default=False
-        One diet-tissue separation per diet value.
+    per_diet_separation : bool or "auto", default="auto"
+        One diet-tissue separation per diet value (True), one shared by all diets
+        (False), or both as candidates (``"auto"``, see Notes).
     lag : bool, default=False
         Fit a pure delay after each switch.
     progress : bool, default=False
@@ -466,6 +468,22 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
     ------
     DataError
         For a bad table or option, before any series is fitted.
+
+    Notes
+    -----
+    The diet-tissue separation can depend on the diet (Δ15N on its protein quality:
+    Robbins et al. 2005, Oecologia 144:534–540). Forcing one shared separation on such
+    data fixes the size of each step to the change in the diet's value, and the misfit
+    goes into the rates or into a spurious extra pool. With ``"auto"`` every candidate
+    (each number of pools, each structure) is fitted twice where the series' diets table
+    holds two or more distinct known diet values: with one shared separation and with one
+    per diet value (one parameter more per extra value; candidate label ending in
+    ``", separation per diet"``). All candidates of a series are ranked by the same
+    criterion, AICc (Hurvich & Tsai 1989), so the per-diet variant is chosen only when its
+    drop in residual sum of squares pays for its extra parameters: when the data ask for
+    it. A series with a single diet, or without a diets table (a step switch, whose
+    plateaus are free anyway), gets no per-diet variant; nor does one too short for the
+    variant's AICc to be defined.
     """
     from .data import read_diets, read_masses, read_samples
 
@@ -498,9 +516,11 @@ def run_demo(out_dir=None, *, force=False, progress=False, figures=True,
 
     Goats: plasma and red-cell δ13C and plasma δ15N under the pens' diet histories (pen B
     back to hay on day 120), growth dilution from each goat's fitted logistic growth curve
-    (its uncertainty propagated), a separation per ration for δ15N. Breath CO2: a step
-    switch in hours, one to three pools. Fish: a destructive design (one fish per sample)
-    with exponential growth fitted across fish.
+    (its uncertainty propagated). Breath CO2: a step switch in hours, one to three pools.
+    Fish: a destructive design (one fish per sample) with exponential growth fitted across
+    fish. Goats and fish are fitted as :func:`analyse` fits them: every candidate with one
+    shared diet-tissue separation and with one per ration, chosen by AICc (the demo's
+    plasma δ15N separation differs between hay and maize; see :func:`analyse`, Notes).
 
     Parameters
     ----------
@@ -543,18 +563,14 @@ def run_demo(out_dir=None, *, force=False, progress=False, figures=True,
     fd = read_diets(demo_path("fish_diets"))
     fm = read_masses(demo_path("fish_masses"))
     parts = {}
-    parts["goats d13C"] = fit_each(gs[gs["isotope"] == "d13C"], pools=(1, 2), diets=gd,
-                                   masses=gm, growth_curve="logistic", progress=progress,
-                                   n_jobs=workers)
-    parts["goats d15N"] = fit_each(gs[gs["isotope"] == "d15N"], pools=(1, 2), diets=gd,
-                                   masses=gm, growth_curve="logistic",
-                                   per_diet_separation=True, progress=progress,
-                                   n_jobs=workers)
+    common = dict(per_diet_separation="auto", progress=progress, n_jobs=workers)
+    for iso in ("d13C", "d15N"):
+        parts[f"goats {iso}"] = fit_each(gs[gs["isotope"] == iso], pools=(1, 2), diets=gd,
+                                         masses=gm, growth_curve="logistic", **common)
     parts["goat breath"] = fit_each(breath, pools=(1, 2, 3), progress=progress,
                                     n_jobs=workers)
     parts["fish"] = fit_each(fsam, by=("tissue", "isotope"), pools=(1, 2), diets=fd,
-                             masses=fm, growth_curve="exponential", progress=progress,
-                             n_jobs=workers)
+                             masses=fm, growth_curve="exponential", **common)
     a = Analysis(parts, title="Demo analysis (invented data)", n_jobs=workers)
     if a.n_fitted() == 0:  # pragma: no cover - the demo data always fit
         raise FitError("no demo series could be fitted")

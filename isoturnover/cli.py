@@ -123,8 +123,11 @@ def build_parser() -> argparse.ArgumentParser:
                    "without it such dates are refused, as day and month cannot be told apart")
     f.add_argument("--growth-curve", default="logistic",
                    help="growth curve fitted to --masses (logistic, gompertz, exponential, ...)")
-    f.add_argument("--per-diet-separation", action="store_true",
-                   help="one diet-tissue separation per diet value")
+    f.add_argument("--per-diet-separation", nargs="?", const="yes", default="auto",
+                   choices=("auto", "yes", "no"),
+                   help="one diet-tissue separation per diet value: 'auto' (default) also "
+                        "fits each model with a separation per diet and lets the criterion "
+                        "choose; 'yes' always, 'no' never")
     f.add_argument("--lag", action="store_true", help="fit a pure delay after each switch")
     f.add_argument("--jobs", metavar="N", type=_jobs, default=1,
                    help="run the series' fits and bootstrap refits in N parallel processes "
@@ -172,7 +175,8 @@ def _cmd_fit(args):
     a = analyse(args.samples, diets=args.diets, masses=args.masses, pools=args.pools,
                 structures=structures, by=by, ci=args.ci, level=args.level,
                 time_unit=args.time_unit, growth_curve=args.growth_curve,
-                per_diet_separation=args.per_diet_separation, lag=args.lag,
+                per_diet_separation={"auto": "auto", "yes": True,
+                                     "no": False}[args.per_diet_separation], lag=args.lag,
                 progress=_progress_default(args), n_boot=args.n_boot, n_jobs=jobs,
                 date_format=args.date_format)
     if a.n_fitted() == 0:

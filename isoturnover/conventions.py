@@ -9,11 +9,15 @@ allowed values and what was given.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
+
 import numpy as np
 
 from .errors import DataError
 
 __all__ = [
+    "check_name_tuple",
+    "check_pool_numbers",
     "check_named_values",
     "METHODS",
     "STATUSES",
@@ -261,3 +265,85 @@ def check_named_values(what: str, values, allowed, *, owner: str = "",
                 raise DataError(f"'{what}[{name!r}]' {requirement}; got {val!r:.80}")
         out[name] = x
     return out
+
+
+def check_name_tuple(what, value, example):
+    """A non-empty tuple of distinct strings from a string or a sequence of strings.
+
+    Parameters
+    ----------
+    what : str
+        The argument's name, for messages.
+    value : str or sequence of str
+        What was given.
+    example : str
+        An example of a good value, for messages.
+
+    Returns
+    -------
+    tuple of str
+
+    Raises
+    ------
+    DataError
+        For another type, an empty sequence, a non-string entry or a repeated name.
+    """
+    if isinstance(value, str):
+        return (value,)
+    if isinstance(value, Mapping) or not isinstance(value, (list, tuple, np.ndarray, range)):
+        raise DataError(f"'{what}' must be a string or a sequence of strings ({example}); got "
+                        f"{value!r} ({type(value).__name__})")
+    out = tuple(value)
+    if not out:
+        raise DataError(f"'{what}' is empty: give at least one ({example})")
+    bad = [v for v in out if not isinstance(v, str)]
+    if bad:
+        raise DataError(f"'{what}' entries must be strings ({example}); got {bad[0]!r} "
+                        f"({type(bad[0]).__name__})")
+    dup = sorted({v for v in out if out.count(v) > 1})
+    if dup:
+        raise DataError(f"'{what}' names {', '.join(map(repr, dup))} more than once; got "
+                        f"{value!r}")
+    return out
+
+
+def check_pool_numbers(pools, structures, max_pools):
+    """``pools`` as a tuple of distinct pool numbers (empty only without parallel models).
+
+    A bare integer is one candidate; a string, a float, None or a mapping is refused with
+    a DataError naming what is expected (not the TypeError of iterating it).
+
+    Parameters
+    ----------
+    pools : int or sequence of int
+        Pool numbers of the candidate models.
+    structures : sequence of str
+        The structures asked for (``"parallel"``, ``"chain"``).
+    max_pools : int
+        The largest number of pools a model may have.
+
+    Returns
+    -------
+    tuple of int
+    """
+    MAX_POOLS = max_pools
+    example = f"integers from 1 to {MAX_POOLS}, e.g. pools=2 or pools=(1, 2)"
+    if isinstance(pools, (int, np.integer)) and not isinstance(pools, bool):
+        pools = (pools,)
+    elif isinstance(pools, Mapping) or not isinstance(pools, (list, tuple, np.ndarray, range)):
+        raise DataError(f"'pools' must be a number of pools or a sequence of them ({example}); "
+                        f"got {pools!r} ({type(pools).__name__})")
+    pools = tuple(pools)
+    for p in pools:
+        if isinstance(p, bool) or not isinstance(p, (int, np.integer)) \
+                or not 1 <= p <= MAX_POOLS:
+            raise DataError(f"'pools' entries must be integers from 1 to {MAX_POOLS}; got "
+                            f"{p!r} ({type(p).__name__}); e.g. pools=2 or pools=(1, 2)")
+    dup = sorted({int(p) for p in pools if pools.count(p) > 1})
+    if dup:
+        raise DataError(f"'pools' names {', '.join(map(str, dup))} more than once; got "
+                        f"{pools!r}")
+    if not pools and "parallel" in structures:
+        raise DataError(f"'pools' is empty, so no parallel model would be fitted: give "
+                        f"{example} (or structures=('chain',) alone)")
+    return tuple(int(p) for p in pools)

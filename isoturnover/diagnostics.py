@@ -4,8 +4,9 @@
 :class:`~isoturnover.engine.FitState`) and returns :class:`TrustNote` objects: parameter at a
 bound, a rate too fast for the sampling to resolve, pools too close to separate, tiny pool,
 |correlation| near 1, no or too few samples after the switch, plateau not reached (judged by
-the incorporation rates when growth is modelled), optimizer not converged, a χ² test against
-known σ, and the growth-dilution signals. Each becomes a warning of the fit and a numbered
+the incorporation rates when growth is modelled), the first diet's start (equilibrium with
+a first diet fed for a known time assumed), optimizer not converged, a χ² test against known
+σ, and the growth-dilution signals. Each becomes a warning of the fit and a numbered
 note of its summary. :func:`after_switch_reason` and :func:`open_unresolved` are the checks
 that series tables and interval tables share with these notes.
 """
@@ -29,7 +30,8 @@ from .errors import (
 )
 
 __all__ = ["TrustNote", "trust_notes", "slowest_rate", "plateau_time", "unresolved_rates",
-           "open_unresolved", "after_switch_reason", "FAST_LIMIT", "CHI2_ALPHA"]
+           "open_unresolved", "after_switch_reason", "first_diet_half_lives", "FAST_LIMIT",
+           "CHI2_ALPHA", "EQUILIBRIUM_HALF_LIVES"]
 
 LN2 = math.log(2.0)
 
@@ -41,6 +43,10 @@ FAST_LIMIT = 20.0
 #: Level of the χ² test of the scatter against σ treated as known (``chi2_high``).
 CHI2_ALPHA = 1e-3
 
+#: Half-lives of feeding after which a tissue is taken to be at equilibrium with a diet
+#: (:math:`2^{-5} \approx 3\,\%` of the change left; common practice, not a published rule).
+EQUILIBRIUM_HALF_LIVES = 5.0
+
 
 @dataclass(frozen=True)
 class TrustNote:
@@ -51,7 +57,7 @@ class TrustNote:
     code : str
         Short name of the signal (``"at_bound"``, ``"unidentifiable"``, ``"pools_close"``,
         ``"tiny_pool"``, ``"correlation"``, ``"no_sample_after_switch"``, ``"few_points"``,
-        ``"plateau_not_reached"``, ``"not_converged"``, ``"singular"``,
+        ``"plateau_not_reached"``, ``"first_diet_start"``, ``"not_converged"``, ``"singular"``,
         ``"growth_dominates"``, ``"mass_coverage"``, ``"chi2_high"``).
     category : type
         The warning class it is issued as (a subclass of
@@ -90,9 +96,11 @@ def trust_notes(fit) -> list:
     of the isotopic change up to the last sample carried by the growth flux,
     :func:`isoturnover.quantities.growth_share_at`; :math:`k_g/(k_g + k_d)` for one pool
     with exponential growth; common practice), masses covering less than the samples' span
-    minus 10 % at either end, and, with σ known, the χ² test of the weighted residual sum
-    of squares on the fit's degrees of freedom, :math:`P(\\chi^2_{dof} \\ge RSS) <`
-    :data:`CHI2_ALPHA` (``scipy.stats.chi2.sf``).
+    minus 10 % at either end, a first diet whose start is known but not the diet before it
+    (equilibrium with it assumed; the note gives :func:`first_diet_half_lives` and offers
+    ``initial="free"`` below :data:`EQUILIBRIUM_HALF_LIVES`), and, with σ known, the χ² test
+    of the weighted residual sum of squares on the fit's degrees of freedom,
+    :math:`P(\\chi^2_{dof} \\ge RSS) <` :data:`CHI2_ALPHA` (``scipy.stats.chi2.sf``).
 
     Parameters
     ----------
@@ -237,6 +245,9 @@ def trust_notes(fit) -> list:
                 f"the last sample ({span:.4g} {unit} after the first switch) comes before "
                 f"two half-lives of the slowest pool{judged} {when}: the new plateau is "
                 "extrapolated and the slow half-life is poorly bounded"))
+    note = _first_diet_note(fit)
+    if note is not None:
+        notes.append(note)
     if kin.growth_kind is not None and span > 0:
         t_end = float(fit.t.max())
         try:
@@ -279,6 +290,71 @@ def trust_notes(fit) -> list:
                 "(usual for living animals); the intervals are too narrow — refit with "
                 "absolute_sigma=False"))
     return notes
+
+
+def first_diet_half_lives(fit):
+    r"""How many half-lives of the slowest pool the first diet had been fed by the first switch.
+
+    Applies when the diet history says when the first diet began (``diet.start``) but not
+    what was eaten before it, so the model assumes the tissue was at equilibrium with the
+    first diet. The slowest pool's old material left at the switch :math:`s_1` is
+    :math:`e^{-k(s_1 - s_0)}\,W(s_0)/W(s_1)` (growth dilution, Hesslein et al. 1993), so the
+    number of half-lives is :math:`[k(s_1 - s_0) + \ln W(s_1) - \ln W(s_0)]/\ln 2` with
+    :math:`k` the smallest catabolic rate (by hand; :math:`(k + k_g)(s_1 - s_0)/\ln 2` for
+    exponential growth, :math:`k (s_1 - s_0)/\ln 2` without growth); for the chain
+    :math:`k` is :func:`slowest_rate`.
+
+    Parameters
+    ----------
+    fit : TurnoverFit
+        A finished fit.
+
+    Returns
+    -------
+    float or None
+        The number of half-lives (dimensionless); None when it does not apply (no diet
+        history, no ``start``, the diet before it known and modelled, or
+        ``initial="free"``).
+    """
+    kin = fit.kinetics
+    diet = kin.diet
+    if (diet is None or diet.start is None or kin.lead_in is not None
+            or kin.initial != "equilibrium"):
+        return None
+    s0, s1 = float(diet.start), float(kin.switch_times[0])
+    theta = np.asarray(fit.state.theta, dtype=float)
+    if kin.structure == "chain":
+        return slowest_rate(fit) * (s1 - s0) / LN2
+    k = float(np.min(theta[list(kin.rate_index)]))
+    lw = kin.log_mass(np.array([s0, s1]), theta)
+    return (k * (s1 - s0) + float(lw[1] - lw[0])) / LN2
+
+
+def _first_diet_note(fit):
+    """The ``first_diet_start`` note, or None (see :func:`first_diet_half_lives`)."""
+    n = first_diet_half_lives(fit)
+    if n is None or not math.isfinite(n):
+        return None
+    kin = fit.kinetics
+    diet = kin.diet
+    unit = unit_word(fit.time_unit)
+    first = "unknown" if not math.isfinite(diet.initial) else f"{diet.initial:g} ‰"
+    judged = ""
+    if kin.growth_kind is not None:
+        kg = "k_g(t)" if kin.growth_kind in ("curve", "curve_params") else "k_g"
+        judged = f" (judged by its incorporation rate k_d + {kg})"
+    msg = (f"the model assumes the tissue was at equilibrium with the first diet ({first}, "
+           f"fed from t = {diet.start:g} {unit}); by the first switch (t = "
+           f"{float(kin.switch_times[0]):g} {unit}) it had been fed for {n:.3g} half-lives "
+           f"of the slowest pool{judged} (common practice: 5 half-lives ≈ 97 % "
+           "equilibrated)")
+    if n < EQUILIBRIUM_HALF_LIVES:
+        msg += (": the tissue may not have reached it. Give the diet eaten before it "
+                "(DietHistory(..., previous=δ) or from_table(..., previous=δ)) to solve the "
+                'whole history, or fit the starting state with initial="free"')
+    else:
+        msg += "; give the diet eaten before it (previous=δ) to solve the whole history"
+    return TrustNote("first_diet_start", DesignWarning, msg)
 
 
 def slowest_rate(fit) -> float:

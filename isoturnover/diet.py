@@ -1,9 +1,15 @@
 """Piecewise-constant diet histories.
 
-A :class:`DietHistory` is the sequence of diets an animal ate: an initial diet (eaten long
-enough before the first switch for the tissue to be at equilibrium with it, unless the model
-says otherwise) and a list of changes ``(time, value)``. Between switch times the diet is
-constant, so the kinetic models solve it exactly from switch to switch.
+A :class:`DietHistory` is the sequence of diets an animal ate: an initial diet and a list of
+changes ``(time, value)``. Between switch times the diet is constant, so the kinetic models
+solve it exactly from switch to switch.
+
+When the initial diet began is known (``start``; a diets table's first row gives it) and so is
+the diet eaten before it (``previous``), the models start the tissue at equilibrium with that
+earlier diet at ``start`` and follow the whole history. Without ``previous`` the tissue is
+assumed to be at equilibrium with the initial diet at the first switch (unless the model says
+otherwise), and a fit's trust notes say how many half-lives of the slowest pool the initial
+diet had been fed by then.
 
 A diet value may be unknown (``None`` or NaN): the model then fits the tissue's plateau for
 that diet instead of computing it from the diet value and the separation.
@@ -27,6 +33,19 @@ def _try_float(v):
         return float(v)
     except (TypeError, ValueError):
         return None
+
+
+def _as_start(start, times: list) -> float | None:
+    """The time the initial diet began: None, or a finite number before the first change."""
+    if start is None:
+        return None
+    x = _try_float(start)
+    if x is None or isinstance(start, bool) or not math.isfinite(x):
+        raise DataError(f"'start' must be a finite number or None; got {start!r}")
+    if times and x >= times[0]:
+        raise DataError(f"'start' (when the first diet began) must come before the first "
+                        f"change (t = {times[0]:g}); got {x:g}")
+    return x
 
 
 def _as_value(v, what: str) -> float:
@@ -56,6 +75,13 @@ class DietHistory:
         Each change: the time the new diet begins (in the samples' time unit, from the
         experiment's time origin) and its value (``None`` for unknown). Times must be finite
         and strictly increasing.
+    start : float, optional
+        Time the initial diet began (same unit and origin), before the first change. None
+        (the default): long before, the tissue at equilibrium with it.
+    previous : float or None, optional
+        δ (‰) of the diet eaten before ``start`` (needs ``start``). When known, the model
+        starts the tissue at equilibrium with it at ``start`` and solves the whole history;
+        None (the default): unknown, equilibrium with the initial diet is assumed.
     isotope : str, optional
         Isotope code the values refer to (``"d13C"``, ...), for labels and checks.
     label : str, optional
@@ -64,9 +90,10 @@ class DietHistory:
     Raises
     ------
     DataError
-        When a value is not a number or None, a change is not a pair, or the switch times
-        are not finite and strictly increasing; the message names ``initial`` or
-        ``changes[i]``.
+        When a value is not a number or None, ``changes`` is not a sequence of pairs, the
+        switch times are not finite and strictly increasing, ``start`` is not a finite number
+        before the first change, or ``previous`` is given without ``start``; the message
+        names ``initial``, ``changes``, ``changes[i]``, ``start`` or ``previous``.
 
     Examples
     --------
@@ -82,12 +109,17 @@ class DietHistory:
         initial,
         changes: Iterable[Sequence] = (),
         *,
+        start: float | None = None,
+        previous=None,
         isotope: str | None = None,
         label: str | None = None,
     ):
         init = _as_value(initial, "initial")
         times: list[float] = []
         values: list[float] = [init]
+        if isinstance(changes, (str, bytes)) or not isinstance(changes, Iterable):
+            raise DataError("'changes' must be a sequence of (time, value) pairs, e.g. "
+                            f"[(0.0, -12.0)]; got {type(changes).__name__} {changes!r:.60}")
         for i, ch in enumerate(changes):
             try:
                 t, v = ch
@@ -108,6 +140,11 @@ class DietHistory:
                 )
             times.append(tf)
             values.append(_as_value(v, f"changes[{i}]"))
+        self._start = _as_start(start, times)
+        self._previous = _as_value(previous, "previous")
+        if self._start is None and math.isfinite(self._previous):
+            raise DataError(f"'previous' (the diet before the first) needs 'start', the time "
+                            f"the first diet began; got previous={previous!r} without it")
         self._times = np.asarray(times, dtype=float)
         self._values = np.asarray(values, dtype=float)
         self.isotope = isotope
@@ -143,11 +180,13 @@ class DietHistory:
 
     @classmethod
     def from_table(cls, frame, *, time_column: str = "start", value_column: str = "value",
-                   isotope: str | None = None, label: str | None = None) -> DietHistory:
+                   previous=None, isotope: str | None = None,
+                   label: str | None = None) -> DietHistory:
         """Build a history from the rows of a diets table (one group and one isotope).
 
-        The earliest row is the initial diet (its start time only orders it); every later row
-        is a change. A blank value means the diet's value is unknown and its plateau is fitted.
+        The earliest row is the initial diet, its start time the history's ``start``; every
+        later row is a change. A blank value means the diet's value is unknown and its plateau
+        is fitted.
 
         Parameters
         ----------
@@ -158,6 +197,9 @@ class DietHistory:
             Column of the times each diet begins (samples' time unit, days by default).
         value_column : str, default="value"
             Column of the diets' δ (‰); blank (NaN) for unknown.
+        previous : float or None, optional
+            δ (‰) of the diet eaten before the first row's; when given the whole history is
+            solved from equilibrium with it (see :class:`DietHistory`).
         isotope : str, optional
             Isotope code; default: the first value of an ``isotope`` column, if any.
         label : str, optional
@@ -204,14 +246,24 @@ class DietHistory:
             )
         if isotope is None and "isotope" in frame.columns and len(frame):
             isotope = str(frame["isotope"].iloc[0])
-        return cls(vals[0], changes=list(zip(starts[1:], vals[1:])), isotope=isotope,
-                   label=label)
+        return cls(vals[0], changes=list(zip(starts[1:], vals[1:])), start=float(starts[0]),
+                   previous=previous, isotope=isotope, label=label)
 
     # -- properties -----------------------------------------------------------------------
     @property
     def initial(self) -> float:
         """Value of the initial diet (NaN when unknown)."""
         return float(self._values[0])
+
+    @property
+    def start(self) -> float | None:
+        """Time the initial diet began (None: long before the first change)."""
+        return self._start
+
+    @property
+    def previous(self) -> float:
+        """Value of the diet eaten before :attr:`start` (NaN when unknown or not given)."""
+        return float(self._previous)
 
     @property
     def switch_times(self) -> np.ndarray:
@@ -281,12 +333,14 @@ class DietHistory:
         Returns
         -------
         dict
-            Keys ``initial``, ``changes`` (list of ``[time, value]``), ``isotope``,
-            ``label``; unknown values as ``None``.
+            Keys ``initial``, ``changes`` (list of ``[time, value]``), ``start``,
+            ``previous``, ``isotope``, ``label``; unknown values as ``None``.
         """
         init = None if not np.isfinite(self._values[0]) else float(self._values[0])
+        prev = float(self._previous) if math.isfinite(self._previous) else None
         return {"initial": init, "changes": [list(c) for c in self.changes],
-                "isotope": self.isotope, "label": self.label}
+                "start": self._start, "previous": prev, "isotope": self.isotope,
+                "label": self.label}
 
     @classmethod
     def from_dict(cls, d: dict) -> DietHistory:
@@ -295,8 +349,8 @@ class DietHistory:
         Parameters
         ----------
         d : dict
-            A dict with keys ``initial`` and ``changes`` (and optionally ``isotope``,
-            ``label``), as made by :meth:`to_dict`. Not modified.
+            A dict with keys ``initial`` and ``changes`` (and optionally ``start``,
+            ``previous``, ``isotope``, ``label``), as made by :meth:`to_dict`. Not modified.
 
         Returns
         -------
@@ -316,18 +370,24 @@ class DietHistory:
         except TypeError:
             raise DataError(f"'d': 'changes' must be a list of [time, value] pairs; got "
                             f"{d['changes']!r:.80}") from None
-        return cls(d["initial"], changes=changes, isotope=d.get("isotope"),
-                   label=d.get("label"))
+        return cls(d["initial"], changes=changes, start=d.get("start"),
+                   previous=d.get("previous"), isotope=d.get("isotope"), label=d.get("label"))
 
     def __eq__(self, other) -> bool:
         if not isinstance(other, DietHistory):
             return NotImplemented
         return (np.array_equal(self._times, other._times)
-                and np.array_equal(self._values, other._values, equal_nan=True))
+                and np.array_equal(self._values, other._values, equal_nan=True)
+                and self._start == other._start
+                and np.array_equal(self._previous, other._previous, equal_nan=True))
 
     def __repr__(self) -> str:
         def fmt(v):
             return "unknown" if not np.isfinite(v) else f"{v:g}"
         parts = [f"initial={fmt(self._values[0])}"]
+        if self._start is not None:
+            parts[0] += f" from t={self._start:g}"
+            if np.isfinite(self._previous):
+                parts.insert(0, f"previous={self._previous:g}")
         parts += [f"t={t:g}: {fmt(v)}" for t, v in zip(self._times, self._values[1:])]
         return f"DietHistory({', '.join(parts)})"

@@ -13,13 +13,14 @@ values in :mod:`isoturnover.starts`, the variable-projection fit of sums of expo
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
 from scipy.optimize import least_squares, leastsq
 
 from .coordinates import Coordinates, Ties
-from .errors import DataError, FitError
+from .errors import DataError, DataWarning, FitError
 from .inputs import as_1d, check_growth_coverage, check_names, prepare_data
 from .kinetics import TurnoverKinetics
 from .projection import project_exponentials
@@ -28,6 +29,9 @@ from .state import FitState
 
 __all__ = [
     "LOSSES",
+    "SIGMA_RANGE",
+    "relative_sigma",
+    "sigma_scale_message",
     "Coordinates",
     "Ties",
     "Solution",
@@ -43,6 +47,78 @@ __all__ = [
 ]
 
 LOSSES = ("linear", "soft_l1", "huber")
+
+#: Standard deviations inside this range keep the weights 1/σ², the weighted sums of
+#: squares, their gradients and the squares of those well inside double precision
+#: (about 1e±308); σ outside it are rescaled (relative weights) or refused (absolute).
+SIGMA_RANGE = (1e-50, 1e50)
+
+
+def relative_sigma(sigma, absolute_sigma: bool, name: str = "sigma"):
+    r"""The standard deviations a least-squares fit works with, and the factor applied.
+
+    With relative weights (``absolute_sigma=False``) only the ratios of the σ matter: for
+    any :math:`c > 0`, :math:`\sum (r_i / c\sigma_i)^2 = c^{-2} \sum (r_i/\sigma_i)^2`,
+    so the minimiser and :math:`s^2 (J^T J)^{-1}` are unchanged. When some σ lie outside
+    :data:`SIGMA_RANGE`, they are divided by their geometric mean
+    :math:`g = \exp(\overline{\ln \sigma})` so that the sums of squares stay
+    representable; the fit's RSS and information criteria then refer to the rescaled σ.
+    Known σ (``absolute_sigma=True``) set the scale of the covariance and are never
+    rescaled: outside the range they are refused.
+
+    Parameters
+    ----------
+    sigma : ndarray of shape (n,) or None
+        Standard deviations (> 0, finite; unit of the values).
+    absolute_sigma : bool
+        Whether σ are the known sd (True) or relative weights (False).
+    name : str, optional
+        Argument name used in error messages.
+
+    Returns
+    -------
+    (ndarray or None, float)
+        The σ to fit with and the factor g they were divided by (1.0 when unchanged).
+
+    Raises
+    ------
+    DataError
+        Known σ outside :data:`SIGMA_RANGE`; relative σ whose largest is more than 1e50
+        times the smallest (rescaling cannot bring both into range), or with subnormal
+        values (below 2.2e-308: too few significant digits for exact ratios).
+    """
+    if sigma is None:
+        return None, 1.0
+    s = np.asarray(sigma, dtype=float)
+    lo, hi = SIGMA_RANGE
+    s_min, s_max = float(np.min(s)), float(np.max(s))
+    if lo <= s_min and s_max <= hi:
+        return s, 1.0
+    given = f"got values from {s_min:.3g} to {s_max:.3g}"
+    if absolute_sigma:
+        raise DataError(
+            f"'{name}' with absolute_sigma=True must lie between {lo:g} and {hi:g} (the "
+            f"weights 1/σ² and the χ² must stay within double precision); {given}; check that "
+            "the sd are in the unit of the values, or use absolute_sigma=False")
+    if s_min < np.finfo(float).tiny:
+        raise DataError(
+            f"'{name}' holds values below {np.finfo(float).tiny:.3g} (subnormal numbers, "
+            f"with too few significant digits for the ratios that set the weights); {given}")
+    if s_max / s_min > hi:
+        raise DataError(
+            f"'{name}' spans {s_min:.3g} to {s_max:.3g}, a ratio beyond {hi:g}: the weights "
+            "1/σ² of the smallest and the largest cannot both be held in double precision; "
+            "check the sd values")
+    g = math.exp(float(np.mean(np.log(s))))
+    return s / g, g
+
+
+def sigma_scale_message(name: str, g: float) -> str:
+    """The warning that a fit's relative σ were divided by their geometric mean ``g``."""
+    return (f"'{name}': the standard deviations lie outside {SIGMA_RANGE[0]:g} to "
+            f"{SIGMA_RANGE[1]:g}; with relative weights only their ratios matter, so they were "
+            f"divided by their geometric mean {g:.3g}: the fit's sigma, RSS and information "
+            "criteria refer to the rescaled values (estimates and intervals are unchanged)")
 
 
 # ----------------------------------------------------------------------------------------
@@ -136,7 +212,7 @@ class Problem:
         """
         kin = self.kin
         return (kin.structure == "parallel" and kin.growth_kind is None and not kin.lag
-                and kin.scale == "delta" and kin.n_levels == 2
+                and kin.scale == "delta" and kin.n_levels == 2 and kin.lead_in is None
                 and kin.switch_times.size == 1 and self.loss == "linear"
                 and self.extra is None and coords.ties is None and not coords.has_bounds
                 and self.t.size > 2 * kin.pools + 1)
@@ -484,6 +560,10 @@ class Engine:
     def __init__(self, kin, data, *, absolute_sigma=False, loss="linear", masses=None,
                  ties=None, bounds=None):
         self.kin = kin
+        # relative σ far from 1 are divided by their geometric mean (see relative_sigma)
+        sigma, self.sigma_scale = relative_sigma(data["sigma"], absolute_sigma)
+        if self.sigma_scale != 1.0:
+            data = {**data, "sigma": sigma}
         self.data = data
         self.ties = ties
         self.bounds = dict(bounds or {})
@@ -552,8 +632,21 @@ class Engine:
     def fit_best(self, fixed, init, use_lmfit=False):
         """Best fit from the automatic starts (and ``init``): every start on a modest budget,
         the best polished to tight tolerances — by :meth:`Problem.solve_lmfit` (lmfit's
-        Minimizer) when ``use_lmfit``. Returns (solution, number of starts tried)."""
+        Minimizer) when ``use_lmfit``. Returns (solution, number of starts tried).
+
+        A series whose values do not change at all is refused (:class:`FitError`): no rate
+        can be estimated from it (free levels match it at any rate, known levels send the
+        rate to 0), as ``fit_each`` reports it ``no_change``."""
         kin = self.kin
+        if self.y.size > 1 and np.ptp(self.y) == 0:
+            unit = " ‰" if kin.scale == "delta" else ""
+            raise FitError(
+                f"the values do not change: all {self.y.size} equal {float(self.y[0]):g}{unit}; "
+                "a turnover curve cannot be fitted to a series without change (fit_each "
+                "reports such a series as 'no_change')")
+        if self.sigma_scale != 1.0:
+            warnings.warn(sigma_scale_message("sigma", self.sigma_scale), DataWarning,
+                          stacklevel=3)
         coords = self.coords(fixed)
         n_keep = 1 if kin.pools == 1 else 4
         if kin.structure == "chain":

@@ -25,7 +25,14 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .conventions import check_choice, check_level, check_method, check_n_jobs
+from .conventions import (
+    check_choice,
+    check_level,
+    check_method,
+    check_n_jobs,
+    check_name_tuple,
+    check_pool_numbers,
+)
 from .diagnostics import after_switch_reason
 from .diet import DietHistory
 from .engine import Coordinates, check_names
@@ -379,69 +386,39 @@ def _interval_columns(f, vals, level_names, level, method) -> dict:
     return row
 
 
-def _names(what, value, example):
-    """A non-empty tuple of distinct strings from a string or a sequence of strings."""
-    if isinstance(value, str):
-        return (value,)
-    if isinstance(value, Mapping) or not isinstance(value, (list, tuple, np.ndarray, range)):
-        raise DataError(f"'{what}' must be a string or a sequence of strings ({example}); got "
-                        f"{value!r} ({type(value).__name__})")
-    out = tuple(value)
-    if not out:
-        raise DataError(f"'{what}' is empty: give at least one ({example})")
-    bad = [v for v in out if not isinstance(v, str)]
-    if bad:
-        raise DataError(f"'{what}' entries must be strings ({example}); got {bad[0]!r} "
-                        f"({type(bad[0]).__name__})")
-    dup = sorted({v for v in out if out.count(v) > 1})
-    if dup:
-        raise DataError(f"'{what}' names {', '.join(map(repr, dup))} more than once; got "
-                        f"{value!r}")
-    return out
+#: Label suffix of a candidate's variant with one separation per diet value.
+PER_DIET_LABEL = ", separation per diet"
 
 
-def _check_pools(pools, structures):
-    """``pools`` as a tuple of distinct pool numbers (empty only without parallel models).
-
-    A bare integer is one candidate; a string, a float, None or a mapping is refused with
-    a DataError naming what is expected (not the TypeError of iterating it)."""
-    example = f"integers from 1 to {MAX_POOLS}, e.g. pools=2 or pools=(1, 2)"
-    if isinstance(pools, (int, np.integer)) and not isinstance(pools, bool):
-        pools = (pools,)
-    elif isinstance(pools, Mapping) or not isinstance(pools, (list, tuple, np.ndarray, range)):
-        raise DataError(f"'pools' must be a number of pools or a sequence of them ({example}); "
-                        f"got {pools!r} ({type(pools).__name__})")
-    pools = tuple(pools)
-    for p in pools:
-        if isinstance(p, bool) or not isinstance(p, (int, np.integer)) \
-                or not 1 <= p <= MAX_POOLS:
-            raise DataError(f"'pools' entries must be integers from 1 to {MAX_POOLS}; got "
-                            f"{p!r} ({type(p).__name__}); e.g. pools=2 or pools=(1, 2)")
-    dup = sorted({int(p) for p in pools if pools.count(p) > 1})
-    if dup:
-        raise DataError(f"'pools' names {', '.join(map(str, dup))} more than once; got "
-                        f"{pools!r}")
-    if not pools and "parallel" in structures:
-        raise DataError(f"'pools' is empty, so no parallel model would be fitted: give "
-                        f"{example} (or structures=('chain',) alone)")
-    return tuple(int(p) for p in pools)
-
-
-def _candidates(pools, structures):
+def _candidates(pools, structures, per_diet, **options):
+    """(label, structure, pools, per_diet, optional) of every candidate; ``per_diet="auto"``
+    adds after each its optional variant with one separation per diet value. Each model's
+    options are checked here, once (a DataError before any series, not a failed row each)."""
+    auto = isinstance(per_diet, str) and per_diet == "auto"
+    if not (auto or isinstance(per_diet, (bool, np.bool_))):
+        raise DataError(f"'per_diet_separation' must be True, False or 'auto'; got "
+                        f"{per_diet!r} ({type(per_diet).__name__})")
     out = []
     for s in structures:
-        if s == "parallel":
-            for p in pools:
-                if isinstance(p, bool) or not isinstance(p, (int, np.integer)) \
-                        or not 1 <= p <= MAX_POOLS:
-                    raise DataError(f"'pools' entries must be integers from 1 to {MAX_POOLS}; "
-                                    f"got {p!r}")
-                out.append((f"{p} pool{'s' if p > 1 else ''}", "parallel", p))
-        elif s == "chain":
-            out.append(("chain", "chain", 2))
-        else:
+        if s not in ("parallel", "chain"):
             raise DataError(f"'structures' entries must be 'parallel' or 'chain'; got {s!r}")
+        for lab, p in ([(f"{p} pool{'s' if p > 1 else ''}", p) for p in pools]
+                       if s == "parallel" else [("chain", 2)]):
+            _ = TurnoverModel(p, structure=s, **options).kinetics  # its argument checks
+            out += ([(lab, s, p, False, False), (lab + PER_DIET_LABEL, s, p, True, True)]
+                    if auto else [(lab, s, p, bool(per_diet), False)])
     return out
+
+
+def _per_diet_applies(diet, initial, separation):
+    """Whether one separation per diet value adds parameters to this diet history's model:
+    two or more distinct known values among the diets it uses. Never without diets."""
+    try:
+        n = [TurnoverModel(1, diet=diet, initial=initial, separation=separation,
+                           per_diet_separation=v).kinetics.n_level_params for v in (False, True)]
+    except SERIES_ERRORS:
+        return False
+    return diet is not None and n[1] > n[0]
 
 
 def _diet_for(diets, key_map, subject_group, isotope):
@@ -518,8 +495,13 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     progress : bool, default=False
         Show a progress bar (tqdm when installed); with several workers it advances as the
         series come back, in order.
-    per_diet_separation : bool, default=False
-        One separation per diet value (only with ``diets``).
+    per_diet_separation : bool or "auto", default=False
+        One separation per diet value (only with ``diets``). ``"auto"`` fits every
+        candidate both ways, with one shared separation and (label suffix
+        :data:`PER_DIET_LABEL`) one per diet value, and lets ``criterion`` choose among
+        all of them; the per-diet variant of a series is tried only where its diets hold
+        two or more distinct known values (so it adds parameters; never with one diet or
+        without ``diets``) and listed only where its criterion is defined.
     n_jobs : int, default=1
         Series fitted in parallel worker processes (joblib, loky backend); ``-1`` uses all
         cores. The results, and their order, are those of ``n_jobs=1``. Each worker also
@@ -564,12 +546,12 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     if fixed is not None and not isinstance(fixed, dict):
         raise DataError(f"'fixed' must be a dict of parameter name -> value, or None; got "
                         f"{type(fixed).__name__}")
-    by = _names("by", by, "column names, e.g. by=('subject', 'tissue', 'isotope')")
-    structures = _names("structures", structures,
+    by = check_name_tuple("by", by, "column names, e.g. by=('subject', 'tissue', 'isotope')")
+    structures = check_name_tuple("structures", structures,
                         "model structures, e.g. structures=('parallel', 'chain')")
-    pools = _check_pools(pools, structures)
-    cands = _candidates(pools, structures)
-    _check_candidates(cands, lag=lag, separation=separation, initial=initial)
+    pools = check_pool_numbers(pools, structures, MAX_POOLS)
+    cands = _candidates(pools, structures, per_diet_separation, lag=lag,
+                        separation=separation, initial=initial)
     s = _validated(read_samples, samples, "samples", time_unit=_unit_of(samples))
     for col in by:
         if col not in s.columns:
@@ -600,8 +582,7 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     options = dict(diets=diets, masses=masses, criterion=criterion, lag=lag,
                    separation=separation, initial=initial, fixed=fixed,
                    absolute_sigma=absolute_sigma, loss=loss, growth_curve=growth_curve,
-                   average=average_replicates, per_diet_separation=per_diet_separation,
-                   time_unit=time_unit)
+                   average=average_replicates, time_unit=time_unit)
     tasks = [(s.iloc[pos], key, dict(zip(by, key))) for key, pos in groups.items()]
     if workers == 1 or len(tasks) < 2:
         done = [_fit_one(sub, key, key_map, cands, options)
@@ -623,15 +604,6 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     results = {key: r for (_, key, _), r in zip(tasks, done)}
     return FitSet(by, results, criterion=criterion, level=level, method=method,
                   time_unit=time_unit)
-
-
-def _check_candidates(cands, *, lag, separation, initial):
-    """Refuse bad model options once, before any series is fitted (not as a failed row in
-    every series)."""
-    for _, structure, p in cands:
-        # built here only for its argument checks (DataError: 'pools', 'separation', ...)
-        _ = TurnoverModel(p, structure=structure, lag=lag, separation=separation,
-                          initial=initial).kinetics
 
 
 def _fit_one(sub, key, key_map, cands, options, warm=None):
@@ -692,8 +664,7 @@ def _progress(items, progress, desc, total=None):
 
 
 def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, separation,
-                initial, fixed, absolute_sigma, loss, growth_curve, average, time_unit,
-                per_diet_separation=False):
+                initial, fixed, absolute_sigma, loss, growth_curve, average, time_unit):
     res = SeriesResult(key=key)
     # a canonical row order first, so that averaging (floating-point sums) and everything
     # after it do not depend on the order of the input rows
@@ -731,7 +702,8 @@ def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, sepa
     if "sd" in avg.columns and avg["sd"].notna().all():
         sd = avg["sd"].to_numpy(dtype=float)
     # does any sample follow the switch? (before "no change": that is why there is none)
-    switch = float(diet.switch_times[0]) if diet is not None else 0.0
+    # (a single diet has no switch: every candidate says so as "model not valid")
+    switch = float(diet.switch_times[0]) if diet is not None and diet.n_diets > 1 else 0.0
     why = after_switch_reason(t, switch, time_unit)
     if why is not None:
         return _all_failed(res, cands, "too_few_points", why)
@@ -739,18 +711,26 @@ def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, sepa
     if n > 1 and np.ptp(y) == 0:
         return _all_failed(res, cands, "no_change", "all values are equal: nothing to fit")
     ok_any = False
-    for label, structure, p in cands:
+    # an optional (per-diet) variant only where the diets give it more separations, and
+    # only where it can be chosen: valid with 'fixed', its criterion defined
+    if not _per_diet_applies(diet, initial, separation):
+        cands = [c for c in cands if not c[4]]
+    for label, structure, p, per_diet, optional in cands:
         model = TurnoverModel(p, structure=structure, lag=lag, diet=diet,
                               separation=separation, initial=initial, growth=growth,
-                              per_diet_separation=per_diet_separation and diet is not None)
+                              per_diet_separation=per_diet and diet is not None)
         try:
             n_free = _n_free(model, fixed)
         except SERIES_ERRORS as e:
+            if optional:
+                continue
             res.fits[label] = None
             res.reasons[label] = f"model not valid: {e}"
             continue
         needed = max(n_free + 1, 2)
-        if n < needed:
+        if n < needed + 2 * optional:
+            if optional:
+                continue
             res.fits[label] = None
             res.reasons[label] = (f"only {n} time point(s) for {n_free} free parameters "
                                   f"(at least {needed} needed)")
@@ -764,6 +744,8 @@ def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, sepa
         except SERIES_ERRORS as e:
             res.fits[label] = None
             res.reasons[label] = f"fit failed: {e}"
+            continue
+        if optional and _too_few(f, criterion):
             continue
         # the fit was made on arrays: record where they came from (as a frame fit does)
         f.data_info.update({
@@ -798,7 +780,7 @@ def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, sepa
     res.comparison = cmp
     not_eligible = cmp.attrs.get("not_eligible", {})
     res.reasons.update(not_eligible)
-    if len(cands) == 1 and len(fitted) == 1:
+    if len(res.reasons) == 1 and len(fitted) == 1:
         # one candidate asked for: no choice is made, so it is kept even when its
         # criterion is undefined (its row's reason says so)
         res.chosen = next(iter(fitted))
@@ -851,7 +833,9 @@ def _n_free(model, fixed):
 def _all_failed(res, cands, status, reason):
     res.status = status
     res.reason = reason
-    for label, _, _ in cands:
+    for label, *_, optional in cands:  # an optional variant was never tried: not listed
+        if optional:
+            continue
         res.fits[label] = None
         res.reasons[label] = reason
     return res

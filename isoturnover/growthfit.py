@@ -34,6 +34,7 @@ import pandas as pd
 from scipy import stats
 
 from .conventions import INTERVAL_COLUMNS, check_level
+from .engine import relative_sigma, sigma_scale_message
 from .errors import (
     ConvergenceWarning,
     DataError,
@@ -50,7 +51,7 @@ from .growth import (
     check_curve_values,
     curve_law,
 )
-from .growthproblem import SOLVE_MAX_NFEV, CurveProblem, growth_response
+from .growthproblem import SOLVE_MAX_NFEV, CurveProblem, check_mass_data, growth_response
 from .profiles import find_bound
 
 __all__ = [
@@ -79,23 +80,6 @@ _ASYMPTOTE_REACHED = 0.5  # data below half the fitted asymptote: Winf extrapola
 # ---------------------------------------------------------------------------------------
 # helpers
 # ---------------------------------------------------------------------------------------
-def _as_vector(x, name: str) -> np.ndarray:
-    try:
-        a = np.array(x, dtype=float)
-    except (TypeError, ValueError):
-        raise DataError(f"{name} must be an array of numbers; got {x!r:.80}") from None
-    if a.ndim != 1:
-        raise DataError(f"{name} must be one-dimensional; got shape {a.shape}")
-    bad = np.flatnonzero(~np.isfinite(a))
-    if bad.size:
-        shown = ", ".join(f"{i} ({float(a[i])!r})" for i in bad[:10])
-        more = f" and {bad.size - 10} more" if bad.size > 10 else ""
-        raise DataError(
-            f"{name} must be finite (no NaN or inf); non-finite at positions {shown}{more}"
-        )
-    return a
-
-
 def _check_scale(scale) -> str:
     if not isinstance(scale, str) or scale not in SCALES:
         raise DataError(f"scale must be one of 'log', 'natural'; got {scale!r}")
@@ -177,7 +161,8 @@ class GrowthFit(GrowthCurve):
         j = -self._w[:, None] * self._problem.model_jac(self._values)[:, free]
         p = j.shape[1]
         dof = self.nobs - p
-        if dof <= 0 or not np.all(np.isfinite(j)):
+        if dof <= 0 or not np.all(np.isfinite(j)) or not self._rss > 0:
+            # no residual scatter (the curve through every mass): s² = 0 is no uncertainty
             return np.full((p, p), np.nan)
         norms = np.linalg.norm(j, axis=0)
         if np.any(norms == 0):
@@ -402,8 +387,8 @@ class GrowthFit(GrowthCurve):
         n, p = self.nobs, self.nvarys
         s2 = self._rss / (n - p)
         est = float(self._values[j])
-        if s2 <= 0:
-            return est, "ok"
+        if not s2 > 0:  # no residual scatter: the profile statistic is undefined
+            return math.nan, "failed"
         crit = float(stats.f.ppf(level, 1, n - p))
         is_log = bool(prob.is_log[j])
         se = self.stderr[j]
@@ -576,7 +561,9 @@ def fit_growth(t, mass, curve: str = "logistic", *, scale: str = "log", sigma=No
     sigma : array-like of shape (n,), optional
         Standard deviation of each mass (mass unit), used as relative weights (the residual
         variance is still estimated). On the log scale it is carried to ln W as σ/W (delta
-        method).
+        method). Only the ratios matter: sd outside 1e-50 to 1e50 are divided by their
+        geometric mean, with a :class:`DataWarning` (see
+        :func:`isoturnover.engine.relative_sigma`).
     init : dict, optional
         Starting values for some parameters; the automatic deterministic starts are tried as
         well and the best fit by RSS is kept.
@@ -592,7 +579,9 @@ def fit_growth(t, mass, curve: str = "logistic", *, scale: str = "log", sigma=No
     DataError
         Mismatched lengths, non-finite values, masses ≤ 0, unknown curve or scale, bad
         ``sigma``/``init``/``fixed``, or too few points (the curve needs at least one more
-        mass than it has varying parameters, at that many distinct times).
+        mass than it has varying parameters, at that many distinct times). Masses that are
+        all equal for a curve with an asymptote (its rate would not be determined; the
+        exponential and linear curves fit them with rate 0, without a covariance).
     FitError
         When no starting point leads to a converged least-squares solution.
 
@@ -613,25 +602,16 @@ def fit_growth(t, mass, curve: str = "logistic", *, scale: str = "log", sigma=No
     """
     c = curve_law(curve)
     scale = _check_scale(scale)
-    t = _as_vector(t, "t")
-    mass = _as_vector(mass, "mass")
-    if t.size != mass.size:
-        raise DataError(f"t and mass must have the same length; got {t.size} and {mass.size}")
-    bad = np.flatnonzero(mass <= 0)
-    if bad.size:
-        shown = ", ".join(f"{i} ({float(mass[i])!r})" for i in bad[:10])
-        raise DataError(f"mass must be > 0 (body masses); got values <= 0 at positions {shown}")
+    t, mass, sigma = check_mass_data(t, mass, sigma)
     if sigma is not None:
-        if np.ndim(sigma) == 0:
-            sigma = [sigma] * t.size
-        sigma = _as_vector(sigma, "sigma")
-        if sigma.size != t.size:
-            raise DataError(
-                f"sigma must have the same length as mass; got {sigma.size} and {mass.size}"
-            )
-        if np.any(sigma <= 0):
-            i = int(np.flatnonzero(sigma <= 0)[0])
-            raise DataError(f"sigma must be > 0; got {float(sigma[i])!r} at position {i}")
+        sigma, g = relative_sigma(sigma, False)  # only the ratios matter (relative weights)
+        if g != 1.0:
+            warnings.warn(sigma_scale_message("sigma", g), DataWarning, stacklevel=2)
+    if "Winf" in c.params and t.size > 1 and np.ptp(mass) == 0:
+        raise DataError(
+            f"'mass': all {t.size} masses are equal ({float(mass[0]):g}): curve {c.name!r} "
+            "cannot be fitted to masses that do not change (its rate is then not "
+            "determined); use curve='exponential' or 'linear', whose rate is then 0")
     fixed_d = check_curve_values(c, fixed, "fixed")
     init_d = check_curve_values(c, init, "init")
     both = sorted(set(fixed_d) & set(init_d))
@@ -736,7 +716,12 @@ def _trust_checks(fit: GrowthFit, prob: CurveProblem) -> list[tuple[str, type]]:
              f"(largest residual–Jacobian cosine {cosine:.2g}): not converged",
              ConvergenceWarning)
         )
-    if np.any(~np.isfinite(fit._cov)):
+    if not fit._rss > 0:
+        out.append(
+            ("the curve passes through every mass exactly (RSS = 0, e.g. constant masses): the "
+             "scatter cannot be estimated, so standard errors and intervals are NaN (pass it "
+             "with propagate_growth=False to use it as known)", IdentifiabilityWarning))
+    elif np.any(~np.isfinite(fit._cov)):
         out.append(
             ("covariance could not be estimated (J^T J singular or too few degrees of freedom):"
              " standard errors are NaN", IdentifiabilityWarning)

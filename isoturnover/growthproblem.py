@@ -19,11 +19,15 @@ import math
 import numpy as np
 from scipy import optimize
 
+from .errors import DataError
+
 __all__ = [
     "SOLVE_MAX_NFEV",
     "SOLVE_TOL",
     "STATIONARY",
     "CurveProblem",
+    "check_mass_data",
+    "check_vector",
     "growth_response",
 ]
 
@@ -33,6 +37,85 @@ SOLVE_TOL = 1e-15
 SOLVE_MAX_NFEV = 2000
 #: Residual–Jacobian cosine below which a point is stationary.
 STATIONARY = 1e-6
+
+
+def check_vector(x, name: str) -> np.ndarray:
+    """A one-dimensional array of finite numbers, copied (``name`` in the error).
+
+    Parameters
+    ----------
+    x : array-like
+        The values.
+    name : str
+        Argument name used in error messages.
+
+    Returns
+    -------
+    ndarray of shape (n,)
+
+    Raises
+    ------
+    DataError
+        Not numbers, not one-dimensional, or not finite (positions named).
+    """
+    try:
+        a = np.array(x, dtype=float)
+    except (TypeError, ValueError):
+        raise DataError(f"{name} must be an array of numbers; got {x!r:.80}") from None
+    if a.ndim != 1:
+        raise DataError(f"{name} must be one-dimensional; got shape {a.shape}")
+    bad = np.flatnonzero(~np.isfinite(a))
+    if bad.size:
+        shown = ", ".join(f"{i} ({float(a[i])!r})" for i in bad[:10])
+        more = f" and {bad.size - 10} more" if bad.size > 10 else ""
+        raise DataError(
+            f"{name} must be finite (no NaN or inf); non-finite at positions {shown}{more}"
+        )
+    return a
+
+
+def check_mass_data(t, mass, sigma):
+    """Checked times, body masses and their standard deviations of a growth-curve fit.
+
+    Parameters
+    ----------
+    t : array-like of shape (n,)
+        Sampling times (time unit).
+    mass : array-like of shape (n,)
+        Body masses (> 0, mass unit).
+    sigma : float, array-like of shape (n,) or None
+        Standard deviation of each mass (> 0, mass unit); a number applies to every mass.
+
+    Returns
+    -------
+    (ndarray, ndarray, ndarray or None)
+        ``t``, ``mass`` and ``sigma`` as float arrays (copies).
+
+    Raises
+    ------
+    DataError
+        Non-finite values, lengths that differ, masses or sd that are not positive.
+    """
+    t = check_vector(t, "t")
+    mass = check_vector(mass, "mass")
+    if t.size != mass.size:
+        raise DataError(f"t and mass must have the same length; got {t.size} and {mass.size}")
+    bad = np.flatnonzero(mass <= 0)
+    if bad.size:
+        shown = ", ".join(f"{i} ({float(mass[i])!r})" for i in bad[:10])
+        raise DataError(f"mass must be > 0 (body masses); got values <= 0 at positions {shown}")
+    if sigma is not None:
+        if np.ndim(sigma) == 0:
+            sigma = [sigma] * t.size
+        sigma = check_vector(sigma, "sigma")
+        if sigma.size != t.size:
+            raise DataError(
+                f"sigma must have the same length as mass; got {sigma.size} and {mass.size}"
+            )
+        if np.any(sigma <= 0):
+            i = int(np.flatnonzero(sigma <= 0)[0])
+            raise DataError(f"sigma must be > 0; got {float(sigma[i])!r} at position {i}")
+    return t, mass, sigma
 
 
 def growth_response(mass, sigma, scale):

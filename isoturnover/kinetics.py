@@ -35,6 +35,13 @@ stable form :math:`e^{-k_2\tau}\,(1 + k_2\tau\,\psi((k_1-k_2)\tau))` with
 :math:`\psi(x) = (1 - e^{-x})/x`, exact through the removable singularity at
 :math:`k_1 = k_2` (where it is :math:`e^{-k\tau}(1 + k\tau)`).
 
+When the diet history knows when the first diet began and the diet eaten before it
+(``DietHistory(..., start=s_0, previous=v)``), the tissue starts at equilibrium with that
+earlier diet: its level :math:`L_{-1}` leads the sum, and the change at :math:`s_0` is one more
+step, :math:`(L_0 - L_{-1})(1 - \sum_i f_i \Phi_i(s_0, t)) H(t - s_0)`. The switches the
+rest of the library measures from (:attr:`TurnoverKinetics.switch_times`) stay the history's
+changes.
+
 A lag shifts every switch time by ``lag``. On the atom-fraction scale the pools mix in atom
 fraction :math:`x = R/(1+R)` and the tissue value is returned as δ. The step responses, the
 chain's stable form with its derivatives and the atom-fraction scale live in
@@ -95,7 +102,9 @@ class TurnoverKinetics:
         Number of parallel pools (1–4). Ignored for the chain (two steps).
     structure : {"parallel", "chain"}
     diet : DietHistory or None
-        ``None``: one step switch at t = 0 from ``delta0`` to ``delta_eq``.
+        ``None``: one step switch at t = 0 from ``delta0`` to ``delta_eq``. A history with
+        ``start`` and a known ``previous`` diet is solved from equilibrium with that diet at
+        ``start`` (with ``initial="equilibrium"``).
     separation : {"difference", "epsilon"}
         How a known diet value becomes the tissue's equilibrium value:
         ``diet + discrimination`` or ``(1000 + diet)(1 + epsilon/1000) − 1000``.
@@ -131,6 +140,10 @@ class TurnoverKinetics:
         Number of natural parameters.
     switch_times : ndarray
         Times of the diet switches (before any lag).
+    lead_in : float or None
+        Time the first diet began when the model starts from the diet before it
+        (``diet.start`` with a known ``diet.previous`` and ``initial="equilibrium"``), else
+        None.
     rate_index, fraction_index : list of int
         Positions of the rates ``k1…`` and fractions ``f1…`` in ``theta``.
     lag_index, growth_rate_index : int or None
@@ -142,8 +155,9 @@ class TurnoverKinetics:
     ------
     DataError
         For an option outside its allowed values or of the wrong type (the message names
-        the argument and what is expected), growth dilution with the chain, or a diet
-        history without a change.
+        the argument and what is expected), growth dilution with the chain, a diet
+        history without a change, or, with ``scale="atom_fraction"``, a known diet value
+        at or below −1000 ‰ (a negative isotope ratio).
     ScaleError
         For ``scale="atom_fraction"`` without a two-isotope ``isotope``.
     """
@@ -187,6 +201,15 @@ class TurnoverKinetics:
         self._atom = (
             atom_scale(isotope, reference_ratio) if self.scale == "atom_fraction" else None
         )
+        if self._atom is not None and diet is not None:
+            named = [("previous", diet.previous)] if diet.start is not None else []
+            named += [("initial", diet.initial)] + [
+                (f"changes[{i}]", v) for i, v in enumerate(diet.values[1:])]
+            for what, v in named:
+                if v <= -1000.0:  # NaN (unknown) passes
+                    raise DataError(
+                        f"'diet' {what}: δ = {v:g} ‰ implies a negative isotope ratio; "
+                        "scale='atom_fraction' needs diet values > -1000 ‰")
         if isinstance(growth, str):
             if growth != "exponential":
                 raise DataError(
@@ -220,6 +243,10 @@ class TurnoverKinetics:
     def _build(self):
         names: list[str] = []
         diet = self.diet
+        self.lead_in = None
+        if (diet is not None and diet.start is not None and math.isfinite(diet.previous)
+                and self.initial == "equilibrium"):
+            self.lead_in = float(diet.start)
         sep_name = "discrimination" if self.separation == "difference" else "epsilon"
         if diet is None:
             self.switch_times = np.array([0.0])
@@ -236,7 +263,11 @@ class TurnoverKinetics:
             used = list(range(diet.n_diets)) if self.initial == "equilibrium" else list(
                 range(1, diet.n_diets)
             )
-            spec: list = [None] * diet.n_diets
+            if self.lead_in is not None:
+                # the diet before the first: a known diet of its own, level -1
+                vals, known = np.append(vals, diet.previous), np.append(known, True)
+                used = used + [diet.n_diets]
+            spec: list = [None] * vals.size
             if self.initial == "free":
                 names.append("delta0")
                 spec[0] = ("param", 0)
@@ -262,6 +293,8 @@ class TurnoverKinetics:
                     names.append(sep_name)
                     for j in known_used:
                         spec[j] = ("diet", float(vals[j]), idx)
+            if self.lead_in is not None:
+                spec = [spec[-1]] + spec[:-1]  # the level before the first diet leads
             self._level_spec = spec
             self.n_levels = diet.n_diets
         self.n_level_params = len(names)
@@ -296,10 +329,16 @@ class TurnoverKinetics:
         # array operations (the common diet-switch experiment)
         self._one_switch = (not self._simple_step and self.structure == "parallel"
                             and self.growth_kind in (None, "exponential")
-                            and self._atom is None and self.switch_times.size == 1)
+                            and self._atom is None and self.switch_times.size == 1
+                            and self.lead_in is None)
+        # every step of the model: the history's switches, after the first diet's start
+        # when the model starts from the diet before it (level -1, first in _level_spec)
+        self._lead = int(self.lead_in is not None)
+        self._step_times = (self.switch_times if self.lead_in is None
+                            else np.r_[self.lead_in, self.switch_times])
         # the levels are affine in theta for both separation forms: L = c + M theta
-        c = np.zeros(self.n_levels)
-        M = np.zeros((self.n_levels, self.n_params))
+        c = np.zeros(len(self._level_spec))
+        M = np.zeros((len(self._level_spec), self.n_params))
         for j, sp in enumerate(self._level_spec):
             if sp[0] == "param":
                 M[j, sp[1]] = 1.0
@@ -312,7 +351,8 @@ class TurnoverKinetics:
         ki, fi = self.rate_index, self.fraction_index
         self._k_slice = slice(ki[0], ki[-1] + 1)
         self._f_slice = slice(fi[0], fi[-1] + 1) if fi else slice(0, 0)
-        self._M0, self._M1 = M[0].copy(), (M[1].copy() if self.n_levels > 1 else None)
+        self._M0 = M[self._lead].copy()
+        self._M1 = M[self._lead + 1].copy() if self.n_levels > 1 else None
 
     @property
     def separation_names(self) -> tuple[str, ...]:
@@ -338,10 +378,11 @@ class TurnoverKinetics:
         ndarray of shape (n_levels,)
             δ (‰), one value per diet period, the initial diet first.
         """
-        return self._levels(np.asarray(theta, dtype=float))[0]
+        return self._levels(np.asarray(theta, dtype=float))[0][self._lead:]
 
     def _levels(self, theta):
-        """Levels and their Jacobian d L_j / d theta.
+        """Levels and their Jacobian d L_j / d theta, the level before the first diet first
+        when the model starts from it (:attr:`lead_in`).
 
         Difference form ``diet + Δ`` and ε form ``(1000 + diet)(1 + ε/1000) − 1000 =
         diet + ε (1000 + diet)/1000`` are both affine in the parameters, so
@@ -382,7 +423,7 @@ class TurnoverKinetics:
             return self._evaluate_one_switch(t, theta, jacobian)
         L, dL = self._levels(theta)
         lag = theta[self.lag_index] if self.lag_index is not None else 0.0
-        s = self.switch_times + lag  # (m,)
+        s = self._step_times + lag  # (m,)
         tau = t[None, :] - s[:, None]  # (m, n)
         on = tau > 0
         taup = np.where(on, tau, 0.0)
@@ -460,7 +501,7 @@ class TurnoverKinetics:
                 J[:, self.lag_index] = -(step @ dEds)
         # level derivatives: y = Lw0 + sum_j (Lw_j - Lw_{j-1}) R_j
         m = step.size
-        coef = np.empty((self.n_levels, t.size))
+        coef = np.empty((m + 1, t.size))
         coef[0] = 1.0 - R[0]
         if m > 1:
             coef[1:m] = R[: m - 1] - R[1:m]
@@ -555,7 +596,9 @@ class TurnoverKinetics:
             When ``theta`` has the wrong length or a non-finite value, a rate is not
             positive, fractions are negative or do not sum to 1 (to 1e-12), or
             ``k_growth`` makes the animal lose mass faster than the slowest pool turns
-            over (:math:`k_d + k_g < 0`, where the pool model does not hold; DESIGN §2).
+            over (:math:`k_d + k_g < 0`, where the pool model does not hold; DESIGN §2), or,
+            with ``scale="atom_fraction"``, a tissue level at or below −1000 ‰ (a negative
+            isotope ratio).
         """
         try:
             theta = np.asarray(theta, dtype=float)
@@ -584,6 +627,15 @@ class TurnoverKinetics:
                     f"slowest pool turns over (k_d + k_growth = {float(np.min(k)) + kg:.4g} "
                     "< 0); the pool model does not hold there"
                 )
+        if self._atom is not None:
+            L = self._levels(theta)[0]
+            if np.any(L <= -1000.0):
+                j = int(np.argmax(L <= -1000.0)) - self._lead
+                which = "before the first diet" if j < 0 else f"of diet period {j}"
+                raise DataError(
+                    f"'theta': on scale='atom_fraction' the tissue level {which} is "
+                    f"{L[j + self._lead]:.6g} ‰, at or below -1000 ‰ (a negative isotope "
+                    "ratio)")
         if self.fraction_index:
             f = theta[self.fraction_index]
             if np.any(f < 0) or abs(f.sum() - 1.0) > 1e-12:
@@ -592,6 +644,38 @@ class TurnoverKinetics:
                     f"got {f.tolist()} (sum {f.sum():.15g})"
                 )
         return theta
+
+    def check_values(self, y, name: str = "y") -> None:
+        r"""Refuse observed δ values that the model's scale cannot hold.
+
+        On the atom-fraction scale a δ at or below −1000 ‰ implies a ratio
+        :math:`R = R_s(1 + \delta/1000) \le 0` (Coplen 2011's definitions), which no
+        atom fraction represents; the δ scale has no such limit. NaN is left to the data
+        checks.
+
+        Parameters
+        ----------
+        y : array-like
+            Observed δ values (‰).
+        name : str, default="y"
+            Name of the argument, for the message.
+
+        Raises
+        ------
+        DataError
+            With ``scale="atom_fraction"``, for a value at or below −1000 ‰; the message
+            names the argument, the first such value and its position.
+        """
+        if self._atom is None:
+            return
+        v = np.asarray(y, dtype=float).ravel()
+        bad = np.flatnonzero(v <= -1000.0)
+        if bad.size:
+            i = int(bad[0])
+            raise DataError(
+                f"'{name}' must be > -1000 ‰ on scale='atom_fraction' (δ ≤ -1000 ‰ is a "
+                f"negative isotope ratio); got {v[i]:g} at position {i} ({bad.size} of "
+                f"{v.size} values)")
 
     @property
     def rate_names(self) -> tuple[str, ...]:
@@ -661,8 +745,9 @@ class TurnoverKinetics:
         r"""Refuse a growth curve that loses mass faster than the slowest pool turns over.
 
         The pool model holds only while :math:`k_d + d\ln W/dt \ge 0` for every pool
-        (DESIGN §2); checked on 201 points from the first switch (or the earliest time) to
-        the last time.
+        (DESIGN §2); checked on 201 points from the first switch (or the first diet's start
+        when the model starts from the diet before it, or the earliest time) to the last
+        time.
 
         Parameters
         ----------
@@ -677,7 +762,7 @@ class TurnoverKinetics:
             When :math:`\min_i k_{d,i} + d\ln W/dt < 0` somewhere on that grid.
         """
         k_min = float(np.min(np.asarray(theta)[self.rate_index]))
-        lo = min(float(np.min(t)), float(self.switch_times[0]))
+        lo = min(float(np.min(t)), float(self._step_times[0]))
         hi = float(np.max(t))
         grid = np.linspace(lo, hi, 201)
         g = self.growth_rate(grid, theta)

@@ -461,6 +461,7 @@ class TurnoverModel:
         if absolute_sigma and data["sigma"] is None:
             raise DataError("absolute_sigma=True needs 'sigma' (the known analytic sd)")
         kin = self.kinetics
+        kin.check_values(data["y"], "y")  # δ ≤ −1000 ‰ has no atom fraction
         fixed = check_names(fixed, kin, "fixed")
         init = check_names(init, kin, "init")
         ties, bounds = {}, {}

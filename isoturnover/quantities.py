@@ -136,7 +136,8 @@ def time_to(kin, p: float, theta) -> float:
     hi = 1.0 / k_min
     for _ in range(1100):  # 2^1100 beyond 1/k_min overflows: the change never completes
         if not g(hi) > 0:
-            return optimize.brentq(g, 0.0, hi, xtol=1e-12, rtol=1e-12) + lag
+            # a bracket up to 2^1100/k_min: bisection alone would need about 1,200 steps
+            return optimize.brentq(g, 0.0, hi, xtol=1e-12, rtol=1e-12, maxiter=2000) + lag
         hi *= 2
     return math.inf
 

@@ -483,7 +483,7 @@ def _not_fitted(doc, series):
                                                for s in bad])
 
 
-def _methods(doc, level, method, any_growth):
+def _methods(doc, level, method, any_growth, any_per_diet=False):
     doc.h(2, "Methods")
     doc.p("Each series was fitted by least squares with the analytic Jacobian of the model "
           "(rates on the log scale with the pools ordered by construction, pool fractions by "
@@ -505,6 +505,15 @@ def _methods(doc, level, method, any_growth):
     doc.p("Candidate models were compared by the small-sample Akaike information criterion "
           "AICc (Hurvich & Tsai 1989, Biometrika 76:297–307) and Akaike weights (Burnham & "
           "Anderson 2002, Model Selection and Multimodel Inference, 2nd ed., Springer).")
+    if any_per_diet:
+        doc.p("Where a series' diets held two or more distinct values, every candidate was "
+              "fitted with one diet–tissue separation shared by all diets and with one per "
+              "diet value (candidates marked “separation per diet”), and all were ranked by "
+              "the same criterion: the separation per diet is kept only when its lower "
+              "residual sum of squares pays for its extra parameters. The separation can "
+              "depend on the diet (for Δ15N its protein quality: Robbins et al. 2005, "
+              "Oecologia 144:534–540); one shared separation forced on such data bends the "
+              "rates or adds a spurious pool.")
     doc.p("Reaction-progress plots show ln(1 − F), 1 − F = (δ(t) − δ_eq)/(δ_0 − δ_eq) "
           "(Cerling et al. 2007, Oecologia 151:175–189), with δ_0 and δ_eq from the fit; "
           "points with F ≥ 1 or F ≤ 0 have no logarithm and are drawn at the plot edge.")
@@ -780,7 +789,11 @@ def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="p
                         fig_entries.get(s.name, []), crit)
     _not_fitted(doc, series)
     any_growth = any(s.fit is not None and s.fit.rate_kind == "catabolic" for s in series)
-    _methods(doc, level, method, any_growth)
+    from .groups import PER_DIET_LABEL
+
+    any_per_diet = any(str(lab).endswith(PER_DIET_LABEL) for s in series
+                       if s.result is not None for lab in s.result.reasons)
+    _methods(doc, level, method, any_growth, any_per_diet)
     doc.h(2, "Caution")
     doc.p(("strong", "Caution."), " " + CAUTION)
     md_text = _render_md(doc)

@@ -99,7 +99,8 @@ FISH_DAYS = np.array([0, 3, 7, 10, 14, 21, 28, 35, 42, 56, 70], dtype=float)
 FISH_PER_DAY = 3
 
 PENS = {"A": ("G01", "G02", "G03", "G04"), "B": ("G05", "G06", "G07", "G08")}
-DIET_START = -60.0  # the hay ration was fed from day -60 on (rows before 0 order the table)
+DIET_START = -365.0  # the goats ate hay for a year before the switch (equilibrated tissues)
+FISH_DIET_START = -150.0  # the fish ate the starter feed from first feeding, 150 days
 SWITCH_BACK = 120.0  # pen B returns to hay
 
 # Diet values (δ, ‰ vs VPDB for δ13C, vs AIR for δ15N). C3 grass hay about -27.5 ‰ and maize
@@ -469,7 +470,7 @@ def _fish():
     masses = [(fish[i], times[i], w0[i] * math.exp(kg[i] * times[i])) for i in range(n)]
     diets = []
     for iso in ("d13C", "d15N"):
-        diets += [(FISH_BATCH, iso, DIET_START, FISH_DIETS[old][iso]),
+        diets += [(FISH_BATCH, iso, FISH_DIET_START, FISH_DIETS[old][iso]),
                   (FISH_BATCH, iso, 0.0, FISH_DIETS[new][iso])]
     return {"samples": samples, "missing": missing, "masses": masses, "diets": diets,
             "truth": truth}

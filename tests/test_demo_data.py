@@ -181,10 +181,10 @@ def test_masses_pass_read_masses(name):
 def test_goat_diets_content():
     d = load_demo("goat_diets")
     b = d[(d["group"] == "B") & (d["isotope"] == "d13C")]
-    assert b["start"].tolist() == [-60, 0, 120]
+    assert b["start"].tolist() == [-365, 0, 120]
     assert b["value"].tolist() == [-27.5, -12.5, -27.5]
     a = d[(d["group"] == "A") & (d["isotope"] == "d15N")]
-    assert a["start"].tolist() == [-60, 0]
+    assert a["start"].tolist() == [-365, 0]
 
 
 # ----------------------------------------------------------------------------------------

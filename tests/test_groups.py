@@ -327,7 +327,8 @@ def test_diets_matched_by_group():
     np.testing.assert_allclose(tab["discrimination"], 1.0, atol=0.3)
     np.testing.assert_allclose(LN2 / tab["half_life_1"], 0.15, rtol=0.2)
     f = fs[("goat2", "plasma", "d13C")].best
-    assert f.kinetics.diet == iso.DietHistory(-26.0, [(0.0, -20.0)])
+    # the table's first row gives the first diet's start (issue 14: the history as read)
+    assert f.kinetics.diet == iso.DietHistory(-26.0, [(0.0, -20.0)], start=-100.0)
 
 
 def test_diets_matched_by_subject_and_missing_diet():

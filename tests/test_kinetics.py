@@ -353,6 +353,46 @@ def case_four_pools_three_switches():
     return m, theta, T_MAIN, ref
 
 
+# The first diet began on a known date (t = −30) and the diet before it is known (−20 ‰):
+# the tissue starts at equilibrium with that earlier diet and the whole history is solved
+# (invented). Times reach back before −30 so the lead-in is seen from its start. Reference:
+# scipy's solve_ivp of the pool equations from −30 on (ode_parallel / ode_chain above).
+T_LEAD = np.linspace(-44.95, 150.05, 40)
+LEAD_IN = DietHistory(-26.0, changes=[(0.0, -12.0), (60.0, -26.0)], start=-30.0,
+                      previous=-20.0)
+
+
+def case_lead_in_two_pools():
+    m = TurnoverKinetics(2, diet=LEAD_IN)
+    theta = [2.1, 0.25, 0.03, 0.4, 0.6]
+    L = np.array([-20.0, -26.0, -12.0, -26.0]) + 2.1
+    ref = ode_parallel(T_LEAD, [-30.0, 0.0, 60.0], L, [0.25, 0.03], [0.4, 0.6])
+    return m, theta, T_LEAD, ref
+
+
+def case_lead_in_per_diet_curve_lag():
+    # the earlier diet's value differs from the others: a separation of its own, last
+    curve = LogisticCurve(K=30.0, r=0.05, t0=5.0)
+    m = TurnoverKinetics(2, diet=LEAD_IN, per_diet_separation=True, growth=curve, lag=True)
+    theta = [3.0, 1.2, 2.4, 0.2, 0.02, 0.3, 0.7, 2.5]  # separations of −26, −12, −20
+    L = np.array([-20.0 + 2.4, -26.0 + 3.0, -12.0 + 1.2, -26.0 + 3.0])
+    ref = ode_parallel(T_LEAD, [-27.5, 2.5, 62.5], L, [0.2, 0.02], [0.3, 0.7], g=curve.rate)
+    return m, theta, T_LEAD, ref
+
+
+def case_lead_in_chain_epsilon_atom_fraction():
+    diet = DietHistory(0.0, changes=[(0.0, 2000.0), (40.0, 0.0)], start=-10.0,
+                       previous=-8.0)
+    m = TurnoverKinetics(structure="chain", diet=diet, separation="epsilon",
+                         scale="atom_fraction", isotope="d15N", reference_ratio=R_AIR)
+    eps = 3.5
+    theta = [eps, 0.3, 0.05]
+    # ε form by hand (Coplen 2011), then atom fraction x = R/(1 + R)
+    xin = delta_to_x((1000.0 + np.array([-8.0, 0.0, 2000.0, 0.0])) * (1 + eps / 1e3) - 1e3)
+    x = ode_chain(T_LEAD, [-10.0, 0.0, 40.0], xin, 0.3, 0.05, atol=1e-17)
+    return m, theta, T_LEAD, x_to_delta(x)
+
+
 CASES = {
     name[len("case_"):]: fn for name, fn in sorted(globals().items()) if name.startswith("case_")
 }
@@ -397,6 +437,9 @@ def test_param_names_of_the_cases():
         "delta0", "discrimination", "k1", "k2", "f1", "f2")
     assert CASES["epsilon"]()[0].param_names[0] == "epsilon"
     assert CASES["chain"]()[0].param_names == ("discrimination", "k1", "k2")
+    assert CASES["lead_in_per_diet_curve_lag"]()[0].param_names == (
+        "discrimination_0", "discrimination_1", "discrimination_2", "k1", "k2", "f1", "f2",
+        "lag")
 
 
 def test_levels_worked_by_hand():
