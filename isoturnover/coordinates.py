@@ -288,6 +288,8 @@ class Coordinates:
         fixed : dict
             Parameter name -> value, the same names as at construction.
         """
+        if fixed == self.fixed:
+            return  # the same values: nothing to rebuild
         if set(fixed) != set(self.fixed):
             raise FitError("set_fixed_values needs the same fixed names as the map was "
                            "built with")

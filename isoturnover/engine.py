@@ -220,8 +220,8 @@ class Problem:
     def level_map(self):
         r"""The levels as an affine map of the parameters: :math:`L = c + M\theta`.
 
-        Read once from :meth:`~isoturnover.kinetics.TurnoverKinetics.levels` at the origin
-        and the unit vectors (the map is affine for every separation form).
+        From :attr:`~isoturnover.kinetics.TurnoverKinetics.level_map` (the map is affine for
+        every separation form).
 
         Returns
         -------
@@ -229,9 +229,7 @@ class Problem:
             ``c``, ``M`` and the parameters the levels use.
         """
         if self._level_map is None:
-            kin = self.kin
-            c = kin.levels(np.zeros(kin.n_params))
-            M = np.array([kin.levels(e) for e in np.eye(kin.n_params)]).T - c[:, None]
+            c, M = self.kin.level_map
             cols = np.flatnonzero(np.any(M != 0, axis=0)).tolist()
             self._level_map = (c, M, cols)
         return self._level_map
@@ -301,6 +299,11 @@ class Problem:
         if len(cols) == 1:
             p_ = P[:, 0]
             th[cols[0]] = float(p_ @ rhs) / float(p_ @ p_)
+        elif len(cols) == 2:  # 2 × 2, invertible (checked by _left_null_space)
+            (a11, a12), (a21, a22) = P.tolist()
+            r1, r2 = rhs.tolist()
+            det = a11 * a22 - a12 * a21
+            th[cols] = [(a22 * r1 - a12 * r2) / det, (a11 * r2 - a21 * r1) / det]
         else:
             th[cols] = np.linalg.lstsq(P, rhs, rcond=None)[0]
         th[kin.rate_index] = k

@@ -360,6 +360,19 @@ class TurnoverKinetics:
         return tuple(n for n in self.param_names if n.startswith(("discrimination", "epsilon")))
 
     # -- levels ---------------------------------------------------------------------------
+    @property
+    def level_map(self) -> tuple[np.ndarray, np.ndarray]:
+        r"""The levels as an affine map of the parameters, :math:`L = c + M\theta`.
+
+        Returns
+        -------
+        tuple of (ndarray of shape (n_levels,), ndarray of shape (n_levels, n_params))
+            ``c`` and ``M`` (copies): a known diet gives ``diet + separation`` (difference
+            form) or ``diet + ε (1000 + diet)/1000`` (ε form), both affine; an unknown diet
+            or ``delta0`` its own parameter.
+        """
+        return self._level_c.copy(), self._level_M.copy()
+
     def levels(self, theta) -> np.ndarray:
         """Tissue equilibrium value of each diet period.
 
