@@ -353,7 +353,7 @@ def _first_diet_note(fit):
                 "(DietHistory(..., previous=δ) or from_table(..., previous=δ)) to solve the "
                 'whole history, or fit the starting state with initial="free"')
     else:
-        msg += "; give the diet eaten before it (previous=δ) to solve the whole history"
+        msg += ": the assumption holds"
     return TrustNote("first_diet_start", DesignWarning, msg)
 
 
