@@ -234,7 +234,7 @@ class Problem:
             self._level_map = (c, M, cols)
         return self._level_map
 
-    def solve_projected(self, coords, rates0, *, n_eval0=0):
+    def solve_projected(self, coords, rates0):
         r"""Variable projection from starting rates (a fresh fit: nothing fixed).
 
         After one switch at :math:`s`, :math:`\delta = L_1 + (L_0 - L_1)\sum_i f_i
@@ -249,15 +249,12 @@ class Problem:
             The coordinate map (nothing fixed).
         rates0 : array-like
             Starting rates, fastest first.
-        n_eval0 : int, optional
-            Evaluations already spent (added to the solution's count).
 
         Returns
         -------
         Solution or None
-            None when the projection does not apply or leaves the model's domain (a
-            non-positive fraction, merged rates, levels not determined); an unconverged
-            Solution (``success`` False) carries the evaluations spent.
+            None when the projection does not apply, does not converge or leaves the
+            model's domain (a non-positive fraction, merged rates, levels not determined).
         """
         kin = self.kin
         n = kin.pools
@@ -279,12 +276,8 @@ class Problem:
             return None
         tau = self.t - float(kin.switch_times[0])
         pf = project_exponentials(tau, self.y, self.w, k0, C=C, d=d)
-        if pf is None:
+        if pf is None or not pf.converged:
             return None
-        n_eval = n_eval0 + pf.n_eval
-        if not pf.converged:
-            return Solution(np.zeros(coords.size), k0, math.inf, 0, n_eval,
-                            "variable projection did not converge", False)
         # the constraints involve only Σ b: pools may change places, sort by rate
         order = np.argsort(-pf.rates)
         k = pf.rates[order].tolist()
@@ -319,7 +312,7 @@ class Problem:
                 * float(self.w @ self.w) and bool(np.all(
                     grad * grad <= 1e-12 * colsq * max(cost, 1e-300) + 1e-300))):
             return None
-        return Solution(z, coords.theta(z), cost, 1, n_eval,
+        return Solution(z, coords.theta(z), cost, 1, pf.n_eval,
                         "variable projection converged (Newton, exact Hessian)", True, J)
 
     def solve(self, coords: Coordinates, z0, *, tol=1e-14, max_nfev=None) -> Solution:
@@ -745,12 +738,10 @@ class Engine:
         n = self.kin.pools
         tau = self.t - float(self.kin.switch_times[0])
         starts = projected_rate_starts(tau, self.y, self.w, n, 1 if n == 1 else 2)
-        n_eval = 0
         for tried, k0 in enumerate(starts, 1):
-            sol = self.problem.solve_projected(coords, k0, n_eval0=n_eval)
-            if sol is not None and sol.success:
+            sol = self.problem.solve_projected(coords, k0)
+            if sol is not None:
                 return sol, tried
-            n_eval = sol.nfev if sol is not None else n_eval
         return None, 0
 
     def _joint_block_weights(self, coords, sol):
