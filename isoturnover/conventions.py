@@ -326,8 +326,7 @@ def check_pool_numbers(pools, structures, max_pools):
     -------
     tuple of int
     """
-    MAX_POOLS = max_pools
-    example = f"integers from 1 to {MAX_POOLS}, e.g. pools=2 or pools=(1, 2)"
+    example = f"integers from 1 to {max_pools}, e.g. pools=2 or pools=(1, 2)"
     if isinstance(pools, (int, np.integer)) and not isinstance(pools, bool):
         pools = (pools,)
     elif isinstance(pools, Mapping) or not isinstance(pools, (list, tuple, np.ndarray, range)):
@@ -336,8 +335,8 @@ def check_pool_numbers(pools, structures, max_pools):
     pools = tuple(pools)
     for p in pools:
         if isinstance(p, bool) or not isinstance(p, (int, np.integer)) \
-                or not 1 <= p <= MAX_POOLS:
-            raise DataError(f"'pools' entries must be integers from 1 to {MAX_POOLS}; got "
+                or not 1 <= p <= max_pools:
+            raise DataError(f"'pools' entries must be integers from 1 to {max_pools}; got "
                             f"{p!r} ({type(p).__name__}); e.g. pools=2 or pools=(1, 2)")
     dup = sorted({int(p) for p in pools if pools.count(p) > 1})
     if dup:
