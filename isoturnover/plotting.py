@@ -485,7 +485,7 @@ def _share_values(obj, n):
 
 
 def plot_growth(growth_fit, ax=None, *, turnover_fit=None, mass_unit=None, time_unit=None):
-    """Body masses and the fitted growth curve (and the growth share of the change).
+    """Body masses, the fitted growth curve and the instantaneous growth share.
 
     Parameters
     ----------
@@ -544,9 +544,9 @@ def plot_growth(growth_fit, ax=None, *, turnover_fit=None, mass_unit=None, time_
             ax2 = ax.twinx()
             c = OKABE_ITO["vermillion"]
             ln = ax2.plot(grid, share, color=c, linewidth=1.2, linestyle="--",
-                          label="growth share of the change")
+                          label="growth share of the rate of change")
             ax2.set_ylim(0.0, 1.05)  # a share of 1 stays visible
-            ax2.set_ylabel("Growth share of the change", fontsize=LABEL_PT, color=c)
+            ax2.set_ylabel("Growth share of the rate of change", fontsize=LABEL_PT, color=c)
             ax2.tick_params(labelsize=TICK_PT, colors=c, axis="y")
             handles += ln
             labels += [ln[0].get_label()]
