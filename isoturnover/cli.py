@@ -56,15 +56,285 @@ def _jobs(text):
             f"got {text!r}") from None
 
 
+def _fail(text, what):
+    raise argparse.ArgumentTypeError(f"{what}; got {text!r}")
+
+
+def _pools(text):
+    """Parse ``--pools 1,2,3``: distinct numbers of parallel pools, each from 1 to 4.
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    tuple of int
+        The numbers of pools to try.
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not such a list.
+    """
+    from .kinetics import MAX_POOLS
+
+    what = f"must be distinct numbers of pools from 1 to {MAX_POOLS}, such as 1,2"
+    try:
+        pools = tuple(int(x) for x in text.split(","))
+    except ValueError:
+        _fail(text, what)
+    if not pools or len(set(pools)) < len(pools) or not all(1 <= n <= MAX_POOLS
+                                                            for n in pools):
+        _fail(text, what)
+    return pools
+
+
+def _positive_int(text):
+    """Parse a whole number >= 1 (``--n-boot``).
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    int
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not a whole number >= 1.
+    """
+    try:
+        n = int(text)
+    except ValueError:
+        n = 0
+    if n < 1:
+        _fail(text, "must be a whole number >= 1")
+    return n
+
+
+def _level(text):
+    """Parse ``--level``: a confidence level strictly between 0 and 1.
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed (``0.95``).
+
+    Returns
+    -------
+    float
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not a number in (0, 1).
+    """
+    try:
+        v = float(text)
+    except ValueError:
+        v = float("nan")
+    if not 0 < v < 1:
+        _fail(text, "must be a number between 0 and 1, such as 0.95")
+    return v
+
+
+def _time_unit(text):
+    """Parse ``--time-unit``: d, h or w (day(s), hour(s), week(s) also read).
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    str
+        The unit's code, ``"d"``, ``"h"`` or ``"w"``.
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        For another unit.
+    """
+    code = {"d": "d", "day": "d", "days": "d", "h": "h", "hour": "h", "hours": "h",
+            "w": "w", "week": "w", "weeks": "w"}.get(text.strip().lower())
+    if code is None:
+        _fail(text, "must be d, h or w (days, hours, weeks)")
+    return code
+
+
+def _date_format(text):
+    """Parse ``--date-format``: a strptime format with % directives (``%d/%m/%Y``).
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    str
+        ``text`` unchanged.
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` has no % directive.
+    """
+    if "%" not in text:
+        _fail(text, "must be a format such as %d/%m/%Y (day first) or %m/%d/%Y "
+                    "(month first), with % directives")
+    return text
+
+
+def _growth_curve(text):
+    """Parse ``--growth-curve``: the name of a growth curve of the library.
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    str
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        For a name that is not among :data:`~isoturnover.growthlaws.CURVES`.
+    """
+    from .growthlaws import CURVES
+
+    if text not in CURVES:
+        _fail(text, f"must be one of {', '.join(CURVES)}")
+    return text
+
+
+def _pairs(text, example):
+    """``a=b,c=d`` as a list of (a, b) text pairs; an ArgumentTypeError naming ``example``."""
+    out = []
+    for item in text.split(","):
+        name, eq, value = item.partition("=")
+        if not eq or not name.strip() or not value.strip():
+            _fail(text, f"must be NAME=VALUE pairs separated by commas, such as {example}")
+        out.append((name.strip(), value.strip()))
+    if len({n for n, _ in out}) < len(out):
+        _fail(text, f"names one thing twice (pairs such as {example})")
+    return out
+
+
+def _column_map(allowed, example):
+    """A parser of ``--columns``-style options: ``canonical=yours,...`` to the readers'
+    mapping ``{yours: canonical}``, canonical names among ``allowed``."""
+
+    def parse(text):
+        mapping = {}
+        for canonical, yours in _pairs(text, example):
+            if canonical not in allowed:
+                _fail(text, f"{canonical!r} is not a column name of the table; names: "
+                            f"{', '.join(allowed)} (pairs such as {example})")
+            if yours in mapping:
+                _fail(text, f"maps your column {yours!r} twice")
+            mapping[yours] = canonical
+        return mapping
+
+    parse.__doc__ = f"Parse a column mapping such as {example}."
+    return parse
+
+
+def _fix(text):
+    """Parse ``--fix delta0=-25,lag=0``: parameters held at given values.
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    dict of str to float
+        Parameter name -> value (in the parameter's unit: ‰ for levels, 1/time for
+        rates).
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        For a malformed pair or a value that is not a finite number.
+    """
+    import math
+
+    out = {}
+    for name, value in _pairs(text, "delta0=-25,lag=0"):
+        try:
+            out[name] = float(value)
+        except ValueError:
+            _fail(text, f"the value of {name} is not a number")
+        if not math.isfinite(out[name]):
+            _fail(text, f"the value of {name} is not a finite number")
+    return out
+
+
+def _baseline(text):
+    """Parse ``--baseline``: δ (‰) of the unenriched material, one number or one per isotope.
+
+    Parameters
+    ----------
+    text : str
+        ``-25.5`` or ``d13C=-25.5,d15N=6``.
+
+    Returns
+    -------
+    float or dict of str to float
+        δ in ‰ (one for all isotopes, or isotope code -> δ).
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When a value is not a finite number.
+    """
+    import math
+
+    if "=" not in text:
+        try:
+            v = float(text)
+        except ValueError:
+            v = float("nan")
+        if not math.isfinite(v):
+            _fail(text, "must be a δ value in per mil, such as -25.5, or one per isotope, "
+                        "such as d13C=-25.5,d15N=6")
+        return v
+    out = {}
+    for code, value in _pairs(text, "d13C=-25.5,d15N=6"):
+        try:
+            out[code] = float(value)
+        except ValueError:
+            _fail(text, f"the value for {code} is not a number")
+        if not math.isfinite(out[code]):
+            _fail(text, f"the value for {code} is not a finite number")
+    return out
+
+
 def _add_common(p):
     p.add_argument("--out", metavar="DIR", default=None,
-                   help="output folder (default: isoturnover_out_<command>)")
+                   help="output folder (default isoturnover_out_<command>)")
     p.add_argument("--force", action="store_true",
-                   help="write into a non-empty output folder, replacing its files")
+                   help="replace the files of a non-empty output folder")
     p.add_argument("--no-figures", action="store_true", help="skip the figures")
     p.add_argument("--progress", dest="progress", action="store_true", default=None,
-                   help="show a progress bar (default: when the terminal is interactive)")
-    p.add_argument("--no-progress", dest="progress", action="store_false")
+                   help="show a progress bar (default: on a terminal)")
+    p.add_argument("--no-progress", dest="progress", action="store_false",
+                   help="never show a progress bar")
+
+
+def _formatter(prog):
+    """argparse's help layout with room for one line per option."""
+    return argparse.HelpFormatter(prog, max_help_position=32, width=100)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -73,14 +343,18 @@ def build_parser() -> argparse.ArgumentParser:
     Returns
     -------
     argparse.ArgumentParser
-        Its ``error`` prints one line ``error: ...`` and exits with status 2.
+        Its ``error`` prints one line ``error: ...`` and exits with status 2; its
+        sub-command parsers are in its attribute ``commands`` (name -> parser).
     """
     from . import __version__
+    from .data import DIET_COLUMNS, MASS_COLUMNS, SAMPLE_COLUMNS, VALUE_UNITS
+    from .engine import LOSSES
+    from .selection import CRITERIA
 
     common = argparse.ArgumentParser(add_help=False)
     common.add_argument("--debug", action="store_true", help="show the full traceback on errors")
     p = _Parser(
-        prog="isoturnover", parents=[common],
+        prog="isoturnover", parents=[common], formatter_class=_formatter,
         description="Turnover rates, half-lives and pool fractions from stable-isotope "
         "diet-switch experiments. Animal experiments and field sampling need the approval of "
         "the local animal-care authority; these results support that process, they do not "
@@ -90,50 +364,95 @@ def build_parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
 
     d = sub.add_parser("demo", parents=[common], help="analyse the invented demo experiment",
+                       formatter_class=_formatter,
                        description="Fit the invented demo experiment (goats, breath, fish) "
                        "and write results, figures and a report.")
     d.add_argument("--jobs", metavar="N", type=_jobs, default=1,
-                   help="run the series' fits in N parallel processes (-1: all cores; "
-                   "default 1); the results are the same as with 1")
+                   help="parallel worker processes (-1: all cores; default 1)")
     _add_common(d)
 
     f = sub.add_parser("fit", parents=[common], help="fit every series of a samples file",
+                       formatter_class=_formatter,
                        description="Fit every series of a samples table (CSV or Excel), "
-                       "choose the number of pools by AICc, and write results.csv, fits.json, "
-                       "figures and a report.")
-    f.add_argument("samples", metavar="SAMPLES", help="samples table (CSV or .xlsx)")
-    f.add_argument("--diets", metavar="F", help="diets table (group|subject, isotope, start, "
-                   "value)")
-    f.add_argument("--masses", metavar="F", help="body masses (subject, time, mass)")
-    f.add_argument("--pools", default="1,2", help="pool numbers to try, e.g. 1,2,3 "
-                   "(default 1,2)")
-    f.add_argument("--chain", action="store_true",
-                   help="also try a precursor-product chain")
-    f.add_argument("--by", default=None, help="series keys, e.g. subject,tissue,isotope "
-                   "(default; tissue,isotope for destructive sampling)")
-    f.add_argument("--ci", default="profile", choices=("profile", "asymptotic", "bootstrap"),
-                   help="interval method (default profile likelihood)")
-    f.add_argument("--n-boot", type=int, default=499, help="bootstrap replicates (--ci "
-                   "bootstrap)")
-    f.add_argument("--level", type=float, default=0.95, help="confidence level (0.95)")
-    f.add_argument("--time-unit", default="d", help="time unit of the tables: d, h or w")
-    f.add_argument("--date-format", metavar="FMT", default=None,
-                   help="how dates that are not ISO 8601 (YYYY-MM-DD) are written in the "
-                   "tables, e.g. %%d/%%m/%%Y (day first) or %%m/%%d/%%Y (month first); "
-                   "without it such dates are refused, as day and month cannot be told apart")
-    f.add_argument("--growth-curve", default="logistic",
-                   help="growth curve fitted to --masses (logistic, gompertz, exponential, ...)")
-    f.add_argument("--per-diet-separation", nargs="?", const="yes", default="auto",
-                   choices=("auto", "yes", "no"),
-                   help="one diet-tissue separation per diet value: 'auto' (default) also "
-                        "fits each model with a separation per diet and lets the criterion "
-                        "choose; 'yes' always, 'no' never")
-    f.add_argument("--lag", action="store_true", help="fit a pure delay after each switch")
-    f.add_argument("--jobs", metavar="N", type=_jobs, default=1,
-                   help="run the series' fits and bootstrap refits in N parallel processes "
-                   "(-1: all cores; default 1); the results are the same as with 1")
+                       "choose each series' model by an information criterion (AICc by "
+                       "default), and write results.csv, fits.json, figures and a report. "
+                       "The results do not depend on --jobs.")
+    a = f.add_argument
+    a("samples", metavar="SAMPLES", help="samples table (CSV or .xlsx)")
+    a("--diets", metavar="F", help="diets table: group or subject, isotope, start, value")
+    a("--masses", metavar="F", help="body masses: subject, time (or date), mass")
+    a("--columns", metavar="MAP", type=_column_map(SAMPLE_COLUMNS, "subject=animal,time=day"),
+      help="samples column names, e.g. subject=animal,time=day")
+    a("--diet-columns", metavar="MAP", type=_column_map(DIET_COLUMNS, "group=pen,start=day"),
+      help="diets column names, e.g. group=pen,start=day")
+    a("--mass-columns", metavar="MAP", type=_column_map(MASS_COLUMNS, "mass=weight_kg"),
+      help="masses column names, e.g. subject=animal,mass=weight_kg")
+    a("--time-unit", metavar="UNIT", type=_time_unit, default="d",
+      help="time unit of the tables: d, h or w (default d)")
+    a("--date-format", metavar="FMT", type=_date_format, default=None,
+      help="how non-ISO dates are written, e.g. %%d/%%m/%%Y")
+    a("--switch-date", metavar="DATE", default=None,
+      help="diet-switch date of every row when the tables hold dates")
+    a("--switch-dates", metavar="SOURCE", default=None,
+      help="switch date per group: a table F, a samples column, or diets")
+    a("--unit", metavar="UNIT", choices=VALUE_UNITS, default="delta",
+      help="unit of value: delta (default), atom_percent, atom_percent_excess")
+    a("--baseline", metavar="DELTA", type=_baseline, default=None,
+      help="δ (‰) before enrichment, for atom_percent_excess (or d13C=X,...)")
+    a("--by", metavar="COLS", default=None,
+      help="series keys (default subject,tissue,isotope)")
+    a("--pools", metavar="LIST", type=_pools, default=(1, 2),
+      help="numbers of parallel pools to try (default 1,2)")
+    a("--chain", action="store_true", help="also try a two-step precursor-product chain")
+    a("--lag", action="store_true", help="fit a delay after each switch")
+    a("--separation", metavar="FORM", choices=("difference", "epsilon"), default="difference",
+      help="diet-tissue separation: difference (default) or epsilon")
+    a("--per-diet-separation", metavar="WHEN", nargs="?", const="yes", default="auto",
+      choices=("auto", "yes", "no"), help="one separation per diet: auto (default), yes, no")
+    a("--initial-state", metavar="STATE", choices=("equilibrium", "free"),
+      default="equilibrium", help="at equilibrium with the first diet (default), or free")
+    a("--fix", metavar="VALUES", type=_fix, default=None,
+      help="hold parameters at values, e.g. delta0=-25,lag=0")
+    a("--known-sd", action="store_true", help="take the sd column as known analytic error")
+    a("--loss", metavar="LOSS", choices=LOSSES, default="linear",
+      help="linear (default), or soft_l1 or huber (robust to outliers)")
+    a("--criterion", metavar="NAME", choices=CRITERIA, default="aicc",
+      help="model choice: aicc (default), aic or bic")
+    a("--growth-curve", metavar="NAME", type=_growth_curve, default="logistic",
+      help="growth curve fitted to --masses (default logistic)")
+    a("--ci", metavar="METHOD", default="profile", choices=("profile", "asymptotic",
+                                                             "bootstrap"),
+      help="intervals: profile (default), asymptotic or bootstrap")
+    a("--n-boot", metavar="N", type=_positive_int, default=499,
+      help="bootstrap replicates with --ci bootstrap (default 499)")
+    a("--level", metavar="P", type=_level, default=0.95,
+      help="confidence level (default 0.95)")
+    a("--jobs", metavar="N", type=_jobs, default=1,
+      help="parallel worker processes (-1: all cores; default 1)")
     _add_common(f)
+    p.commands = {"demo": d, "fit": f}
     return p
+
+
+def _check_fit(args, parser):
+    """Checks of ``fit`` that involve two options: an ``error:`` line, exit status 2."""
+    from .errors import DataError
+    from .sampletimes import parse_date
+
+    if args.switch_date is not None and args.switch_dates is not None:
+        parser.error("argument --switch-dates: not allowed with --switch-date (one date for "
+                     "all, or one per group)")
+    if args.switch_date is not None:
+        try:
+            parse_date(args.switch_date, "argument --switch-date", args.date_format)
+        except DataError as e:
+            parser.error(str(e))
+    if args.unit == "atom_percent_excess" and args.baseline is None:
+        parser.error("argument --unit: atom_percent_excess needs --baseline (δ in ‰ of the "
+                     "unenriched material)")
+    if args.baseline is not None and args.unit != "atom_percent_excess":
+        parser.error(f"argument --baseline: applies only with --unit atom_percent_excess; "
+                     f"--unit is {args.unit}")
 
 
 def _progress_default(args):
@@ -152,7 +471,7 @@ def _cmd_demo(args):
     from .groups import parallel_workers
 
     out = Path(args.out or "isoturnover_out_demo")
-    check_out_dir(out, args.force)
+    check_out_dir(out, args.force, hold=True)
     jobs = parallel_workers(args.jobs, "--jobs")  # 1 (after one warning) without joblib
     a = run_demo(out, force=args.force, progress=_progress_default(args),
                  figures=not args.no_figures, n_jobs=jobs)
@@ -168,17 +487,21 @@ def _cmd_fit(args):
     from .groups import parallel_workers
 
     out = Path(args.out or "isoturnover_out_fit")
-    check_out_dir(out, args.force)
+    check_out_dir(out, args.force, hold=True)
     jobs = parallel_workers(args.jobs, "--jobs")  # 1 (after one warning) without joblib
-    by = None if args.by is None else tuple(x.strip() for x in args.by.split(",") if x.strip())
     structures = ("parallel", "chain") if args.chain else ("parallel",)
     a = analyse(args.samples, diets=args.diets, masses=args.masses, pools=args.pools,
-                structures=structures, by=by, ci=args.ci, level=args.level,
+                structures=structures, by=args.by, ci=args.ci, level=args.level,
                 time_unit=args.time_unit, growth_curve=args.growth_curve,
                 per_diet_separation={"auto": "auto", "yes": True,
                                      "no": False}[args.per_diet_separation], lag=args.lag,
                 progress=_progress_default(args), n_boot=args.n_boot, n_jobs=jobs,
-                date_format=args.date_format)
+                date_format=args.date_format, criterion=args.criterion,
+                separation=args.separation, initial=args.initial_state, fixed=args.fix,
+                absolute_sigma=args.known_sd, loss=args.loss, columns=args.columns,
+                diet_columns=args.diet_columns, mass_columns=args.mass_columns,
+                switch_date=args.switch_date, switch_dates=args.switch_dates,
+                unit=args.unit, baseline=args.baseline)
     if a.n_fitted() == 0:
         reasons = "; ".join(f"{' / '.join(map(str, k[1:]))}: {why}"
                             for k, why in list(a.failures().items())[:10])
@@ -242,6 +565,8 @@ def main(argv: list[str] | None = None) -> int:
     if args.command is None:
         parser.print_help()
         return 0
+    if args.command == "fit":
+        _check_fit(args, parser.commands["fit"])
     handler = {"demo": _cmd_demo, "fit": _cmd_fit}[args.command]
     try:
         with warnings.catch_warnings():

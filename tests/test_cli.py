@@ -196,7 +196,7 @@ def test_fit_with_jobs_gives_the_results_of_one_process(tmp_path, capsys):
                       r"workers\) or -1 \(all cores\); got '0'"),
     (["--jobs", "-3"], r"argument --jobs: .*got '-3'"),
     (["--jobs", "two"], r"argument --jobs: .*got 'two'"),
-    (["--n-boot", "many"], r"argument --n-boot: invalid int value: 'many'"),
+    (["--n-boot", "many"], r"argument --n-boot: must be a whole number >= 1; got 'many'"),
 ])
 def test_bad_arguments_one_error_line_exit_2(argv, pattern, tmp_path, capsys):
     import re
@@ -340,12 +340,13 @@ def test_date_format_reaches_the_readers(tmp_path, capsys, monkeypatch):
 
     f = tmp_path / "samples.csv"
     f.write_text(GOOD, encoding="utf-8")
-    # not a format: refused by the readers, one error line, nothing written
-    code, _, err = run(["fit", str(f), "--out", str(tmp_path / "o"), "--date-format",
-                        "dd/mm/yyyy"], capsys)
-    assert code == 2
+    # not a format: refused with the other argument errors, one line, nothing written
+    with pytest.raises(SystemExit) as e:
+        main(["fit", str(f), "--out", str(tmp_path / "o"), "--date-format", "dd/mm/yyyy"])
+    assert e.value.code == 2
+    err = capsys.readouterr().err
     assert_one_error_line(err)
-    assert "date_format must be a format such as '%d/%m/%Y'" in err, err
+    assert "argument --date-format: must be a format such as %d/%m/%Y" in err, err
     assert not (tmp_path / "o").exists()
     # a format: handed to the samples reader as given
     seen = []

@@ -1,0 +1,479 @@
+r"""The joint least-squares problem of a shared fit (several series, common parameters).
+
+Used by :mod:`isoturnover.sharedfit`. A *block* is one series (its kinetics and data); a
+:class:`Layout` maps the joint coordinates to each block's local coordinates (log for
+rates, stick-breaking logits for pool fractions, identity otherwise, ``lag >= 0``): a local
+coordinate is one joint coordinate, or the sum of two with contrast coding (a reference
+level's value plus a level's difference). :class:`Joint` evaluates the residuals and the
+exact, block-sparse Jacobian (each block's kinetics times the coordinate map), solves the
+weighted problem with :func:`scipy.optimize.least_squares`, and estimates per-block
+residual variances by maximum likelihood.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import warnings
+
+import numpy as np
+import pandas as pd
+from scipy import optimize, sparse, special
+
+from .diet import DietHistory
+from .errors import DataError
+
+__all__ = ["Block", "Layout", "Joint", "loglik", "safe_label", "SPARSE_ABOVE", "read_study",
+           "key_label", "parse_shared", "diet_of"]
+
+SPARSE_ABOVE = 40  # joint coordinates from which the Jacobian is passed as sparse
+
+
+class Block:
+    """One series: its key, label, kinetics and data (t, y, relative σ)."""
+
+    def __init__(self, key, label, kin, t, y, sd, levels):
+        self.key, self.label, self.kin = key, label, kin
+        self.t, self.y = t, y
+        self.sd = np.ones_like(y) if sd is None else sd
+        self.has_sd = sd is not None
+        self.n = t.size
+        self.levels = levels  # column -> level (text) of the scope columns
+
+
+def safe_label(text):
+    s = re.sub(r"[^0-9A-Za-z_]+", "_", str(text)).strip("_")
+    return s or "x"
+
+
+class Layout:
+    """Joint coordinates and, per block, how its local coordinates read them.
+
+    Local coordinates of a block (in this order): each non-fraction parameter (log for
+    rates, identity otherwise), then the fraction sticks. A local coordinate is the sum of
+    one or two joint coordinates (two with contrast coding of a per-level parameter:
+    reference level + difference).
+    """
+
+    def __init__(self, blocks, scopes, contrast=()):
+        self.blocks = blocks
+        self.scopes = scopes  # name -> None (all) or column
+        kin0 = blocks[0].kin
+        self.names = kin0.param_names
+        self.rate_names = set(kin0.rate_names)
+        self.frac_idx = list(kin0.fraction_index)
+        self.local = []  # (name or ("stick", i), kind)
+        for j, nm in enumerate(self.names):
+            if j in self.frac_idx:
+                continue
+            kind = "log" if nm in self.rate_names else ("lag" if nm == "lag" else "id")
+            self.local.append((nm, kind, j))
+        nf = len(self.frac_idx)
+        for i in range(max(nf - 1, 0)):
+            self.local.append((f"stick{i + 1}", "stick", i))
+        labels, index, lower = [], {}, []
+
+        def joint(label, kind):
+            if label not in index:
+                index[label] = len(labels)
+                labels.append(label)
+                lower.append(0.0 if kind == "lag" else -np.inf)
+            return index[label]
+
+        self.rows = []  # per block: list of lists of joint indices (one list per local coord)
+        self.coding = {}  # local name -> ("all" | column, reference level or None)
+        for b in blocks:
+            rows = []
+            for nm, kind, _ in self.local:
+                pname = "f" if kind == "stick" else nm
+                scope = scopes.get(pname, False)
+                if scope is False:
+                    rows.append([joint(f"{nm}@{b.label}", kind)])
+                elif scope is None:
+                    rows.append([joint(nm, kind)])
+                else:
+                    lev = b.levels[scope]
+                    if scope in contrast:
+                        ref = sorted(set(bb.levels[scope] for bb in blocks))[0]
+                        base = joint(f"{nm}@{scope}={ref}", kind)
+                        self.coding[nm] = (scope, ref)
+                        if lev == ref:
+                            rows.append([base])
+                        else:
+                            rows.append([base, joint(f"{nm}@{scope}={lev}-{ref}", "id")])
+                    else:
+                        rows.append([joint(f"{nm}@{scope}={lev}", kind)])
+            self.rows.append(rows)
+        self.labels = labels
+        self.index = index
+        self.lower = np.array(lower)
+        self.size = len(labels)
+        # per block: the joint columns it uses and the local -> columns matrix
+        self.cols, self.A = [], []
+        for rows in self.rows:
+            cols = sorted({c for r in rows for c in r})
+            pos = {c: i for i, c in enumerate(cols)}
+            A = np.zeros((len(rows), len(cols)))
+            for i, r in enumerate(rows):
+                for c in r:
+                    A[i, pos[c]] = 1.0
+            self.cols.append(np.array(cols, dtype=int))
+            self.A.append(A)
+
+    # -- local coordinates <-> natural parameters ------------------------------------------
+    def theta(self, c, jac=False):
+        """Natural parameters of a block from its local coordinates (and dθ/dc)."""
+        p = len(self.names)
+        th = np.empty(p)
+        D = np.zeros((p, len(self.local))) if jac else None
+        nf = len(self.frac_idx)
+        sticks = []
+        for i, (_, kind, j) in enumerate(self.local):
+            if kind == "log":
+                th[j] = math.exp(c[i])
+                if jac:
+                    D[j, i] = th[j]
+            elif kind == "stick":
+                sticks.append(i)
+            else:
+                th[j] = c[i]
+                if jac:
+                    D[j, i] = 1.0
+        if nf:
+            s = np.array([special.expit(c[i]) for i in sticks])
+            rem = 1.0
+            fr = np.empty(nf)
+            for i in range(nf - 1):
+                fr[i] = rem * s[i]
+                rem *= 1.0 - s[i]
+            fr[nf - 1] = rem
+            th[self.frac_idx] = fr
+            if jac:
+                for a in range(nf):
+                    for b_ in range(min(a + 1, nf - 1)):
+                        if b_ < a:
+                            d = -fr[a] * s[b_]
+                        else:  # b_ == a < nf - 1
+                            d = fr[a] * (1.0 - s[a])
+                        D[self.frac_idx[a], sticks[b_]] = d
+        return (th, D) if jac else th
+
+    def local_from_theta(self, th):
+        """Local coordinates from natural parameters (the inverse of :meth:`theta`)."""
+        c = np.empty(len(self.local))
+        rem = 1.0
+        for i, (_, kind, j) in enumerate(self.local):
+            if kind == "log":
+                c[i] = math.log(max(th[j], 1e-300))
+            elif kind == "stick":
+                f = th[self.frac_idx[j]]
+                s = min(max(f / rem if rem > 0 else 0.5, 1e-9), 1 - 1e-9)
+                c[i] = math.log(s / (1 - s))
+                rem *= 1 - s
+            else:
+                c[i] = th[j]
+        return c
+
+
+class Joint:
+    """The joint weighted least-squares problem of a layout."""
+
+    def __init__(self, layout: Layout):
+        self.L = layout
+        self.blocks = layout.blocks
+        self.N = sum(b.n for b in self.blocks)
+        self.offsets = np.cumsum([0] + [b.n for b in self.blocks])
+        self.scale = np.ones(len(self.blocks))  # s_b
+        rr, cc = [], []
+        for k, b in enumerate(self.blocks):
+            r = np.arange(self.offsets[k], self.offsets[k + 1])
+            rr.append(np.repeat(r, len(layout.cols[k])))
+            cc.append(np.tile(layout.cols[k], b.n))
+        self._rr = np.concatenate(rr)
+        self._cc = np.concatenate(cc)
+        self.sparse = layout.size > SPARSE_ABOVE
+
+    def block_theta(self, z, k, jac=False):
+        c = self.L.A[k] @ z[self.L.cols[k]]
+        return self.L.theta(c, jac)
+
+    def raw(self, z, k):
+        """Model − data of block k divided by its relative σ (no variance scale)."""
+        b = self.blocks[k]
+        th = self.block_theta(z, k)
+        return (b.kin.evaluate(b.t, th) - b.y) / b.sd
+
+    def residuals(self, z):
+        return np.concatenate([self.raw(z, k) / self.scale[k] for k in range(len(self.blocks))])
+
+    def jac_blocks(self, z):
+        out = []
+        for k, b in enumerate(self.blocks):
+            th, D = self.block_theta(z, k, jac=True)
+            _, Jn = b.kin.evaluate(b.t, th, jacobian=True)
+            Jc = (Jn @ D) @ self.L.A[k]
+            out.append(Jc / (b.sd * self.scale[k])[:, None])
+        return out
+
+    def jacobian(self, z, free=None):
+        blocks = self.jac_blocks(z)
+        data = np.concatenate([Jb.ravel() for Jb in blocks])
+        if self.sparse:
+            J = sparse.csr_matrix((data, (self._rr, self._cc)), shape=(self.N, self.L.size))
+            return J if free is None else J[:, free]
+        J = np.zeros((self.N, self.L.size))
+        J[self._rr, self._cc] = data
+        return J if free is None else J[:, free]
+
+    def solve(self, z0, fixed=None, tol=1e-12, max_nfev=None):
+        """Least squares over the coordinates not in ``fixed`` (index -> value)."""
+        z0 = np.asarray(z0, float).copy()
+        free = np.arange(self.L.size)
+        if fixed:
+            for i, v in fixed.items():
+                z0[i] = v
+            free = np.array([i for i in free if i not in fixed], dtype=int)
+        zf = z0.copy()
+
+        def full(x):
+            zf[free] = x
+            return zf
+
+        def fun(x):
+            r = self.residuals(full(x))
+            return np.where(np.isfinite(r), r, 1e150)
+
+        def jac(x):
+            return self.jacobian(full(x), free)
+
+        lo = self.L.lower[free]
+        x0 = np.maximum(z0[free], lo)
+        kw = {"tr_solver": "lsmr"} if self.sparse else {"tr_solver": "exact"}
+        bounds = (lo, np.full(free.size, np.inf)) if np.any(np.isfinite(lo)) else \
+            (-np.inf, np.inf)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            res = optimize.least_squares(fun, x0, jac=jac, method="trf", bounds=bounds,
+                                         x_scale="jac", xtol=tol, ftol=max(tol * 1e-2, 3e-16),
+                                         gtol=tol,
+                                         max_nfev=max_nfev or 200 * (free.size + 1), **kw)
+        z = full(res.x).copy()
+        r = self.residuals(z)
+        ok = bool(res.status > 0 and np.all(np.isfinite(r)))
+        return z, float(r @ r), ok, res
+
+    def block_rss(self, z):
+        """Raw (unscaled) RSS of each block."""
+        return np.array([float(np.sum(self.raw(z, k) ** 2)) for k in range(len(self.blocks))])
+
+    def fit(self, z0, per_block, rounds=3):
+        r"""Fit with per-block variances estimated by ML, or with one common scale.
+
+        With per-block variances: a few rounds of the alternation (weighted fit, then
+        :math:`s_b^2 = \mathrm{RSS}_b/n_b`), the coordinate ascent of the concentrated
+        log-likelihood, bring the fit near the optimum; damped Newton steps on that
+        likelihood (:meth:`newton_ml`) finish it.
+
+        Parameters
+        ----------
+        z0 : ndarray
+            Starting joint coordinates.
+        per_block : bool
+            Estimate a residual variance per block.
+        rounds : int, default=3
+            Rounds of the alternation before the Newton steps.
+
+        Returns
+        -------
+        z : ndarray
+            Joint coordinates at the optimum.
+        ok : bool
+            Converged.
+        rounds : int
+            Alternation rounds run.
+        """
+        z, rss, ok, res = self.solve(z0)
+        if not per_block:
+            return z, ok, 1
+        n = np.array([b.n for b in self.blocks], float)
+        done = 0
+        for _ in range(rounds + 1):
+            new, _ll = self._scales(z, n)
+            change = float(np.max(np.abs(new / self.scale - 1.0)))
+            self.scale = new
+            if change < 1e-7:
+                break
+            z, rss, ok, res = self.solve(z)
+            done += 1
+        z, ok_ml = self.newton_ml(z, n)
+        self.scale, _ = self._scales(z, n)
+        return z, ok and ok_ml, done
+
+    def _scales(self, z, n):
+        rb = self.block_rss(z)
+        s2 = np.maximum(rb / n, 1e-12 * max(np.median(rb / n), 1e-300))
+        ll = float(-0.5 * np.sum(n * np.log(s2)))
+        return np.sqrt(s2 / np.exp(np.mean(np.log(s2)))), ll  # relative scales, loglik
+
+    def newton_ml(self, z, n, max_iter=60):
+        r"""Minimise :math:`F(z) = \sum_b n_b \ln \mathrm{RSS}_b(z)` by damped Newton steps.
+
+        The Hessian is the Gauss–Newton one of the concentrated likelihood,
+        :math:`\sum_b \frac{n_b}{\mathrm{RSS}_b} 2J_b^TJ_b - \frac{n_b}{\mathrm{RSS}_b^2}
+        g_b g_b^T` with :math:`g_b = 2J_b^T r_b` (raw residuals and Jacobians), assembled
+        block-sparse (a block touches only its own and the shared coordinates) and solved
+        with SuperLU; Levenberg–Marquardt damping keeps each step a descent step, and
+        ``lag >= 0`` is kept by clipping.
+
+        Parameters
+        ----------
+        z : ndarray
+            Starting joint coordinates.
+        n : ndarray
+            Points per block.
+        max_iter : int, default=60
+            Newton steps at most.
+
+        Returns
+        -------
+        z : ndarray
+            Coordinates at the optimum.
+        ok : bool
+            Converged within ``max_iter`` steps.
+        """
+        from scipy.sparse.linalg import spsolve
+
+        lam = 1e-6
+        lo = self.L.lower
+        size = self.L.size
+        rr = np.concatenate([np.repeat(c, c.size) for c in self.L.cols])
+        cc = np.concatenate([np.tile(c, c.size) for c in self.L.cols])
+
+        def parts(z):
+            rs = [self.raw(z, k) for k in range(len(self.blocks))]
+            rb = np.array([float(r @ r) for r in rs])
+            return rs, rb, float(np.sum(n * np.log(np.maximum(rb, 1e-300))))
+
+        rs, rb, F = parts(z)
+        for _ in range(max_iter):
+            Js = self.jac_blocks(z)
+            g = np.zeros(size)
+            vals = []
+            for k, (Jb, r) in enumerate(zip(Js, rs)):
+                Jb = Jb * self.scale[k]  # raw Jacobian
+                gb = 2.0 * (Jb.T @ r)
+                w = n[k] / max(rb[k], 1e-300)
+                g[self.L.cols[k]] += w * gb
+                vals.append((w * 2.0 * (Jb.T @ Jb) - (w / max(rb[k], 1e-300))
+                             * np.outer(gb, gb)).ravel())
+            H = sparse.csc_matrix((np.concatenate(vals), (rr, cc)), shape=(size, size))
+            d2 = np.maximum(H.diagonal(), 1e-300)
+            for _try in range(30):
+                A = (H + sparse.diags(lam * d2)).tocsc()
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")
+                    step = -spsolve(A, g)
+                if not np.all(np.isfinite(step)):
+                    lam *= 10
+                    continue
+                zn = np.maximum(z + step, lo)
+                rs_n, rb_n, Fn = parts(zn)
+                if np.isfinite(Fn) and Fn <= F + 1e-12 * abs(F):
+                    break
+                lam *= 10
+            else:
+                return z, False
+            dec = F - Fn
+            z, rs, rb, F = zn, rs_n, rb_n, Fn
+            lam = max(lam / 10, 1e-12)
+            if dec <= 1e-12 * max(abs(F), 1.0) and abs(g @ step) < 1e-10 * max(abs(F), 1.0):
+                return z, True
+        return z, False
+
+
+def loglik(problem, z, variance):
+    rb = problem.block_rss(z)
+    n = np.array([b.n for b in problem.blocks], float)
+    log_sd = sum(float(np.sum(np.log(b.sd))) for b in problem.blocks)
+    if variance == "per_block":
+        s2 = np.maximum(rb / n, 1e-300)
+        return float(-0.5 * np.sum(n * (np.log(2 * np.pi * s2) + 1))) - log_sd
+    N = n.sum()
+    return float(-0.5 * N * (math.log(2 * math.pi * max(rb.sum() / N, 1e-300)) + 1)) - log_sd
+
+
+# ----------------------------------------------------------------------------------------
+# reading a study into blocks
+# ----------------------------------------------------------------------------------------
+def read_study(samples, by):
+    from .data import average_replicates, read_samples
+
+    s = read_samples(samples) if not isinstance(samples, pd.DataFrame) else \
+        read_samples(samples, time_unit=(samples.attrs or {}).get("time_unit", "d"))
+    unit = (s.attrs or {}).get("time_unit", "d")
+    if isinstance(by, str):
+        by = (by,)
+    by = tuple(by)
+    if not by or not all(isinstance(c, str) for c in by):
+        raise DataError(f"'by' must name one or more columns of the samples; got {by!r}")
+    missing = [c for c in by if c not in s.columns]
+    if missing:
+        raise DataError(f"'by': column(s) {', '.join(missing)} not in the samples table "
+                        f"(columns: {', '.join(map(str, s.columns))})")
+    avg = average_replicates(s)
+    for col in ("group",):
+        if col in s.columns and col not in avg.columns:
+            first = s.groupby(["subject", "tissue", "isotope"], sort=False)[col].first()
+            avg = avg.join(first, on=["subject", "tissue", "isotope"])
+    return avg, by, unit
+
+
+def key_label(key):
+    return "_".join(safe_label(k) for k in key)
+
+
+def parse_shared(shared, names, frame, by):
+    if isinstance(shared, str):
+        shared = (shared,)
+    if isinstance(shared, dict):
+        items = list(shared.items())
+    else:
+        try:
+            items = [(nm, None) for nm in shared]
+        except TypeError:
+            raise DataError(f"'shared' must be parameter names or a dict name -> column; got "
+                            f"{shared!r}") from None
+    scopes = {}
+    fr = set()
+    for nm, col in items:
+        if not isinstance(nm, str):
+            raise DataError(f"'shared': parameter names are text; got {nm!r}")
+        if nm not in names:
+            raise DataError(f"'shared': {nm!r} is not a parameter of this model "
+                            f"({', '.join(names)})")
+        if col is not None:
+            if not isinstance(col, str) or col not in frame.columns:
+                raise DataError(f"'shared[{nm!r}]': column {col!r} is not in the samples "
+                                "table")
+        key = "f" if re.fullmatch(r"f\d+", nm) else nm
+        if key == "f":
+            fr.add(col)
+        scopes[key] = col
+    if len(fr) > 1:
+        raise DataError("'shared': pool fractions are shared together, with one scope")
+    return scopes
+
+
+def diet_of(diets, key):
+    if diets is None or isinstance(diets, DietHistory):
+        return diets
+    if isinstance(diets, dict):
+        for k in (key, key[0] if len(key) == 1 else None, key_label(key)):
+            if k is not None and k in diets:
+                d = diets[k]
+                if not isinstance(d, DietHistory):
+                    raise DataError(f"'diets[{k!r}]' must be a DietHistory")
+                return d
+        raise DataError(f"'diets' has no diet history for the series {key!r}")
+    raise DataError("'diets' must be None, a DietHistory or a dict series key -> DietHistory; "
+                    f"got {type(diets).__name__}")
