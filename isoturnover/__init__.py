@@ -10,10 +10,13 @@ from importlib.metadata import PackageNotFoundError
 from importlib.metadata import version as _version
 
 from . import isotopes, plotting, uncertainty
+from .allometry import AllometryFit, fit_allometry
 from .analysis import analyse, load_fits, run_demo
 from .data import average_replicates, read_diets, read_masses, read_samples, series
 from .demo import demo_path, load_demo
+from .design import Design, design_schedule, evaluate_design
 from .diet import DietHistory
+from .equilibration import TissueTime, equilibration_time, integration_window, window_weight
 from .errors import (
     BoundWarning,
     ConvergenceWarning,
@@ -32,11 +35,14 @@ from .groups import FitSet, fit_each
 from .growth import GrowthCurve
 from .growthfit import GrowthFit, fit_growth, fit_growth_each, load_growth
 from .model import TurnoverModel, fit_power_dilution
+from .population import population_estimate, random_effects
 from .progress import reaction_progress
 from .report import write_report
 from .results import TurnoverFit
 from .selection import compare, lr_test
 from .serialization import load_fit
+from .sharedfit import SharedFit, compare_groups, fit_shared
+from .simulate import SampleSize, SimulationResult, sample_size, simulate_design
 
 try:
     __version__ = _version("isoturnover")
@@ -56,6 +62,24 @@ __all__ = [
     "lr_test",
     "fit_each",
     "FitSet",
+    "fit_shared",
+    "SharedFit",
+    "compare_groups",
+    "random_effects",
+    "population_estimate",
+    "equilibration_time",
+    "integration_window",
+    "window_weight",
+    "TissueTime",
+    "fit_allometry",
+    "AllometryFit",
+    "design_schedule",
+    "evaluate_design",
+    "Design",
+    "simulate_design",
+    "SimulationResult",
+    "sample_size",
+    "SampleSize",
     "read_samples",
     "read_diets",
     "read_masses",

@@ -119,8 +119,9 @@ def trust_notes(fit) -> list:
     names = kin.param_names
     n_pools = len(kin.rate_names)
     tau = fit.t - float(kin.switch_times[0])
-    pos = np.sort(tau[tau > 0])
-    span = float(pos[-1]) if pos.size else 0.0
+    pos = tau[tau > 0]
+    span = float(pos.max()) if pos.size else 0.0
+    first = float(pos.min()) if pos.size else math.nan
     if not fit.state.optimizer_ok:
         notes.append(TrustNote("not_converged", ConvergenceWarning,
                                f"the optimizer did not converge ({fit.message})"))
@@ -164,9 +165,8 @@ def trust_notes(fit) -> list:
                     "at_bound", BoundWarning,
                     f"{nm} = {v[nm]:.6g} is at its {side} bound ({b:g}, set in params): "
                     "the data would put it beyond; its interval stops at the bound"))
-    first = float(pos[0]) if pos.size else math.nan
     unit = unit_word(fit.time_unit)
-    fast = unresolved_rates(fit)
+    fast = unresolved_rates(fit, first=first, values=v)
     for nm in kin.rate_names:
         if nm in fit.fixed:
             continue
@@ -199,8 +199,8 @@ def trust_notes(fit) -> list:
                     f"{nm} = {v[nm]:.3g} (< 0.02): a pool this small is not supported by "
                     "the data; fewer pools describe them as well"))
     if fit.state.cov_ok and fit.nvarys > 1:
-        c = fit.covar
-        d = np.sqrt(np.diag(c))
+        c = fit.covar.tolist()  # plain floats: a handful of numbers
+        d = np.sqrt(np.diag(fit.covar)).tolist()
         free = [j for j, nm in enumerate(names) if nm not in fit.fixed and d[j] > 0]
         # the last fraction is determined by the others; its correlation is by construction
         skip = set()
@@ -213,7 +213,8 @@ def trust_notes(fit) -> list:
             for b in free:
                 if b <= a or a in skip or b in skip:
                     continue
-                r = c[a, b] / (d[a] * d[b])
+                den = d[a] * d[b]
+                r = c[a][b] / den if den else math.nan
                 if abs(r) > 0.99 and (worst is None or abs(r) > abs(worst[2])):
                     worst = (names[a], names[b], r)
         if worst:
@@ -221,8 +222,10 @@ def trust_notes(fit) -> list:
                 "correlation", IdentifiabilityWarning,
                 f"{worst[0]} and {worst[1]} are correlated at {worst[2]:+.3f}: the data "
                 "hardly separate them"))
-    n_after = int(np.sum(tau > 0))
-    none_after = after_switch_reason(fit.t, float(kin.switch_times[0]), fit.time_unit)
+    n_after = pos.size
+    # t − s > 0 exactly when t > s: the reason is needed only when no time is positive
+    none_after = None if n_after else after_switch_reason(
+        fit.t, float(kin.switch_times[0]), fit.time_unit)
     if none_after is not None:
         notes.append(TrustNote("no_sample_after_switch", DesignWarning, none_after))
     elif n_after < fit.nvarys + 2:
@@ -446,7 +449,7 @@ def plateau_time(fit) -> float:
         return math.nan
 
 
-def unresolved_rates(fit) -> dict:
+def unresolved_rates(fit, *, first=None, values=None) -> dict:
     r"""Rates too fast for the sampling to resolve: each pool complete before the first sample.
 
     A free rate with :math:`k\,t_{first} >` :data:`FAST_LIMIT` (:math:`t_{first}` the first
@@ -459,6 +462,11 @@ def unresolved_rates(fit) -> dict:
     ----------
     fit : TurnoverFit
         A finished fit.
+    first : float, optional
+        The first sample time after the first switch (time unit of the fit), when the
+        caller has it already (NaN: no sample follows the switch).
+    values : dict, optional
+        The fit's parameter values (``fit.values``), when the caller has them already.
 
     Returns
     -------
@@ -467,12 +475,13 @@ def unresolved_rates(fit) -> dict:
         when every rate is resolved or no sample follows the switch.
     """
     kin = fit.kinetics
-    tau = np.asarray(fit.t, dtype=float) - float(kin.switch_times[0])
-    pos = tau[tau > 0]
-    if not pos.size:
+    if first is None:
+        tau = np.asarray(fit.t, dtype=float) - float(kin.switch_times[0])
+        pos = tau[tau > 0]
+        first = float(pos.min()) if pos.size else math.nan
+    if not first > 0:
         return {}
-    first = float(pos.min())
-    v = fit.values
+    v = fit.values if values is None else values
     return {nm: float(v[nm]) * first for nm in kin.rate_names
             if nm not in fit.fixed and float(v[nm]) * first > FAST_LIMIT}
 

@@ -23,7 +23,7 @@ from .coordinates import Coordinates, Ties
 from .errors import DataError, DataWarning, FitError
 from .inputs import as_1d, check_growth_coverage, check_names, prepare_data
 from .kinetics import TurnoverKinetics
-from .projection import project_exponentials
+from .projection import level_constraints, project_exponentials
 from .starts import general_starts, projected_rate_starts, step_linear_starts
 from .state import FitState
 
@@ -169,15 +169,35 @@ class Problem:
 
     def evaluate(self, coords: Coordinates, z):
         """Weighted residuals r(z) and their Jacobian dr/dz in internal coordinates."""
+        return self.evaluate_parts(coords, z)[:2]
+
+    def evaluate_parts(self, coords: Coordinates, z):
+        r"""Residuals, their Jacobian and the parameters they were computed from.
+
+        Parameters
+        ----------
+        coords : Coordinates
+            The coordinate map.
+        z : ndarray
+            Internal coordinates.
+
+        Returns
+        -------
+        tuple of ndarray
+            ``(r, dr/dz, θ, dθ/dz)``: :math:`r = w (y - \hat y(\theta(z)))` (with the extra
+            block appended) and :math:`dr/dz = -w\, J_\theta\, d\theta/dz`.
+        """
         th, A = coords.theta(z, jac=True)
         yy, J = self.kin.evaluate(self.t, th, jacobian=True)
-        r = self.w * (self.y - yy)
-        Jz = -(self.w[:, None] * (J @ A))
+        w = self.w
+        r = w * (self.y - yy)
+        Jz = J @ A
+        Jz *= -w[:, None]
         if self.extra is not None:
             r2, J2 = self.extra(th)
             r = np.concatenate([r, r2])
             Jz = np.vstack([Jz, J2 @ A])
-        return r, Jz
+        return r, Jz, th, A
 
     def cached_evaluate(self, coords: Coordinates):
         """``f(z) -> {"r": residuals, "J": Jacobian}``, evaluated once per distinct z (solvers
@@ -260,60 +280,61 @@ class Problem:
         n = kin.pools
         if coords.fixed:
             return None
-        c0, M, cols = self.level_map()
-        P = np.stack([M[1, cols], M[0, cols]])  # (L1, L0) = c + P ψ
-        nu = _left_null_space(P)
-        if nu is None:
+        memo = kin.memo
+        if "level_constraints" not in memo:  # from the kinetics alone: once per kinetics
+            memo["level_constraints"] = level_constraints(*self.level_map(), n)
+        setup = memo["level_constraints"]
+        if setup is None:
             return None  # the level parameters are not determined by (L1, L0)
-        C = d = None
-        if nu.size:  # ν·((a, a + Σ b) − (c1, c0)) = 0
-            T = np.zeros((2, n + 1))
-            T[0, 0] = 1.0
-            T[1, :] = 1.0
-            C, d = nu @ T, nu @ np.array([c0[1], c0[0]])
-        k0 = np.asarray(rates0, dtype=float)
-        if not (np.all(np.isfinite(k0)) and np.all(k0 > 0)):
+        c0, P, cols, C, d = setup
+        k0 = [float(v) for v in rates0]
+        if not all(0.0 < v < math.inf for v in k0):
             return None
         tau = self.t - float(kin.switch_times[0])
         pf = project_exponentials(tau, self.y, self.w, k0, C=C, d=d)
         if pf is None or not pf.converged:
             return None
-        # the constraints involve only Σ b: pools may change places, sort by rate
-        order = np.argsort(-pf.rates)
-        k = pf.rates[order].tolist()
-        a, *b = np.concatenate([pf.linear[:1], pf.linear[1:][order]]).tolist()
+        # the constraints involve only Σ b: pools may change places, sort by rate (plain
+        # floats: a handful of numbers)
+        rates, lin = pf.rates.tolist(), pf.linear.tolist()
+        order = sorted(range(n), key=lambda i: -rates[i])
+        k = [rates[i] for i in order]
+        a, b = lin[0], [lin[1 + i] for i in order]
         total = sum(b)
         if not (total != 0 and all(v / total > 0 for v in b)
                 and all(0 < v < math.inf for v in k)
                 and all(k[i + 1] < k[i] * (1 - 1e-9) for i in range(n - 1))):
             return None
         th = np.zeros(kin.n_params)
-        rhs = np.array([a - c0[1], a + total - c0[0]])
+        r1, r2 = a - float(c0[1]), a + total - float(c0[0])
         if len(cols) == 1:
-            p_ = P[:, 0]
-            th[cols[0]] = float(p_ @ rhs) / float(p_ @ p_)
-        elif len(cols) == 2:  # 2 × 2, invertible (checked by _left_null_space)
+            p1, p2 = float(P[0, 0]), float(P[1, 0])
+            th[cols[0]] = (p1 * r1 + p2 * r2) / (p1 * p1 + p2 * p2)
+        elif len(cols) == 2:  # 2 × 2, invertible (checked by level_constraints)
             (a11, a12), (a21, a22) = P.tolist()
-            r1, r2 = rhs.tolist()
             det = a11 * a22 - a12 * a21
             th[cols] = [(a22 * r1 - a12 * r2) / det, (a11 * r2 - a21 * r1) / det]
         else:
-            th[cols] = np.linalg.lstsq(P, rhs, rcond=None)[0]
+            th[cols] = np.linalg.lstsq(P, np.array([r1, r2]), rcond=None)[0]
         th[kin.rate_index] = k
         th[kin.fraction_index] = [v / total for v in b]
         z = coords.z_from_theta(th)
-        r, J = self.evaluate(coords, z)
+        r, J, th_z, A = self.evaluate_parts(coords, z)
         cost = float(r @ r)
         # the model must reproduce the projected fit (same sum of squares), and the full
         # problem's gradient must vanish there
-        grad = J.T @ r
-        colsq = np.einsum("ij,ij->j", J, J)
         if not (math.isfinite(cost) and abs(cost - pf.rss) <= 1e-7 * cost + 1e-12
-                * float(self.w @ self.w) and bool(np.all(
-                    grad * grad <= 1e-12 * colsq * max(cost, 1e-300) + 1e-300))):
+                * float(self.w @ self.w)):
             return None
-        return Solution(z, coords.theta(z), cost, 1, pf.n_eval,
-                        "variable projection converged (Newton, exact Hessian)", True, J)
+        tol = 1e-12 * max(cost, 1e-300)
+        if not all(g * g <= tol * s + 1e-300 for g, s in zip((r @ J).tolist(),
+                                                             (J * J).sum(axis=0).tolist())):
+            return None
+        sol = Solution(z, th_z, cost, 1, pf.n_eval,
+                       "variable projection converged (Newton, exact Hessian)", True, J)
+        # what the fit's state would compute again at this z (see FitState)
+        sol.extra["evaluated"] = (z, r, A)
+        return sol
 
     def solve(self, coords: Coordinates, z0, *, tol=1e-14, max_nfev=None) -> Solution:
         """Least-squares solution from ``z0`` in the internal coordinates.
@@ -434,25 +455,6 @@ class Problem:
                        str(res.message), ok, J.copy())
         sol.extra["lmfit"] = res
         return sol
-
-
-def _left_null_space(P):
-    """Rows spanning the left null space of the 2 × m matrix ``P`` (shape (2 − rank, 2)),
-    or None when its columns are dependent (rank < m: parameters not determined)."""
-    m = P.shape[1]
-    if m == 1:
-        p1, p0 = float(P[0, 0]), float(P[1, 0])
-        norm = math.hypot(p1, p0)
-        if norm == 0:
-            return None
-        return np.array([[p0 / norm, -p1 / norm]])
-    if m == 2:
-        det = float(P[0, 0] * P[1, 1] - P[0, 1] * P[1, 0])
-        scale = float(np.max(np.abs(P)))
-        return np.zeros((0, 2)) if abs(det) > 1e-12 * scale * scale else None
-    if m == 0:
-        return np.eye(2)
-    return None  # more level parameters than the two levels can determine
 
 
 class MassBlock:
@@ -580,11 +582,21 @@ class Engine:
         self.block_scale = None  # (s_delta, s_mass) of the joint fit
 
     def coords(self, fixed, rate_anchor=None, fraction_anchor=None):
+        """The :class:`Coordinates` for ``fixed`` (name -> value) and the anchor pools: built
+        once per engine and fixed names; the plain map (nothing fixed, tied or bounded)
+        once per kinetics, shared by its engines (it holds nothing that changes)."""
         key = (tuple(sorted(fixed)), rate_anchor, fraction_anchor)
         c = self._coords_cache.get(key)
         if c is None:
-            c = Coordinates(self.kin, fixed, rate_anchor, fraction_anchor, ties=self.ties,
-                            bounds=self.bounds)
+            plain = (not fixed and rate_anchor is None and fraction_anchor is None
+                     and self.ties is None and not self.bounds)
+            if plain:
+                c = self.kin.memo.get("plain_coordinates")
+            if c is None:
+                c = Coordinates(self.kin, fixed, rate_anchor, fraction_anchor,
+                                ties=self.ties, bounds=self.bounds)
+                if plain:
+                    self.kin.memo["plain_coordinates"] = c
             self._coords_cache[key] = c
         else:
             c.set_fixed_values(fixed)
@@ -634,7 +646,7 @@ class Engine:
         can be estimated from it (free levels match it at any rate, known levels send the
         rate to 0), as ``fit_each`` reports it ``no_change``."""
         kin = self.kin
-        if self.y.size > 1 and np.ptp(self.y) == 0:
+        if self.y.size > 1 and float(self.y.max()) == float(self.y.min()):
             unit = " ‰" if kin.scale == "delta" else ""
             raise FitError(
                 f"the values do not change: all {self.y.size} equal {float(self.y[0]):g}{unit}; "

@@ -58,7 +58,9 @@ def check_names(d, kin, what):
     dict
         A new dict of floats.
     """
-    if d is not None and not isinstance(d, dict):
+    if d is None:
+        return {}
+    if not isinstance(d, dict):
         raise DataError(f"'{what}' must be a dict of parameter name -> value; got "
                         f"{type(d).__name__}")
     rules = {k: (lambda x: x > 0, "is a rate and must be positive") for k in kin.rate_names}
@@ -93,6 +95,11 @@ def as_1d(name, a, n=None):
         masked array with masked values (a mask cannot be honoured value by value here),
         more than one dimension, a length other than ``n``, or a value that is not finite.
     """
+    if type(a) is np.ndarray and a.dtype == np.float64 and a.ndim == 1 and (
+            n is None or a.size == n):
+        # the common case (a plain float vector of the right length): only finiteness left
+        if np.isfinite(a).all():
+            return a.copy()
     if isinstance(a, np.ma.MaskedArray) and np.ma.count_masked(a):
         k = int(np.ma.count_masked(a))
         raise DataError(
@@ -185,6 +192,7 @@ def prepare_data(t_or_frame, y, sigma, time_unit, *, warn_repeats=True):
 
     from .tables import missing_cells
 
+    order = None  # the time order, once computed
     info = {"source": "arrays", "n_replicates": None, "design": "series", "subjects": None,
             "tissue": None, "isotope": None}
     if isinstance(t_or_frame, pd.DataFrame):
@@ -267,7 +275,10 @@ def prepare_data(t_or_frame, y, sigma, time_unit, *, warn_repeats=True):
         t = as_1d("t", traw)
         yv = as_1d("y", given["y"], t.size)
         sd = None if given["sigma"] is None else as_1d("sigma", given["sigma"], t.size)
-        if warn_repeats and t.size > 1:
+        # repeated times (neighbours in time order first: np.unique only when some repeat)
+        order = np.argsort(t, kind="stable")
+        ts = t[order]
+        if warn_repeats and t.size > 1 and bool((ts[1:] == ts[:-1]).any()):
             vals, inverse, counts = np.unique(t, return_inverse=True, return_counts=True)
             rep = np.flatnonzero(counts > 1)
             if rep.size:
@@ -295,7 +306,8 @@ def prepare_data(t_or_frame, y, sigma, time_unit, *, warn_repeats=True):
         raise DataError(f"'sigma' must be > 0; got {sd[i]!r} at position {i}")
     if t.size < 2:
         raise DataError(f"at least 2 time points are needed; got {t.size}")
-    order = np.argsort(t, kind="stable")
+    if order is None:
+        order = np.argsort(t, kind="stable")
     return {"t": t[order], "y": yv[order], "sigma": None if sd is None else sd[order],
             "time_unit": time_unit or "d", "info": info, "order": order}
 

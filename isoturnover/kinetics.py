@@ -150,6 +150,10 @@ class TurnoverKinetics:
         Position of ``lag`` and of ``k_growth`` in ``theta``, if present.
     growth_param_index : list of int
         Positions of the growth curve's parameters (``growth_params=True``).
+    memo : dict
+        Objects that higher layers derive from this kinetics alone and reuse across fits
+        (the plain coordinate map, the variable projection's level constraints); the
+        kinetics does not change after construction, so they stay valid.
 
     Raises
     ------
@@ -178,6 +182,7 @@ class TurnoverKinetics:
         reference_ratio: float | None = None,
         growth_params: bool = False,
     ):
+        self.memo = {}
         self.structure = check_choice("structure", structure, _STRUCTURES)
         if self.structure == "chain":
             pools = 2

@@ -12,7 +12,12 @@ and colours are set on each artist.
   labels and legends 7 pt.
 * Labels: δ notation with the isotope's international scale (Coplen 2011, Rapid Commun.
   Mass Spectrom. 25:2538–2560) and the data's time unit.
-* Legends and text boxes are kept off the data points (:func:`keep_clear`).
+* Labels in titles and on ticks write isotope codes in the same δ notation
+  (:func:`delta_name`, :func:`series_title`).
+* Legends and text boxes are kept off the data points (:func:`keep_clear`) without drawing
+  the figure: box sizes come from text metrics and points go through ``ax.transData``; on a
+  figure made here (:func:`placing_layout`) this happens once the layout is fixed, when the
+  figure is saved or shown, so each figure is drawn once.
 """
 from __future__ import annotations
 
@@ -27,7 +32,8 @@ __all__ = [
     "OKABE_ITO", "GREY", "FLAG", "SINGLE", "DOUBLE", "LABEL_PT", "TICK_PT", "LEGEND_PT",
     "compact_number", "series_color", "new_axes", "style_axes", "place_legend",
     "finite_points", "keep_clear", "check_fit", "time_unit_word", "delta_label",
-    "tissue_label", "time_label", "fine_grid", "model_name",
+    "tissue_label", "time_label", "fine_grid", "model_name", "delta_name", "series_title",
+    "placing_layout",
 ]
 
 #: Okabe–Ito colour-blind-safe palette (Okabe & Ito 2008), name → hex.
@@ -106,7 +112,8 @@ def new_axes(ax, size=SINGLE):
     ax : matplotlib Axes or None
         Returned as given when not ``None``.
     size : tuple of float, default=SINGLE
-        Figure width and height in inches for a new figure (constrained layout).
+        Figure width and height in inches for a new figure (constrained layout that places
+        the legends when the figure is drawn: :func:`placing_layout`).
 
     Returns
     -------
@@ -124,7 +131,7 @@ def new_axes(ax, size=SINGLE):
         return ax
     import matplotlib.pyplot as plt
 
-    _, ax = plt.subplots(figsize=size, layout="constrained")
+    _, ax = plt.subplots(figsize=size, layout=placing_layout())
     return ax
 
 
@@ -242,14 +249,100 @@ def _overlap(a, b, pad=3.0):
     return a[0] < b[2] + pad and b[0] < a[2] + pad and a[1] < b[3] + pad and b[1] < a[3] + pad
 
 
-def keep_clear(ax, boxes, xy, tries=4):
+def _root_figure(ax):
+    fig = ax.figure
+    get = getattr(fig, "get_figure", None)
+    root = get(root=True) if get is not None else None
+    return root if root is not None else fig
+
+
+_ENGINE = []  # the engine class, made on first use (matplotlib is imported late)
+
+
+def _engine_class():
+    if _ENGINE:
+        return _ENGINE[0]
+    from matplotlib.layout_engine import ConstrainedLayoutEngine
+
+    class PlacingLayoutEngine(ConstrainedLayoutEngine):
+        """Constrained layout, then the placements recorded by :func:`keep_clear`."""
+
+        def __init__(self, **kw):
+            super().__init__(**kw)
+            self.pending = []
+            self._laid_out = False
+
+        def execute(self, fig):
+            """Lay out ``fig`` (constrained layout), then place its legends and text boxes.
+
+            Parameters
+            ----------
+            fig : matplotlib Figure
+                The figure being drawn.
+            """
+            # savefig draws twice (once to lay out, once to render); a figure that has not
+            # changed since it was last laid out and drawn keeps its layout
+            if self._laid_out and not fig.stale and not self.pending:
+                return None
+            self._laid_out = True
+            out = super().execute(fig)
+            if self.pending:
+                todo, self.pending = self.pending, []
+                moved = False
+                for ax, boxes, xy, tries, fixed in todo:
+                    moved |= _place(ax, boxes, xy, tries, fixed)
+                if moved:  # a wider y range or an outside legend changes the margins
+                    out = super().execute(fig)
+            return out
+
+    PlacingLayoutEngine.__module__ = __name__
+    PlacingLayoutEngine.__qualname__ = "PlacingLayoutEngine"
+    _ENGINE.append(PlacingLayoutEngine)
+    return PlacingLayoutEngine
+
+
+def __getattr__(name):
+    # the engine class by name, for pickled figures (made on first use)
+    if name == "PlacingLayoutEngine":
+        return _engine_class()
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
+def placing_layout():
+    """Constrained layout that also places the legends and text boxes of its figure.
+
+    :func:`keep_clear` on a figure with this layout engine only records its request; the
+    engine carries it out when the figure is laid out for drawing (``savefig``, ``show``,
+    ``draw_without_rendering``), after the constrained layout has fixed the axes, so the
+    figure is drawn once. When a placement widens a y range or moves a legend outside the
+    axes, the layout is computed again (not the drawing). A figure that has not changed
+    since it was last laid out and drawn (``fig.stale`` false) keeps its layout: ``savefig``,
+    which draws once to lay out and once to render, computes the layout once.
+
+    Returns
+    -------
+    matplotlib.layout_engine.ConstrainedLayoutEngine
+        A new engine (of the subclass ``PlacingLayoutEngine``), for
+        ``plt.figure(layout=placing_layout())``.
+    """
+    return _engine_class()()
+
+
+def keep_clear(ax, boxes, xy, tries=4, *, fixed=None):
     """Keep legends and text boxes inside the axes off the points ``xy`` (data coordinates).
 
-    The figure is laid out without rendering. A legend that covers points moves to the first
-    free place among the usual positions; when there is none, the y range is widened on the
-    side that needs least room, just enough for the box to sit beyond the points, and the
-    legend is pinned there. A text box stays where it is and the y range widens on its side.
-    A legend taller than 60 % of the axes goes outside, to the right.
+    A legend that covers points moves to the first free place among the usual positions;
+    when there is none, the y range is widened on the side that needs least room, just
+    enough for the box to sit beyond the points, and the legend is pinned there. A text box
+    stays where it is and the y range widens on its side. A legend taller than 60 % of the
+    axes goes outside, to the right.
+
+    Nothing is drawn to find the places: box sizes come from the text metrics of the
+    figure's renderer and points go to display coordinates through ``ax.transData``. On a
+    figure made by this package (:func:`placing_layout`) the placement waits until the
+    figure is laid out for drawing, so a figure is drawn once, when it is saved or shown;
+    on another figure it happens at once, after one run of the figure's layout engine (if
+    it has one).
 
     Parameters
     ----------
@@ -261,66 +354,134 @@ def keep_clear(ax, boxes, xy, tries=4):
     xy : array_like, shape (n, 2)
         Points in data coordinates.
     tries : int, default=4
-        Rounds of layout and moving at most.
+        Rounds of moving at most.
+    fixed : array_like, shape (m, 2), optional
+        Marks at an edge of the axes: x in data coordinates, y in axes coordinates (0–1).
+        Legends stay off them too; a wider y range does not move them.
     """
     xy = np.asarray(xy, dtype=float).reshape(-1, 2)
+    fixed = np.empty((0, 2)) if fixed is None else \
+        np.asarray(fixed, dtype=float).reshape(-1, 2)
     boxes = [b for b in boxes if b is not None]
     if xy.size == 0 or not boxes:
         return
-    fig = ax.figure
+    fig = _root_figure(ax)
+    engine = fig.get_layout_engine()
+    if hasattr(engine, "pending"):
+        engine.pending.append((ax, boxes, xy, tries, fixed))
+        return
+    if engine is not None:
+        engine.execute(fig)
+    _place(ax, boxes, xy, tries, fixed)
+
+
+def _legend_loc(box):
+    """Location string of a legend placed inside its axes at a standard place, else None."""
+    from matplotlib.legend import Legend
+
+    code = getattr(box, "_loc", None)
+    if getattr(box, "_bbox_to_anchor", None) is not None:
+        return None
+    for name, c in Legend.codes.items():
+        if c == code and name in _LOCS:
+            return name
+    return None
+
+
+def _place(ax, boxes, xy, tries, fixed):
+    """Move ``boxes`` off ``xy`` (see :func:`keep_clear`); True when the layout changes."""
+    fig = _root_figure(ax)
+    ab = ax.get_window_extent()
+    if ab.width <= 0 or ab.height <= 0:
+        return False
+    # sizes and places of the boxes, in display coordinates; a legend's place is computed
+    # from its location (the legend itself is placed only at drawing)
+    info = []
+    for box in boxes:
+        # sizes from the text metrics of the figure's renderer (matplotlib's own: nothing
+        # is drawn)
+        bb = box.get_window_extent()
+        is_legend = hasattr(box, "set_loc")
+        pad = (box.borderaxespad * box.prop.get_size_in_points() * fig.dpi / 72.0
+               if is_legend else 0.0)
+        loc = _legend_loc(box) if is_legend else None
+        cur = (_box_at(loc, bb.width, bb.height, ab, pad) if loc is not None
+               else (bb.x0, bb.y0, bb.x1, bb.y1))
+        info.append({"box": box, "legend": is_legend, "w": bb.width, "h": bb.height,
+                     "pad": pad, "cur": cur, "loc": loc})
+    layout_changed = False
+    if fixed.size:
+        import matplotlib.transforms as mtransforms
+
+        marks = mtransforms.blended_transform_factory(ax.transData, ax.transAxes) \
+            .transform(fixed)
+    else:
+        marks = np.empty((0, 2))
+
+    def covers(pts, bx, legend):
+        return _hits(pts, bx)[1].any() or (legend and _hits(marks, bx)[1].any())
+
     for _ in range(tries):
-        fig.draw_without_rendering()
         changed = False
-        for box in boxes:
-            ab = ax.get_window_extent()
-            pts = ax.transData.transform(xy)
-            bb = box.get_window_extent()
-            cur = (bb.x0, bb.y0, bb.x1, bb.y1)
-            is_legend = hasattr(box, "set_loc")
-            # a legend must not cover the other boxes (a text box) either
-            others = [o.get_window_extent() for o in boxes if o is not box] if is_legend \
-                else []
-            others = [(o.x0, o.y0, o.x1, o.y1) for o in others]
-            if not _hits(pts, cur)[1].any() and not any(_overlap(cur, o) for o in others):
+        pts = ax.transData.transform(xy)
+        for it in info:
+            box = it["box"]
+            if it.get("outside"):
                 continue
-            hfrac = (bb.height + 9.0) / ab.height
-            if is_legend and hfrac > 0.6:
+            others = [o["cur"] for o in info if o is not it and not o.get("outside")] \
+                if it["legend"] else []
+            cur = it["cur"]
+            if not covers(pts, cur, it["legend"]) and not any(_overlap(cur, o) for o in others):
+                continue
+            hfrac = (it["h"] + 9.0) / ab.height
+            w, h, pad = it["w"], it["h"], it["pad"]
+            if it["legend"] and hfrac > 0.6:
                 box.set_loc("upper left")
                 box.set_bbox_to_anchor((1.02, 1.0), transform=ax.transAxes)
-                changed = True
+                it["outside"] = True
+                changed = layout_changed = True
                 continue
-            if is_legend:
-                pad = box.borderaxespad * box.prop.get_size_in_points() * fig.dpi / 72.0
+            if it["legend"]:
                 free = [loc for loc in _LOCS
-                        if not _hits(pts, _box_at(loc, bb.width, bb.height, ab, pad))[1].any()
-                        and not any(_overlap(_box_at(loc, bb.width, bb.height, ab, pad), o)
-                                    for o in others)]
+                        if not covers(pts, _box_at(loc, w, h, ab, pad), True)
+                        and not any(_overlap(_box_at(loc, w, h, ab, pad), o) for o in others)]
                 if free:
                     box.set_loc(free[0])
+                    it["loc"], it["cur"] = free[0], _box_at(free[0], w, h, ab, pad)
                     changed = True
                     continue
-                options = [(loc, _box_at(loc, bb.width, bb.height, ab, pad))
-                           for loc in _LOCS[:4]]
+                options = [(loc, _box_at(loc, w, h, ab, pad)) for loc in _LOCS[:4]]
             else:
-                top = (bb.y0 + bb.y1) / 2 > (ab.y0 + ab.y1) / 2
+                top = (cur[1] + cur[3]) / 2 > (ab.y0 + ab.y1) / 2
                 options = [("upper" if top else "lower", cur)]
             y0, y1 = ax.get_ylim()
             best = None
             for loc, bx in options:
                 under_x, _ = _hits(pts, bx)
                 ys = xy[under_x, 1]
+                if ys.size == 0:  # blocked by another box only: no range helps
+                    continue
+                # the points under the box must end up beyond its edge (axes fraction),
+                # with 4 px to spare
                 if loc.startswith("upper"):
-                    new = (y0, y0 + (float(np.max(ys)) - y0) / (1.0 - hfrac))
+                    edge = max((bx[1] - 4.0 - ab.y0) / ab.height, 0.05)
+                    new = (y0, y0 + (float(np.max(ys)) - y0) / edge)
                 else:
-                    new = (y1 - (y1 - float(np.min(ys))) / (1.0 - hfrac), y1)
+                    edge = min((bx[3] + 4.0 - ab.y0) / ab.height, 0.95)
+                    new = (y1 - (y1 - float(np.min(ys))) / (1.0 - edge), y1)
                 if best is None or new[1] - new[0] < best[1][1] - best[1][0]:
                     best = (loc, new)
+            if best is None:
+                continue
             ax.set_ylim(*best[1])
-            if is_legend:
+            if it["legend"]:
                 box.set_loc(best[0])
-            changed = True
+                it["loc"], it["cur"] = best[0], _box_at(best[0], w, h, ab, pad)
+            changed = layout_changed = True
+            break  # the points moved: look again at every box
         if not changed:
-            return
+            break
+    return layout_changed
 
 
 def check_fit(fit, fname):
@@ -405,9 +566,59 @@ def delta_label(isotope) -> str:
     if code not in ISOTOPES:
         raise DataError(f"'isotope' must be one of {', '.join(map(repr, ISOTOPES))} or None; "
                         f"got {isotope!r}")
-    m = re.fullmatch(r"d(\d+)([A-Z][a-z]?)", code)
-    name = f"δ{m.group(1).translate(_SUP)}{m.group(2)}" if m else code
-    return f"{name} (‰, {ISOTOPES[code].scale})"
+    return f"{delta_name(code)} (‰, {ISOTOPES[code].scale})"
+
+
+_CODE = re.compile(r"(?<![A-Za-z0-9])d(\d{1,2})([A-Z][a-z]?)(?![A-Za-z0-9])")
+
+
+def delta_name(isotope) -> str:
+    """δ name of an isotope code without unit or scale: ``"d13C"`` → ``"δ¹³C"``.
+
+    Parameters
+    ----------
+    isotope : str
+        Isotope code, ``d`` + mass number + element (``"d13C"``, ``"d15N"``, ``"d2H"``…).
+
+    Returns
+    -------
+    str
+        The δ symbol, the mass number as superscript and the element (Coplen 2011
+        notation); a string that is not such a code is returned unchanged.
+
+    Examples
+    --------
+    >>> delta_name("d15N")
+    'δ¹⁵N'
+    """
+    code = str(isotope)
+    m = _CODE.fullmatch(code)
+    return f"δ{m.group(1).translate(_SUP)}{m.group(2)}" if m else code
+
+
+def series_title(text) -> str:
+    """A series name or fit label as shown in figures: δ names, spaces for underscores.
+
+    ``"G01 / red_cells / d13C: 1 pool"`` → ``"G01 / red cells / δ¹³C: 1 pool"``, so titles,
+    tick labels and axes use the same δ notation (:func:`delta_name`).
+
+    Parameters
+    ----------
+    text : object
+        The name or label (converted with ``str``).
+
+    Returns
+    -------
+    str
+        The text with each isotope code of :mod:`isoturnover.isotopes` written as a δ name
+        and underscores as spaces.
+    """
+    from .isotopes import ISOTOPES
+
+    def sub(m):
+        return delta_name(m.group(0)) if m.group(0) in ISOTOPES else m.group(0)
+
+    return _CODE.sub(sub, str(text)).replace("_", " ")
 
 
 def _isotope_of(fit):

@@ -12,15 +12,21 @@ figures and presentations that are friendly to colorblind people*). Flagged poin
 different marker as well as a different colour, so they do not depend on colour alone.
 
 Axes carry δ notation with the scale of the isotope ("δ¹³C (‰, VPDB)"; δ as defined by
-Axes carry δ notation with the scale of the isotope ("δ¹³C (‰, VPDB)"; δ as defined by
-Coplen 2011) and the time unit of the data ("Time since diet switch (days)"). The palette,
-sizes, labels and legend placement the panels share live in :mod:`isoturnover.plotkit`;
-:data:`OKABE_ITO` and :func:`delta_label` are re-exported here.
+Coplen 2011) and the time unit of the data ("Time since diet switch (days)"); titles and
+series labels write isotope codes the same way ("G01 / δ¹³C: 1 pool"), and a title that
+names the model is not repeated in the legends. The palette, sizes, labels and legend
+placement the panels share live in :mod:`isoturnover.plotkit`; :data:`OKABE_ITO` and
+:func:`delta_label` are re-exported here.
+
+Legends are kept off the data without drawing the figure: on a figure made here the
+placement is done when the figure is laid out for saving or showing, so a saved figure is
+drawn once (:func:`isoturnover.plotkit.placing_layout`).
 """
 
 from __future__ import annotations
 
 import math
+import re
 import warnings
 
 import numpy as np
@@ -44,7 +50,9 @@ from .plotkit import (
     model_name,
     new_axes,
     place_legend,
+    placing_layout,
     series_color,
+    series_title,
     style_axes,
     time_label,
     time_unit_word,
@@ -67,8 +75,14 @@ __all__ = [
 # ----------------------------------------------------------------------------------------
 # plot_fit
 # ----------------------------------------------------------------------------------------
+def _check_bool(value, name):
+    if not isinstance(value, (bool, np.bool_)):
+        raise DataError(f"'{name}' must be True or False; got {value!r}")
+    return bool(value)
+
+
 def plot_fit(fit, ax=None, *, band=True, level=0.95, show_switches=True, show_flagged=True,
-             color=None, label=None):
+             color=None, label=None, show_model=True):
     """Data, fitted curve and confidence band of one turnover fit.
 
     Parameters
@@ -92,6 +106,9 @@ def plot_fit(fit, ax=None, *, band=True, level=0.95, show_switches=True, show_fl
         Okabe–Ito blue, data black.
     label : str, optional
         Name of the series in the legend.
+    show_model : bool, default=True
+        Name the model in the curve's legend entry (``"fitted (2 pools)"``); ``False`` when
+        a title already names it.
 
     Returns
     -------
@@ -111,6 +128,7 @@ def plot_fit(fit, ax=None, *, band=True, level=0.95, show_switches=True, show_fl
 
     fit = check_fit(fit, "plot_fit")
     level = _check_level(level)
+    show_model = _check_bool(show_model, "show_model")
     ax = new_axes(ax)
     curve_c = color or OKABE_ITO["blue"]
     data_c = color or OKABE_ITO["black"]
@@ -134,7 +152,8 @@ def plot_fit(fit, ax=None, *, band=True, level=0.95, show_switches=True, show_fl
             ax.plot([], [], linestyle="none",
                     label="confidence band not available (covariance singular)")
     ax.plot(grid, fitted, color=curve_c, linewidth=1.3,
-            label=f"{name}: fitted" if name else f"fitted ({model_name(fit)})")
+            label=f"{name}: fitted" if name else
+            (f"fitted ({model_name(fit)})" if show_model else "fitted"))
     ekw = dict(fmt="o", markersize=3.5, color=data_c, markerfacecolor=data_c,
                markeredgewidth=0.5, elinewidth=0.8, capsize=1.5, label=name or "data",
                zorder=4)
@@ -251,7 +270,7 @@ def _progress_window(fit):
     return float(sw[0]), end, float(L[0]), float(L[1])
 
 
-def plot_progress(fit, ax=None):
+def plot_progress(fit, ax=None, *, show_model=True):
     r"""Reaction progress plot: :math:`\ln(1 - F)` against time since the switch.
 
     :math:`1 - F = (\delta(t) - \delta_{eq})/(\delta_0 - \delta_{eq})` (Cerling et al. 2007,
@@ -267,12 +286,23 @@ def plot_progress(fit, ax=None):
     at or beyond the start value) are not dropped: they are drawn at the lower or upper edge
     of the plot with their own marker, and the legend says how many there are.
 
+    The y range follows the points that still tell about :math:`\ln(1 - F)`: those whose
+    change still to come, :math:`|\delta - \delta_{eq}|`, exceeds their measurement sd
+    (the point's ``sigma``, else the fit's residual sd), so that the sd of their
+    :math:`\ln(1 - F)` is below 1 (delta method). Near the plateau
+    :math:`\ln(1 - F)` is dominated by noise and runs towards −∞; such points below the
+    range are drawn as open marks at the lower edge, counted in the legend ("below the
+    axis (n = …)"). The fitted curve stops where it leaves the range.
+
     Parameters
     ----------
     fit : TurnoverFit
         A fit from :meth:`~isoturnover.TurnoverModel.fit`.
     ax : matplotlib Axes, optional
         Drawn on when given; else a new 3.5 × 2.6 in figure.
+    show_model : bool, default=True
+        Name the model in the curve's legend entry (``"fit, 2 pools"``); ``False`` when a
+        title already names it.
 
     Returns
     -------
@@ -286,12 +316,11 @@ def plot_progress(fit, ax=None):
         wrong kind.
     """
     import matplotlib.transforms as mtransforms
-    from matplotlib.lines import Line2D
 
     from .progress import reaction_progress
 
     fit = check_fit(fit, "plot_progress")
-    ax = new_axes(ax)
+    show_model = _check_bool(show_model, "show_model")
     s0, s1, d0, deq = _progress_window(fit)
     t = fit.t
     inside = (t >= s0) & (t <= s1)  # a sample on the switch day reflects the old diet
@@ -301,6 +330,7 @@ def plot_progress(fit, ax=None):
         end = f"the second switch (t = {s1:g})" if np.isfinite(s1) else "the last sample"
         raise DataError(f"plot_progress: no sample between the first switch (t = {s0:g}) and "
                         f"{end}; the reaction progress plot needs samples after a switch")
+    ax = new_axes(ax)
     tt, yy = t[inside], fit.y[inside]
     sd = None if fit.sigma is None else fit.sigma[inside]
     tab = reaction_progress(tt, yy, delta0=d0, delta_eq=deq, sd=sd)
@@ -309,70 +339,119 @@ def plot_progress(fit, ax=None):
     sdl = tab["sd_log"].to_numpy(dtype=float)
     flag = tab["flag"].to_numpy(dtype=str)
     ok = flag == "ok"
-    # fitted curve on the window
+    # A point tells about ln(1 - F) while the change still to come, |δ - δ_eq|, exceeds its
+    # measurement sd (the point's sigma, else the residual sd of the fit): the sd of its
+    # ln(1 - F) is then below 1. Nearer the plateau ln(1 - F) is noise that runs to -∞. The
+    # y range follows the telling points (and 0 at the switch); points below it are drawn
+    # as marks at the lower edge.
+    s_pt = sd if sd is not None else np.full(tt.size, math.sqrt(max(fit.s2, 0.0)))
+    telling = ok & (np.abs(yy - deq) > s_pt)
+    ref = logv[telling] if telling.any() else logv[ok]
+    lo_y = min(float(np.min(ref)) if ref.size else -1.0, 0.0)
+    hi_y = max(float(np.max(logv[ok])) if ok.any() else 0.0, 0.0)
+    pad = 0.12 * max(hi_y - lo_y, 0.5)
+    bottom, top = lo_y - pad, hi_y + pad
+    below = ok & (logv < bottom)
+    inrange = ok & ~below
+    # fitted curve on the window, drawn while it stays inside the y range
     hi = float(tt.max())
     grid = fine_grid(fit, s0, hi) if hi > s0 else np.array([s0])
-    with np.errstate(divide="ignore", invalid="ignore"):
-        u = (fit.predict(grid) - deq) / (d0 - deq)
-        lcurve = np.where(u > 0, np.log(np.where(u > 0, u, 1.0)), np.nan)
-    ax.plot(grid - s0, lcurve, color=OKABE_ITO["blue"], linewidth=1.3,
-            label=f"fit, {model_name(fit)}")
+    cx, cy = _progress_curve(fit, grid, d0, deq, bottom)
+    fit_lab = f"fit, {model_name(fit)}" if show_model else "fit"
+    ax.plot(cx - s0, cy, color=OKABE_ITO["blue"], linewidth=1.3, label=fit_lab)
     ekw = dict(fmt="o", markersize=3.5, color=OKABE_ITO["black"], elinewidth=0.8, capsize=1.5,
                label="data")
-    if np.all(np.isfinite(sdl[ok])) and ok.any() and sd is not None:
-        ax.errorbar(tau[ok], logv[ok], yerr=sdl[ok], **ekw)
+    if np.all(np.isfinite(sdl[inrange])) and inrange.any() and sd is not None:
+        ax.errorbar(tau[inrange], logv[inrange], yerr=sdl[inrange], **ekw)
     else:
-        ax.errorbar(tau[ok], logv[ok], **ekw)
-    # y range from the points and the curve (not the error bars, which explode near the
-    # plateau); room above and below for the edge markers. The curve counts only down to a
-    # little below the lowest point: past the last informative sample it falls without end
-    # (ln of a vanishing 1 − F) and would squeeze the data into the top of the panel
-    shown = np.isfinite(lcurve)
-    if ok.any():
-        low = float(np.min(logv[ok]))
-        shown &= lcurve >= low - 0.5 * max(-low, 0.5)
-    vals = np.concatenate([logv[ok], lcurve[shown], [0.0]])
-    lo_y, hi_y = float(np.min(vals)), float(np.max(vals))
-    pad = 0.12 * max(hi_y - lo_y, 0.5)
-    ax.set_ylim(lo_y - pad, hi_y + pad)
+        ax.errorbar(tau[inrange], logv[inrange], **ekw)
+    ax.set_ylim(bottom, top)
     trans = mtransforms.blended_transform_factory(ax.transData, ax.transAxes)
     past = flag == "F>=1"
     before = flag == "F<=0"
+    edge = []  # (x, y in axes fraction) of the marks, kept clear of the boxes
     if past.any():
         ax.plot(tau[past], np.full(past.sum(), 0.03), marker="v", linestyle="none",
                 markersize=5, color=FLAG, transform=trans, clip_on=False,
-                label=f"F ≥ 1, at edge (n = {int(past.sum())})")
+                label=f"F ≥ 1, no ln(1 − F) (n = {int(past.sum())})")
+        edge.append((tau[past], 0.03))
+    if below.any():
+        ax.plot(tau[below], np.full(below.sum(), 0.03), marker="v", linestyle="none",
+                markersize=5, markerfacecolor="white", markeredgecolor=OKABE_ITO["black"],
+                markeredgewidth=0.8, transform=trans, clip_on=False,
+                label=f"below the axis (n = {int(below.sum())})")
+        edge.append((tau[below], 0.03))
     if before.any():
         ax.plot(tau[before], np.full(before.sum(), 0.97), marker="^", linestyle="none",
                 markersize=5, color=OKABE_ITO["reddish_purple"], transform=trans,
-                clip_on=False,
-                label=f"F ≤ 0, at edge (n = {int(before.sum())})")
+                clip_on=False, label=f"F ≤ 0, no ln(1 − F) (n = {int(before.sum())})")
+        edge.append((tau[before], 0.97))
     notes = []
     if n_before:
-        notes.append(f"not shown: {n_before} point{'s' if n_before > 1 else ''} before the "
-                     "switch")
+        notes.append(f"{n_before} point{'s' if n_before > 1 else ''} before the switch")
     if n_after:
-        notes.append(f"not shown: {n_after} point{'s' if n_after > 1 else ''} after the "
-                     "2nd switch")
+        notes.append(f"{n_after} point{'s' if n_after > 1 else ''} after the 2nd switch")
     style_axes(ax, f"Time since diet switch ({time_unit_word(fit)})", "ln(1 − F)")
-    # ln(1 - F) falls from 0 at the switch: the upper right and lower left stay empty
     if fit.model.diet is None:
         tag0 = "fixed" if "delta0" in fit.fixed else "fitted"
         tag1 = "fixed" if "delta_eq" in fit.fixed else "fitted"
     else:
         tag0 = tag1 = "from the fit"
-    ends = (f"δ$_0$ = {d0:.2f} ‰ ({tag0})\nδ$_\\mathrm{{eq}}$ = {deq:.2f} ‰ ({tag1})"
-            .replace("-", "−"))
+    e0 = f"δ$_0$ = {d0:.2f} ‰".replace("-", "−")
+    e1 = f"δ$_\\mathrm{{eq}}$ = {deq:.2f} ‰".replace("-", "−")
+    ends = f"{e0}, {e1} ({tag0})" if tag0 == tag1 else f"{e0} ({tag0}), {e1} ({tag1})"
     if notes:
-        ends = "\n".join([ends] + notes)
-    if past.any() or before.any():
-        ax.add_line(Line2D([], [], linestyle="none", label="(no ln(1 − F) for these)"))
-    txt = ax.text(0.03, 0.05, ends, transform=ax.transAxes, ha="left", va="bottom",
-                  fontsize=LEGEND_PT, color="#333333")
-    keep = finite_points((tau[ok], logv[ok]), ((grid - s0)[shown][::8], lcurve[shown][::8]))
+        ends += "\nnot shown: " + "; ".join(notes)
+    # the end values above the panel, right: off the data whatever their shape
+    ax.set_title(ends, loc="right", fontsize=LEGEND_PT, color="#333333")
+    span = top - bottom
+    bars = []
+    if sd is not None and inrange.any():
+        for sign in (-1.0, 1.0):
+            yb = logv[inrange] + sign * sdl[inrange]
+            fine = np.isfinite(yb) & (yb >= bottom) & (yb <= top + 0.5 * span)
+            bars.append((tau[inrange][fine], yb[fine]))
+    keep = finite_points((tau[inrange], logv[inrange]), ((cx - s0)[::8], cy[::8]),
+                         ((cx - s0)[-1:], cy[-1:]), *bars)
+    # the edge marks: x in data, y in axes coordinates
+    marks = np.concatenate([np.column_stack([x, np.full(x.size, f)]) for x, f in edge]) \
+        if edge else None
     leg = place_legend(ax, first=("data",), loc="upper right")
-    keep_clear(ax, [leg, txt], keep)
+    keep_clear(ax, [leg], keep, fixed=marks)
     return ax
+
+
+def _progress_curve(fit, grid, d0, deq, bottom):
+    r"""Times and :math:`\ln[(\hat\delta - \delta_{eq})/(\delta_0 - \delta_{eq})]` of the fitted
+    curve, cut where it leaves the y range (below ``bottom`` or undefined).
+
+    The curve ends at the time where it reaches ``bottom`` (found by linear interpolation
+    of the grid, then evaluated there); where it comes back, a NaN breaks the line.
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        u = (fit.predict(grid) - deq) / (d0 - deq)
+        lc = np.where(u > 0, np.log(np.where(u > 0, u, 1.0)), -np.inf)
+    inside = np.isfinite(lc) & (lc >= bottom)
+    if inside.all():
+        return grid, lc
+    xs, ys = [], []
+    for i in range(grid.size):
+        if inside[i]:
+            if i > 0 and not inside[i - 1] and xs:
+                xs.append(math.nan)  # the curve comes back into the range: break the line
+                ys.append(math.nan)
+            xs.append(grid[i])
+            ys.append(lc[i])
+        elif i > 0 and inside[i - 1]:
+            # leaves the range between grid[i-1] and grid[i]: end at the crossing
+            a, b = lc[i - 1], lc[i] if np.isfinite(lc[i]) else bottom - 1.0
+            x = grid[i - 1] + (grid[i] - grid[i - 1]) * (a - bottom) / (a - b)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                ux = (float(fit.predict(np.array([x]))[0]) - deq) / (d0 - deq)
+            if ux > 0:
+                xs.append(x)
+                ys.append(math.log(ux))
+    return np.asarray(xs, dtype=float), np.asarray(ys, dtype=float)
 
 
 # ----------------------------------------------------------------------------------------
@@ -498,20 +577,26 @@ def plot_growth(growth_fit, ax=None, *, turnover_fit=None, mass_unit=None, time_
         part of the change up to t that growth alone would have produced, divided by the
         whole change) that curve is drawn on a second y axis (0–1).
     mass_unit : str, optional
-        Unit of the masses for the axis label (e.g. ``"g"``).
+        Unit of the masses for the axis label (e.g. ``"kg"`` gives "Body mass (kg)").
+        Default: the growth fit's ``mass_unit`` attribute, or ``"mass_unit"`` in its
+        ``attrs``/``data_info`` mapping, when it carries one; without any the label says
+        "Body mass (unit not given)".
     time_unit : str, optional
         Time unit (default the turnover fit's, else ``"d"``).
 
     Returns
     -------
     matplotlib Axes
-        The mass axis (the share axis, when drawn, is its twin: ``ax.right_ax``).
+        The mass axis (the share axis, when drawn, is its twin: ``ax.right_ax``, labelled
+        and coloured as its dashed curve). The legend (masses and curve) is kept off the
+        points and both curves.
 
     Raises
     ------
     DataError
-        When ``growth_fit`` lacks ``t``, ``mass`` or ``predict``, ``turnover_fit`` is not a
-        TurnoverFit with growth dilution, or its share curve has the wrong length.
+        When ``growth_fit`` lacks ``t``, ``mass`` or ``predict``, ``mass_unit`` is not a
+        non-empty string, ``turnover_fit`` is not a TurnoverFit with growth dilution, or
+        its share curve has the wrong length.
     """
     for attr in ("t", "mass", "predict"):
         if not hasattr(growth_fit, attr):
@@ -524,6 +609,7 @@ def plot_growth(growth_fit, ax=None, *, turnover_fit=None, mass_unit=None, time_
             raise DataError("plot_growth: 'turnover_fit' has no growth model (its rates are "
                             "incorporation rates); pass a fit made with growth=…")
     unit_code = time_unit or (turnover_fit.time_unit if turnover_fit is not None else "d")
+    mass_unit = _mass_unit(growth_fit, mass_unit)
     ax = new_axes(ax)
     t = np.asarray(growth_fit.t, dtype=float)
     m = np.asarray(growth_fit.mass, dtype=float)
@@ -536,34 +622,47 @@ def plot_growth(growth_fit, ax=None, *, turnover_fit=None, mass_unit=None, time_
             label=f"fitted {str(curve).replace('_', ' ')} curve")
     xlabel = (f"Time since diet switch ({time_unit_word(unit_code)})" if turnover_fit is not None
               else f"Time ({time_unit_word(unit_code)})")
-    style_axes(ax, xlabel, f"Body mass ({mass_unit})" if mass_unit else "Body mass")
-    handles, labels = ax.get_legend_handles_labels()
+    style_axes(ax, xlabel, f"Body mass ({mass_unit})" if mass_unit
+               else "Body mass (unit not given)")
+    keep = [(t, m), (grid[::8], mass_curve[::8])]
     if turnover_fit is not None:
         if hasattr(turnover_fit, "growth_share_curve"):
             share = _share_values(turnover_fit.growth_share_curve(grid), grid.size)
             ax2 = ax.twinx()
             c = OKABE_ITO["vermillion"]
-            ln = ax2.plot(grid, share, color=c, linewidth=1.2, linestyle="--",
-                          label="growth share of the rate of change")
+            ax2.plot(grid, share, color=c, linewidth=1.2, linestyle="--",
+                     label="growth share of the rate of change")
             ax2.set_ylim(0.0, 1.05)  # a share of 1 stays visible
-            ax2.set_ylabel("Growth share of the rate of change", fontsize=LABEL_PT, color=c)
+            # the right axis is named in the curve's colour: no legend entry needed
+            ax2.set_ylabel("Growth share of the\nrate of change (dashed)", fontsize=LABEL_PT,
+                           color=c)
             ax2.tick_params(labelsize=TICK_PT, colors=c, axis="y")
-            handles += ln
-            labels += [ln[0].get_label()]
             ax.right_ax = ax2
+            # the share curve in the mass axis' coordinates, so the legend stays off it
+            ax.autoscale_view()
+            y0, y1 = ax.get_ylim()
+            keep.append((grid[::8], y0 + (y1 - y0) * share[::8] / 1.05))
         else:
             warnings.warn("plot_growth: 'turnover_fit' offers no growth_share_curve(t); the "
                           "growth share is not drawn", IsoturnoverWarning, stacklevel=2)
-    if hasattr(ax, "right_ax"):
-        # two y axes: the legend goes above the plot, where it can cover neither curve
-        ax.legend(handles, labels, loc="lower left", bbox_to_anchor=(0.0, 1.01), ncol=2,
-                  frameon=False, fontsize=LEGEND_PT, borderaxespad=0.0, handlelength=1.6,
-                  columnspacing=1.0)
-        return ax
-    leg = ax.legend(handles, labels, loc="best", framealpha=0.85, fontsize=LEGEND_PT,
-                    labelspacing=0.3, borderpad=0.35, handlelength=1.6)
-    keep_clear(ax, [leg], finite_points((t, m), (grid[::8], mass_curve[::8])))
+    place_legend(ax, first=("mass",), keep=finite_points(*keep))
     return ax
+
+
+def _mass_unit(growth_fit, mass_unit):
+    """The unit of the masses: the argument, else what the growth fit carries, else None."""
+    if mass_unit is None:
+        mass_unit = getattr(growth_fit, "mass_unit", None)
+        for name in ("attrs", "data_info"):
+            info = getattr(growth_fit, name, None)
+            if mass_unit is None and isinstance(info, dict):
+                mass_unit = info.get("mass_unit")
+        if mass_unit is None:
+            return None
+    if not isinstance(mass_unit, str) or not mass_unit.strip():
+        raise DataError(f"plot_growth: 'mass_unit' must be a non-empty string such as 'kg'; "
+                        f"got {mass_unit!r}")
+    return mass_unit.strip()
 
 
 # ----------------------------------------------------------------------------------------
@@ -575,8 +674,10 @@ _CRIT = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}
 def plot_weights(fitset, ax=None):
     """Akaike weights of the candidate models of every series (stacked horizontal bars).
 
-    One bar per series, labelled by its key; each candidate has its colour (Okabe–Ito), in
-    the same place on every bar. A series that could not be fitted is an empty, dashed bar
+    One bar per series, labelled by its key; the parts of the key that every series shares
+    are named once, in the y label (``"Subject / tissue (δ¹³C)"``), and isotope codes are
+    written in δ notation. Each candidate has its colour (Okabe–Ito), in the same place on
+    every bar. A series that could not be fitted is an empty, dashed bar
     with its status written in it. Weights :math:`w_i = e^{-\\Delta_i/2}/\\sum_j
     e^{-\\Delta_j/2}` of the FitSet's criterion (Burnham & Anderson 2002); a candidate that
     failed in an otherwise fitted series has weight 0.
@@ -606,19 +707,41 @@ def plot_weights(fitset, ax=None):
     if len(fitset) == 0:
         raise DataError("plot_weights: 'fitset' holds no series")
     n = len(fitset)
-    longest = max(len(" / ".join(map(str, k))) for k in fitset)
-    width = SINGLE[0] if longest <= 22 else DOUBLE[0]  # long labels: a two-column figure
-    ax = new_axes(ax, size=(width, 1.0 + 0.25 * n))
+    keys = [tuple(k) for k in fitset]
+    by = tuple(getattr(fitset, "by", ()))
+    # key parts shared by every series go once into the y label, not on every bar
+    width_k = max(len(k) for k in keys)
+    same = [i for i in range(width_k)
+            if n > 1 and all(len(k) == width_k for k in keys)
+            and len({k[i] for k in keys}) == 1]
+    vary = [i for i in range(width_k) if i not in same]
+    ylabels = [series_title(" / ".join(str(k[i]) for i in vary if i < len(k))) for k in keys]
+    names = [str(by[i]).replace("_", " ") if i < len(by) else "" for i in vary]
+    ylabel = " / ".join(x for x in names if x)
+    ylabel = ylabel[:1].upper() + ylabel[1:]
+    if same:
+        common = series_title(", ".join(str(keys[0][i]) for i in same))
+        ylabel = f"{ylabel} ({common})" if ylabel else common
     cands = []
     for r in fitset.values():
         for lab in list(r.reasons) + list(r.fits):
             if lab not in cands:
                 cands.append(lab)
+    # print size: one column unless the labels need two; the legend of the candidates above
+    # the bars, in as many columns as fit over the bars (7 pt text: about 0.055 in a char)
+    char = 0.055
+    longest = max(len(x) for x in ylabels)
+    width = SINGLE[0] if longest <= 22 else DOUBLE[0]
+    room = width - 0.45 - char * longest  # the bars' width
+    col_w = [0.4 + char * len(str(c)) for c in cands] or [1.0]
+    ncol = len(col_w)
+    while ncol > 1 and ncol * max(col_w) > room:
+        ncol -= 1
+    rows = -(-len(cands) // ncol) if cands else 0
+    ax = new_axes(ax, size=(width, 0.95 + 0.25 * n + 0.15 * rows))
     colors = {c: series_color(i) for i, c in enumerate(cands)}
-    ylabels = []
     drawn = set()
-    for yi, (key, r) in enumerate(fitset.items()):
-        ylabels.append(" / ".join(map(str, key)))
+    for yi, r in enumerate(fitset.values()):
         if r.status != "ok" or r.comparison is None:
             ax.barh(yi, 1.0, height=0.7, fill=False, edgecolor=GREY, linestyle="--",
                     linewidth=0.8)
@@ -640,18 +763,15 @@ def plot_weights(fitset, ax=None):
     ax.set_ylim(n - 0.5, -0.5)
     ax.set_xlim(0.0, 1.0)
     crit = _CRIT.get(fitset.criterion, str(fitset.criterion))
-    style_axes(ax, f"{'Akaike' if crit != 'BIC' else 'Model'} weight ({crit})", "")
+    style_axes(ax, f"{'Akaike' if crit != 'BIC' else 'Model'} weight ({crit})", ylabel)
     from matplotlib.patches import Patch
 
     # every candidate in the legend, also those with weight ~0 everywhere
     handles = [Patch(facecolor=colors[c], edgecolor="white") for c in cands]
-    labels = list(cands)
-    order = list(range(len(labels)))
     if handles:
-        ax.legend([handles[i] for i in order], [labels[i] for i in order], loc="lower left",
-                  bbox_to_anchor=(0.0, 1.01), ncol=min(len(handles), 4), frameon=False,
-                  fontsize=LEGEND_PT, borderaxespad=0.0, handlelength=1.2,
-                  columnspacing=1.0)
+        ax.legend(handles, list(cands), loc="lower left", bbox_to_anchor=(0.0, 1.01),
+                  ncol=ncol, frameon=False, fontsize=LEGEND_PT, borderaxespad=0.0,
+                  handlelength=1.2, columnspacing=1.0)
     return ax
 
 
@@ -672,23 +792,29 @@ def plot_overview(fit, *, level=0.95):
     -------
     matplotlib Figure
         7 × 5 in (two journal columns): the fit across the top, residuals and reaction
-        progress below; constrained layout.
+        progress below; constrained layout. The fit's label is the title, with isotope codes
+        in δ notation as on the axes (:func:`isoturnover.plotkit.series_title`); when it
+        names the model, the legends do not repeat it. Legends are placed when the figure
+        is drawn (once, on saving: :func:`isoturnover.plotkit.placing_layout`).
     """
     import matplotlib.pyplot as plt
 
     fit = check_fit(fit, "plot_overview")
-    fig = plt.figure(figsize=(DOUBLE[0], 5.0), layout="constrained")
+    fig = plt.figure(figsize=(DOUBLE[0], 5.0), layout=placing_layout())
     try:
         gs = fig.add_gridspec(2, 2)
         axes = [fig.add_subplot(gs[0, :]), fig.add_subplot(gs[1, 0]),
                 fig.add_subplot(gs[1, 1])]
-        plot_fit(fit, axes[0], level=level)
+        title = series_title(fit.label) if fit.label else ""
+        # the title names the model ("…: 2 pools"): the legends need not say it again
+        named = bool(re.search(rf"\b{re.escape(model_name(fit))}\b", title))
+        plot_fit(fit, axes[0], level=level, show_model=not named)
         plot_residuals(fit, axes[1])
-        plot_progress(fit, axes[2])
+        plot_progress(fit, axes[2], show_model=not named)
         for a, letter in zip(axes, "abc"):
             a.set_title(letter, loc="left", fontsize=LABEL_PT + 1, fontweight="bold")
-        if fit.label:
-            fig.suptitle(str(fit.label), fontsize=LABEL_PT)
+        if title:
+            fig.suptitle(title, fontsize=LABEL_PT)
     except BaseException:
         plt.close(fig)
         raise

@@ -42,7 +42,7 @@ import math
 
 import numpy as np
 
-__all__ = ["ProjectedFit", "project_exponentials"]
+__all__ = ["ProjectedFit", "project_exponentials", "level_constraints"]
 
 
 class ProjectedFit:
@@ -228,6 +228,59 @@ class _Reduced:
         return g, H
 
 
+def level_constraints(c0, M, cols, n):
+    r"""Linear constraints that a model's two levels put on the projection's linear part.
+
+    After one switch the levels are affine in the level parameters ψ (the ``cols`` of θ):
+    :math:`(L_1, L_0) = (c_1, c_0) + P\psi`. The projection fits
+    :math:`c = (a, b_1, \dots, b_n)` with :math:`(L_1, L_0) = (a, a + \sum_i b_i)`, which
+    must lie in the image of :math:`P`: with :math:`\nu` spanning the left null space of
+    :math:`P`, :math:`\nu \cdot ((a, a + \sum_i b_i) - (c_1, c_0)) = 0` (e.g. a
+    separation shared by both diets fixes the total change :math:`\sum_i b_i`).
+
+    Parameters
+    ----------
+    c0, M : ndarray
+        The levels' map :math:`L = c_0 + M\theta` (first level first).
+    cols : list of int
+        Positions in θ of the parameters the levels use.
+    n : int
+        Number of pools.
+
+    Returns
+    -------
+    tuple or None
+        ``(c0, P, cols, C, d)`` with ``C c = d`` the constraints (``C`` and ``d`` None when
+        there are none); None when ψ is not determined by the two levels (dependent
+        columns of :math:`P`, or more than two level parameters).
+    """
+    P = np.stack([M[1, cols], M[0, cols]])  # (L1, L0) = c + P ψ
+    m = P.shape[1]
+    if m == 1:
+        p1, p0 = float(P[0, 0]), float(P[1, 0])
+        norm = math.hypot(p1, p0)
+        if norm == 0:
+            return None
+        nu = np.array([[p0 / norm, -p1 / norm]])
+    elif m == 2:
+        det = float(P[0, 0] * P[1, 1] - P[0, 1] * P[1, 0])
+        scale = float(np.max(np.abs(P)))
+        if not abs(det) > 1e-12 * scale * scale:
+            return None
+        nu = np.zeros((0, 2))
+    elif m == 0:
+        nu = np.eye(2)
+    else:
+        return None  # more level parameters than the two levels can determine
+    C = d = None
+    if nu.size:  # ν·((a, a + Σ b) − (c1, c0)) = 0
+        T = np.zeros((2, n + 1))
+        T[0, 0] = 1.0
+        T[1, :] = 1.0
+        C, d = nu @ T, nu @ np.array([c0[1], c0[0]])
+    return c0, P, cols, C, d
+
+
 def project_exponentials(t, y, w, rates0, *, C=None, d=None, max_eval=None, xtol=1e-6):
     r"""Least-squares fit of :math:`a + \sum_i b_i e^{-k_i t^+}` by variable projection.
 
@@ -260,14 +313,23 @@ def project_exponentials(t, y, w, rates0, *, C=None, d=None, max_eval=None, xtol
     """
     n = len(rates0)
     red = _Reduced(t, y, w, n, C, d)
+    if max_eval is None:
+        max_eval = 40 + 20 * n
+    if n == 1 and red.N is None:
+        return _project_one(red, float(rates0[0]), max_eval, xtol)
+    return _project_general(red, rates0, max_eval, xtol)
+
+
+def _project_general(red, rates0, max_eval, xtol):
+    """The Newton iteration of :func:`project_exponentials` on the reduced problem ``red``
+    for any number of pools and constraints (lists of floats: matrices of order ≤ 4)."""
+    n = red.n
     u = [math.log(float(k)) for k in rates0]
     cur = red.at([math.exp(v) for v in u])
     n_eval = 1
     if cur is None:
         return None
     c, phi, M, L = cur
-    if max_eval is None:
-        max_eval = 40 + 20 * n
     lam = 0.0
     converged = False
     big = 0.0
@@ -311,3 +373,102 @@ def project_exponentials(t, y, w, rates0, *, C=None, d=None, max_eval=None, xtol
     lin = np.array(c, dtype=float)
     lin[0] += red.ybar
     return ProjectedFit(np.exp(u), lin, float(phi), n_eval, converged)
+
+
+def _project_one(red, k0, max_eval, xtol):
+    """:func:`project_exponentials` for one pool and no constraint, in plain floats.
+
+    The general loop written out for the scalar log-rate and the 2 × 2 linear block
+    :math:`(a, b)`: the same operations in the same order (Cholesky factor of the block,
+    Newton step on φ with the exact reduced Hessian, Levenberg damping, steps capped at 2
+    in ln k, the same acceptance and convergence rules), so the result is the same to the
+    last bit, without the list machinery of the general case.
+    """
+    V = red.V
+    tp, w, yy = red.tp, red.w, red.yy
+
+    def at(k):
+        # rows of V: w, x = w e^{-k t}, p = k t x, e = p (k t − 1), centred data (module
+        # docstring); (c0, c1, φ, Gram entries, Cholesky factor) or None when singular
+        A = tp * k
+        x = V[1]
+        np.exp(-A, out=x)
+        x *= w
+        np.multiply(A, x, out=V[2])
+        A -= 1.0
+        np.multiply(V[2], A, out=V[3])
+        M = (V @ V.T).tolist()
+        g00 = M[0][0]
+        if not g00 > 0.0:
+            return None
+        l00 = math.sqrt(g00)
+        l10 = M[1][0] / l00
+        s = M[1][1] - l10 * l10
+        if not s > 0.0:
+            return None
+        l11 = math.sqrt(s)
+        h0, h1 = M[0][4], M[1][4]
+        y0 = h0 / l00
+        c1 = ((h1 - l10 * y0) / l11) / l11
+        c0 = (y0 - l10 * c1) / l00
+        phi = yy - (c0 * h0 + c1 * h1)
+        return c0, c1, max(phi, 0.0), M, (l00, l10, l11)
+
+    u = math.log(k0)
+    cur = at(math.exp(u))
+    n_eval = 1
+    if cur is None:
+        return None
+    c0, c1, phi, M, L = cur
+    lam = 0.0
+    converged = False
+    big = 0.0
+    while n_eval < max_eval and not converged:
+        # gradient and exact Hessian of φ/2 in ln k (module docstring, n = 1)
+        P, E = M[2], M[3]
+        rP = P[4] - (c0 * P[0] + c1 * P[1])
+        rE = E[4] - (c0 * E[0] + c1 * E[1])
+        g = c1 * rP
+        fuu = c1 * c1 * P[2] - c1 * rE
+        f0, f1 = -c1 * P[0], -c1 * P[1] + rP  # F_uc
+        l00, l10, l11 = L
+        y0 = f0 / l00
+        z1 = ((f1 - l10 * y0) / l11) / l11
+        z0 = (y0 - l10 * z1) / l00
+        H = fuu - (f0 * z0 + f1 * z1)
+        scale = max(abs(H), 1e-300)
+        accepted = False
+        while n_eval < max_eval:
+            Hd = H + lam * scale
+            if not Hd > 0.0:
+                lam = max(lam * 10.0, 1e-3)
+                continue
+            lh = math.sqrt(Hd)
+            step = -((g / lh) / lh)
+            big = abs(step)
+            if big > 2.0:  # at most a factor e^2 in the rate per step
+                step = step * 2.0 / big
+            u_new = u + step
+            if abs(u_new) > 700.0:
+                lam = max(lam * 10.0, 1e-3)
+                continue
+            new = at(math.exp(u_new))
+            n_eval += 1
+            # φ = y·y − c·h carries rounding of ~1e-16 y·y: near the minimum a step is
+            # accepted when φ does not rise beyond that
+            if new is not None and new[2] <= phi + 1e-13 * yy:
+                accepted = True
+                u = u_new
+                c0, c1, phi, M, L = new
+                if lam == 0.0 and big <= xtol:
+                    converged = True
+                lam = 0.0 if lam <= 1e-6 else lam / 10.0
+                break
+            lam = max(lam * 10.0, 1e-3)
+        if not accepted:
+            # nothing lowers φ within rounding: a minimum if the Newton step was tiny
+            converged = big <= 1e-6
+            break
+    lin = np.array([c0, c1], dtype=float)
+    lin[0] += red.ybar
+    return ProjectedFit(np.exp([u]), lin, float(phi), n_eval, converged)

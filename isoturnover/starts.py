@@ -10,12 +10,23 @@ the combinations are ranked by their residual sum of squares. Used by
 
 from __future__ import annotations
 
+import functools
+import itertools
 import math
 
 import numpy as np
 
 __all__ = ["rate_grid", "step_linear_starts", "general_starts", "distinct_starts",
            "projected_rate_starts"]
+
+
+@functools.lru_cache(maxsize=16)
+def _combinations(size, n):
+    """Every ascending choice of ``n`` of ``range(size)``, one per row (read-only)."""
+    out = np.array(list(itertools.combinations(range(size), n)), dtype=int)
+    out.setflags(write=False)
+    return out
+
 
 def rate_grid(t, switch0, size=12):
     r"""Log-spaced trial rates (1/time unit) that the sampling can resolve.
@@ -38,19 +49,26 @@ def rate_grid(t, switch0, size=12):
     ndarray of shape (size,)
         Increasing rates.
     """
-    tau = np.unique(t[t > switch0]) - switch0  # sorted, distinct
-    if tau.size == 0:
+    s0 = float(switch0)
+    after = sorted(v for v in np.asarray(t, dtype=float).tolist() if v > s0)
+    tau = [v - s0 for v in after]
+    if not tau:
         span = max(float(np.ptp(t)), 1.0)
         first = span / 10
     else:
-        span = float(tau[-1])
-        first = float(tau[0]) if tau.size == 1 else min(float(tau[0]),
-                                                           float(np.min(np.diff(tau))))
+        span = tau[-1]
+        # the first time, or the shortest interval between distinct times if shorter
+        gaps = [tau[i + 1] - tau[i] for i in range(len(tau) - 1) if after[i + 1] > after[i]]
+        first = min(tau[0], min(gaps)) if gaps else tau[0]
         first = max(first, span * 1e-4)
     lo, hi = 0.2 / span, 5.0 / first
     if hi <= lo * 1.5:
         hi = lo * 50
-    return np.exp(np.linspace(math.log(lo), math.log(hi), size))
+    # equal steps in ln k, the last point exactly ln(hi) (as numpy.linspace places them)
+    a, b = math.log(lo), math.log(hi)
+    u = np.arange(size) * ((b - a) / (size - 1)) + a if size > 1 else np.array([a])
+    u[-1] = b
+    return np.exp(u)
 
 
 def step_linear_starts(t, y, w, kin, fixed, n_keep):
@@ -230,8 +248,6 @@ def projected_rate_starts(t, y, w, n, n_keep, switch0=0.0):
         amplitudes all share one sign (positive pool fractions) rank first, and vectors
         closer than 0.3 in every log-rate to a better one are skipped.
     """
-    from itertools import combinations
-
     t = np.asarray(t, dtype=float)
     tp = np.maximum(t - switch0, 0.0)
     grid = rate_grid(t, switch0, size=12 if n <= 2 else 9)
@@ -243,16 +259,34 @@ def projected_rate_starts(t, y, w, n, n_keep, switch0=0.0):
     V[1:G + 1] = np.exp(-np.multiply.outer(grid, tp)) * w
     V[G + 1] = w * (y - ybar)
     M = V @ V.T
-    combos = np.array(list(combinations(range(G), n)), dtype=int)  # ascending rates
-    S = np.concatenate([np.zeros((combos.shape[0], 1), dtype=int), combos + 1], axis=1)
-    Gc = M[S[:, :, None], S[:, None, :]]
-    hc = M[S, G + 1]
-    q = n + 1
-    Gc = Gc + np.eye(q) * (1e-12 * np.trace(Gc, axis1=1, axis2=2)[:, None, None] + 1e-300)
-    c = np.linalg.solve(Gc, hc[..., None])[..., 0]
-    phi = M[G + 1, G + 1] - np.sum(c * hc, axis=1)
-    b = c[:, 1:]
-    valid = np.all(b > 0, axis=1) | np.all(b < 0, axis=1)
+    if n == 1:
+        # the 2 × 2 normal equations of every grid rate, filled from M directly (the same
+        # numbers as the general indexing below, without building index arrays)
+        combos = np.arange(G)[:, None]
+        mii = np.diagonal(M)[1:G + 1]
+        ridge = 1e-12 * (M[0, 0] + mii) + 1e-300
+        Gc = np.empty((G, 2, 2))
+        Gc[:, 0, 0] = M[0, 0] + ridge
+        Gc[:, 0, 1] = Gc[:, 1, 0] = M[0, 1:G + 1]
+        Gc[:, 1, 1] = mii + ridge
+        hc = np.empty((G, 2))
+        hc[:, 0] = M[0, G + 1]
+        hc[:, 1] = M[1:G + 1, G + 1]
+        c = np.linalg.solve(Gc, hc[..., None])[..., 0]
+        phi = M[G + 1, G + 1] - (c[:, 0] * hc[:, 0] + c[:, 1] * hc[:, 1])
+        valid = (c[:, 1] > 0) | (c[:, 1] < 0)
+    else:
+        combos = _combinations(G, n)  # ascending rates
+        S = np.concatenate([np.zeros((combos.shape[0], 1), dtype=int), combos + 1], axis=1)
+        Gc = M[S[:, :, None], S[:, None, :]]
+        hc = M[S, G + 1]
+        q = n + 1
+        Gc = Gc + np.eye(q) * (1e-12 * np.trace(Gc, axis1=1, axis2=2)[:, None, None]
+                               + 1e-300)
+        c = np.linalg.solve(Gc, hc[..., None])[..., 0]
+        phi = M[G + 1, G + 1] - np.sum(c * hc, axis=1)
+        b = c[:, 1:]
+        valid = np.all(b > 0, axis=1) | np.all(b < 0, axis=1)
     order = np.lexsort((phi, ~valid))
     if n == 1 and 0 < order[0] < G - 1:
         # one pool: the vertex of the parabola through the best grid point and its two

@@ -62,48 +62,57 @@ class FitState:
     """
 
     def __init__(self, engine, sol, fixed):
+        # attributes go straight into the instance's dict (the read-only guard of
+        # __setattr__ would cost a Python call for each of some forty of them)
+        st = self.__dict__
         kin = engine.kin
-        self.kinetics = kin
-        self.engine = engine
-        self.solution = sol
-        self.coords = sol.extra["coords"]
-        self.fixed = dict(fixed)
-        self.z = np.array(sol.z, dtype=float)
-        self.theta = np.array(sol.theta, dtype=float)
-        self.jac_z = None if sol.jac_z is None else np.array(sol.jac_z, dtype=float)
-        self.t, self.y = engine.t.copy(), engine.y.copy()
-        self.sigma = None if engine.sigma is None else engine.sigma.copy()
-        self.w = engine.w.copy()
-        self.absolute_sigma = engine.absolute_sigma
-        self.loss = engine.loss
-        self.f_scale = engine.f_scale
-        self.optimizer_ok = bool(sol.success)
+        st["kinetics"] = kin
+        st["engine"] = engine
+        st["solution"] = sol
+        st["coords"] = sol.extra["coords"]
+        st["fixed"] = dict(fixed)
+        st["z"] = np.array(sol.z, dtype=float)
+        st["theta"] = np.array(sol.theta, dtype=float)
+        st["jac_z"] = None if sol.jac_z is None else np.array(sol.jac_z, dtype=float)
+        st["t"] = engine.t.copy()
+        st["y"] = engine.y.copy()
+        st["sigma"] = None if engine.sigma is None else engine.sigma.copy()
+        st["w"] = engine.w.copy()
+        st["absolute_sigma"] = engine.absolute_sigma
+        st["loss"] = engine.loss
+        st["f_scale"] = engine.f_scale
+        st["optimizer_ok"] = bool(sol.success)
         n = self.t.size
         p = self.coords.size
         jac_z = self.jac_z
-        self.joint = engine.mass_block is not None
-        self.nobs = n
-        self.nvarys = p
-        self.s2_robust = None
+        st["joint"] = engine.mass_block is not None
+        # residuals and dθ/dz the solver already computed at this very z (no extra block)
+        done = sol.extra.get("evaluated")
+        if done is not None and not (done[0] is sol.z and not self.joint
+                                     and done[1].size == n):
+            done = None
+        st["nobs"] = n
+        st["nvarys"] = p
+        st["s2_robust"] = None
         if self.joint:
             mb = engine.mass_block
             rd = self.weighted_residuals()
             rm = mb(self.theta)[0]
-            self.rss = float(rd @ rd + rm @ rm)
-            self.n_mass = mb.size if mb.kind == "masses" else 0
+            st["rss"] = float(rd @ rd + rm @ rm)
+            st["n_mass"] = mb.size if mb.kind == "masses" else 0
             # masses: the intercept ln W0 is profiled out of the mass block
-            self.dof = n + mb.size - (1 if mb.kind == "masses" else 0) - p
-            self.s2 = 1.0  # each block scaled by its own residual sd
-            self.block_scale = engine.block_scale
+            st["dof"] = n + mb.size - (1 if mb.kind == "masses" else 0) - p
+            st["s2"] = 1.0  # each block scaled by its own residual sd
+            st["block_scale"] = engine.block_scale
         else:
-            self.n_mass = 0
-            self.block_scale = None
-            r = self.weighted_residuals()
-            self.rss = float(r @ r)
-            self.dof = n - p
-            self.s2 = (self.rss / self.dof if self.dof > 0 else math.nan)
+            st["n_mass"] = 0
+            st["block_scale"] = None
+            r = done[1] if done is not None else self.weighted_residuals()
+            st["rss"] = float(r @ r)
+            st["dof"] = n - p
+            st["s2"] = (self.rss / self.dof if self.dof > 0 else math.nan)
             if self.absolute_sigma:
-                self.s2 = 1.0
+                st["s2"] = 1.0
         # covariance in internal coordinates, then natural
         cov_ok = False
         cov_z = np.full((p, p), np.nan)
@@ -111,8 +120,8 @@ class FitState:
         # Jacobian column vanishes; the covariance is computed for the others and the
         # parameters that depend on them get NaN
         dead = np.zeros(p, dtype=bool)
-        if p and jac_z is not None and np.all(np.isfinite(jac_z)) and self.dof > 0:
-            norms = np.linalg.norm(jac_z, axis=0)
+        if p and jac_z is not None and self.dof > 0 and np.isfinite(jac_z).all():
+            norms = np.sqrt(np.einsum("ij,ij->j", jac_z, jac_z))
             dead = norms <= 1e-12 * max(float(norms.max()), 1e-300)
             alive = ~dead
             if alive.any():
@@ -132,14 +141,15 @@ class FitState:
             cov_z = np.full((p, p), np.nan)
             cov_z[np.ix_(alive, alive)] = sub
             cov_ok = bool(np.all(np.isfinite(sub)))
-        self.cov_ok = cov_ok
-        self.dead = dead
-        self.cov_z = cov_z
+        st["cov_ok"] = cov_ok
+        st["dead"] = dead
+        st["cov_z"] = cov_z
         # dead coordinates: no first-order effect
-        self.cov_z0 = np.where(np.isnan(cov_z), 0.0, cov_z) if dead.any() or not cov_ok \
+        st["cov_z0"] = np.where(np.isnan(cov_z), 0.0, cov_z) if dead.any() or not cov_ok \
             else cov_z.copy()
-        _, A = self.coords.theta(self.z, jac=True)
-        self.A = A
+        A = (np.array(done[2], dtype=float) if done is not None
+             else self.coords.theta(self.z, jac=True)[1])
+        st["A"] = A
         if p and not dead.any():
             covar = A @ cov_z @ A.T
         elif p:
@@ -157,8 +167,8 @@ class FitState:
             if nm in self.fixed:
                 covar[j, :] = 0.0
                 covar[:, j] = 0.0
-        self.covar = covar
-        self.converged = bool(self.optimizer_ok and (cov_ok or p == 0))
+        st["covar"] = covar
+        st["converged"] = bool(self.optimizer_ok and (cov_ok or p == 0))
         k = p + (0 if self.absolute_sigma else 1)
         n_ic = n
         if self.joint and engine.mass_block.kind == "prior":
@@ -183,22 +193,24 @@ class FitState:
             base = self.rss
         else:
             base = n * math.log(self.rss / n) if self.rss > 0 else -math.inf
-        self.n_criteria_params = k
-        self.aic = base + 2 * k
-        self.aicc = self.aic + (2 * k * (k + 1) / (n_ic - k - 1) if n_ic - k - 1 > 0
+        st["n_criteria_params"] = k
+        st["aic"] = base + 2 * k
+        st["aicc"] = self.aic + (2 * k * (k + 1) / (n_ic - k - 1) if n_ic - k - 1 > 0
                                 else math.nan)
-        self.bic = base + k * math.log(n_ic)
-        self.redchi = self.rss / self.dof if self.dof > 0 else math.nan
-        self.chisqr_pvalue = (float(stats.chi2.sf(self.rss, self.dof))
+        st["bic"] = base + k * math.log(n_ic)
+        st["redchi"] = self.rss / self.dof if self.dof > 0 else math.nan
+        st["chisqr_pvalue"] = (float(stats.chi2.sf(self.rss, self.dof))
                               if self.absolute_sigma and self.dof > 0 else None)
         for a in (self.z, self.theta, self.jac_z, self.t, self.y, self.sigma, self.w,
                   self.cov_z, self.cov_z0, self.A, self.covar, self.dead):
             if a is not None:
                 a.setflags(write=False)
-        self._frozen = True
+        st["_frozen"] = True
+
+    _frozen = False  # set at the end of __init__
 
     def __setattr__(self, name, value):
-        if getattr(self, "_frozen", False):
+        if self._frozen:
             raise AttributeError(f"a FitState is read-only; cannot set {name!r}")
         object.__setattr__(self, name, value)
 

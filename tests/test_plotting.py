@@ -329,7 +329,7 @@ def test_progress_two_pools_curve_by_hand(fit2):
     np.testing.assert_allclose(py, np.log(u[ok]))
 
 
-def test_progress_axis_follows_the_data_and_boxes_do_not_overlap():
+def test_progress_axis_follows_the_data_and_line_stays_inside():
     # Invented series: half-life 3 d, sampled to 98 d, so the plateau is reached early and
     # the fitted ln(1 - F) = -k t runs to about -23 while the noisy points stop near -5.
     rng = np.random.default_rng(11)
@@ -338,17 +338,65 @@ def test_progress_axis_follows_the_data_and_boxes_do_not_overlap():
     y = -12.0 - 13.0 * np.exp(-k * t) + rng.normal(0, 0.05, t.size)
     f = iso.TurnoverModel(1).fit(t, y, warn=False)
     ax = P.plot_progress(f)
+    ax.figure.draw_without_rendering()
     (eb,) = [c for c in ax.containers if c.get_label() == "data"]
     lowest = float(np.min(eb.lines[0].get_data()[1]))
-    # the axis is set by the points (and the curve near them), not by the curve's far end
+    # the axis is set by the points, not by the curve's far end
     curve_end = -f.values["k1"] * t.max()
     assert 2 * lowest > curve_end  # the crafted case: the curve ends far below the points
-    assert curve_end < 2 * lowest < ax.get_ylim()[0] < lowest
+    bottom, top = ax.get_ylim()
+    assert curve_end < 2 * lowest < bottom < lowest
+    # the fitted line stays inside the axis: it stops where it reaches the lower edge
+    (curve,) = _label_of(ax, "fit")
+    cy = curve.get_ydata()
+    assert np.nanmin(cy) >= bottom - 0.02 * (top - bottom)
+    # ... and it is still the straight line -k t there (one pool)
+    np.testing.assert_allclose(cy, -f.values["k1"] * curve.get_xdata(), atol=1e-10)
+    # the end values are written above the panel, never over the data
+    assert "δ$_0$ = −24.96 ‰" in ax.get_title(loc="right")  # the fitted delta0, 2 decimals
+    assert f"{f.values['delta0']:.2f}".replace("-", "−") == "−24.96"
+    assert not [c for c in ax.texts if "δ" in c.get_text()]
+    plt.close(ax.figure)
+
+
+def test_progress_points_below_the_axis_marked_with_a_count():
+    # Invented one-pool series (half-life 5 d, sd 0.1 ‰) sampled well into the plateau: the
+    # late points are closer to δ_eq than their sd, so ln(1 - F) is noise (sd_log > 1).
+    rng = np.random.default_rng(23)
+    t = np.array([0, 1, 2, 3, 5, 7, 10, 14, 20, 28, 40, 55, 70, 85, 100, 120.0])
+    k = math.log(2) / 5.0
+    y = -12.0 - 10.0 * np.exp(-k * t) + rng.normal(0, 0.1, t.size)
+    f = iso.TurnoverModel(1).fit(t, y, np.full(t.size, 0.1), warn=False)
+    ax = P.plot_progress(f)
     ax.figure.draw_without_rendering()
-    leg = ax.get_legend().get_window_extent()
-    (txt,) = [c for c in ax.texts if "δ" in c.get_text()]
-    tb = txt.get_window_extent()
-    assert not (leg.x0 < tb.x1 and tb.x0 < leg.x1 and leg.y0 < tb.y1 and tb.y0 < leg.y1)
+    bottom, top = ax.get_ylim()
+    v = f.values
+    # ln(1 - F) of every point by hand, with the fitted end values (Cerling et al. 2007)
+    u = (f.y - v["delta_eq"]) / (v["delta0"] - v["delta_eq"])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lv = np.where(u > 0, np.log(np.where(u > 0, u, 1.0)), np.nan)
+    fin = (u > 0) & (u < 1)
+    below = fin & (lv < bottom)
+    assert below.sum() >= 1  # the crafted case has finite points below the axis
+    (mark,) = _label_of(ax, "below the axis")
+    assert mark.get_label() == f"below the axis (n = {int(below.sum())})"
+    np.testing.assert_allclose(np.sort(mark.get_xdata()), np.sort(f.t[below]))
+    disp = mark.get_transform().transform(np.column_stack([mark.get_xdata(),
+                                                           mark.get_ydata()]))
+    np.testing.assert_allclose(ax.transAxes.inverted().transform(disp)[:, 1], 0.03)
+    # the points drawn as data are the finite ones inside the axis; none is clipped
+    (eb,) = [c for c in ax.containers if c.get_label() == "data"]
+    px, py = eb.lines[0].get_data()
+    np.testing.assert_allclose(px, f.t[fin & ~below])
+    assert np.all((py >= bottom) & (py <= top))
+    (past,) = _label_of(ax, "F ≥ 1")
+    assert past.get_xdata().size == np.sum(u <= 0)
+    assert not _label_of(ax, "F ≤ 0") and not np.any(u >= 1)
+    assert px.size + below.sum() + np.sum(u <= 0) == f.nobs  # nothing dropped
+    # the points below the axis are those whose change to come is within their sd (0.1 ‰)
+    assert np.all(np.abs(f.y[below] - v["delta_eq"]) <= 0.1)
+    (curve,) = _label_of(ax, "fit")
+    assert np.nanmin(curve.get_ydata()) >= bottom - 1e-9
     plt.close(ax.figure)
 
 
@@ -373,8 +421,10 @@ def test_progress_flagged_points_at_edge_not_dropped():
     assert f"(n = {int(past.sum())})" in mark.get_label()
     (eb,) = [c for c in ax.containers if c.get_label() == "data"]
     shown = eb.lines[0].get_xdata().size + past.sum() + before.sum()
+    below = _label_of(ax, "below the axis")
+    shown += below[0].get_xdata().size if below else 0
     assert shown == f.nobs  # nothing dropped
-    assert _label_of(ax, "(no ln(1 − F)")
+    assert "no ln(1 − F)" in mark.get_label()
 
 
 def test_progress_diet_history_window(fit_diet):
@@ -386,12 +436,16 @@ def test_progress_diet_history_window(fit_diet):
     inside = (fit_diet.t >= 0) & (fit_diet.t <= 60)
     u = (fit_diet.y[inside] - L[1]) / (L[0] - L[1])
     ok = (u > 0) & (u < 1)
-    np.testing.assert_allclose(px, fit_diet.t[inside][ok])
-    np.testing.assert_allclose(py, np.log(u[ok]))
-    texts = " ".join(t.get_text() for t in ax.texts)
-    assert "1 point before the switch" in texts
-    assert "7 points after the 2nd switch" in texts
-    assert "‰" in texts
+    below = _label_of(ax, "below the axis")
+    bx = below[0].get_xdata() if below else np.array([])
+    # every sample of the window with a ln(1 - F) is drawn: as a point or as an edge mark
+    np.testing.assert_allclose(np.sort(np.concatenate([px, bx])), fit_diet.t[inside][ok])
+    drawn = np.isin(fit_diet.t[inside][ok], px)
+    np.testing.assert_allclose(py, np.log(u[ok][drawn]))
+    title = ax.get_title(loc="right")
+    assert "1 point before the switch" in title
+    assert "7 points after the 2nd switch" in title
+    assert "‰" in title
 
 
 def test_progress_without_samples_after_switch():
@@ -476,7 +530,8 @@ def test_growth_masses_curve_and_share(growth_pair):
 def test_growth_without_turnover_fit_and_errors(growth_pair, fit1):
     g, _ = growth_pair
     ax = P.plot_growth(g, time_unit="w")
-    assert ax.get_xlabel() == "Time (weeks)" and ax.get_ylabel() == "Body mass"
+    assert ax.get_xlabel() == "Time (weeks)"
+    assert ax.get_ylabel() == "Body mass (unit not given)"
     assert not hasattr(ax, "right_ax")
     with pytest.raises(iso.DataError, match="'growth_fit' must be a GrowthFit.*lacks 'mass'"):
         P.plot_growth(type("G", (), {"t": [1.0]})())
@@ -503,7 +558,7 @@ def test_growth_share_curve_of_the_wrong_form_is_refused(growth_pair, monkeypatc
 def test_weights_bars_and_unfitted_series(fitset):
     ax = P.plot_weights(fitset)
     labels = [t.get_text() for t in ax.get_yticklabels()]
-    assert labels == ["A / plasma / d13C", "B / plasma / d13C", "C / plasma / d13C"]
+    assert labels == ["A", "B", "C"]  # the shared "plasma / d13C" goes in the y label
     filled = [p for p in ax.patches if p.get_fill()]
     for yi, key in enumerate([("A", "plasma", "d13C"), ("B", "plasma", "d13C")]):
         bars = [p for p in filled if abs(p.get_y() + p.get_height() / 2 - yi) < 1e-9]
@@ -549,3 +604,97 @@ def test_overview_closes_its_figure_on_failure(fit1, monkeypatch):
     with pytest.raises(RuntimeError, match="invented failure"):
         P.plot_overview(fit1)
     assert len(plt.get_fignums()) == n
+
+
+# ----------------------------------------------------------------------------------------
+# issue 15: mass unit, one δ notation, no repeated labels, one draw per saved figure
+# ----------------------------------------------------------------------------------------
+def test_growth_mass_unit_in_the_label(growth_pair):
+    g, _ = growth_pair
+    assert P.plot_growth(g, mass_unit="kg").get_ylabel() == "Body mass (kg)"
+
+    class Carrying:  # a growth fit that carries the unit of its masses
+        t, mass, mass_unit = g.t, g.mass, "g"
+
+        def predict(self, t):
+            return g.predict(t)
+
+    assert P.plot_growth(Carrying()).get_ylabel() == "Body mass (g)"
+    # the argument wins over what the fit carries
+    assert P.plot_growth(Carrying(), mass_unit="mg").get_ylabel() == "Body mass (mg)"
+    with pytest.raises(iso.DataError, match="plot_growth: 'mass_unit' must be a non-empty "
+                                            "string such as 'kg'; got 3"):
+        P.plot_growth(g, mass_unit=3)
+    plt.close("all")
+
+
+def test_titles_and_axes_use_one_delta_notation(fit1):
+    from isoturnover.plotkit import delta_name, series_title
+
+    # δ notation as in delta_label (Coplen 2011): the same name in titles and on axes
+    assert delta_name("d13C") == "δ¹³C" and delta_name("d2H") == "δ²H"
+    assert series_title("G01 / red_cells / d13C: 1 pool") == "G01 / red cells / δ¹³C: 1 pool"
+    assert series_title("d99X / cod13C") == "d99X / cod13C"  # not isotope codes
+    t, y = one_pool_data()
+    f = iso.TurnoverModel(1, isotope="d13C").fit(t, y, warn=False, label="G01 / d13C: 1 pool")
+    fig = P.plot_overview(f)
+    title = fig.get_suptitle()
+    assert title == "G01 / δ¹³C: 1 pool"
+    assert "d13C" not in title and delta_name("d13C") in fig.axes[0].get_ylabel()
+    # the title names the model: the legends do not say it again
+    fig.draw_without_rendering()
+    for a in (fig.axes[0], fig.axes[2]):
+        texts = [x.get_text() for x in a.get_legend().get_texts()]
+        assert not any("1 pool" in x for x in texts)
+    # without a title the legend names the model
+    ax = P.plot_fit(fit1)
+    assert any("(1 pool)" in x for x in ax.get_legend_handles_labels()[1])
+    plt.close("all")
+
+
+def test_weights_labels_do_not_repeat_the_shared_key_parts(fitset):
+    ax = P.plot_weights(fitset)
+    # every series is plasma / d13C: said once, in the y label, in δ notation
+    assert [t.get_text() for t in ax.get_yticklabels()] == ["A", "B", "C"]
+    assert ax.get_ylabel() == "Subject (plasma, δ¹³C)"
+    plt.close(ax.figure)
+
+
+def test_saved_overview_is_drawn_once_and_legends_stay_off_the_data(fit2, monkeypatch):
+    import io
+
+    calls = []
+    real = Figure.draw
+
+    def counting(self, renderer):
+        calls.append(renderer)
+        return real(self, renderer)
+
+    monkeypatch.setattr(Figure, "draw", counting)
+    fig = P.plot_overview(fit2)
+    assert calls == []  # placing the legends drew nothing
+    fig.savefig(io.BytesIO(), format="png", dpi=72)
+    # savefig itself walks a laid-out figure twice (once to lay it out, once to render);
+    # nothing more
+    assert len(calls) == 2
+    ax = fig.axes[0]
+    bb = ax.get_legend().get_window_extent()
+    pts = ax.transData.transform(np.column_stack([fit2.t, fit2.y]))
+    assert not np.any((pts[:, 0] > bb.x0) & (pts[:, 0] < bb.x1) & (pts[:, 1] > bb.y0)
+                      & (pts[:, 1] < bb.y1))
+    plt.close(fig)
+
+
+def test_figure_with_pending_placement_pickles(fit1):
+    import io
+    import pickle
+
+    fig = P.plot_overview(fit1)
+    # the placement is still to be done; it travels with the figure and is done on saving
+    assert len(fig.get_layout_engine().pending) == 3
+    again = pickle.loads(pickle.dumps(fig))
+    again.savefig(io.BytesIO(), format="png", dpi=50)
+    assert again.get_layout_engine().pending == []
+    assert type(again.get_layout_engine()).__name__ == "PlacingLayoutEngine"
+    plt.close(fig)
+    plt.close(again)
