@@ -7,8 +7,9 @@ computes intervals; :class:`Analysis` writes
 :func:`load_fits` or, one fit at a time, :func:`~isoturnover.load_fit`), a Markdown and HTML
 report with figures. :func:`run_demo` does all of it on the invented demo experiment.
 
-Writing is all or nothing: every file is made in a temporary folder next to the output
-folder and moved into place only when all of them exist.
+Writing is all or nothing (:mod:`isoturnover.outputdir`): every file is made in a temporary
+folder next to the output folder, which takes the output's place in one move, under a lock
+on the folder, with a manifest of the files written (the user's own files are kept).
 """
 
 from __future__ import annotations
@@ -16,28 +17,22 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-import shutil
-import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from .conventions import check_choice, check_level, check_positive_int
+from .conventions import CAUTION, check_choice, check_level, check_positive_int
 from .errors import DataError, FitError
 from .groups import FitSet, fit_each, parallel_workers
+from .outputdir import check_out_dir, neutralise_formulas, write_output
 
 __all__ = ["analyse", "Analysis", "run_demo", "load_fits", "series_seed", "CAUTION",
            "CI_METHODS"]
 
 CI_METHODS = ("profile", "asymptotic", "bootstrap")
 
-CAUTION = (
-    "Animal experiments and field sampling need the approval of the local animal-care "
-    "authority (human hair or blood: a human-research ethics board). These results and plans "
-    "support that process; they do not replace it."
-)
 
 
 @dataclass
@@ -119,10 +114,21 @@ class Analysis:
         -------
         DataFrame
             Column ``part`` first, then the columns of :meth:`FitSet.table` (at ``level``
-            and :attr:`interval_method`); with ``ci="bootstrap"`` also ``boot_lower_i``,
-            ``boot_upper_i`` (residual-bootstrap percentile interval of half-life i, in the
-            data's time unit), ``boot_failed`` and ``boot_n`` on the chosen rows. Empty when
-            no part has a series.
+            and :attr:`interval_method`): the series' keys and its ``group`` (from the
+            samples table, when it has one), the estimates, and every interval with its
+            ``lower_status`` and ``upper_status``; with a growth model also the
+            incorporation half-lives :math:`\\ln 2/(k_{d,i} + k_g)` and the growth share.
+            With ``ci="bootstrap"`` also ``boot_lower_i``, ``boot_upper_i`` (residual-
+            bootstrap percentile interval of half-life i, in the data's time unit),
+            ``boot_lower_status_i``, ``boot_upper_status_i``, ``boot_failed`` and ``boot_n``
+            on the chosen rows. Empty when no part has a series.
+
+        Notes
+        -----
+        Each row is computed once and kept on its fit
+        (:func:`~isoturnover.groups.candidate_row`; in parallel runs by the worker that
+        fitted the series), so this table, the report and the summaries share one
+        computation of every interval.
         """
         frames = []
         for name, fs in self.parts.items():
@@ -161,6 +167,8 @@ class Analysis:
                 if q in bi.index:
                     row[f"boot_lower_{j}"] = bi.loc[q, "lower"]
                     row[f"boot_upper_{j}"] = bi.loc[q, "upper"]
+                    row[f"boot_lower_status_{j}"] = bi.loc[q, "lower_status"]
+                    row[f"boot_upper_status_{j}"] = bi.loc[q, "upper_status"]
             row["boot_failed"] = b.attrs.get("n_failed", 0)
             row["boot_n"] = self.n_boot
             rows.append(row)
@@ -218,51 +226,69 @@ class Analysis:
                       method=self.interval_method, time_unit=unit)
 
     def write(self, out_dir, *, force=False, figures=True) -> list[Path]:
-        """Write results.csv, fits.json, the report and CAUTION.txt (all or nothing).
+        """Write results.csv, fits.json, the report and CAUTION.txt, in one move.
 
-        Every file is made in a temporary folder beside ``out_dir`` and moved into place
-        only when all of them exist; nothing is written if anything fails.
+        Written through :func:`~isoturnover.outputdir.write_output`: every file is made in
+        a temporary folder beside ``out_dir``, which then takes the place of ``out_dir`` in
+        one move, under a lock on the folder. Nothing is written if anything fails; a run
+        killed at any moment leaves the previous output whole (what it left beside the
+        folder is tidied by the next run); a second run into the same folder at the same
+        time is refused. ``.isoturnover-manifest.json`` in the folder lists the files
+        written. Text cells of ``results.csv`` that a spreadsheet would read as a formula
+        (starting with ``=``, ``+``, ``-``, ``@``, tab or carriage return, e.g. a subject
+        named ``=HYPERLINK(...)``) get a single quote in front
+        (:func:`~isoturnover.outputdir.neutralise_formulas`); numeric columns are written
+        as they are.
 
         Parameters
         ----------
         out_dir : str or path-like
-            Output folder (created when missing).
+            Output folder (created, with its parents, when missing).
         force : bool, default=False
-            Write into a non-empty folder, replacing its files of the same names.
+            Replace a non-empty folder: the files this package wrote there (listed in its
+            manifest) are replaced, every other file the user put there (anywhere, the
+            figures folder included) is kept, copied into the new output at the same
+            place. A non-empty folder without a manifest is replaced only when it holds
+            nothing but files this package names (results.csv, fits.json, report.md,
+            report.html, CAUTION.txt, report_figures/*.png).
         figures : bool, default=True
             Draw the report's figures.
 
         Returns
         -------
         list of pathlib.Path
-            The files written.
+            The files written (the manifest last).
 
         Raises
         ------
         DataError
-            When ``out_dir`` is a file, or a non-empty folder without ``force``.
+            When ``out_dir`` is a file or a dangling link, cannot be made or written, is a
+            non-empty folder without ``force`` (or, even with it, holds files of the user
+            and no manifest), holds a file of the user where this run writes one, or is
+            being written by another run (see :func:`check_out_dir`).
         """
         from .report import write_report
 
-        out = Path(out_dir)
-        check_out_dir(out, force)
-        parent = out.parent if str(out.parent) else Path(".")
-        parent.mkdir(parents=True, exist_ok=True)
-        tmp = Path(tempfile.mkdtemp(prefix=".isoturnover-", dir=parent))
-        try:
-            table = self.results_table()
+        def build(tmp: Path) -> None:
+            table = neutralise_formulas(self.results_table())
             table.to_csv(tmp / "results.csv", index=False)
             with open(tmp / "fits.json", "w", encoding="utf-8") as fh:
                 json.dump(self.fits_json(), fh, allow_nan=True)
+            boot = None
+            if self.ci == "bootstrap":  # results_table above filled self.bootstrap
+                boot = {}
+                for (name, key), b in self.bootstrap.items():
+                    km = dict(zip(self.parts[name].by, key))
+                    subject = km.get("subject")
+                    boot[(name, "all animals" if subject is None else str(subject),
+                          str(km.get("tissue", "")), str(km.get("isotope", "")))] = b
             write_report(self.merged(), tmp / "report", title=self.title, level=self.level,
-                         method=self.interval_method, figures=figures)
+                         method=self.interval_method if boot is None else "bootstrap",
+                         figures=figures, bootstrap=boot, n_boot=self.n_boot,
+                         seed=self.seed, n_jobs=None if self.n_jobs == 1 else self.n_jobs)
             (tmp / "CAUTION.txt").write_text(CAUTION + "\n", encoding="utf-8")
-            written = _move_tree(tmp, out)
-        except BaseException:
-            shutil.rmtree(tmp, ignore_errors=True)
-            raise
-        shutil.rmtree(tmp, ignore_errors=True)
-        return written
+
+        return write_output(out_dir, build, force=force)
 
 
 def series_seed(seed, part, key):
@@ -308,55 +334,20 @@ def _check_seed(seed):
     return seed
 
 
-def check_out_dir(out: Path, force: bool):
-    """Refuse a non-empty output folder unless ``force`` (before any work is done).
-
-    Parameters
-    ----------
-    out : pathlib.Path
-        The output folder (it need not exist).
-    force : bool
-        Accept a non-empty folder.
-
-    Raises
-    ------
-    DataError
-        When ``out`` is a file, or a non-empty folder without ``force``.
-    """
-    if out.exists() and not out.is_dir():
-        raise DataError(f"output path {str(out)!r} exists and is not a folder")
-    if out.exists() and any(out.iterdir()) and not force:
-        raise DataError(f"output folder {str(out)!r} is not empty; choose another folder or "
-                        "pass --force (force=True) to replace its files")
-
-
-def _move_tree(tmp: Path, out: Path) -> list[Path]:
-    if not out.exists():
-        os.replace(tmp, out)
-        tmp.mkdir()  # so the caller's cleanup finds a folder
-        return sorted(p for p in out.rglob("*") if p.is_file())
-    written = []
-    for src in tmp.iterdir():  # a folder in the output (figures) is replaced as a whole
-        dst = out / src.name
-        if src.is_dir() and dst.is_dir():
-            shutil.rmtree(dst)
-        elif src.is_dir() and dst.exists():
-            dst.unlink()
-    for src in sorted(p for p in tmp.rglob("*") if p.is_file()):
-        dst = out / src.relative_to(tmp)
-        dst.parent.mkdir(parents=True, exist_ok=True)
-        os.replace(src, dst)
-        written.append(dst)
-    return written
-
-
 def load_fits(path_or_dict) -> list[dict]:
     """Read a ``fits.json`` written by :meth:`Analysis.write`.
+
+    The file is checked before any fit is rebuilt (see :func:`~isoturnover.load_fit`):
+    its nesting depth before it is parsed, then every entry against what
+    :meth:`Analysis.fits_json` writes, so a truncated, edited or damaged file raises
+    :class:`~isoturnover.errors.DataError` naming the file and the key path
+    (``fits[3].fit.solution.theta[1] (k1): not a finite number (got nan)``), or the line
+    and column of a JSON error.
 
     Parameters
     ----------
     path_or_dict : str, path-like or dict
-        The file, or its content already parsed.
+        The file, or its content already parsed (not modified).
 
     Returns
     -------
@@ -367,21 +358,62 @@ def load_fits(path_or_dict) -> list[dict]:
     Raises
     ------
     DataError
-        When the content is not a fits.json of isoturnover.
+        When the file cannot be read, is not valid JSON, or its content is not a complete
+        and valid fits.json of isoturnover.
     """
-    from .serialization import load_fit
+    from .serialization import FORMAT_VERSION, load_fit, read_json
 
     if isinstance(path_or_dict, dict):
-        d = path_or_dict
+        d, source = path_or_dict, None
+        head = "'path_or_dict' is not a valid fits.json record"
     else:
-        with open(path_or_dict, encoding="utf-8") as fh:
-            d = json.load(fh)
-    if d.get("format") != "isoturnover-fits":
-        raise DataError("not a fits.json written by isoturnover (key 'format' missing)")
+        try:
+            source = os.fspath(path_or_dict)
+        except TypeError:
+            raise DataError("'path_or_dict' must be the path of a fits.json or its parsed "
+                            f"content (a dict); got {type(path_or_dict).__name__}") from None
+        d = read_json(source)
+        head = source
+
+    def fail(path, problem):
+        raise DataError(f"{head}: {path}: {problem}")
+
+    def scalar(v):
+        return v is None or isinstance(v, (str, bool, int, float))
+
+    if not isinstance(d, dict) or d.get("format") != "isoturnover-fits":
+        got = (f"key 'format' is {d.get('format')!r}" if isinstance(d, dict) else
+               f"the content is a JSON {type(d).__name__}, not an object")
+        raise DataError(f"{head}: not a fits.json written by isoturnover ({got}; "
+                        "'isoturnover-fits' expected)")
+    v = d.get("version")
+    if not isinstance(v, int) or isinstance(v, bool) or v != FORMAT_VERSION:
+        fail("version", f"format version {v!r} is not read by this isoturnover (it reads "
+                        f"version {FORMAT_VERSION})")
+    if "level" in d and not (isinstance(d["level"], (int, float))
+                             and not isinstance(d["level"], bool) and 0 < d["level"] < 1):
+        fail("level", f"not a confidence level between 0 and 1 (got {d['level']!r})")
+    if "ci" in d and not isinstance(d["ci"], str):
+        fail("ci", f"not a string (got {d['ci']!r:.40})")
+    if not isinstance(d.get("fits"), list):
+        fail("fits", f"missing or not an array (got {type(d.get('fits')).__name__})")
     out = []
-    for e in d["fits"]:
+    for i, e in enumerate(d["fits"]):
+        p = f"fits[{i}]"
+        if not isinstance(e, dict):
+            fail(p, f"not an object (got {type(e).__name__})")
+        for k, kind in (("part", str), ("key", dict), ("candidate", str), ("chosen", bool),
+                        ("fit", dict)):
+            if k not in e:
+                fail(f"{p}.{k}", f"missing (section {p!r} lacks {k!r})")
+            if not isinstance(e[k], kind):
+                fail(f"{p}.{k}", f"not {'an object' if kind is dict else 'a ' + kind.__name__}"
+                                 f" (got {e[k]!r:.40} ({type(e[k]).__name__}))")
+        for k, kv in e["key"].items():
+            if not scalar(kv):
+                fail(f"{p}.key.{k}", f"not a text or number (got {type(kv).__name__})")
         e = dict(e)
-        e["fit"] = load_fit(e["fit"])
+        e["fit"] = load_fit(e["fit"], name=f"{p}.fit", source=source)
         out.append(e)
     return out
 
@@ -403,14 +435,163 @@ def _parse_pools(pools):
         pools = None
     if not pools or any(isinstance(p, bool) or not isinstance(p, (int, np.integer))
                         or not 1 <= p <= 4 for p in pools):
-        raise DataError(f"'pools' must be integers from 1 to 4; got {given!r}")
+        raise DataError(f"'pools' (--pools) must be integers from 1 to 4; got {given!r}")
     return tuple(int(p) for p in pools)
+
+
+def _parse_by(by, columns):
+    """``by`` as a tuple of column names of the samples table (from ``"subject,tissue"`` or
+    a sequence), or None (the default keys); a DataError naming the table's columns."""
+    if by is None:
+        return None
+    given = by
+    if isinstance(by, str):
+        by = [x.strip() for x in by.split(",")]
+    try:
+        by = tuple(by)
+    except TypeError:
+        by = ()
+    known = ", ".join(map(str, columns))
+    if not by or any(not isinstance(x, str) or not x for x in by):
+        raise DataError(f"'by' (--by) must name one or more columns of the samples table, "
+                        f"such as subject,tissue,isotope; got {given!r}; its columns: {known}")
+    unknown = [x for x in by if x not in columns]
+    if unknown:
+        raise DataError(f"'by' (--by) names {unknown[0]!r}, which is not a column of the "
+                        f"samples table; its columns: {known}")
+    if len(set(by)) < len(by):
+        raise DataError(f"'by' (--by) names a column twice: {given!r}")
+    return by
+
+
+def _dated_starts(diets, diet_columns) -> bool:
+    """Whether a diets table's ``start`` column holds dates (some non-blank cell that is
+    not a number) rather than times since the switch."""
+    from .data import DIET_COLUMNS
+    from .tables import apply_columns, cell_text, load_table
+
+    table = load_table(diets, None)
+    apply_columns(table, diet_columns, DIET_COLUMNS, "diets")
+    if "start" not in table.frame.columns:
+        return False                       # read_diets names the missing column
+    text, blank = cell_text(table.frame["start"])
+    text = text[~blank].str.replace(",", ".", regex=False)
+    return bool(pd.to_numeric(text, errors="coerce").isna().any())
+
+
+def _switch_dates_of_diets(diets, diet_columns, date_format) -> pd.DataFrame:
+    """One switch date per group (or subject) from a diets table whose ``start`` column
+    holds dates: the earliest diet change of the group, i.e. the earliest start after the
+    group's first start of any isotope."""
+    from .data import DIET_COLUMNS
+    from .sampletimes import parse_date
+    from .tables import apply_columns, cell_text, load_table
+
+    if not _dated_starts(diets, diet_columns):
+        raise DataError("switch_dates='diets' (--switch-dates diets) needs dates in the "
+                        "start column of the diets table (--diets); it holds times")
+    table = load_table(diets, None)
+    apply_columns(table, diet_columns, DIET_COLUMNS, "diets")
+    f = table.frame
+    keys = [c for c in ("group", "subject") if c in f.columns]
+    if not keys or "isotope" not in f.columns:
+        return None                        # read_diets names the missing column
+    rows = pd.DataFrame({c: cell_text(f[c])[0].to_numpy() for c in keys + ["isotope"]})
+    rows["start"] = [parse_date(v, f"{table.label}, start of row {i + 1}", date_format)
+                     for i, v in enumerate(f["start"])]
+    out = []
+    for key, g in rows.groupby(keys, sort=True):
+        key = key if isinstance(key, tuple) else (key,)
+        changes = [sorted(set(h["start"]))[1:] for _, h in g.groupby("isotope")]
+        changes = [c[0] for c in changes if c]
+        if not changes:
+            raise DataError(f"{table.label}: {', '.join(f'{k}={v!r}' for k, v in zip(keys, key))}"
+                            f" has a single start date, so no diet switch to take the switch "
+                            f"date from (--switch-dates diets)")
+        out.append(dict(zip(keys, key), switch_date=min(changes)))
+    return pd.DataFrame(out)
+
+
+def _switch_dates_of_samples(s, keys) -> pd.DataFrame:
+    """The switch date of each row of a read samples table (date minus time since the
+    switch, to the second), one row per distinct value of ``keys``."""
+    unit = {"d": "D", "h": "h", "w": "W"}[s.attrs.get("time_unit", "d")]
+    sw = (pd.to_datetime(s["date"]) - pd.to_timedelta(s["time"].to_numpy(), unit=unit))
+    frame = s[list(keys)].astype(str).assign(switch_date=sw.dt.round("s").to_numpy())
+    return frame.drop_duplicates().reset_index(drop=True)
+
+
+def _read_tables(samples, diets, masses, *, time_unit, date_format, columns, diet_columns,
+                 mass_columns, switch_date, switch_dates, unit, baseline, mass_unit=None):
+    """The three tables read and checked, dates turned into times since the switch.
+
+    The samples' switch date (one, or one per group or subject: a frame, a column name, or
+    ``"diets"`` for each group's first diet change in the diets table) also converts a
+    diets table whose ``start`` holds dates and a masses table with a ``date`` column: each
+    subject's (or group's) switch date is the one its samples were converted with."""
+    from os import PathLike
+
+    from .data import read_diets, read_masses, read_samples
+
+    if switch_date is not None and switch_dates is not None:
+        raise DataError("give one switch date for all (--switch-date) or one per group or "
+                        "subject (--switch-dates), not both")
+    if isinstance(switch_dates, str) and switch_dates == "diets":
+        if diets is None:
+            raise DataError("switch_dates='diets' (--switch-dates diets) needs a diets "
+                            "table (--diets)")
+        switch_dates = _switch_dates_of_diets(diets, diet_columns, date_format)
+    elif isinstance(switch_dates, (str, PathLike)) and (
+            Path(switch_dates).is_file() or not isinstance(switch_dates, str)
+            or Path(switch_dates).suffix.lower() in (".csv", ".tsv", ".txt", ".xlsx", ".xlsm",
+                                                     ".xls")):
+        from .tables import load_table
+
+        switch_dates = load_table(switch_dates, None).frame  # names a missing file
+    common = dict(time_unit=time_unit, date_format=date_format)
+    s = read_samples(samples, columns=columns, switch_date=switch_date,
+                     switch_dates=switch_dates, unit=unit, baseline=baseline, **common)
+    dated = "date" in s.columns and (switch_date is not None or switch_dates is not None)
+
+    def switch_for(table_keys):
+        if switch_date is not None:
+            return {"switch_date": switch_date}
+        keys = [k for k in table_keys if k in s.columns]
+        if not dated or not keys:
+            return {}
+        return {"switch_dates": _switch_dates_of_samples(s, keys)}
+
+    d = m = None
+    if diets is not None:
+        sw = {}
+        if dated and _dated_starts(diets, diet_columns):
+            from .tables import load_table
+
+            have = load_table(diets, None).frame.columns
+            mapped = set((diet_columns or {}).values()) | set(have)
+            sw = switch_for([k for k in ("group", "subject") if k in mapped])
+        d = read_diets(diets, columns=diet_columns, **sw, **common)
+    if masses is not None:
+        sw = {}
+        if dated:
+            from .tables import load_table
+
+            have = set(load_table(masses, None).frame.columns)
+            have |= set((mass_columns or {}).values())
+            if "date" in have and "time" not in have:
+                sw = switch_for(["subject"])
+        m = read_masses(masses, columns=mass_columns, mass_unit=mass_unit, **sw, **common)
+    return s, d, m
 
 
 def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("parallel",),
             by=None, ci="profile", level=0.95, time_unit="d", growth_curve="logistic",
             per_diet_separation="auto", lag=False, progress=False, n_boot=499, seed=1,
-            title="Turnover analysis", n_jobs=1, date_format=None) -> Analysis:
+            title="Turnover analysis", n_jobs=1, date_format=None, criterion="aicc",
+            separation="difference", initial="equilibrium", fixed=None, absolute_sigma=False,
+            loss="linear", columns=None, diet_columns=None, mass_columns=None,
+            switch_date=None, switch_dates=None, unit="delta", baseline=None,
+            mass_unit=None) -> Analysis:
     """Fit every series of a samples table and choose its model (pools, separation) by AICc.
 
     Parameters
@@ -424,8 +605,9 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
         Numbers of parallel pools to try (1-4); ``"1,2,3"`` as on the command line.
     structures : sequence of {"parallel", "chain"}, default=("parallel",)
         Model structures to try.
-    by : tuple of str, optional
-        Series keys; default (subject, tissue, isotope), or (tissue, isotope) when every
+    by : tuple of str or str, optional
+        Series keys, columns of the samples table (``"subject,tissue,isotope"`` as on the
+        command line); default (subject, tissue, isotope), or (tissue, isotope) when every
         subject has a single sampling time (destructive design).
     ci : {"profile", "asymptotic", "bootstrap"}, default="profile"
         Interval method; "bootstrap" adds residual-bootstrap percentile intervals for the
@@ -457,6 +639,39 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
     date_format : str, optional
         How text dates that are not ISO 8601 are written in the tables (``"%d/%m/%Y"``),
         passed to the readers (:func:`~isoturnover.read_samples`).
+    criterion : {"aicc", "aic", "bic"}, default="aicc"
+        Information criterion that chooses each series' model.
+    separation : {"difference", "epsilon"}, default="difference"
+        Form of the diet-tissue separation (:class:`~isoturnover.TurnoverModel`).
+    initial : {"equilibrium", "free"}, default="equilibrium"
+        Tissue at equilibrium with the first diet, or its starting value fitted.
+    fixed : dict of str to float, optional
+        Parameters held at given values in every fit (``{"delta0": -25.0}``).
+    absolute_sigma : bool, default=False
+        Treat the samples' ``sd`` as known analytic standard deviations (no rescaling by
+        the residual variance).
+    loss : {"linear", "soft_l1", "huber"}, default="linear"
+        Loss of every fit; the last two are robust to outlying points.
+    columns, diet_columns, mass_columns : dict of str to str, optional
+        Your column names to the canonical ones, per table (``{"animal": "subject"}``).
+    mass_unit : str, optional
+        Unit of the body masses (``"kg"``), shown on the growth figures and in the report.
+    switch_date : date-like, optional
+        One diet-switch date for every row: the tables' dates become times since it (the
+        samples' ``date`` column; a diets table whose ``start`` holds dates; a masses
+        table with a ``date`` column).
+    switch_dates : str, path or DataFrame, optional
+        One switch date per group or subject: a table (file or frame) with a
+        ``switch_date`` column and a ``group`` and/or ``subject`` column; ``"diets"``, each
+        group's (or subject's) earliest diet change in the diets table, whose ``start``
+        then holds dates; or the name of a samples column holding each row's switch date.
+        Dated diets and masses tables are converted with their subjects' switch dates.
+    unit : {"delta", "atom_percent", "atom_percent_excess"}, default="delta"
+        Unit of the samples' ``value``; atom % and atom % excess are converted to δ (‰)
+        by :func:`~isoturnover.read_samples` before any fit.
+    baseline : float or dict, optional
+        δ (‰) of the unenriched material for ``unit="atom_percent_excess"``: one number, or
+        one per isotope code.
 
     Returns
     -------
@@ -485,19 +700,18 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
     plateaus are free anyway), gets no per-diet variant; nor does one too short for the
     variant's AICc to be defined.
     """
-    from .data import read_diets, read_masses, read_samples
-
     check_choice("ci", ci, CI_METHODS)
     level = check_level(level)
     n_boot = check_positive_int("n_boot", n_boot)
     n_jobs = parallel_workers(n_jobs)  # 1 (after one warning) when joblib is missing
     _check_seed(seed)
     pools = _parse_pools(pools)
-    s = read_samples(samples, time_unit=time_unit, date_format=date_format)
-    d = (read_diets(diets, time_unit=time_unit, date_format=date_format)
-         if diets is not None else None)
-    m = (read_masses(masses, time_unit=time_unit, date_format=date_format)
-         if masses is not None else None)
+    s, d, m = _read_tables(samples, diets, masses, time_unit=time_unit,
+                           date_format=date_format, columns=columns,
+                           diet_columns=diet_columns, mass_columns=mass_columns,
+                           switch_date=switch_date, switch_dates=switch_dates, unit=unit,
+                           baseline=baseline, mass_unit=mass_unit)
+    by = _parse_by(by, [c for c in s.columns if c != "is_replicate_group"])
     if by is None:
         per = s.groupby(["subject", "tissue", "isotope"])["time"].nunique()
         by = ("tissue", "isotope") if int(per.max()) == 1 and s["subject"].nunique() > 1 \
@@ -505,7 +719,9 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
     fs = fit_each(s, by=by, pools=pools, structures=structures, diets=d, masses=m,
                   level=level, method="asymptotic" if ci == "asymptotic" else "profile",
                   lag=lag, growth_curve=growth_curve, per_diet_separation=per_diet_separation,
-                  progress=progress, n_jobs=n_jobs)
+                  progress=progress, n_jobs=n_jobs, criterion=criterion,
+                  separation=separation, initial=initial, fixed=fixed,
+                  absolute_sigma=absolute_sigma, loss=loss)
     return Analysis({"samples": fs}, level=level, ci=ci, n_boot=n_boot, seed=seed,
                     title=title, n_jobs=n_jobs)
 
@@ -557,11 +773,11 @@ def run_demo(out_dir=None, *, force=False, progress=False, figures=True,
         check_out_dir(Path(out_dir), force)
     gs = read_samples(demo_path("goat_samples"))
     gd = read_diets(demo_path("goat_diets"))
-    gm = read_masses(demo_path("goat_masses"))
+    gm = read_masses(demo_path("goat_masses"), mass_unit="kg")
     breath = read_samples(demo_path("goat_breath"), time_unit="h")
     fsam = read_samples(demo_path("fish_samples"))
     fd = read_diets(demo_path("fish_diets"))
-    fm = read_masses(demo_path("fish_masses"))
+    fm = read_masses(demo_path("fish_masses"), mass_unit="g")
     parts = {}
     common = dict(per_diet_separation="auto", progress=progress, n_jobs=workers)
     for iso in ("d13C", "d15N"):

@@ -387,6 +387,8 @@ def build_parser() -> argparse.ArgumentParser:
       help="diets column names, e.g. group=pen,start=day")
     a("--mass-columns", metavar="MAP", type=_column_map(MASS_COLUMNS, "mass=weight_kg"),
       help="masses column names, e.g. subject=animal,mass=weight_kg")
+    a("--mass-unit", metavar="UNIT", default=None,
+      help="unit of the body masses for the figures and report, e.g. kg")
     a("--time-unit", metavar="UNIT", type=_time_unit, default="d",
       help="time unit of the tables: d, h or w (default d)")
     a("--date-format", metavar="FMT", type=_date_format, default=None,
@@ -464,14 +466,33 @@ def _progress_default(args):
         return False
 
 
-def _cmd_demo(args):
+def _held(command):
+    """Run ``command(args, out)`` holding the output folder's lock from the first check to
+    the end (a second run into the same folder is refused at once); the hold is released
+    however the command ends, so a failed run leaves no lock behind."""
+    import functools
     from pathlib import Path
 
-    from .analysis import check_out_dir, run_demo
+    @functools.wraps(command)
+    def run(args):
+        from .analysis import check_out_dir
+        from .outputdir import release_out_dir
+
+        out = Path(args.out or f"isoturnover_out_{args.command}")
+        check_out_dir(out, args.force, hold=True)
+        try:
+            return command(args, out)
+        finally:
+            release_out_dir(out)
+
+    return run
+
+
+@_held
+def _cmd_demo(args, out):
+    from .analysis import run_demo
     from .groups import parallel_workers
 
-    out = Path(args.out or "isoturnover_out_demo")
-    check_out_dir(out, args.force, hold=True)
     jobs = parallel_workers(args.jobs, "--jobs")  # 1 (after one warning) without joblib
     a = run_demo(out, force=args.force, progress=_progress_default(args),
                  figures=not args.no_figures, n_jobs=jobs)
@@ -479,15 +500,12 @@ def _cmd_demo(args):
     return 0
 
 
-def _cmd_fit(args):
-    from pathlib import Path
-
-    from .analysis import analyse, check_out_dir
+@_held
+def _cmd_fit(args, out):
+    from .analysis import analyse
     from .errors import DataError
     from .groups import parallel_workers
 
-    out = Path(args.out or "isoturnover_out_fit")
-    check_out_dir(out, args.force, hold=True)
     jobs = parallel_workers(args.jobs, "--jobs")  # 1 (after one warning) without joblib
     structures = ("parallel", "chain") if args.chain else ("parallel",)
     a = analyse(args.samples, diets=args.diets, masses=args.masses, pools=args.pools,
@@ -500,6 +518,7 @@ def _cmd_fit(args):
                 separation=args.separation, initial=args.initial_state, fixed=args.fix,
                 absolute_sigma=args.known_sd, loss=args.loss, columns=args.columns,
                 diet_columns=args.diet_columns, mass_columns=args.mass_columns,
+                mass_unit=args.mass_unit,
                 switch_date=args.switch_date, switch_dates=args.switch_dates,
                 unit=args.unit, baseline=args.baseline)
     if a.n_fitted() == 0:

@@ -22,6 +22,7 @@ __all__ = [
     "METHODS",
     "STATUSES",
     "INTERVAL_COLUMNS",
+    "CAUTION",
     "TIME_UNITS",
     "check_level",
     "check_method",
@@ -37,6 +38,12 @@ METHODS = ("profile", "asymptotic", "bootstrap", "mcmc")
 #: ``at_bound`` at a hard limit of the parameter (lag 0, a fraction 0 or 1), ``failed``
 #: when it could not be computed (NaN), ``fixed`` for a fixed parameter.
 STATUSES = ("ok", "open", "at_bound", "failed", "fixed", "not_available")
+#: The caution every report, results folder, plan and field estimate carries (one text).
+CAUTION = (
+    "Animal experiments and field sampling need the approval of the local animal-care "
+    "authority (human hair or blood: a human-research ethics board). These results and plans "
+    "support that process; they do not replace it."
+)
 #: Columns every interval table starts with (after its own key columns).
 INTERVAL_COLUMNS = ("estimate", "lower", "upper", "level", "method", "lower_status",
                     "upper_status")

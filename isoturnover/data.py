@@ -588,7 +588,7 @@ def _check_diet_order(frame: pd.DataFrame, table: Table, by: list[str]) -> None:
 
 def read_masses(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
                 switch_dates=None, on_bad_rows="raise", sheet=None,
-                date_format=None) -> pd.DataFrame:
+                date_format=None, mass_unit=None) -> pd.DataFrame:
     """Read and validate a body-mass table: ``subject``, ``time`` (or ``date``), ``mass``.
 
     Parameters
@@ -608,6 +608,9 @@ def read_masses(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
     date_format : str, optional
         How text dates that are not ISO 8601 are written (``"%d/%m/%Y"``); see
         :func:`read_samples`.
+    mass_unit : str, optional
+        Unit of ``mass`` (``"kg"``, ``"g"``), a label for tables and figures; kept in
+        ``attrs["mass_unit"]`` (a frame's own ``attrs["mass_unit"]`` when not given).
 
     Returns
     -------
@@ -624,6 +627,10 @@ def read_masses(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
     check_choice("on_bad_rows", on_bad_rows, _ON_BAD_ROWS)
     tu = _time_unit(time_unit)
     date_format = check_date_format(date_format)
+    if mass_unit is None and isinstance(path_or_frame, pd.DataFrame):
+        mass_unit = (path_or_frame.attrs or {}).get("mass_unit")
+    if mass_unit is not None and (not isinstance(mass_unit, str) or not mass_unit.strip()):
+        raise DataError(f"'mass_unit' must be a unit such as 'kg' or 'g'; got {mass_unit!r}")
     table = load_table(path_or_frame, sheet)
     apply_columns(table, columns, MASS_COLUMNS, "masses")
     cols = table.frame.columns
@@ -652,6 +659,8 @@ def read_masses(path_or_frame, *, columns=None, time_unit="d", switch_date=None,
                         "they are kept and count as separate measurements")
     attrs = _base_attrs(table, "masses", tu)
     attrs.update(meta)
+    if mass_unit is not None:
+        attrs["mass_unit"] = mass_unit.strip()
     return _finish(frame, table, keep, attrs)
 
 

@@ -65,6 +65,7 @@ from scipy import stats
 
 from . import quantities
 from .conventions import (
+    CAUTION,
     INTERVAL_COLUMNS,
     METHODS,
     check_choice,
@@ -80,13 +81,6 @@ from .responses import chain_terms
 __all__ = ["TissueTime", "equilibration_time", "integration_window", "window_weight",
            "CAUTION", "POPULATION_QUANTITIES"]
 
-#: The caution every planning output carries (the text of ``isoturnover.analysis.CAUTION``;
-#: a test keeps the two equal).
-CAUTION = (
-    "Animal experiments and field sampling need the approval of the local animal-care "
-    "authority (human hair or blood: a human-research ethics board). These results and plans "
-    "support that process; they do not replace it."
-)
 
 #: What the values of a :class:`~isoturnover.RandomEffects` source are (``quantity=``).
 POPULATION_QUANTITIES = ("log_half_life", "log_rate", "half_life", "rate")

@@ -36,10 +36,12 @@ from .conventions import (
 from .diagnostics import after_switch_reason
 from .diet import DietHistory
 from .engine import Coordinates, check_names
-from .errors import DataError, DataWarning, IsoturnoverError, IsoturnoverWarning
+from .errors import DataError, DataWarning, IsoturnoverWarning
 from .kinetics import MAX_POOLS
 from .model import LOSSES, TurnoverModel
+from .population import population_estimate
 from .selection import CRITERIA, compare
+from .seriesrows import SERIES_ERRORS, candidate_row, population_inputs, series_data
 
 try:  # optional (the "fast" extra): parallel series
     import joblib as _joblib
@@ -47,7 +49,7 @@ except ImportError:  # pragma: no cover - depends on the environment
     _joblib = None
 
 __all__ = ["fit_each", "FitSet", "SeriesResult", "STATUS", "SERIES_ERRORS",
-           "parallel_workers"]
+           "parallel_workers", "candidate_row", "warm_series"]
 
 #: Status of a series (:attr:`SeriesResult.status`) and of a row of :meth:`FitSet.table`:
 #: ``"not_eligible"`` marks a fitted candidate whose criterion is undefined (AICc with
@@ -55,9 +57,6 @@ __all__ = ["fit_each", "FitSet", "SeriesResult", "STATUS", "SERIES_ERRORS",
 #: eligible is ``"too_few_points"`` (or ``"failed"``), with the reasons.
 STATUS = ("ok", "failed", "too_few_points", "no_change", "no_diet", "not_eligible")
 _KEYS = ("subject", "tissue", "isotope")
-#: Exceptions that make one series (or one candidate model of it) a failed row with its
-#: reason: the library's own errors and numerical breakdowns. Anything else propagates.
-SERIES_ERRORS = (IsoturnoverError, FloatingPointError, np.linalg.LinAlgError)
 
 
 def parallel_workers(n_jobs, name: str = "n_jobs") -> int:
@@ -118,6 +117,9 @@ class SeriesResult:
         :func:`~isoturnover.compare` of the fitted candidates.
     nobs : int
         Number of time points of the series after averaging analytic replicates.
+    group : str or None
+        The ``group`` of the series' rows in the samples table (None when the table has no
+        group column, or the rows name several groups).
     """
 
     key: tuple
@@ -128,6 +130,7 @@ class SeriesResult:
     chosen: str | None = None
     comparison: pd.DataFrame | None = None
     nobs: int = 0
+    group: str | None = None
 
     @property
     def best(self):
@@ -215,7 +218,10 @@ class FitSet(Mapping):
 
         The chosen candidate of each series gets intervals of ``method``, the others
         asymptotic intervals (column ``interval_method``). Half-lives are
-        :math:`t_{1/2} = \\ln 2 / k_i` of each pool, in the time unit of the data.
+        :math:`t_{1/2} = \\ln 2 / k_i` of each pool, in the time unit of the data. Each
+        candidate's row is computed once per level and method and kept on its fit
+        (:func:`candidate_row`), so the table, the report and the summaries share one
+        computation of every interval.
 
         Parameters
         ----------
@@ -228,16 +234,15 @@ class FitSet(Mapping):
         Returns
         -------
         DataFrame
-            Columns: the ``by`` keys; candidate, structure, pools, status, reason, nobs,
-            n_params, rss, aicc, delta_aicc, weight, chosen, converged, n_warnings,
-            warnings; the level parameters (delta0/delta_eq, or the plateaus and
-            separations; lag, k_growth) with ``_lower``, ``_upper`` and their statuses;
-            then per pool ``fraction_i, half_life_i, lower_i, upper_i, lower_status_i,
-            upper_status_i``; interval_method; ``time_to_95`` with its bounds;
-            ``interval_note`` ("" when every interval was computed, else which
-            computation failed and why: its bounds are NaN with status ``"failed"``);
-            rate_kind and time_unit. A candidate or series that was not fitted keeps its
-            row with its status and reason.
+            Columns: the ``by`` keys; ``group`` (the samples table's group of the series,
+            when the table has one and ``by`` does not name it); candidate, structure,
+            pools, status, reason, nobs, n_params, rss, aicc, delta_aicc, weight, chosen,
+            converged, n_warnings, warnings; then the columns of :func:`candidate_row`
+            (level parameters, half-lives, time to 95 %, with a growth model the
+            incorporation half-lives and the growth share, each interval with its
+            ``lower_status`` and ``upper_status``; interval_note, rate_kind, time_unit).
+            A candidate or series that was not fitted keeps its row with its status and
+            reason.
 
         Raises
         ------
@@ -249,12 +254,19 @@ class FitSet(Mapping):
         A fitted candidate whose criterion is undefined (AICc with n − k − 1 ≤ 0) keeps its
         estimates with status ``"not_eligible"`` and the reason; it is never chosen.
         """
-        level = self.level if level is None else level
-        method = self.method if method is None else method
+        level = check_level(self.level if level is None else level)
+        method = check_method(self.method if method is None else method)
+        with_group = "group" not in self.by and any(
+            r.group is not None for r in self._results.values())
         rows = []
         for key, r in self._results.items():
             base = dict(zip(self.by, key))
+            if with_group:
+                base["group"] = r.group
             cmp = r.comparison
+            cmp_rows = ({} if cmp is None else
+                        {lab: (int(k), float(d), float(w)) for lab, k, d, w in zip(
+                            cmp["label"], cmp["n_params"], cmp["delta_aicc"], cmp["weight"])})
             for label in r.reasons:
                 f = r.fits.get(label)
                 row = dict(base)
@@ -264,29 +276,23 @@ class FitSet(Mapping):
                                 "reason": r.reasons[label], "nobs": r.nobs, "chosen": False})
                     rows.append(row)
                     continue
-                crow = cmp[cmp["label"] == label].iloc[0]
+                n_params, delta, weight = cmp_rows[label]
                 why = r.reasons.get(label, "")
                 row.update({
                     "structure": f.kinetics.structure,
                     "pools": len(f.kinetics.rate_names),
                     "status": "not_eligible" if why and label != r.chosen else "ok",
                     "reason": why, "nobs": f.nobs,
-                    "n_params": int(crow["n_params"]), "rss": f.rss, "aicc": f.aicc,
-                    "delta_aicc": float(crow["delta_aicc"]), "weight": float(crow["weight"]),
+                    "n_params": n_params, "rss": f.rss, "aicc": f.aicc,
+                    "delta_aicc": delta, "weight": weight,
                     "chosen": label == r.chosen, "converged": f.converged,
                     "n_warnings": len(f.warnings),
                     "warnings": "; ".join(w.message for w in f.warnings),
                 })
-                vals = f.values
-                level_names = [nm for nm in f.kinetics.param_names
-                               if nm in ("delta0", "delta_eq", "lag", "k_growth")
-                               or nm.startswith(("discrimination", "epsilon", "plateau"))]
-                # profile intervals for the chosen model, asymptotic for the others (the
-                # column interval_method says which)
-                m_used = method if label == r.chosen else "asymptotic"
-                row.update(_interval_columns(f, vals, level_names, level, m_used))
-                row["rate_kind"] = f.rate_kind
-                row["time_unit"] = f.time_unit
+                # the method's intervals for the chosen model, asymptotic for the others
+                # (the column interval_method says which)
+                row.update(candidate_row(f, level, method if label == r.chosen
+                                         else "asymptotic"))
                 rows.append(row)
         df = pd.DataFrame(rows)
         df.attrs["time_unit"] = self.time_unit
@@ -311,13 +317,13 @@ class FitSet(Mapping):
             of :meth:`~isoturnover.TurnoverFit.half_lives` (half-lives in the data's time
             unit). Empty when no series was fitted.
         """
-        level = self.level if level is None else level
-        method = self.method if method is None else method
+        level = check_level(self.level if level is None else level)
+        method = check_method(self.method if method is None else method)
         parts = []
         for key, r in self._results.items():
             if r.best is None:
                 continue
-            hl = r.best.half_lives(level, method)
+            hl = r.best.cached_frame("half_lives", level, method)  # a copy of the kept one
             for col, v in zip(self.by, key):
                 if col not in hl.columns:
                     hl[col] = v
@@ -329,61 +335,52 @@ class FitSet(Mapping):
         front = list(self.by) + ["model"]
         return df[front + [c for c in df.columns if c not in front]]
 
+    def population(self, quantity="half_life", *, pool=1, moderators=None, level=None,
+                   interval_method=None, method="reml", adjust=None, pooled_level=None):
+        """Population estimate of the series' half-lives (random effects on the log scale).
 
-def _interval_columns(f, vals, level_names, level, method) -> dict:
-    """The interval columns of one fitted candidate's row of :meth:`FitSet.table`.
+        Parameters
+        ----------
+        quantity : {"half_life"}, default="half_life"
+            The per-series quantity pooled.
+        pool : int, default=1
+            Whose half-life (1: the fastest pool of each chosen model).
+        moderators : DataFrame, optional
+            Covariates indexed by the series key (a bare value for one key column), one
+            row per series: a mixed-effects meta-regression.
+        level, interval_method : optional
+            Level and method of the per-series intervals (default the FitSet's).
+        method : {"reml", "dl", "pm"}, default="reml"
+            Estimator of the between-animal variance.
+        adjust : {None, "hksj"}, default=None
+            Hartung–Knapp–Sidik–Jonkman adjustment of the pooled interval.
+        pooled_level : float, optional
+            Level of the pooled intervals (default ``level``).
 
-    An interval computation that raises one of :data:`SERIES_ERRORS` (a library error or a
-    numerical breakdown) leaves its bounds NaN with status ``"failed"`` and its reason in
-    the column ``interval_note``; the estimates stay. Any other exception propagates.
-    """
-    row, notes = {}, []
-    try:
-        ci = f.conf_int(level, method, params=level_names).set_index("parameter")
-    except SERIES_ERRORS as e:
-        notes.append(f"parameter intervals failed: {e}")
-        ci = None
-    for nm in level_names:
-        row[nm] = vals[nm]
-        for side in ("lower", "upper"):
-            row[f"{nm}_{side}"] = np.nan if ci is None else ci.loc[nm, side]
-            row[f"{nm}_{side}_status"] = "failed" if ci is None else ci.loc[nm, f"{side}_status"]
-    try:
-        hl = f.half_lives(level, method)
-    except SERIES_ERRORS as e:
-        notes.append(f"half-life intervals failed: {e}")
-        hl = None
-    if hl is not None:
-        for _, h in hl.iterrows():
-            i = int(h["pool"])
-            row[f"fraction_{i}"] = h["fraction"]
-            row[f"half_life_{i}"] = h["half_life"]
-            row[f"lower_{i}"] = h["lower"]
-            row[f"upper_{i}"] = h["upper"]
-            row[f"lower_status_{i}"] = h["lower_status"]
-            row[f"upper_status_{i}"] = h["upper_status"]
-        row["interval_method"] = hl["method"].iloc[0]
-    else:
-        # the estimates without intervals: t½ = ln 2 / k of each pool (or chain step)
-        kin = f.kinetics
-        for i, nm in enumerate(kin.rate_names, start=1):
-            k = float(vals[nm])
-            row[f"fraction_{i}"] = (vals.get(f"f{i}", np.nan) if kin.structure == "parallel"
-                                    else np.nan)
-            row[f"half_life_{i}"] = np.log(2.0) / k if k > 0 else np.inf
-            row[f"lower_{i}"] = row[f"upper_{i}"] = np.nan
-            row[f"lower_status_{i}"] = row[f"upper_status_{i}"] = "failed"
-        row["interval_method"] = method
-    try:
-        tt = f.time_to(0.95, level, method).iloc[0]
-    except SERIES_ERRORS as e:
-        notes.append(f"time to 95 % failed: {e}")
-        tt = {"estimate": np.nan, "lower": np.nan, "upper": np.nan}
-    row["time_to_95"] = tt["estimate"]
-    row["time_to_95_lower"] = tt["lower"]
-    row["time_to_95_upper"] = tt["upper"]
-    row["interval_note"] = "; ".join(notes)
-    return row
+        Returns
+        -------
+        PopulationEstimate
+            From :func:`~isoturnover.population_estimate`: every series appears, those
+            without a usable half-life listed as excluded with the reason and the
+            direction of the bias their absence causes.
+        """
+        if quantity != "half_life":
+            raise DataError(f"'quantity' must be 'half_life'; got {quantity!r}")
+        level = check_level(self.level if level is None else level)
+        d = population_inputs(self, pool, level, interval_method)
+        mods = None
+        if moderators is not None:
+            if not isinstance(moderators, pd.DataFrame):
+                raise DataError("'moderators' must be a DataFrame indexed by the series key")
+            missing = [k for k in d["names"] if k not in moderators.index]
+            if missing:
+                raise DataError(f"'moderators' has no row for the series {missing[:5]}")
+            mods = moderators.loc[d["names"]]
+        return population_estimate(
+            d["values"], d["lowers"], d["uppers"], level, method=method, adjust=adjust,
+            moderators=mods, names=d["names"], lower_status=d["lower_status"],
+            upper_status=d["upper_status"], reasons=d["reasons"], quantity="half_life",
+            pooled_level=pooled_level)
 
 
 #: Label suffix of a candidate's variant with one separation per diet value.
@@ -579,21 +576,25 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     for key, pos in keys_df.groupby(list(by), sort=True).indices.items():
         key = key if isinstance(key, tuple) else (key,)
         groups[key] = pos
-    options = dict(diets=diets, masses=masses, criterion=criterion, lag=lag,
-                   separation=separation, initial=initial, fixed=fixed,
-                   absolute_sigma=absolute_sigma, loss=loss, growth_curve=growth_curve,
-                   average=average_replicates, time_unit=time_unit)
-    tasks = [(s.iloc[pos], key, dict(zip(by, key))) for key, pos in groups.items()]
+    # the whole table is split, averaged and matched to its diets here, once and column-wise;
+    # each series travels to its fit as a few arrays (no per-series frames)
+    data = series_data(s, by, groups, average_replicates)
+    if diets is not None:
+        _attach_diets(data, groups, by, diets, initial, separation)
+    options = dict(masses=masses, criterion=criterion, lag=lag, separation=separation,
+                   initial=initial, fixed=fixed, absolute_sigma=absolute_sigma, loss=loss,
+                   growth_curve=growth_curve, time_unit=time_unit)
+    tasks = [(d, key, dict(zip(by, key))) for d, key in zip(data, groups)]
     if workers == 1 or len(tasks) < 2:
-        done = [_fit_one(sub, key, key_map, cands, options)
-                for sub, key, key_map in _progress(tasks, progress, "fitting series")]
+        done = [_fit_one(d, key, key_map, cands, options)
+                for d, key, key_map in _progress(tasks, progress, "fitting series")]
     else:
         # every series is fitted by the same function on the same inputs as in the serial
         # branch; the generator hands the results back in submission order
         par = _joblib.Parallel(n_jobs=workers, backend="loky", return_as="generator")
-        jobs = par(_joblib.delayed(_fit_one_in_worker)(sub, key, key_map, cands, options,
+        jobs = par(_joblib.delayed(_fit_one_in_worker)(d, key, key_map, cands, options,
                                                        warm=(level, method))
-                   for sub, key, key_map in tasks)
+                   for d, key, key_map in tasks)
         done = []
         for res, caught in _progress(jobs, progress, "fitting series", total=len(tasks)):
             # a worker's warnings, issued here as a serial run issues them (under the
@@ -606,33 +607,90 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
                   time_unit=time_unit)
 
 
-def _fit_one(sub, key, key_map, cands, options, warm=None):
+def _attach_diets(data, groups, by, diets, initial, separation):
+    """The diet history of every series (by subject, else by group, and isotope), built
+    once for each distinct match, with whether a separation per diet value applies."""
+    subject_col = "subject" in diets.columns
+    memo, applies = {}, {}
+    for d, key in zip(data, groups):
+        if d.error is not None:
+            continue
+        key_map = dict(zip(by, key))
+        mk = (key_map.get("subject") if subject_col else None, d.group, d.isotope)
+        if mk not in memo:
+            try:
+                memo[mk] = _diet_for(diets, key_map, d.group, d.isotope)
+            except SERIES_ERRORS as e:
+                memo[mk] = (None, f"diet history could not be built: {e}", "failed")
+        diet, why, *code = memo[mk]
+        if diet is None:
+            d.diet_status = code[0] if code else "no_diet"
+            d.diet_reason = why
+            continue
+        d.diet = diet
+        if id(diet) not in applies:
+            applies[id(diet)] = _per_diet_applies(diet, initial, separation)
+        d.per_diet = applies[id(diet)]
+
+
+def _fit_one(data, key, key_map, cands, options, warm=None):
     """One series: its SeriesResult, with a library error anywhere in it a failed row.
 
-    ``warm=(level, method)`` (parallel runs): the chosen fit's intervals are computed here,
-    in the worker that fitted it, and travel back cached on the fit, so the tables and the
-    report made afterwards in the main process find them ready.
+    ``warm=(level, method)`` (parallel runs): everything the tables and the report will ask
+    of this series is computed here, in the worker that fitted it — every candidate's row of
+    :meth:`FitSet.table` (the chosen one with ``method``'s intervals, the others with
+    asymptotic ones), the chosen fit's :meth:`~isoturnover.TurnoverFit.table` and summary —
+    and travels back cached on the fits, so the main process only assembles them.
     """
+    if data.error is not None:
+        return _all_failed(SeriesResult(key=key, nobs=0, group=data.group), cands,
+                           "failed", data.error)
     try:
-        res = _fit_series(sub, key, key_map, cands, **options)
+        res = _fit_series(data, key, key_map, cands, **options)
     except SERIES_ERRORS as e:
-        return _all_failed(SeriesResult(key=key, nobs=0), cands, "failed",
-                           f"series failed: {e}")
+        return _all_failed(SeriesResult(key=key, nobs=0, group=data.group), cands,
+                           "failed", f"series failed: {e}")
     if warm is not None and res.best is not None:
-        try:
-            res.best.table(*warm)
-        except SERIES_ERRORS:
-            pass  # the main process meets the same error where the table is made
+        warm_series(res, *warm)
     return res
 
 
-def _fit_one_in_worker(sub, key, key_map, cands, options, warm=None):
+def warm_series(res, level, method):
+    """Compute and cache on the fits of one series what the tables and the report show.
+
+    Every fitted candidate's row of :meth:`FitSet.table` (``method``'s intervals for the
+    chosen candidate, asymptotic ones for the others), and the chosen fit's
+    :meth:`~isoturnover.TurnoverFit.table` and :meth:`~isoturnover.TurnoverFit.summary`
+    at ``level`` and ``method``. A computation that raises one of :data:`SERIES_ERRORS` is
+    left for the caller, which meets the same error where it asks.
+
+    Parameters
+    ----------
+    res : SeriesResult
+        A series with its fits.
+    level : float
+        Confidence level in (0, 1).
+    method : str
+        Interval method of the chosen fit.
+    """
+    for label, f in res.fits.items():
+        if f is not None:
+            candidate_row(f, level, method if label == res.chosen else "asymptotic")
+    if res.best is not None:
+        for make in (res.best.table, res.best.summary):
+            try:
+                make(level, method)
+            except SERIES_ERRORS:
+                pass  # the main process meets the same error where it asks
+
+
+def _fit_one_in_worker(data, key, key_map, cands, options, warm=None):
     """:func:`_fit_one` in a worker process, with the warnings it issued as (message,
     category) pairs: a worker knows nothing of the caller's warning filters, so they are
     issued again in the main process."""
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("default")
-        res = _fit_one(sub, key, key_map, cands, options, warm=warm)
+        res = _fit_one(data, key, key_map, cands, options, warm=warm)
     return res, [(str(w.message), w.category) for w in caught]
 
 
@@ -663,44 +721,25 @@ def _progress(items, progress, desc, total=None):
     return tqdm(items, desc=desc, total=total)
 
 
-def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, separation,
-                initial, fixed, absolute_sigma, loss, growth_curve, average, time_unit):
-    res = SeriesResult(key=key)
-    # a canonical row order first, so that averaging (floating-point sums) and everything
-    # after it do not depend on the order of the input rows
-    order_cols = [c for c in ("subject", "time", "value", "sd", "replicate") if c in sub.columns]
-    sub = sub.sort_values(order_cols, kind="stable")
-    avg = average(sub).sort_values("time", kind="stable")
-    n = len(avg)
+def _fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation,
+                initial, fixed, absolute_sigma, loss, growth_curve, time_unit):
+    res = SeriesResult(key=key, group=data.group)
+    t, y, sd = data.t, data.y, data.sd
+    n = len(t)
     res.nobs = n
-    subjects = sorted(avg["subject"].astype(str).unique())
-    per_subject = avg.groupby(avg["subject"].astype(str))["time"].nunique()
-    if "subject" not in key_map and int(per_subject.max()) > 1 and avg["subject"].nunique() > 1:
+    subjects = sorted(set(data.subject.tolist()))
+    if "subject" not in key_map and len(subjects) > 1 and _repeated(data.subject, t):
         msg = ("several subjects sampled repeatedly in one series: add 'subject' to 'by' "
                "(destructive designs have one sampling time per animal)")
         return _all_failed(res, cands, "failed", msg)
-    diet = None
-    if diets is not None:
-        grp = None
-        if "group" in sub.columns:
-            g = sub["group"].dropna().astype(str).unique()
-            grp = g[0] if len(g) == 1 else None
-        try:
-            diet, why = _diet_for(diets, key_map, grp, str(sub["isotope"].iloc[0]))
-        except SERIES_ERRORS as e:
-            return _all_failed(res, cands, "failed", f"diet history could not be built: {e}")
-        if diet is None:
-            return _all_failed(res, cands, "no_diet", why)
+    diet = data.diet
+    if data.diet_status:
+        return _all_failed(res, cands, data.diet_status, data.diet_reason)
     growth = None
     if masses is not None:
-        growth, why = _growth_for(masses, avg, growth_curve)
+        growth, why = _growth_for(masses, data.subject, growth_curve)
         if growth is None:
             return _all_failed(res, cands, "failed", why)
-    t = avg["time"].to_numpy(dtype=float)
-    y = avg["value"].to_numpy(dtype=float)
-    sd = None
-    if "sd" in avg.columns and avg["sd"].notna().all():
-        sd = avg["sd"].to_numpy(dtype=float)
     # does any sample follow the switch? (before "no change": that is why there is none)
     # (a single diet has no switch: every candidate says so as "model not valid")
     switch = float(diet.switch_times[0]) if diet is not None and diet.n_diets > 1 else 0.0
@@ -713,7 +752,7 @@ def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, sepa
     ok_any = False
     # an optional (per-diet) variant only where the diets give it more separations, and
     # only where it can be chosen: valid with 'fixed', its criterion defined
-    if not _per_diet_applies(diet, initial, separation):
+    if not data.per_diet:
         cands = [c for c in cands if not c[4]]
     for label, structure, p, per_diet, optional in cands:
         model = TurnoverModel(p, structure=structure, lag=lag, diet=diet,
@@ -750,8 +789,8 @@ def _fit_series(sub, key, key_map, cands, *, diets, masses, criterion, lag, sepa
         # the fit was made on arrays: record where they came from (as a frame fit does)
         f.data_info.update({
             "source": "frame", "design": "destructive" if len(subjects) > 1 else "series",
-            "subjects": subjects, "tissue": str(sub["tissue"].iloc[0]),
-            "isotope": str(sub["isotope"].iloc[0]), "n_rows": int(len(sub)),
+            "subjects": subjects, "tissue": data.tissue, "isotope": data.isotope,
+            "n_rows": int(data.n_rows),
         })
         f.data_info.update({k: key_map.get(k) for k in _KEYS if k in key_map})
         res.fits[label] = f
@@ -841,12 +880,22 @@ def _all_failed(res, cands, status, reason):
     return res
 
 
-def _growth_for(masses, avg, curve):
+def _repeated(subject, t) -> bool:
+    """Whether some subject of a series was sampled at two or more distinct times."""
+    seen = {}
+    for s, ti in zip(subject.tolist(), t.tolist()):
+        first = seen.setdefault(s, ti)
+        if first != ti:
+            return True
+    return False
+
+
+def _growth_for(masses, subject, curve):
     """Growth curve for a series: the subject's masses, or all subjects' for a destructive
-    series."""
+    series (``subject``: the series' points' subjects, in time order)."""
     from .growthfit import fit_growth
 
-    subj = avg["subject"].astype(str).unique()
+    subj = pd.unique(subject)
     m = masses[masses["subject"].astype(str).isin(subj)]
     if len(m) == 0:
         return None, f"no masses for subject(s) {', '.join(subj[:5])}"
@@ -864,5 +913,7 @@ def _growth_for(masses, avg, curve):
         if issubclass(w.category, IsoturnoverWarning):
             text = f"growth curve of {who}: {text}"
         warnings.warn(text, w.category, stacklevel=2)
+    if g is not None:
+        g.mass_unit = masses.attrs.get("mass_unit")  # a label for figures and tables
     return (None, error) if g is None else (g, None)
 

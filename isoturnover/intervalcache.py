@@ -75,6 +75,28 @@ class IntervalCache:
             self._cache[key] = make()
         return self._cache[key]
 
+    def cached_frame(self, name, *args):
+        """A copy of the table ``getattr(self, name)(*args)``, computed once and kept.
+
+        For the interval tables that several views of one fit show (``conf_int``,
+        ``half_lives``, ``time_to``…): the first request builds the table, later ones copy
+        it (so a caller may change its copy).
+
+        Parameters
+        ----------
+        name : str
+            Name of a public method of the fit that returns a DataFrame.
+        *args
+            Its arguments (hashable: level, method…); the same arguments must always give
+            the same table.
+
+        Returns
+        -------
+        DataFrame
+            A copy of the kept table.
+        """
+        return self.cached(("frame", name, *args), lambda: getattr(self, name)(*args)).copy()
+
     def _forget(self, method):
         """Drop cached results made from the previous draws of ``method`` (new draws)."""
         self._cache = {k: v for k, v in self._cache.items() if method not in k}

@@ -125,7 +125,8 @@ class FitRecord:
                      "masses": [fl(mb.t), fl(mb.mass)] if getattr(mb, "kind", None)
                      == "masses" else None,
                      "block_scale": None if self.block_scale is None else
-                     list(self.block_scale)},
+                     list(self.block_scale),
+                     "fingerprint": self.data_fingerprint},
             "options": {"absolute_sigma": self.absolute_sigma, "loss": self.loss,
                         "f_scale": self.f_scale, "fixed": self.fixed, "init": self.init,
                         "label": self.label, "tied": self.tied,
@@ -133,6 +134,7 @@ class FitRecord:
                                        float(b) if np.isfinite(b) else None]
                                    for k, (a, b) in self.bounds.items()}},
             "solution": {"z": fl(sol.z), "theta": fl(self.state.theta),
+                         "param_names": list(self.model.kinetics.param_names),
                          "jac_z": None if sol.jac_z is None else
                          np.asarray(sol.jac_z).tolist(),
                          "status": sol.status, "nfev": self.nfev,

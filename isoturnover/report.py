@@ -6,6 +6,13 @@ PNG files by relative path (they are not embedded), so the two stay small, show 
 images, and the figures can go into a manuscript as they are; move the folder together with
 the documents.
 
+Each figure is drawn once. With many figures (eight or more) they are drawn in up to two
+worker processes (joblib's loky executor; ``n_jobs`` sets the number) while this process
+builds the text; each worker gets the fit pickled and draws it exactly as this process would
+(same code, the caller's changed ``rcParams``), so the PNG files do not depend on the number
+of workers. The study's overview figure (:func:`isoturnover.plotstudy.plot_study`) opens the
+report; notes that hold word for word for every series are shown once at the top.
+
 Writing is all or nothing: the text and the figures are built in memory first, then written
 to temporary names in the destination folder and moved into place with :func:`os.replace`.
 If anything fails, the temporary files are removed and files that were being replaced are
@@ -16,27 +23,34 @@ restored, so no partial report is left behind. Existing files are never replaced
 from __future__ import annotations
 
 import datetime
-import html
-import io
 import math
 import os
 import re
-import shutil
 import tempfile
 from collections.abc import Mapping
 from pathlib import Path
 from urllib.parse import quote
 
+from .conventions import CAUTION
 from .errors import DataError
+from .reportdoc import (
+    Doc,
+    commit_files,
+    fmt_bound,
+    fmt_interval,
+    fmt_number,
+    fmt_text,
+    pct_text,
+    remove_path,
+    render_html,
+    render_markdown,
+    slug,
+    temp_file,
+)
+from .reportfigures import FigureJobs, figure_workers, render_figures
 
 __all__ = ["write_report", "CAUTION", "POOL_STATEMENT"]
 
-#: Caution printed in every report.
-CAUTION = (
-    "Animal experiments and field sampling need the approval of the local animal-care "
-    "authority (for human samples: a human-research ethics board). These results support "
-    "that process and do not replace it."
-)
 
 #: Statement on the meaning of pool fractions printed in every report.
 POOL_STATEMENT = (
@@ -44,188 +58,7 @@ POOL_STATEMENT = (
     "of the tissue."
 )
 
-_DPI = 200
 _CRIT = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}
-
-
-# ----------------------------------------------------------------------------------------
-# a tiny document model rendered to Markdown and to HTML
-# ----------------------------------------------------------------------------------------
-class _Doc:
-    """Blocks: ("h", level, text), ("p", segments), ("table", header, rows),
-    ("ol", items), ("ul", items), ("img", url, alt, caption).
-
-    Text is plain (escaped on rendering); a paragraph is a list of segments, each a plain
-    string or a tuple ("em" | "strong", text).
-    """
-
-    def __init__(self):
-        self.blocks = []
-
-    def h(self, level, text):
-        self.blocks.append(("h", level, str(text)))
-
-    def p(self, *segments):
-        self.blocks.append(("p", list(segments)))
-
-    def table(self, header, rows):
-        self.blocks.append(("table", [str(h) for h in header],
-                            [[str(c) for c in r] for r in rows]))
-
-    def ol(self, items):
-        self.blocks.append(("ol", [str(i) for i in items]))
-
-    def ul(self, items):
-        self.blocks.append(("ul", items))
-
-    def img(self, url, alt, caption):
-        self.blocks.append(("img", url, str(alt), str(caption)))
-
-
-_MD_SPECIAL = re.compile(r"([\\`*_\[\]<>|#])")
-
-
-def _md(text):
-    """Escape Markdown's active characters (CommonMark backslash escapes) in plain text."""
-    return _MD_SPECIAL.sub(r"\\\1", str(text)).replace("\n", " ")
-
-
-def _md_segments(segs):
-    out = []
-    for s in segs:
-        if isinstance(s, tuple):
-            kind, txt = s
-            mark = "*" if kind == "em" else "**"
-            out.append(f"{mark}{_md(txt)}{mark}")
-        else:
-            out.append(_md(s))
-    return "".join(out)
-
-
-def _html_segments(segs):
-    out = []
-    for s in segs:
-        if isinstance(s, tuple):
-            kind, txt = s
-            out.append(f"<{kind}>{html.escape(txt)}</{kind}>")
-        else:
-            out.append(html.escape(s))
-    return "".join(out)
-
-
-def _item_segments(item):
-    return item if isinstance(item, list) else [item]
-
-
-def _render_md(doc):
-    out = []
-    for b in doc.blocks:
-        kind = b[0]
-        if kind == "h":
-            out.append("#" * b[1] + " " + _md(b[2]))
-        elif kind == "p":
-            out.append(_md_segments(b[1]))
-        elif kind == "table":
-            header, rows = b[1], b[2]
-            lines = ["| " + " | ".join(_md(h) for h in header) + " |",
-                     "|" + "|".join("---" for _ in header) + "|"]
-            lines += ["| " + " | ".join(_md(c) for c in r) + " |" for r in rows]
-            out.append("\n".join(lines))
-        elif kind == "ol":
-            out.append("\n".join(f"{i + 1}. {_md(t)}" for i, t in enumerate(b[1])))
-        elif kind == "ul":
-            out.append("\n".join(f"- {_md_segments(_item_segments(t))}" for t in b[1]))
-        elif kind == "img":
-            out.append(f"![{_md(b[2])}]({b[1]})\n\n{_md(b[3])}")
-    return "\n\n".join(out) + "\n"
-
-
-_CSS = (
-    "body{font-family:Helvetica,Arial,sans-serif;max-width:60em;margin:2em auto;"
-    "padding:0 1em;line-height:1.45;color:#111}"
-    "table{border-collapse:collapse;margin:0.6em 0 1.2em 0;font-size:0.9em}"
-    "th,td{border:1px solid #bbb;padding:0.25em 0.5em;text-align:left;vertical-align:top}"
-    "th{background:#f0f0f0}figure{margin:1em 0}img{max-width:100%}"
-    "figcaption{font-size:0.9em;color:#333}.caution{border-left:4px solid #D55E00;"
-    "padding:0.4em 0.8em;background:#fff6ef}"
-)
-
-
-def _render_html(doc, title):
-    e = html.escape
-    out = ["<!DOCTYPE html>", "<html lang=\"en\">", "<head>", "<meta charset=\"utf-8\">",
-           f"<title>{e(title)}</title>", f"<style>{_CSS}</style>", "</head>", "<body>"]
-    for b in doc.blocks:
-        kind = b[0]
-        if kind == "h":
-            lv = min(max(int(b[1]), 1), 6)
-            out.append(f"<h{lv}>{e(b[2])}</h{lv}>")
-        elif kind == "p":
-            segs = b[1]
-            cls = " class=\"caution\"" if segs and segs[0] == ("strong", "Caution.") else ""
-            out.append(f"<p{cls}>{_html_segments(segs)}</p>")
-        elif kind == "table":
-            header, rows = b[1], b[2]
-            out.append("<table><thead><tr>" + "".join(f"<th>{e(h)}</th>" for h in header)
-                       + "</tr></thead><tbody>")
-            out += ["<tr>" + "".join(f"<td>{e(c)}</td>" for c in r) + "</tr>" for r in rows]
-            out.append("</tbody></table>")
-        elif kind == "ol":
-            out.append("<ol>" + "".join(f"<li>{e(t)}</li>" for t in b[1]) + "</ol>")
-        elif kind == "ul":
-            out.append("<ul>" + "".join(f"<li>{_html_segments(_item_segments(t))}</li>"
-                                        for t in b[1]) + "</ul>")
-        elif kind == "img":
-            out.append(f"<figure><img src=\"{e(b[1])}\" alt=\"{e(b[2])}\">"
-                       f"<figcaption>{e(b[3])}</figcaption></figure>")
-    out += ["</body>", "</html>"]
-    return "\n".join(out) + "\n"
-
-
-# ----------------------------------------------------------------------------------------
-# formatting of numbers and interval bounds
-# ----------------------------------------------------------------------------------------
-def _fmt(x, digits=4):
-    try:
-        x = float(x)
-    except (TypeError, ValueError):
-        return "—"
-    if not math.isfinite(x):
-        return "—"
-    return f"{x:.{digits}g}"
-
-
-def _bound(x, status):
-    """An interval bound as text: a number only when its status is 'ok' (or 'at_bound')."""
-    status = str(status)
-    if status == "open":
-        return "open"
-    if status == "failed":
-        return "failed"
-    if status == "fixed":
-        return "fixed"
-    if status == "not_available":
-        return "n/a"
-    if status == "at_bound":
-        return f"{_fmt(x)} (at bound)"
-    if status == "ok":
-        return _fmt(x)
-    return status
-
-
-def _text(x):
-    """A table cell from a possibly missing value (NaN or None become an empty cell)."""
-    if x is None or (isinstance(x, float) and math.isnan(x)):
-        return ""
-    return str(x)
-
-
-def _interval(lo, hi, ls, hs):
-    return f"[{_bound(lo, ls)}, {_bound(hi, hs)}]"
-
-
-def _pct(level):
-    return f"{level * 100:g} %"
 
 
 # ----------------------------------------------------------------------------------------
@@ -234,9 +67,11 @@ def _pct(level):
 class _Series:
     """One row of the report: a fitted series or one that could not be fitted."""
 
-    def __init__(self, name, key=None, fit=None, result=None, status="ok", reason=""):
+    def __init__(self, name, key=None, fit=None, result=None, status="ok", reason="",
+                 raw=None):
         self.name = name
         self.key = key
+        self.raw = name if raw is None else raw  # the series' key as the caller gave it
         self.fit = fit
         self.result = result  # groups.SeriesResult or None
         self.status = status
@@ -252,7 +87,7 @@ def _collect(fits):
         for key, r in fits.items():
             name = " / ".join(map(str, key))
             out.append(_Series(name, key=dict(zip(fits.by, key)), fit=r.best, result=r,
-                               status=r.status, reason=r.reason))
+                               status=r.status, reason=r.reason, raw=key))
         return out, fits
     if isinstance(fits, TurnoverFit):
         fits = [fits]
@@ -276,7 +111,7 @@ def _collect(fits):
         if name in seen:
             name = f"{name} ({i + 1})"
         seen.add(name)
-        out.append(_Series(name, fit=f))
+        out.append(_Series(name, fit=f, raw=k))
     return out, None
 
 
@@ -338,7 +173,8 @@ def _experiment(doc, series, fitset, unit_word):
                     cands.append(lab)
         crit = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}.get(fitset.criterion,
                                                                fitset.criterion)
-        items.append(f"Candidate models: {', '.join(cands)}; one chosen per series by {crit}")
+        items.append("Candidate models: " + ", ".join(f"“{c}”" for c in cands)
+                     + f"; one chosen per series by {crit}")
     doc.h(2, "Experiment")
     doc.ul(items)
 
@@ -351,57 +187,157 @@ def _weight_of(s, crit_col="weight"):
     return float(row[crit_col].iloc[0]) if len(row) else None
 
 
-def _half_life_text(hl, structure="parallel"):
+def _half_life_text(hl, structure="parallel", mark_profile=False):
     what = "step" if structure == "chain" else "pool"
     parts = []
     for _, h in hl.iterrows():
-        txt = (f"{_fmt(h['half_life'])} "
-               f"{_interval(h['lower'], h['upper'], h['lower_status'], h['upper_status'])}")
+        txt = (f"{fmt_number(h['half_life'])} "
+               f"{fmt_interval(h['lower'], h['upper'], h['lower_status'], h['upper_status'])}")
+        if mark_profile and h.get("source") != "bootstrap":
+            txt += " (profile: no bootstrap interval)"
         if len(hl) > 1:
             frac = h["fraction"]
-            ftxt = f" (f = {_fmt(frac, 3)})" if isinstance(frac, float) and math.isfinite(
+            ftxt = f" (f = {fmt_number(frac, 3)})" if isinstance(frac, float) and math.isfinite(
                 frac) else ""
             txt = f"{what} {int(h['pool'])}{ftxt}: {txt}"
         parts.append(txt)
     return "; ".join(parts)
 
 
-def _summary_table(doc, series, fitset, level, unit_word, summaries):
-    crit = "AICc" if fitset is None else {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}.get(
-        fitset.criterion, fitset.criterion)
+def _boot_half_lives(hl, boot):
+    """The half-life rows with the bootstrap bounds of ``boot`` (pools without one keep
+    theirs and are marked)."""
+    hl = hl.copy()
+    hl["source"] = "profile/asymptotic"
+    if boot is None:
+        return hl
+    bi = boot.set_index(boot["parameter"].astype(str))
+    for i, h in hl.iterrows():
+        q = f"half_life_{int(h['pool'])}"
+        if q in bi.index:
+            b = bi.loc[q]
+            hl.loc[i, ["lower", "upper"]] = [float(b["lower"]), float(b["upper"])]
+            hl.loc[i, ["lower_status", "upper_status"]] = [str(b["lower_status"]),
+                                                           str(b["upper_status"])]
+            hl.loc[i, "source"] = "bootstrap"
+    return hl
+
+
+def _units_in_order(series):
+    units = []
+    for s in series:
+        if s.fit is not None and s.fit.time_unit not in units:
+            units.append(s.fit.time_unit)
+    return units
+
+
+def _summary_table(doc, series, fitset, level, summaries, half_lives, notes, interval_word):
+    """The summary: one table per time unit (a column never mixes days with hours)."""
     from .conventions import unit_word as _unit_word
 
-    mixed = "," in unit_word  # several time units: each cell names its own
-    hl_head = (f"Half-life [{_pct(level)} interval]" if mixed
-               else f"Half-life ({unit_word}) [{_pct(level)} interval]")
-    header = ["Series", "Chosen model", "n", hl_head, f"{crit} weight", "Notes"]
-    rows = []
-    for s in series:
-        if s.fit is None:
-            rows.append([s.name, f"not fitted ({s.status})", "—", "—", "—", "—"])
-            continue
-        sm = summaries[s.name]
-        w = _weight_of(s)
-        model = s.fit.model.describe()
-        hl = _half_life_text(sm.half_lives, s.fit.kinetics.structure)
-        if mixed:
-            hl += f" {_unit_word(s.fit.time_unit)}"
-        rows.append([s.name, model, str(s.fit.nobs), hl,
-                     "—" if w is None else f"{w:.3f}", str(len(sm.notes))])
+    crit = "AICc" if fitset is None else _CRIT.get(fitset.criterion, str(fitset.criterion))
+    units = _units_in_order(series)
     doc.h(2, "Summary")
-    doc.table(header, rows)
+    if len(units) > 1:
+        doc.p("The series were timed in different units ("
+              + ", ".join(_unit_word(u) for u in units) + "): each unit has its own table "
+              "below, and no time was converted.")
+    for u in units:
+        word = _unit_word(u)
+        if len(units) > 1:
+            doc.h(3, f"Series timed in {word}")
+        header = ["Series", "Chosen model", "n (time points)",
+                  f"Half-life ({word}) [{pct_text(level)} {interval_word} interval]",
+                  f"{crit} weight (0–1)", "Notes (own + shared)"]
+        rows = []
+        for s in series:
+            if s.fit is None or s.fit.time_unit != u:
+                continue
+            w = _weight_of(s)
+            hl = _half_life_text(half_lives[s.name], s.fit.kinetics.structure,
+                                 mark_profile=interval_word == "bootstrap")
+            rows.append([s.name, s.fit.model.describe(), str(s.fit.nobs), hl,
+                         "—" if w is None else f"{w:.3f}", _note_count(*notes[s.name])])
+        doc.table(header, rows)
+    bad = [s for s in series if s.fit is None]
+    if bad:
+        doc.h(3, "Not fitted")
+        doc.table(["Series", "Status"], [[s.name, f"not fitted ({s.status})"] for s in bad])
     doc.p("Interval bounds the data do not close are shown as “open” (the profile never "
           "rises to the critical value within the parameter's range); “failed” means the "
           "interval could not be computed; “(at bound)” marks a bound at the edge of the "
           "parameter's range. With several pools the fraction f of each pool is given. "
+          "n counts the time points fitted. "
           + ("The weight is the chosen candidate's weight among the series' candidates."
              if fitset is not None else
              "Each fit was given on its own, so there is no weight (—); use "
              "isoturnover.fit_each to compare candidate models."))
 
 
-def _series_section(doc, idx, s, sm, level, method, figure_entries, crit):
+def _note_count(own, shared):
+    return str(own) if not shared else f"{own} + {shared}"
+
+
+def _common_notes(series, notes):
+    """Notes word for word the same in every fitted series (at least two), in order."""
+    fitted = [s for s in series if s.fit is not None]
+    if len(fitted) < 2:
+        return []
+    first = notes[fitted[0].name]
+    return [n for n in first if all(n in notes[s.name] for s in fitted[1:])]
+
+
+def _shared_notes(series, notes, common):
+    """Notes word for word the same in two or more fitted series but not in all: note ->
+    numbers of the series (as numbered in the report), in order of first appearance."""
+    shared = {}
+    idx = 0
+    for s in series:
+        if s.fit is None:
+            continue
+        idx += 1
+        for n in notes[s.name]:
+            if n not in common:
+                shared.setdefault(n, []).append(idx)
+    return {n: i for n, i in shared.items() if len(i) >= 2}
+
+
+def _ranges(numbers):
+    """``[1, 2, 3, 5]`` → ``"1–3, 5"``."""
+    out, start, prev = [], None, None
+    for k in list(numbers) + [None]:
+        if start is not None and (k is None or k != prev + 1):
+            out.append(str(start) if start == prev else f"{start}–{prev}")
+            start = None
+        if k is not None and start is None:
+            start = k
+        prev = k
+    return ", ".join(out)
+
+
+def _y_unit(tab):
+    """The unit of the isotope values of a fit's table (that of its first level)."""
+    for name in ("delta0", "delta_eq", "plateau_1", "discrimination"):
+        row = tab[tab["quantity"].astype(str) == name]
+        if len(row) and isinstance(row["unit"].iloc[0], str) and row["unit"].iloc[0]:
+            return row["unit"].iloc[0]
+    return "‰"
+
+
+def _rss_header(fit, y_unit):
+    """The unit of a fit's residual sum of squares (the objective the candidates minimised)."""
+    if getattr(fit, "joint", False):
+        return "RSS (all blocks, weighted; no unit)"
+    if getattr(fit, "sigma", None) is None:
+        return f"RSS ({y_unit}²)"
+    return "RSS (weighted by 1/σ²; no unit)"
+
+
+def _series_section(doc, idx, s, sm, level, method, figure_entries, crit, notes=None,
+                    boot=None, shared=()):
     f = s.fit
+    tab = f.table(level, "asymptotic" if method == "asymptotic" else "profile")
+    y_unit = _y_unit(tab)
     doc.h(2, f"Series {idx}: {s.name}")
     r = s.result
     chosen = r.chosen if r is not None else None
@@ -417,31 +353,33 @@ def _series_section(doc, idx, s, sm, level, method, figure_entries, crit):
             row = cmp[cmp["label"].astype(str) == str(lab)]
             if len(row):
                 c = row.iloc[0]
-                rows.append([lab, str(int(c["n_params"])), _fmt(c["rss"]), _fmt(c["aicc"], 5),
-                             _fmt(c["delta_aicc"], 3), f"{float(c['weight']):.3f}",
+                rows.append([lab, str(int(c["n_params"])), fmt_number(c["rss"]),
+                             fmt_number(c["aicc"], 5),
+                             fmt_number(c["delta_aicc"], 3), f"{float(c['weight']):.3f}",
                              "chosen" if lab == r.chosen else "fitted"])
             else:
                 rows.append([lab, "—", "—", "—", "—", "—", f"not fitted: {r.reasons[lab]}"])
-        doc.table(["Candidate", "k", "RSS", "AICc", f"Δ{crit}", "Weight", "Status"], rows)
+        doc.table(["Candidate", "k (parameters)", _rss_header(f, y_unit), "AICc", f"Δ{crit}",
+                   "Weight (0–1)", "Status"], rows)
         doc.p("k counts the free parameters and the residual variance when it is estimated "
               f"(the k of AICc); Δ{crit} is the difference from the lowest {crit}; weights "
               "w = exp(−Δ/2) / Σ exp(−Δ/2) (Burnham & Anderson 2002).")
     else:
         doc.p("One model was given for this series; no candidates were compared.")
     # parameters and derived quantities
-    tab = f.table(level, method)
     par = tab[tab["kind"] == "parameter"]
     der = tab[tab["kind"] == "derived"]
-    doc.h(3, f"Parameters ({_pct(level)} intervals)")
+    doc.h(3, f"Parameters ({pct_text(level)} intervals)")
     rows = []
     for _, q in par.iterrows():
         if q["method"] == "fixed":
-            rows.append([q["quantity"], _fmt(q["estimate"]), "fixed", "fixed", "fixed",
-                         "fixed", _text(q["unit"])])
+            rows.append([q["quantity"], fmt_number(q["estimate"]), "fixed", "fixed", "fixed",
+                         "fixed", fmt_text(q["unit"])])
             continue
-        rows.append([q["quantity"], _fmt(q["estimate"]), _fmt(q["stderr"]),
-                     _bound(q["lower"], q["lower_status"]), _bound(q["upper"], q["upper_status"]),
-                     q["method"], _text(q["unit"])])
+        rows.append([q["quantity"], fmt_number(q["estimate"]), fmt_number(q["stderr"]),
+                     fmt_bound(q["lower"], q["lower_status"]),
+                     fmt_bound(q["upper"], q["upper_status"]),
+                     q["method"], fmt_text(q["unit"])])
     doc.table(["Parameter", "Estimate", "SE", "Lower", "Upper", "Method", "Unit"], rows)
     doc.h(3, "Derived quantities")
     names = {"time_to_95": "time to 95 % of a step change",
@@ -458,19 +396,51 @@ def _series_section(doc, idx, s, sm, level, method, figure_entries, crit):
         else:
             label = names.get(nm, nm)
         if q["method"] == "not_available":
-            rows.append([label, _fmt(q["estimate"]), "no interval", "no interval", "—",
-                         _text(q["unit"])])
+            rows.append([label, fmt_number(q["estimate"]), "no interval", "no interval", "—",
+                         fmt_text(q["unit"])])
             continue
-        rows.append([label, _fmt(q["estimate"]), _bound(q["lower"], q["lower_status"]),
-                     _bound(q["upper"], q["upper_status"]), q["method"], _text(q["unit"])])
+        rows.append([label, fmt_number(q["estimate"]), fmt_bound(q["lower"], q["lower_status"]),
+                     fmt_bound(q["upper"], q["upper_status"]), q["method"], fmt_text(q["unit"])])
     doc.table(["Quantity", "Estimate", "Lower", "Upper", "Method", "Unit"], rows)
+    if method == "bootstrap":
+        _bootstrap_section(doc, boot, tab, level)
     doc.h(3, "Notes")
-    if sm.notes:
-        doc.ol(sm.notes)
+    own = sm.notes if notes is None else notes
+    if own:
+        doc.ol(own)
+    elif notes is not None and len(notes) < len(sm.notes):
+        doc.p("No notes of this series' own; see the notes at the top.")
     else:
         doc.p("No notes.")
+    if shared:
+        doc.p(f"Also the shared note{'s' if len(shared) > 1 else ''} "
+              f"{', '.join(shared)} (under “Notes shared by several series” at the top).")
     for url, alt, caption in figure_entries:
         doc.img(url, alt, caption)
+
+
+def _bootstrap_section(doc, boot, tab, level):
+    doc.h(3, f"Bootstrap intervals ({pct_text(level)}, residual bootstrap, percentile)")
+    if boot is None:
+        doc.p("No bootstrap intervals for this series; the profile intervals above stand.")
+        return
+    units = dict(zip(tab["quantity"].astype(str), tab["unit"]))
+    rows = []
+    for _, q in boot.iterrows():
+        nm = str(q["parameter"])
+        if str(q.get("method", "")) == "fixed":
+            continue
+        rows.append([nm, fmt_number(q["estimate"]), fmt_number(q.get("stderr")),
+                     fmt_bound(q["lower"], q["lower_status"]),
+                     fmt_bound(q["upper"], q["upper_status"]), fmt_text(units.get(nm))])
+    doc.table(["Quantity", "Estimate", "Bootstrap SE", "Lower", "Upper", "Unit"], rows)
+    a = boot.attrs
+    used, failed = a.get("n_used"), a.get("n_failed")
+    doc.p(f"Replicates: {a.get('n_boot', '—')} drawn"
+          + (f", {used} used" if used is not None else "")
+          + (f", {failed} failed (left out)" if failed is not None else "")
+          + ". The bootstrap SE is the standard deviation of the replicates' values, in the "
+          "quantity's unit.")
 
 
 def _not_fitted(doc, series):
@@ -483,7 +453,7 @@ def _not_fitted(doc, series):
                                                for s in bad])
 
 
-def _methods(doc, level, method, any_growth, any_per_diet=False):
+def _methods(doc, level, method, any_growth, any_per_diet=False, n_boot=None):
     doc.h(2, "Methods")
     doc.p("Each series was fitted by least squares with the analytic Jacobian of the model "
           "(rates on the log scale with the pools ordered by construction, pool fractions by "
@@ -492,9 +462,21 @@ def _methods(doc, level, method, any_growth, any_per_diet=False):
           "known. Studentized residuals and Cook's distance (Cook 1977, Technometrics "
           "19:15–18) flag suspect points, which are kept in the fit and marked in the "
           "figures.")
-    used = ("profile likelihood (asymptotic for robust fits)" if method == "profile"
-            else "asymptotic: from the covariance matrix, on the log scale for rates")
-    doc.p(f"Intervals ({_pct(level)}) here: {used}. Profile likelihood intervals (Venzon & "
+    used = {"profile": "profile likelihood (asymptotic for robust fits)",
+            "asymptotic": "asymptotic: from the covariance matrix, on the log scale for rates",
+            "bootstrap": "residual bootstrap percentile intervals for the half-lives in the "
+                         "summary, the overview figure and each series' bootstrap table; the "
+                         "parameter and derived-quantity tables keep their profile "
+                         "likelihood intervals"}[method]
+    if method == "bootstrap":
+        doc.p("Bootstrap: each series' fitted curve plus its residuals drawn with replacement "
+              f"gave {n_boot if n_boot else 'the stated number of'} replicate data sets, each "
+              "refitted; the interval holds the central "
+              f"{pct_text(level)} of the replicates' values (percentile interval; Efron & "
+              "Tibshirani 1993, An Introduction to the Bootstrap, Chapman & Hall, §13.3). "
+              "A bound that falls on replicates that ran to the edge of the parameter space "
+              "is reported as open.")
+    doc.p(f"Intervals ({pct_text(level)}) here: {used}. Profile likelihood intervals (Venzon & "
           "Moolgavkar 1988, Appl. Stat. 37:87–94) hold the values of a parameter whose "
           "residual sum of squares, minimised over all other parameters, stays within the "
           "F(1, n − p) critical value (Δχ² against χ²(1) when σ is known). Half-life bounds "
@@ -532,98 +514,113 @@ def _methods(doc, level, method, any_growth, any_per_diet=False):
 
 
 # ----------------------------------------------------------------------------------------
-# files: atomic, all-or-nothing
+# bootstrap intervals
 # ----------------------------------------------------------------------------------------
-def _move(src, dst):
-    """Rename ``src`` to ``dst`` in the same folder (atomic on POSIX and Windows)."""
-    os.replace(src, dst)
+def _series_seed(seed, name):
+    """Seed of one series' bootstrap: the run's seed and the series' name (SHA-256)."""
+    import hashlib
+
+    import numpy as np
+
+    if seed is None:
+        return None
+    digest = hashlib.sha256(str(name).encode("utf-8")).digest()
+    words = [int.from_bytes(digest[i:i + 4], "little") for i in range(0, 16, 4)]
+    return np.random.SeedSequence([int(seed), *words])
 
 
-def _remove(p):
-    p = Path(p)
-    if p.is_dir() and not p.is_symlink():
-        shutil.rmtree(p, ignore_errors=True)
+def _bootstrap_tables(series, bootstrap, method, level, n_boot, seed, workers):
+    """Series name -> bootstrap interval table (given, or computed here)."""
+    import pandas as pd
+
+    if bootstrap is None:
+        given = {}
+    elif not isinstance(bootstrap, Mapping):
+        raise DataError("'bootstrap' must be a dict series key -> bootstrap interval table "
+                        f"(DataFrame); got {type(bootstrap).__name__}")
     else:
-        try:
-            p.unlink()
-        except FileNotFoundError:
-            pass
+        given = dict(bootstrap)
+    if given and method != "bootstrap":
+        raise DataError(f"'bootstrap' tables are shown only with method='bootstrap'; got "
+                        f"method={method!r}")
+    if method != "bootstrap":
+        return {}
+    need = ("parameter", "lower", "upper", "lower_status", "upper_status")
+    by_key = {}
+    for s in series:
+        by_key[s.raw] = s
+        by_key.setdefault(s.name, s)
+    out = {}
+    for k, tab in given.items():
+        s = by_key.get(k)
+        if s is None:
+            raise DataError(f"'bootstrap' key {k!r} names no series of 'fits'")
+        if not isinstance(tab, pd.DataFrame) or any(c not in tab.columns for c in need):
+            raise DataError(f"'bootstrap' key {k!r}: expected a DataFrame with columns "
+                            f"{', '.join(need)} (BootstrapResult.intervals); got "
+                            f"{type(tab).__name__}")
+        out[s.name] = tab
+    from .resampling import bootstrap as _bootstrap
+
+    for s in series:
+        if s.fit is None or s.name in out:
+            continue
+        res = _bootstrap(s.fit, n=n_boot, kind="residual", rng=_series_seed(seed, s.name),
+                         n_jobs=workers, progress=False)
+        out[s.name] = res.intervals(level, method="percentile")
+    return out
 
 
-def _tmp_file(folder, name, data):
-    fd, tmp = tempfile.mkstemp(dir=folder, prefix=f".{name}.", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-        os.chmod(tmp, 0o644)
-    except BaseException:
-        _remove(tmp)
-        raise
-    return Path(tmp)
+# ----------------------------------------------------------------------------------------
+# the overview figure's table
+# ----------------------------------------------------------------------------------------
+def _group_and_label(s):
+    """(group, row label) of a series in the overview figure."""
+    if s.key:
+        parts = [(k, str(v)) for k, v in s.key.items()]
+    else:
+        info = s.fit.data_info if s.fit is not None else {}
+        parts = [(k, str(info[k])) for k in ("tissue", "isotope") if info.get(k)]
+    subject = next((v for k, v in parts if k == "subject"), None)
+    rest = [v for k, v in parts if k != "subject"]
+    if s.key and subject is None and rest:  # no subject key: the last key names the row
+        label, rest = rest[-1], rest[:-1]
+    else:
+        label = subject if subject is not None else s.name
+    # a component written out in another (the isotope in a part named "goats d13C") goes
+    kept = [v for i, v in enumerate(rest)
+            if not any(i != j and v != w and re.search(rf"(?<!\w){re.escape(v)}(?!\w)", w)
+                       for j, w in enumerate(rest))]
+    return (" / ".join(dict.fromkeys(kept)) or "all series"), label
 
 
-def _commit(plan, folder, overwrite):
-    """Move temporaries into place. ``plan``: list of (tmp or None, target).
+def _study_table(series, half_lives):
+    import pandas as pd
 
-    An existing target is first renamed to a backup; on any failure every target placed so
-    far is removed, backups are restored and temporaries deleted, then the error re-raised.
-    (A backup that cannot be moved back is left in its hidden ``.bak`` folder rather than
-    deleted: the user's old file is never lost.)
-    """
-    placed, backups = [], []  # backups: [backup folder, item in it, target, moved?]
-    try:
-        for tmp, target in plan:
-            if target.exists() or target.is_symlink():
-                if not overwrite:  # appeared while the report was being built
-                    raise FileExistsError(f"write_report: {str(target)!r} appeared while the "
-                                          "report was written; nothing was replaced")
-                bak = Path(tempfile.mkdtemp(dir=folder, prefix=f".{target.name}.", suffix=".bak"))
-                entry = [bak, bak / target.name, target, False]
-                backups.append(entry)
-                _move(target, entry[1])
-                entry[3] = True
-            if tmp is not None:
-                _move(tmp, target)
-                placed.append(target)
-    except BaseException:
-        for target in reversed(placed):
-            _remove(target)
-        for bak, item, target, moved in reversed(backups):
-            try:
-                if moved:
-                    _move(item, target)
-            except OSError:  # pragma: no cover - keep the old file where it is, never lose it
-                continue
-            _remove(bak)
-        for tmp, _ in plan:
-            if tmp is not None:
-                _remove(tmp)
-        raise
-    for bak, _, _, _ in backups:
-        _remove(bak)
-
-
-def _slug(text):
-    s = re.sub(r"[^A-Za-z0-9._-]+", "_", str(text)).strip("._")
-    return (s or "series")[:60]
-
-
-def _render_figure(fig):
-    import matplotlib.pyplot as plt
-
-    try:
-        buf = io.BytesIO()
-        fig.savefig(buf, format="png", dpi=_DPI)
-        return buf.getvalue()
-    finally:
-        plt.close(fig)
+    rows = []
+    for s in series:
+        if s.fit is None:
+            continue
+        group, label = _group_and_label(s)
+        for _, h in half_lives[s.name].iterrows():
+            rows.append({"group": group, "label": label, "pool": int(h["pool"]),
+                         "half_life": h["half_life"], "lower": h["lower"],
+                         "upper": h["upper"], "lower_status": h["lower_status"],
+                         "upper_status": h["upper_status"], "time_unit": s.fit.time_unit})
+    tab = pd.DataFrame(rows)
+    if tab.empty:
+        return tab
+    # groups together, in the order they first appear
+    order = {g: i for i, g in enumerate(dict.fromkeys(tab["group"]))}
+    return tab.sort_values("group", key=lambda c: c.map(order), kind="stable")
 
 
 # ----------------------------------------------------------------------------------------
 # entry point
 # ----------------------------------------------------------------------------------------
 def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="profile",
-                 figures=True, overwrite=False):
+                 figures=True, overwrite=False, bootstrap=None, n_boot=499, seed=1,
+                 n_jobs=None):
     """Write a Markdown and an HTML report of a set of fits, with PNG figures.
 
     Parameters
@@ -641,16 +638,36 @@ def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="p
         Title of both documents (non-empty).
     level : float, default=0.95
         Confidence level in (0, 1) of every interval and band.
-    method : {"profile", "asymptotic"}, default="profile"
-        Interval method (profile likelihood; robust fits always use asymptotic intervals).
+    method : {"profile", "asymptotic", "bootstrap"}, default="profile"
+        Interval method. "profile": profile likelihood (robust fits always use asymptotic
+        intervals); "asymptotic": from the covariance matrix; "bootstrap": the half-lives in
+        the summary and the overview figure carry residual-bootstrap percentile intervals
+        (``bootstrap`` tables, or computed here), each series gets a table of its bootstrap
+        intervals, and the parameter tables keep their profile intervals.
     figures : bool, default=True
-        Draw one overview figure per fitted series (fit with confidence band, studentized
-        residuals, reaction progress), the growth curve where one was fitted, and the
-        candidates' weights of a FitSet. The HTML references the same PNG files as the
-        Markdown (no embedding).
+        Draw the overview of the study (half-lives with intervals of every series), one
+        figure per fitted series (fit with confidence band, studentized residuals, reaction
+        progress), the growth curve where one was fitted, and the candidates' weights of a
+        FitSet. The HTML references the same PNG files as the Markdown (no embedding).
     overwrite : bool, default=False
         Replace an existing report at this path (the ``.md``, the ``.html`` and the whole
         ``<stem>_figures/`` folder, which must then hold only ``.png`` files).
+    bootstrap : dict, optional
+        With ``method="bootstrap"``: series -> its bootstrap interval table (the DataFrame
+        of :meth:`BootstrapResult.intervals <isoturnover.uncertainty.BootstrapResult.intervals>`,
+        columns parameter, lower, upper, lower_status, upper_status; half-lives as
+        ``half_life_<i>``, in the series' time unit). A series is named by its key in
+        ``fits`` (the key tuple of a FitSet, a dict's key) or by its name in the report.
+        Series without a table are bootstrapped here.
+    n_boot : int, default=499
+        Residual-bootstrap replicates of a series bootstrapped here.
+    seed : int or None, default=1
+        Seed of those replicates; each series draws from a seed made of this one and the
+        series' name, so its interval does not depend on the other series.
+    n_jobs : int or None, default=None
+        Worker processes drawing the figures (joblib, loky backend) and running bootstrap
+        refits: None for up to two when there are eight figures or more, 1 for none, -1 for
+        every core. The files written are the same whatever the number.
 
     Returns
     -------
@@ -660,9 +677,9 @@ def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="p
     Raises
     ------
     DataError
-        For ``fits``, ``path``, ``title``, ``level``, ``method``, ``figures`` or
-        ``overwrite`` of the wrong kind or value, and when the folder of ``path`` does not
-        exist. Nothing is written.
+        For ``fits``, ``path``, ``title``, ``level``, ``method``, ``figures``,
+        ``overwrite``, ``bootstrap``, ``n_boot``, ``seed`` or ``n_jobs`` of the wrong kind
+        or value, and when the folder of ``path`` does not exist. Nothing is written.
     FileExistsError
         When a report file or the figures folder exists and ``overwrite`` is False (or
         appears while the report is written); nothing is replaced.
@@ -670,19 +687,21 @@ def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="p
     Notes
     -----
     The report holds the title and date; the experiment (series, tissues, isotopes,
-    subjects, time unit, design); a summary table (chosen model, half-lives with intervals
-    and their statuses — a bound the data do not close reads "open", never a number —, the
-    chosen model's weight); one section per series (model, candidate comparison, parameter
-    table, derived quantities, numbered notes, figure); the series that could not be fitted
-    with their reasons; methods with citations; the meaning of pool fractions; and the
-    caution that animal experiments and field sampling need the approval of the local
-    animal-care authority (human samples: a human-research ethics board), which the results
-    support and do not replace.
+    subjects, time unit, design); the overview figure of the study; a summary table per
+    time unit (a column never mixes days with hours: chosen model, half-lives with
+    intervals and their statuses — a bound the data do not close reads "open", never a
+    number —, the chosen model's weight); the notes that hold for every fitted series, once;
+    one section per series (model, candidate comparison, parameter table, derived
+    quantities, its own numbered notes, figures); the series that could not be fitted with
+    their reasons; methods with citations; the meaning of pool fractions; and the caution
+    that animal experiments and field sampling need the approval of the local animal-care
+    authority (human samples: a human-research ethics board), which the results support
+    and do not replace. Every number carries its unit in its column header or cell.
     """
     from . import __version__
-    from . import plotting as _plotting
     from .conventions import check_level as _check_level
     from .conventions import check_method as _check_method
+    from .conventions import check_positive_int as _check_positive_int
     from .conventions import unit_word as _unit_word
 
     series, fitset = _collect(fits)
@@ -691,11 +710,21 @@ def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="p
     if not isinstance(title, str) or not title.strip():
         raise DataError(f"'title' must be a non-empty string; got {title!r}")
     level = _check_level(level)
-    method = _check_method(method, ("profile", "asymptotic"))
+    method = _check_method(method, ("profile", "asymptotic", "bootstrap"))
     if not isinstance(figures, bool):
         raise DataError(f"'figures' must be True or False; got {figures!r}")
     if not isinstance(overwrite, bool):
         raise DataError(f"'overwrite' must be True or False; got {overwrite!r}")
+    n_boot = _check_positive_int("n_boot", n_boot)
+    if seed is not None and (isinstance(seed, bool) or not isinstance(seed, int) or seed < 0):
+        raise DataError(f"'seed' must be a non-negative integer or None; got {seed!r}")
+    fitted = [s for s in series if s.fit is not None]
+    n_figures = 0
+    if figures and fitted:
+        n_figures = (len(fitted) >= 2) + len(fitted) + sum(
+            getattr(s.fit.model, "growth", None) is not None for s in fitted) + (
+            fitset is not None and any(s.result.comparison is not None for s in series))
+    workers = figure_workers(n_jobs, max(n_figures, 1))
     try:
         p = Path(os.fspath(path))
     except TypeError:
@@ -726,78 +755,129 @@ def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="p
                 f"write_report: {str(fig_dir)!r} holds files that are not report figures "
                 f"({', '.join(sorted(other)[:5])}); it will not be replaced")
 
-    # -- build everything in memory ------------------------------------------------------
-    units = sorted({s.fit.time_unit for s in series if s.fit is not None}
-                   or {getattr(fitset, "time_unit", "d")})
-    unit_word = ", ".join(_unit_word(u) for u in units)
-    summaries = {s.name: s.fit.summary(level, method) for s in series if s.fit is not None}
-    images = []  # (file name, png bytes)
-    fig_entries = {}
-    n_fig = 0
+    # -- figures of the series first: drawn by the workers while the text is built --------
+    jobs = FigureJobs(workers if n_figures else 1, level)
+    try:
+        return _write(series, fitset, jobs, title=title, level=level, method=method,
+                      figures=figures and bool(fitted), overwrite=overwrite,
+                      bootstrap=bootstrap, n_boot=n_boot, seed=seed, workers=workers,
+                      folder=folder, stem=stem, md_path=md_path, html_path=html_path,
+                      fig_dir=fig_dir, version=__version__, unit_word=_unit_word)
+    except BaseException:
+        jobs.cancel()
+        raise
+
+
+def _write(series, fitset, jobs, *, title, level, method, figures, overwrite, bootstrap,
+           n_boot, seed, workers, folder, stem, md_path, html_path, fig_dir, version,
+           unit_word):
     rel = quote(f"{stem}_figures")
-    weights_entry = None
+    fig_entries = {}
     if figures:
-        if fitset is not None and any(s.result.comparison is not None for s in series):
-            ax = _plotting.plot_weights(fitset)
-            name = "00_weights.png"
-            images.append((name, _render_figure(ax.figure)))
-            n_fig += 1
-            weights_entry = (f"{rel}/{quote(name)}", "Model weights of every series",
-                             f"Figure {n_fig}. Weights of the candidate models of each series "
-                             "(empty bars: series not fitted, with their status).")
         for i, s in enumerate(series, start=1):
             if s.fit is None:
                 continue
             entries = []
-            fig = _plotting.plot_overview(s.fit, level=level)
-            name = f"{i:02d}_{_slug(s.name)}.png"
-            images.append((name, _render_figure(fig)))
-            n_fig += 1
-            entries.append((f"{rel}/{quote(name)}", f"Fit of {s.name}",
-                            f"Figure {n_fig}. {s.name}: (a) data, fitted curve and "
-                            f"{_pct(level)} confidence band (dashed lines: diet switches; "
-                            "squares: flagged points, kept in the fit); (b) studentized "
-                            "residuals with ±2 and ±3 guides; (c) reaction progress "
-                            "ln(1 − F) with the fitted curve."))
+            name = f"{i:02d}_{slug(s.name)}.png"
+            jobs.add(name, "overview", s.fit)
+            entries.append((name, f"Fit of {s.name}",
+                            f"{s.name}: (a) data, fitted curve and {pct_text(level)} confidence "
+                            "band (dashed lines: diet switches; squares: flagged points, kept "
+                            "in the fit); (b) studentized residuals with ±2 and ±3 guides; "
+                            "(c) reaction progress ln(1 − F) with the fitted curve."))
             g = getattr(s.fit.model, "growth", None)
             if g is not None and hasattr(g, "t") and hasattr(g, "mass"):
-                kw = {"turnover_fit": s.fit} if hasattr(s.fit, "growth_share_curve") else {}
-                ax = _plotting.plot_growth(g, time_unit=s.fit.time_unit, **kw)
-                gname = f"{i:02d}_{_slug(s.name)}_growth.png"
-                images.append((gname, _render_figure(ax.figure)))
-                n_fig += 1
-                entries.append((f"{rel}/{quote(gname)}", f"Growth of {s.name}",
-                                 f"Figure {n_fig}. {s.name}: body masses and the fitted "
-                                 "growth curve."))
+                tf = s.fit if hasattr(s.fit, "growth_share_curve") else None
+                gname = f"{i:02d}_{slug(s.name)}_growth.png"
+                jobs.add(gname, "growth", (g, s.fit.time_unit, tf))
+                entries.append((gname, f"Growth of {s.name}",
+                                f"{s.name}: body masses and the fitted growth curve."))
             fig_entries[s.name] = entries
+        if fitset is not None and any(s.result.comparison is not None for s in series):
+            jobs.add("00_weights.png", "weights", fitset)
 
-    doc = _Doc()
+    # -- the text, built in memory while the figures are drawn ---------------------------
+    units = _units_in_order(series) or [getattr(fitset, "time_unit", "d")]
+    unit_text = ", ".join(unit_word(u) for u in sorted(units))
+    base = "asymptotic" if method == "asymptotic" else "profile"
+    summaries = {s.name: s.fit.summary(level, base) for s in series if s.fit is not None}
+    boots = _bootstrap_tables(series, bootstrap, method, level, n_boot, seed, workers)
+    half_lives = {name: _boot_half_lives(sm.half_lives, boots.get(name))
+                  for name, sm in summaries.items()}
+    all_notes = {name: list(sm.notes) for name, sm in summaries.items()}
+    common = _common_notes(series, all_notes)
+    shared = _shared_notes(series, all_notes, common)
+    shared_ids = {n: f"S{i}" for i, n in enumerate(shared, start=1)}
+    own_notes = {name: [n for n in ns if n not in common and n not in shared]
+                 for name, ns in all_notes.items()}
+    shared_of = {name: sorted((shared_ids[n] for n in ns if n in shared),
+                              key=lambda i: int(i[1:]))
+                 for name, ns in all_notes.items()}
+    # the study at a glance: from two fitted series on (one series has its own figure)
+    study = (_study_table(series, half_lives)
+             if figures and sum(s.fit is not None for s in series) >= 2 else None)
+    if study is not None and not study.empty:
+        jobs.add("00_study.png", "study", study)
+
+    interval_word = method  # the interval of the half-lives in the summary and figure
+    doc = Doc()
     doc.h(1, title)
-    doc.p(f"Date: {datetime.date.today().isoformat()}. Made with isoturnover {__version__}.")
+    doc.p(f"Date: {datetime.date.today().isoformat()}. Made with isoturnover {version}.")
     doc.p(("strong", "Caution."), " " + CAUTION)
     crit = "AICc" if fitset is None else _CRIT.get(fitset.criterion, str(fitset.criterion))
-    _experiment(doc, series, fitset, unit_word)
-    _summary_table(doc, series, fitset, level, unit_word, summaries)
-    if weights_entry is not None:
-        doc.img(*weights_entry)
+    _experiment(doc, series, fitset, unit_text)
+    n_fig = 0
+    if study is not None and not study.empty:
+        n_fig += 1
+        doc.h(2, "The study at a glance")
+        doc.img(f"{rel}/00_study.png", "Half-lives of every series",
+                f"Figure {n_fig}. Half-life of each pool of every fitted series with its "
+                f"{pct_text(level)} {interval_word} interval (log time axis; markers: pools; "
+                "an arrow to the edge: a bound the data do not close; no line on a side: "
+                "the bound could not be computed). Series timed in different units are in "
+                "separate panels.")
+    _summary_table(doc, series, fitset, level, summaries, half_lives,
+                   {k: (len(v), len(shared_of[k])) for k, v in own_notes.items()},
+                   interval_word)
+    if common:
+        doc.h(2, "Notes on every series")
+        doc.p("These notes hold word for word for every fitted series; they are not "
+              "repeated under each series.")
+        doc.ol(common)
+    if shared:
+        doc.h(2, "Notes shared by several series")
+        doc.p("Each of these notes holds word for word for the series named after it; the "
+              "series' sections refer to them by their label.")
+        doc.ul([f"{shared_ids[n]}. {n} (series {_ranges(idx)})" for n, idx in shared.items()])
+    if figures and any(name == "00_weights.png" for name, _ in jobs.jobs):
+        n_fig += 1
+        doc.img(f"{rel}/00_weights.png", "Model weights of every series",
+                f"Figure {n_fig}. Weights of the candidate models of each series "
+                "(empty bars: series not fitted, with their status).")
     idx = 0
     for s in series:
         if s.fit is None:
             continue
         idx += 1
-        _series_section(doc, idx, s, summaries[s.name], level, method,
-                        fig_entries.get(s.name, []), crit)
+        entries = []
+        for name, alt, caption in fig_entries.get(s.name, []):
+            n_fig += 1
+            entries.append((f"{rel}/{quote(name)}", alt, f"Figure {n_fig}. {caption}"))
+        _series_section(doc, idx, s, summaries[s.name], level, method, entries, crit,
+                        notes=own_notes[s.name] if (common or shared) else None,
+                        boot=boots.get(s.name), shared=shared_of.get(s.name, []))
     _not_fitted(doc, series)
     any_growth = any(s.fit is not None and s.fit.rate_kind == "catabolic" for s in series)
     from .groups import PER_DIET_LABEL
 
     any_per_diet = any(str(lab).endswith(PER_DIET_LABEL) for s in series
                        if s.result is not None for lab in s.result.reasons)
-    _methods(doc, level, method, any_growth, any_per_diet)
+    _methods(doc, level, method, any_growth, any_per_diet, n_boot=_boot_count(boots, n_boot))
     doc.h(2, "Caution")
     doc.p(("strong", "Caution."), " " + CAUTION)
-    md_text = _render_md(doc)
-    html_text = _render_html(doc, title)
+    md_text = render_markdown(doc)
+    html_text = render_html(doc, title)
+    images = sorted(render_figures(jobs)) if figures else []
 
     # -- write: temporaries first, then move into place -----------------------------------
     plan = []
@@ -813,12 +893,18 @@ def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="p
                 os.chmod(tmp_dir / name, 0o644)
         elif fig_dir.exists():
             plan.append((None, fig_dir))  # overwrite without figures: the old ones go
-        plan.append((_tmp_file(folder, md_path.name, md_text.encode("utf-8")), md_path))
-        plan.append((_tmp_file(folder, html_path.name, html_text.encode("utf-8")), html_path))
+        plan.append((temp_file(folder, md_path.name, md_text.encode("utf-8")), md_path))
+        plan.append((temp_file(folder, html_path.name, html_text.encode("utf-8")), html_path))
     except BaseException:
         for tmp, _ in plan:
             if tmp is not None:
-                _remove(tmp)
+                remove_path(tmp)
         raise
-    _commit(plan, folder, overwrite)
+    commit_files(plan, folder, overwrite)
     return [md_path, html_path] + [fig_dir / name for name, _ in images]
+
+
+def _boot_count(boots, n_boot):
+    """Replicates per series as stated in the methods (the tables' own count if one)."""
+    counts = {b.attrs.get("n_boot") for b in boots.values() if b.attrs.get("n_boot")}
+    return counts.pop() if len(counts) == 1 else n_boot

@@ -507,6 +507,8 @@ def _check_solution(c: _Checker, s: dict, path: str, names: tuple):
             c.fail(f"{path}.coords.{key}", f"must be below {len(names)} (got {a})")
     if "param_names" in s:  # written by later releases: the names θ is stored in
         pn = c.array(s["param_names"], f"{path}.param_names")
+        for i, x in enumerate(pn):
+            c.text(x, f"{path}.param_names[{i}]")
         if list(pn) != list(names):
             c.fail(f"{path}.param_names", f"{list(pn)!r:.200} are not the parameters of the "
                                           f"model described in the record ({', '.join(names)})")

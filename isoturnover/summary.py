@@ -26,6 +26,7 @@ from .conventions import INTERVAL_COLUMNS, check_level, check_method, unit_word
 
 __all__ = ["Summary", "fit_table", "fit_notes", "influence_table", "LmfitViews",
            "fixed_by_construction", "mean_residence_time_names", "growth_share_note",
+           "table_records",
            "residual_text", "fraction_note", "VALUE_UNIT", "FRACTION_SPAN"]
 
 #: Unit of the observations and residuals: δ in ‰ on every scale (a model that mixes in
@@ -272,8 +273,14 @@ def fit_table(fit, level=0.95, method="profile") -> pd.DataFrame:
         Columns quantity, kind ("parameter" or "derived"), estimate, stderr, lower, upper,
         level, method, lower_status, upper_status, unit.
     """
-    ci = fit.conf_int(level, method)
-    level = check_level(level)
+    level, method = check_level(level), check_method(method)
+    return fit.cached(("fit_table", round(level, 12), method),
+                      lambda: _fit_table(fit, level, method)).copy()
+
+
+def _fit_table(fit, level, method):
+    """:func:`fit_table`, computed (the public function keeps it on the fit)."""
+    ci = fit.cached_frame("conf_int", level, method)
     kin = fit.kinetics
     unit = unit_word(fit.time_unit)
     units = {}
@@ -288,18 +295,41 @@ def fit_table(fit, level=0.95, method="profile") -> pd.DataFrame:
             units[nm] = "growth-curve parameter"
         else:
             units[nm] = "‰"
-    ci = ci.rename(columns={"parameter": "quantity"})
-    ci.insert(1, "kind", "parameter")
-    ci["unit"] = ci["quantity"].map(units)
+    cols = ["quantity", "kind", "estimate", "stderr", "lower", "upper", "level", "method",
+            "lower_status", "upper_status", "unit"]
+    rows = [{**r, "quantity": r["parameter"], "kind": "parameter",
+             "unit": units.get(r["parameter"], math.nan)} for r in table_records(ci)]
     derived = [(f"half_life_{int(r['pool'])}", r)
-               for _, r in fit.half_lives(level, method).iterrows()]
-    derived.append(("time_to_95", fit.time_to(0.95, level, method).iloc[0]))
-    derived += [(q, fit.mean_residence_time_interval(level, method, kind=kind).iloc[0])
+               for r in table_records(fit.cached_frame("half_lives", level, method))]
+    derived.append(("time_to_95",
+                    table_records(fit.cached_frame("time_to", 0.95, level, method))[0]))
+    derived += [(q, table_records(fit.mean_residence_time_interval(level, method,
+                                                                   kind=kind))[0])
                 for q, kind in mean_residence_time_names(fit)]
-    rows = [{"quantity": q, "kind": "derived", "stderr": math.nan,
-             **{c: r[c] for c in INTERVAL_COLUMNS}, "level": level, "unit": unit}
-            for q, r in derived]
-    return pd.concat([ci, pd.DataFrame(rows)[ci.columns]], ignore_index=True)
+    rows += [{"quantity": q, "kind": "derived", "stderr": math.nan,
+              **{c: r[c] for c in INTERVAL_COLUMNS}, "level": level, "unit": unit}
+             for q, r in derived]
+    return pd.DataFrame([[r[c] for c in cols] for r in rows], columns=cols)
+
+
+def table_records(frame) -> list:
+    """The rows of a small table as dicts of plain Python values (column → value).
+
+    One conversion of the whole table (``to_numpy(dtype=object)``) instead of a lookup per
+    cell: the interval tables of a fit are read this way wherever they are taken apart.
+
+    Parameters
+    ----------
+    frame : DataFrame
+        A table (an interval table of a fit, say).
+
+    Returns
+    -------
+    list of dict
+        One dict per row, in row order, keys in column order.
+    """
+    cols = list(frame.columns)
+    return [dict(zip(cols, vals)) for vals in frame.to_numpy(dtype=object).tolist()]
 
 
 def fit_notes(fit) -> list[str]:
@@ -383,9 +413,9 @@ class Summary:
         self.level = check_level(level)
         self.method = check_method(method)
         self.header = self._header()
-        self.parameters = fit.conf_int(self.level, self.method)
-        self.half_lives = fit.half_lives(self.level, self.method)
-        self.time_to = fit.time_to(0.95, self.level, self.method)
+        self.parameters = fit.cached_frame("conf_int", self.level, self.method)
+        self.half_lives = fit.cached_frame("half_lives", self.level, self.method)
+        self.time_to = fit.cached_frame("time_to", 0.95, self.level, self.method)
         notes = list(fit.notes())
         frac = fraction_note(self.parameters)
         if frac is not None:  # a trust signal: after the fit's warnings, before the rest

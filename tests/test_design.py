@@ -286,7 +286,7 @@ def test_every_output_carries_the_animal_care_caution():
         assert CAUTION in out.summary() and PLAN_CAUTION in out.summary()
         assert out.caution == PLAN_CAUTION
     assert "human hair or blood: a human-research ethics board" in PLAN_CAUTION
-    assert "does not replace it" in PLAN_CAUTION
+    assert "do not replace it" in PLAN_CAUTION
     assert "0.1–0.2 ‰" in d.summary()  # the guidance on sd
 
 

@@ -16,7 +16,7 @@ import pandas as pd
 import pytest
 
 import isoturnover as iso
-from isoturnover import groups
+from isoturnover import groups, seriesrows
 from isoturnover.analysis import analyse, series_seed
 from isoturnover.errors import DataError
 
@@ -78,7 +78,8 @@ def test_table_has_a_row_for_every_series_and_candidate(fitset, table):
     got = set(zip(table["subject"], table["tissue"], table["isotope"], table["candidate"]))
     want = set(itertools.product(SUBJECTS, TISSUES, ISOTOPES, ["1 pool", "2 pools"]))
     assert got == want
-    assert list(table.columns[:4]) == ["subject", "tissue", "isotope", "candidate"]
+    # the samples' group column is kept beside the keys (issue 15, item 11)
+    assert list(table.columns[:5]) == ["subject", "tissue", "isotope", "group", "candidate"]
     for col in ("status", "reason", "nobs", "n_params", "rss", "aicc", "delta_aicc", "weight",
                 "chosen", "delta0", "delta_eq", "half_life_1", "lower_1", "upper_1",
                 "time_to_95", "rate_kind"):
@@ -527,14 +528,17 @@ def test_a_programming_error_in_the_table_intervals_surfaces(monkeypatch, error)
 
 
 def test_a_library_error_in_the_table_intervals_is_recorded(monkeypatch):
-    fs = iso.fit_each(invented_diet_switch(), pools=(1,))
-    good = fs.table(method="asymptotic").set_index("subject")
+    good = iso.fit_each(invented_diet_switch(), pools=(1,)).table(method="asymptotic")
+    good = good.set_index("subject")
     assert (good["interval_note"] == "").all()
 
     def failing_half_lives(self, *args, **kwargs):
         raise iso.FitError("profile could not be computed (invented failure)")
 
+    # a table's rows are computed once and kept on the fits: fits made afresh meet the
+    # failure when their table is first made
     monkeypatch.setattr(iso.TurnoverFit, "half_lives", failing_half_lives)
+    fs = iso.fit_each(invented_diet_switch(), pools=(1,))
     tab = fs.table(method="asymptotic").set_index("subject")
     assert len(tab) == 4 and (tab["status"] == "ok").all()   # no row dropped or failed
     assert (tab["interval_note"] == "half-life intervals failed: profile could not be "
@@ -613,9 +617,11 @@ def test_analyse_refuses_bad_options_before_any_fit(samples):
     with pytest.raises(DataError, match=r"'ci' must be one of 'profile', 'asymptotic', "
                                         r"'bootstrap'; got 'prof'"):
         analyse(samples, ci="prof")
-    with pytest.raises(DataError, match=r"'pools' must be integers from 1 to 4; got \('a',\)"):
+    with pytest.raises(DataError, match=r"'pools' (\(--pools\) )?must be integers from 1 to "
+                                        r"4; got \('a',\)"):
         analyse(samples, pools=("a",))
-    with pytest.raises(DataError, match=r"'pools' must be integers from 1 to 4; got '1,5'"):
+    with pytest.raises(DataError, match=r"'pools' (\(--pools\) )?must be integers from 1 to "
+                                        r"4; got '1,5'"):
         analyse(samples, pools="1,5")
     with pytest.raises(DataError, match=r"'pools' \(--pools\) must be a comma-separated list "
                                         r"of integers 1-4, such as 1,2; got '1;2'"):
@@ -624,3 +630,108 @@ def test_analyse_refuses_bad_options_before_any_fit(samples):
         analyse(samples, ci="bootstrap", n_boot=0)
     with pytest.raises(DataError, match=r"'level' must be between 0 and 1"):
         analyse(samples, level=1.5)
+
+
+# ----------------------------------------------------------------------------------------
+# results.csv: the group, incorporation half-lives, growth share, interval statuses
+# ----------------------------------------------------------------------------------------
+def test_results_table_keeps_the_group_and_gives_every_interval_its_statuses(fitset,
+                                                                            samples):
+    from isoturnover.analysis import Analysis
+    from isoturnover.conventions import STATUSES
+
+    tab = Analysis({"samples": fitset}, ci="asymptotic").results_table()
+    assert list(tab.columns[:5]) == ["part", "subject", "tissue", "isotope", "group"]
+    # each series' group is the group of its rows in the samples table (invented: goats
+    # 1-3 in A, 4-6 in B)
+    want = samples.groupby("subject")["group"].first()
+    assert (tab["group"] == tab["subject"].map(want)).all()
+    fitted = tab["rss"].notna()
+    assert fitted.sum() > 0
+    for q in ("delta0", "delta_eq", "time_to_95"):
+        for side in ("lower", "upper"):
+            assert set(tab.loc[fitted, f"{q}_{side}_status"]) <= set(STATUSES), q
+    for side in ("lower", "upper"):
+        assert set(tab.loc[fitted, f"{side}_status_1"]) <= set(STATUSES)
+    # no growth model here: no growth columns
+    assert not any(c.startswith(("incorporation", "growth_share")) for c in tab.columns)
+
+
+def test_table_gives_incorporation_half_lives_and_growth_share_of_growth_fits():
+    frame, masses = invented_growing_goats()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        fs = iso.fit_each(frame, masses=masses, pools=(1,), growth_curve="exponential")
+    from isoturnover.conventions import STATUSES
+
+    for method in ("asymptotic", "profile"):
+        tab = fs.table(method=method)
+        assert len(tab) == 2 and (tab["status"] == "ok").all()
+        for _, row in tab.iterrows():
+            f = fs[(row["subject"], "plasma", "d13C")].best
+            # k_g: the exponential growth curve's specific growth rate d ln W/dt (its mean
+            # over the sampling period is the rate itself)
+            kd, kg = f.values["k1"], f.mean_growth_rate()
+            # incorporation half-life ln 2 / (k_d + k_g) (Hesslein, Hallard & Ramlal 1993;
+            # by hand from the fit's own rates); the catabolic one is ln 2 / k_d
+            assert row["incorporation_half_life_1"] == pytest.approx(LN2 / (kd + kg),
+                                                                     rel=1e-12)
+            assert row["half_life_1"] == pytest.approx(LN2 / kd, rel=1e-12)
+            # one pool, exponential growth: growth share k_g / (k_g + k_d) at every time
+            # (Hesslein et al. 1993; by hand; the library integrates it by quadrature)
+            assert row["growth_share"] == pytest.approx(kg / (kg + kd), rel=1e-8)
+            for q, lo, hi in (("incorporation_half_life_1", "incorporation_lower_1",
+                               "incorporation_upper_1"),
+                              ("growth_share", "growth_share_lower", "growth_share_upper")):
+                assert row[lo] < row[q] < row[hi], q
+            for col in ("incorporation_lower_status_1", "incorporation_upper_status_1",
+                        "growth_share_lower_status", "growth_share_upper_status"):
+                assert row[col] in STATUSES and row[col] == "ok", col
+            assert row["growth_share_method"] == method
+            assert row["rate_kind"] == "catabolic"
+        # the same numbers as the fit's own tables (one computation, kept on the fit)
+        f = fs[("goat0", "plasma", "d13C")].best
+        inc = f.incorporation_half_lives(method=method).iloc[0]
+        row = tab.set_index("subject").loc["goat0"]
+        assert row["incorporation_lower_1"] == inc["lower"]
+        assert row["incorporation_upper_1"] == inc["upper"]
+
+
+def test_the_table_reuses_the_intervals_kept_on_the_fits(fitset, monkeypatch):
+    # a second table (and the rows of a merged FitSet) are assembled from the rows kept on
+    # the fits: no interval is computed again
+    first = fitset.table(method="asymptotic")
+
+    def no_more(self, *args, **kwargs):
+        raise AssertionError("an interval was computed again")
+
+    for name in ("conf_int", "half_lives", "time_to"):
+        monkeypatch.setattr(iso.TurnoverFit, name, no_more)
+    pd.testing.assert_frame_equal(fitset.table(method="asymptotic"), first,
+                                  check_exact=True)
+
+
+def test_whole_table_averaging_equals_averaging_series_by_series():
+    # replicates in shuffled row order (invented): the table averaged at once gives each
+    # series exactly what averaging that series alone gives (data.average_replicates)
+    rng = np.random.default_rng(5)
+    rows = []
+    for s in ("a", "b"):
+        for t in (0.0, 3.0, 7.0, 14.0, 28.0):
+            for _ in range(3):
+                rows.append({"subject": s, "tissue": "plasma", "isotope": "d13C", "time": t,
+                             "value": -20 + 5 * math.exp(-t / 6) + rng.normal(0, 0.3),
+                             "sd": 0.1})
+    frame = pd.DataFrame(rows).sample(frac=1.0, random_state=3).reset_index(drop=True)
+    s = iso.read_samples(frame)
+    keys = s[["subject", "tissue", "isotope"]].astype(str)
+    pos = {k: p for k, p in keys.groupby(["subject", "tissue", "isotope"]).indices.items()}
+    data = seriesrows.series_data(s, ("subject", "tissue", "isotope"), pos,
+                                  iso.average_replicates)
+    for d, p in zip(data, pos.values()):
+        one = iso.average_replicates(s.iloc[p].sort_values(["subject", "time", "value",
+                                                            "sd"], kind="stable"))
+        np.testing.assert_array_equal(d.t, one["time"].to_numpy())
+        np.testing.assert_array_equal(d.y, one["value"].to_numpy())
+        np.testing.assert_array_equal(d.sd, one["sd"].to_numpy())
+        assert d.n_rows == len(p)

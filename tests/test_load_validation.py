@@ -34,7 +34,8 @@ GRID = np.linspace(0.0, 180.0, 37)
 # may load or be refused, but never raise another error. Paths from the record's root.
 OPTIONAL = {
     ("model", "propagate_growth"), ("data", "info"), ("data", "masses"),
-    ("data", "block_scale"), ("options", "tied"), ("options", "bounds"),
+    ("data", "block_scale"), ("data", "fingerprint"), ("solution", "param_names"),
+    ("options", "tied"), ("options", "bounds"),
     ("solution", "coords"), ("solution", "coords", "rate_anchor"),
     ("solution", "coords", "fraction_anchor"),
     *[("model", "diet", k) for k in ("start", "previous", "isotope", "label")],

@@ -98,7 +98,9 @@ def test_diet_switch_notebook_runs(tmp_path, monkeypatch):
     md = list(reports[0].glob("*.md"))
     html = list(reports[0].glob("*.html"))
     pngs = list(reports[0].glob("*_figures/*.png"))
-    assert len(md) == 1 and len(html) == 1 and len(pngs) == 3
+    # the study overview (three series) and one figure per series
+    assert len(md) == 1 and len(html) == 1 and len(pngs) == 4
+    assert any(p.name == "00_study.png" for p in pngs)
     assert all(p.stat().st_size > 10_000 for p in pngs)
     assert pngs[0].read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert "animal-care authority" in md[0].read_text(encoding="utf-8")

@@ -18,7 +18,7 @@ import pandas as pd  # noqa: E402
 import pytest  # noqa: E402
 
 import isoturnover as iso  # noqa: E402
-from isoturnover import plotting  # noqa: E402
+from isoturnover import plotting, reportdoc  # noqa: E402
 from isoturnover import report as R  # noqa: E402
 
 LN2 = math.log(2.0)
@@ -97,8 +97,9 @@ def test_writes_markdown_html_and_figures(written, fitset):
     md, html_path = paths[:2]
     assert md == folder / "goats.md" and html_path == folder / "goats.html"
     figs = paths[2:]
-    # the weights figure, then one overview per fitted series (2 of 3 were fitted)
-    assert [p.name for p in figs] == ["00_weights.png", "01_A_plasma_d13C.png",
+    # the study at a glance, the weights figure, then one overview per fitted series (2 of
+    # 3 were fitted)
+    assert [p.name for p in figs] == ["00_study.png", "00_weights.png", "01_A_plasma_d13C.png",
                                       "02_B_plasma_d13C.png"]
     for p in figs:
         assert p.parent == folder / "goats_figures"
@@ -156,9 +157,22 @@ def test_summary_numbers_match_the_fits(written, fitset):
     k = ci.loc["k1"]
     assert (f"| k1 | {k['estimate']:.4g} | {k['stderr']:.4g} | {k['lower']:.4g} | "
             f"{k['upper']:.4g} | profile | per day |") in text
-    # the fit's numbered notes
-    for i, n in enumerate(f.notes(), start=1):
-        assert f"{i}. {R._md(n)}" in text
+    # the fit's numbered notes: those word for word the same for both fitted series once,
+    # at the top; the series' own ones under it
+    a_notes = fitset[("A", "plasma", "d13C")].best.notes()
+    common = [n for n in f.notes() if n in a_notes]
+    own = [n for n in f.notes() if n not in a_notes]
+    assert common  # here: both rates are incorporation rates (no growth model)
+    top = text.split("## Notes on every series")[1].split("\n## ")[0]
+    for i, n in enumerate(common, start=1):
+        assert f"{i}. {reportdoc.md_escape(n)}" in top
+        assert text.count(reportdoc.md_escape(n)) == 1  # shown once, not under each series
+    section = text.split("## Series 2: B / plasma / d13C")[1].split("\n## ")[0]
+    notes = section.split("### Notes")[1]
+    for i, n in enumerate(own, start=1):
+        assert f"{i}. {reportdoc.md_escape(n)}" in notes
+    if not own:
+        assert "No notes of this series' own" in notes
 
 
 # ----------------------------------------------------------------------------------------
@@ -182,12 +196,12 @@ def test_open_bound_shown_as_open(open_fit, tmp_path):
 
 
 def test_bound_formatting():
-    assert R._bound(math.inf, "open") == "open"
-    assert R._bound(0.0, "open") == "open"
-    assert R._bound(math.nan, "failed") == "failed"
-    assert R._bound(1.0, "at_bound") == "1 (at bound)"
-    assert R._bound(2.34567, "ok") == "2.346"
-    assert R._bound(math.inf, "ok") == "—"  # never a number that is not one
+    assert reportdoc.fmt_bound(math.inf, "open") == "open"
+    assert reportdoc.fmt_bound(0.0, "open") == "open"
+    assert reportdoc.fmt_bound(math.nan, "failed") == "failed"
+    assert reportdoc.fmt_bound(1.0, "at_bound") == "1 (at bound)"
+    assert reportdoc.fmt_bound(2.34567, "ok") == "2.346"
+    assert reportdoc.fmt_bound(math.inf, "ok") == "—"  # never a number that is not one
 
 
 # ----------------------------------------------------------------------------------------
@@ -261,7 +275,7 @@ def test_failing_figure_leaves_nothing(fit1, tmp_path, monkeypatch):
 def test_failing_move_rolls_back(fit1, tmp_path, monkeypatch, step):
     old = R.write_report([fit1], tmp_path / "r.md", title="Old")
     before = {p: p.read_bytes() for p in old}
-    real = R._move
+    real = reportdoc.move_path
     calls = {"n": 0}
 
     def flaky(src, dst):
@@ -272,7 +286,7 @@ def test_failing_move_rolls_back(fit1, tmp_path, monkeypatch, step):
             raise OSError("invented disk failure")
         return real(src, dst)
 
-    monkeypatch.setattr(R, "_move", flaky)
+    monkeypatch.setattr(reportdoc, "move_path", flaky)
     with pytest.raises(OSError, match="invented disk failure"):
         R.write_report([fit1], tmp_path / "r.md", title="New", overwrite=True)
     assert calls["n"] > 2
@@ -310,8 +324,26 @@ def test_bad_input(fit1, tmp_path):
         R.write_report([fit1], tmp_path / "missing" / "r.md")
     with pytest.raises(iso.DataError, match="'level' must be between 0 and 1"):
         R.write_report([fit1], tmp_path / "r", level=95)
-    with pytest.raises(iso.DataError, match="'method' must be one of 'profile', 'asymptotic'"):
-        R.write_report([fit1], tmp_path / "r", method="bootstrap")
+    with pytest.raises(iso.DataError,
+                       match="'method' must be one of 'profile', 'asymptotic', 'bootstrap'"):
+        R.write_report([fit1], tmp_path / "r", method="bca")
+    with pytest.raises(iso.DataError, match="'bootstrap' tables are shown only with "
+                                            "method='bootstrap'"):
+        R.write_report([fit1], tmp_path / "r", bootstrap={"series 1": pd.DataFrame()})
+    with pytest.raises(iso.DataError, match="'bootstrap' key 'x' names no series"):
+        R.write_report([fit1], tmp_path / "r", method="bootstrap",
+                       bootstrap={"x": pd.DataFrame()})
+    with pytest.raises(iso.DataError, match="'bootstrap' key 'series 1': expected a "
+                                            "DataFrame with columns parameter"):
+        R.write_report([fit1], tmp_path / "r", method="bootstrap", bootstrap={"series 1": 3})
+    with pytest.raises(iso.DataError, match="'bootstrap' must be a dict"):
+        R.write_report([fit1], tmp_path / "r", method="bootstrap", bootstrap=[1])
+    with pytest.raises(iso.DataError, match="'n_boot' must be"):
+        R.write_report([fit1], tmp_path / "r", method="bootstrap", n_boot=0)
+    with pytest.raises(iso.DataError, match="'seed' must be a non-negative integer"):
+        R.write_report([fit1], tmp_path / "r", method="bootstrap", seed=-1)
+    with pytest.raises(iso.DataError, match="'n_jobs'"):
+        R.write_report([fit1], tmp_path / "r", n_jobs=0)
     with pytest.raises(iso.DataError, match="'title' must be a non-empty string"):
         R.write_report([fit1], tmp_path / "r", title="")
     with pytest.raises(iso.DataError, match="'overwrite' must be True or False"):
@@ -328,9 +360,17 @@ def test_mixed_time_units_named_per_series(fit1, tmp_path):
     text = md.read_text(encoding="utf-8")
     assert "Time unit: days, hours" in text
     hl_b = breath.half_lives().iloc[0]
-    assert f"| breath | 1 pool; step switch at t = 0 | 11 | {hl_b['half_life']:.4g} " in text
-    (row,) = [ln for ln in text.splitlines() if ln.startswith("| breath |")]
-    assert "\\] hours |" in row
+    hl_p = fit1.half_lives().iloc[0]
+    # one summary table per time unit: no column mixes days with hours, nothing converted
+    summary = text.split("## Summary")[1].split("\n## ")[0]
+    assert "no time was converted" in summary
+    days = summary.split("### Series timed in days")[1].split("###")[0]
+    hours = summary.split("### Series timed in hours")[1].split("###")[0]
+    assert "| Half-life (days) \\[95 % profile interval\\] |" in days
+    assert "| Half-life (hours) \\[95 % profile interval\\] |" in hours
+    assert f"| plasma | 1 pool; step switch at t = 0 | 12 | {hl_p['half_life']:.4g} " in days
+    assert f"| breath | 1 pool; step switch at t = 0 | 11 | {hl_b['half_life']:.4g} " in hours
+    assert "breath" not in days and "| plasma |" not in hours
 
 
 def test_fitset_with_nothing_fitted(tmp_path):
@@ -357,3 +397,147 @@ def test_file_appearing_meanwhile_is_not_replaced(fit1, tmp_path, monkeypatch):
         R.write_report([fit1], tmp_path / "r.md")
     assert _listing(tmp_path) == ["r.html"]
     assert (tmp_path / "r.html").read_text() == "written by someone else"
+
+
+# ----------------------------------------------------------------------------------------
+# bootstrap intervals in the report
+# ----------------------------------------------------------------------------------------
+def test_bootstrap_intervals_shown(fitset, tmp_path):
+    from isoturnover.resampling import bootstrap
+
+    key = ("B", "plasma", "d13C")
+    f = fitset[key].best
+    res = bootstrap(f, n=60, kind="residual", rng=5, progress=False)
+    tab = res.intervals(0.95, method="percentile")
+    md, page = R.write_report(fitset, tmp_path / "b", method="bootstrap",
+                              bootstrap={key: tab}, n_boot=40, seed=3, figures=False)
+    text = md.read_text(encoding="utf-8")
+    # the summary's half-life of B carries the given bootstrap bounds, not the profile ones
+    b = tab.set_index("parameter").loc["half_life_1"]
+    hl = f.half_lives().iloc[0]
+    assert "| Half-life (days) \\[95 % bootstrap interval\\] |" in text
+    (row,) = [ln for ln in text.splitlines() if ln.startswith("| B / plasma / d13C |")]
+    assert f"{hl['half_life']:.4g} \\[{b['lower']:.4g}, {b['upper']:.4g}\\]" in row
+    assert f"{hl['lower']:.4g}, {hl['upper']:.4g}" not in row
+    # each series has its bootstrap table with units; A was bootstrapped in the report
+    assert text.count("### Bootstrap intervals (95 %, residual bootstrap, percentile)") == 2
+    assert "Replicates: 60 drawn, 60 used, 0 failed" in text
+    assert "Replicates: 40 drawn" in text
+    assert f"| half\\_life\\_1 | {b['estimate']:.4g} | {b['stderr']:.4g} | {b['lower']:.4g} | " \
+           f"{b['upper']:.4g} | days |" in text
+    assert "Efron & Tibshirani 1993" in text and "percentile interval" in text
+    # the series bootstrapped here draw from the seed and their name: same text again
+    md2, _ = R.write_report(fitset, tmp_path / "b2", method="bootstrap",
+                            bootstrap={key: tab}, n_boot=40, seed=3, figures=False)
+    assert md2.read_text(encoding="utf-8") == text
+
+
+def test_every_number_has_its_unit(written):
+    text = written[1][0].read_text(encoding="utf-8")
+    assert "| Half-life (days) \\[95 % profile interval\\] |" in text
+    assert "| n (time points) |" in text
+    assert "| RSS (‰²) |" in text
+    assert "| Parameter | Estimate | SE | Lower | Upper | Method | Unit |" in text
+
+
+# ----------------------------------------------------------------------------------------
+# the study at a glance, and figures drawn by worker processes
+# ----------------------------------------------------------------------------------------
+def test_study_figure_at_the_top(written):
+    text = written[1][0].read_text(encoding="utf-8")
+    glance = text.index("## The study at a glance")
+    assert glance < text.index("## Summary") < text.index("## Series 1:")
+    assert "![Half-lives of every series](goats_figures/00_study.png)" in text
+
+
+def test_figures_identical_whatever_the_worker_count(fitset, tmp_path):
+    one = R.write_report(fitset, tmp_path / "one", n_jobs=1)
+    two = R.write_report(fitset, tmp_path / "two", n_jobs=2)
+    assert [p.name for p in one[2:]] == [p.name for p in two[2:]]
+    for a, b in zip(one[2:], two[2:]):
+        assert a.read_bytes() == b.read_bytes(), a.name
+    assert one[0].read_text(encoding="utf-8") == two[0].read_text(
+        encoding="utf-8").replace("two_figures", "one_figures")
+
+
+def test_figure_workers():
+    from isoturnover.reportfigures import figure_workers
+
+    assert figure_workers(1, 50) == 1
+    assert figure_workers(2, 1) == 1  # never more workers than figures
+    assert figure_workers(None, 3) == 1  # a few figures: drawn here
+    assert figure_workers(None, 40) in (1, 2)
+    with pytest.raises(iso.DataError, match="'n_jobs'"):
+        figure_workers(-3, 10)
+
+
+def _study_rows(n_series, units=("d",), seed=0):
+    """Invented half-lives: two groups per unit, every 5th series' upper bound open."""
+    rng = np.random.default_rng(seed)
+    rows = []
+    for u in units:
+        for g in ("goats d13C / plasma", "goats d15N / red_cells"):
+            for i in range(n_series // (2 * len(units))):
+                for pool in (1, 2) if i % 2 else (1,):
+                    h = float(rng.lognormal(np.log(5.0 * pool ** 2), 0.3))
+                    is_open = i % 5 == 0
+                    rows.append({"group": g, "label": f"A{i + 1:03d}", "pool": pool,
+                                 "half_life": h, "lower": h / 1.4,
+                                 "upper": math.inf if is_open else h * 1.4,
+                                 "lower_status": "ok",
+                                 "upper_status": "open" if is_open else "ok",
+                                 "time_unit": u})
+    return pd.DataFrame(rows)
+
+
+def _arrows(fig):
+    """Open-bound arrowheads: markers drawn at the right edge (x = 1 in axes fraction)."""
+    n = 0
+    for ax in fig.axes:
+        for c in ax.collections:
+            off = c.get_offsets()
+            if len(off) and c.get_transform() != ax.transData and np.allclose(off[:, 0], 1.0):
+                n += len(off)
+    return n
+
+
+def test_plot_study_open_bounds_are_arrows_and_units_apart():
+    import matplotlib.pyplot as plt
+
+    from isoturnover.plotstudy import plot_study, pretty_isotopes
+
+    tab = _study_rows(12, units=("d", "h"))
+    fig = plot_study(tab)
+    try:
+        # one panel per time unit, each axis naming its unit
+        assert [ax.get_xlabel() for ax in fig.axes] == ["Half-life (days)", "Half-life (hours)"]
+        assert all(ax.get_xscale() == "log" for ax in fig.axes)
+        assert _arrows(fig) == int((tab["upper_status"] == "open").sum())
+        labels = [t.get_text() for t in fig.axes[0].get_yticklabels()]
+        assert "goats δ¹³C / plasma" in labels and "A001" in labels
+    finally:
+        plt.close(fig)
+    assert pretty_isotopes("goats d15N / d2H, d13Cx") == "goats δ¹⁵N / δ²H, d13Cx"
+
+
+def test_plot_study_readable_with_200_series():
+    import matplotlib.pyplot as plt
+
+    from isoturnover.plotstudy import plot_study
+
+    tab = _study_rows(200)
+    fig = plot_study(tab)
+    try:
+        w, h = fig.get_size_inches()
+        assert w == 7.0 and h <= 9.0  # one page
+        assert 2 <= len(fig.axes) <= 4  # panels side by side
+        shown = [t.get_text() for ax in fig.axes for t in ax.get_yticklabels()]
+        assert len([s for s in shown if s.startswith("A")]) == 200  # every series a row
+        sizes = {t.get_fontsize() for ax in fig.axes for t in ax.get_yticklabels()}
+        assert min(sizes) >= 4.5
+    finally:
+        plt.close(fig)
+    with pytest.raises(iso.DataError, match="plot_study: 'table' lacks the column"):
+        plot_study(tab.drop(columns="upper_status"))
+    with pytest.raises(iso.DataError, match="'max_rows' must be an integer of at least 5"):
+        plot_study(tab, max_rows=2)
