@@ -23,7 +23,8 @@ from scipy import optimize, sparse, special
 from .diet import DietHistory
 from .errors import DataError
 
-__all__ = ["Block", "Layout", "Joint", "loglik", "safe_label", "SPARSE_ABOVE", "read_study",
+__all__ = ["Block", "Shape", "Layout", "Joint", "loglik", "safe_label", "SPARSE_ABOVE",
+           "read_study",
            "key_label", "parse_shared", "diet_of"]
 
 SPARSE_ABOVE = 40  # joint coordinates from which the Jacobian is passed as sparse
@@ -46,83 +47,48 @@ def safe_label(text):
     return s or "x"
 
 
-class Layout:
-    """Joint coordinates and, per block, how its local coordinates read them.
+class Shape:
+    """The local coordinates of one kind of block (its kinetics' parameter layout).
 
-    Local coordinates of a block (in this order): each non-fraction parameter (log for
-    rates, identity otherwise), then the fraction sticks. A local coordinate is the sum of
-    one or two joint coordinates (two with contrast coding of a per-level parameter:
-    reference level + difference).
+    Local coordinates (in this order): each non-fraction parameter (log for rates,
+    ``lag >= 0`` as itself, identity otherwise), then the stick-breaking logits of the pool
+    fractions (none for one pool or a chain).
+
+    Parameters
+    ----------
+    kin : TurnoverKinetics
+        The block's kinetics.
     """
 
-    def __init__(self, blocks, scopes, contrast=()):
-        self.blocks = blocks
-        self.scopes = scopes  # name -> None (all) or column
-        kin0 = blocks[0].kin
-        self.names = kin0.param_names
-        self.rate_names = set(kin0.rate_names)
-        self.frac_idx = list(kin0.fraction_index)
-        self.local = []  # (name or ("stick", i), kind)
+    def __init__(self, kin):
+        self.names = tuple(kin.param_names)
+        self.rate_names = set(kin.rate_names)
+        self.frac_idx = list(kin.fraction_index)
+        self.chain = getattr(kin, "structure", "parallel") == "chain"
+        self.local = []  # (name, kind, natural index or stick number)
         for j, nm in enumerate(self.names):
             if j in self.frac_idx:
                 continue
             kind = "log" if nm in self.rate_names else ("lag" if nm == "lag" else "id")
             self.local.append((nm, kind, j))
-        nf = len(self.frac_idx)
-        for i in range(max(nf - 1, 0)):
+        for i in range(max(len(self.frac_idx) - 1, 0)):
             self.local.append((f"stick{i + 1}", "stick", i))
-        labels, index, lower = [], {}, []
 
-        def joint(label, kind):
-            if label not in index:
-                index[label] = len(labels)
-                labels.append(label)
-                lower.append(0.0 if kind == "lag" else -np.inf)
-            return index[label]
-
-        self.rows = []  # per block: list of lists of joint indices (one list per local coord)
-        self.coding = {}  # local name -> ("all" | column, reference level or None)
-        for b in blocks:
-            rows = []
-            for nm, kind, _ in self.local:
-                pname = "f" if kind == "stick" else nm
-                scope = scopes.get(pname, False)
-                if scope is False:
-                    rows.append([joint(f"{nm}@{b.label}", kind)])
-                elif scope is None:
-                    rows.append([joint(nm, kind)])
-                else:
-                    lev = b.levels[scope]
-                    if scope in contrast:
-                        ref = sorted(set(bb.levels[scope] for bb in blocks))[0]
-                        base = joint(f"{nm}@{scope}={ref}", kind)
-                        self.coding[nm] = (scope, ref)
-                        if lev == ref:
-                            rows.append([base])
-                        else:
-                            rows.append([base, joint(f"{nm}@{scope}={lev}-{ref}", "id")])
-                    else:
-                        rows.append([joint(f"{nm}@{scope}={lev}", kind)])
-            self.rows.append(rows)
-        self.labels = labels
-        self.index = index
-        self.lower = np.array(lower)
-        self.size = len(labels)
-        # per block: the joint columns it uses and the local -> columns matrix
-        self.cols, self.A = [], []
-        for rows in self.rows:
-            cols = sorted({c for r in rows for c in r})
-            pos = {c: i for i, c in enumerate(cols)}
-            A = np.zeros((len(rows), len(cols)))
-            for i, r in enumerate(rows):
-                for c in r:
-                    A[i, pos[c]] = 1.0
-            self.cols.append(np.array(cols, dtype=int))
-            self.A.append(A)
-
-    # -- local coordinates <-> natural parameters ------------------------------------------
     def theta(self, c, jac=False):
-        """Natural parameters of a block from its local coordinates (and dθ/dc)."""
+        """Natural parameters from local coordinates ``c`` (and dθ/dc with ``jac``).
+
+        Parameters
+        ----------
+        c : ndarray
+            Local coordinates.
+        jac : bool, default=False
+            Also return dθ/dc.
+
+        Returns
+        -------
+        ndarray, or (ndarray, ndarray)
+            θ in the kinetics' order (and dθ/dc).
+        """
         p = len(self.names)
         th = np.empty(p)
         D = np.zeros((p, len(self.local))) if jac else None
@@ -151,15 +117,22 @@ class Layout:
             if jac:
                 for a in range(nf):
                     for b_ in range(min(a + 1, nf - 1)):
-                        if b_ < a:
-                            d = -fr[a] * s[b_]
-                        else:  # b_ == a < nf - 1
-                            d = fr[a] * (1.0 - s[a])
+                        d = -fr[a] * s[b_] if b_ < a else fr[a] * (1.0 - s[a])
                         D[self.frac_idx[a], sticks[b_]] = d
         return (th, D) if jac else th
 
     def local_from_theta(self, th):
-        """Local coordinates from natural parameters (the inverse of :meth:`theta`)."""
+        """Local coordinates from natural parameters (the inverse of :meth:`theta`).
+
+        Parameters
+        ----------
+        th : array-like
+            θ in the kinetics' order.
+
+        Returns
+        -------
+        ndarray
+        """
         c = np.empty(len(self.local))
         rem = 1.0
         for i, (_, kind, j) in enumerate(self.local):
@@ -173,6 +146,79 @@ class Layout:
             else:
                 c[i] = th[j]
         return c
+
+
+class Layout:
+    """Joint coordinates and, per block, how its local coordinates read them.
+
+    Blocks may have different kinetics (a one-pool plasma beside a chain for red cells):
+    each has its :class:`Shape`, and a shared name joins the parameters of that name in
+    every block that has it. A local coordinate is the sum of one or two joint coordinates
+    (two with contrast coding of a per-level parameter: reference level + difference).
+    """
+
+    def __init__(self, blocks, scopes, contrast=()):
+        self.blocks = blocks
+        self.scopes = scopes  # name -> None (all) or column
+        shapes = {}
+        self.shapes = []
+        for b in blocks:
+            key = (tuple(b.kin.param_names), tuple(b.kin.rate_names),
+                   tuple(b.kin.fraction_index), getattr(b.kin, "structure", "parallel"))
+            if key not in shapes:
+                shapes[key] = Shape(b.kin)
+            self.shapes.append(shapes[key])
+        names = []
+        for sh in self.shapes:
+            names += [nm for nm in sh.names if nm not in names]
+        self.names = tuple(names)  # every parameter name of any block, first seen first
+        self.rate_names = set().union(*(sh.rate_names for sh in self.shapes))
+        labels, index, lower = [], {}, []
+
+        def joint(label, kind):
+            if label not in index:
+                index[label] = len(labels)
+                labels.append(label)
+                lower.append(0.0 if kind == "lag" else -np.inf)
+            return index[label]
+
+        self.rows = []  # per block: list of lists of joint indices (one list per local coord)
+        for b, sh in zip(blocks, self.shapes):
+            rows = []
+            for nm, kind, _ in sh.local:
+                pname = "f" if kind == "stick" else nm
+                scope = scopes.get(pname, False)
+                if scope is False:
+                    rows.append([joint(f"{nm}@{b.label}", kind)])
+                elif scope is None:
+                    rows.append([joint(nm, kind)])
+                else:
+                    lev = b.levels[scope]
+                    if scope in contrast:
+                        ref = sorted(set(bb.levels[scope] for bb in blocks))[0]
+                        base = joint(f"{nm}@{scope}={ref}", kind)
+                        if lev == ref:
+                            rows.append([base])
+                        else:
+                            rows.append([base, joint(f"{nm}@{scope}={lev}-{ref}", "id")])
+                    else:
+                        rows.append([joint(f"{nm}@{scope}={lev}", kind)])
+            self.rows.append(rows)
+        self.labels = labels
+        self.index = index
+        self.lower = np.array(lower)
+        self.size = len(labels)
+        # per block: the joint columns it uses and the local -> columns matrix
+        self.cols, self.A = [], []
+        for rows in self.rows:
+            cols = sorted({c for r in rows for c in r})
+            pos = {c: i for i, c in enumerate(cols)}
+            A = np.zeros((len(rows), len(cols)))
+            for i, r in enumerate(rows):
+                for c in r:
+                    A[i, pos[c]] = 1.0
+            self.cols.append(np.array(cols, dtype=int))
+            self.A.append(A)
 
 
 class Joint:
@@ -195,7 +241,7 @@ class Joint:
 
     def block_theta(self, z, k, jac=False):
         c = self.L.A[k] @ z[self.L.cols[k]]
-        return self.L.theta(c, jac)
+        return self.L.shapes[k].theta(c, jac)
 
     def raw(self, z, k):
         """Model − data of block k divided by its relative σ (no variance scale)."""

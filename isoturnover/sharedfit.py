@@ -81,7 +81,7 @@ _MODEL_OPTIONS = ("structure", "lag", "separation", "scale", "isotope", "initial
 # public entry points
 # ----------------------------------------------------------------------------------------
 def fit_shared(samples, *, pools=1, shared=("k1",), by="subject", diets=None,
-               variance="auto", **options):
+               variance="auto", models=None, model_by="tissue", **options):
     r"""Fit several series at once with some parameters common to all (or to groups).
 
     Parameters
@@ -104,6 +104,16 @@ def fit_shared(samples, *, pools=1, shared=("k1",), by="subject", diets=None,
         Residual variance per block (estimated by maximum likelihood with the parameters)
         or one for all; ``"auto"``: per block when every block has at least two points
         more than its own parameters.
+    models : dict, optional
+        A model per level of ``model_by``: level → options of
+        :class:`~isoturnover.TurnoverModel` (``pools`` and those below) that replace the
+        common ones for the series of that level. A measured precursor and its product:
+        ``models={"plasma": {"pools": 1}, "red_cells": {"structure": "chain"}}`` with
+        ``shared=("k1",)`` makes the chain's first step the plasma's own rate, so the
+        chain's two rates (which the product alone cannot tell apart: its response is
+        symmetric in them) become identifiable.
+    model_by : str, default="tissue"
+        Column whose levels ``models`` names.
     **options
         Options of :class:`~isoturnover.TurnoverModel`: ``structure``, ``lag``,
         ``separation``, ``scale``, ``isotope``, ``initial``, ``per_diet_separation``.
@@ -131,16 +141,32 @@ def fit_shared(samples, *, pools=1, shared=("k1",), by="subject", diets=None,
         raise DataError(f"fit_shared needs at least two series (blocks by {', '.join(by)}); "
                         f"got {len(groups)}")
     model_options = dict(options)
-    blocks, models = [], []
-    probe = TurnoverModel(pools, diet=diet_of(diets, tuple(groups[0][0]) if isinstance(
-        groups[0][0], tuple) else (groups[0][0],)), **model_options).kinetics
-    scopes = parse_shared(shared, probe.param_names, frame, by)
-    scope_cols = sorted({c for c in scopes.values() if c is not None})
+    per_level = _check_models(models, model_by, frame)
+    built = []  # (key, sub, model)
     for key, sub in groups:
         key = key if isinstance(key, tuple) else (key,)
         for col in ("tissue", "isotope"):
             if col in sub.columns and sub[col].astype(str).nunique() > 1:
                 raise DataError(f"the series {key!r} holds several {col}s; add {col!r} to 'by'")
+        opts = dict(model_options)
+        if per_level:
+            lev = sub[model_by].astype(str).unique()
+            if len(lev) != 1:
+                raise DataError(f"'model_by': column {model_by!r} must be constant within each "
+                                f"series; series {key!r} has {', '.join(lev)}")
+            opts.update(per_level.get(lev[0], {}))
+        n_pools = opts.pop("pools", pools)
+        m = TurnoverModel(n_pools, diet=diet_of(diets, key), **opts)
+        if m.kinetics.growth_kind is not None:
+            raise DataError("fit_shared does not fit growth dilution")
+        built.append((key, sub.sort_values("time", kind="stable"), m))
+    names = []
+    for _, _, m in built:
+        names += [nm for nm in m.kinetics.param_names if nm not in names]
+    scopes = parse_shared(shared, tuple(names), frame, by)
+    scope_cols = sorted({c for c in scopes.values() if c is not None})
+    blocks, models = [], []
+    for key, sub, m in built:
         levels = {}
         for col in scope_cols:
             vals = sub[col].astype(str).unique()
@@ -148,27 +174,40 @@ def fit_shared(samples, *, pools=1, shared=("k1",), by="subject", diets=None,
                 raise DataError(f"'shared': column {col!r} must be constant within each "
                                 f"series; series {key!r} has {', '.join(vals)}")
             levels[col] = vals[0]
-        sub = sub.sort_values("time", kind="stable")
         sd = None
         if "sd" in sub.columns and sub["sd"].notna().all():
             sd = sub["sd"].to_numpy(float)
-        m = TurnoverModel(pools, diet=diet_of(diets, key), **model_options)
-        kin = m.kinetics
-        if kin.param_names != probe.param_names:
-            raise DataError(f"the series {key!r} has the parameters "
-                            f"{', '.join(kin.param_names)}, others "
-                            f"{', '.join(probe.param_names)}: shared fits need one layout "
-                            "(give every series diet histories of the same shape)")
-        if kin.growth_kind is not None:
-            raise DataError("fit_shared does not fit growth dilution")
-        blocks.append(Block(key, key_label(key), kin, sub["time"].to_numpy(float),
-                             sub["value"].to_numpy(float), sd, levels))
+        blocks.append(Block(key, key_label(key), m.kinetics, sub["time"].to_numpy(float),
+                            sub["value"].to_numpy(float), sd, levels))
         models.append(m)
     labels = [b.label for b in blocks]
     if len(set(labels)) != len(labels):
         raise DataError("two series have the same label after cleaning their keys "
                         f"({', '.join(labels)})")
     return _fit(blocks, models, scopes, by, unit, variance, pools, model_options)
+
+
+def _check_models(models, model_by, frame):
+    """``models`` checked: level (text) -> options of TurnoverModel (with ``pools``)."""
+    if models is None:
+        return {}
+    if not isinstance(models, dict) or not models:
+        raise DataError(f"'models' must be a dict level -> model options; got {models!r:.80}")
+    if not isinstance(model_by, str) or model_by not in frame.columns:
+        raise DataError(f"'model_by': column {model_by!r} is not in the samples table")
+    known = set(frame[model_by].astype(str))
+    out = {}
+    for lev, opts in models.items():
+        if str(lev) not in known:
+            raise DataError(f"'models': {model_by} {lev!r} is not in the samples table "
+                            f"({', '.join(sorted(known))})")
+        if not isinstance(opts, dict):
+            raise DataError(f"'models[{lev!r}]' must be a dict of model options")
+        bad = sorted(set(opts) - set(_MODEL_OPTIONS) - {"pools"})
+        if bad:
+            raise DataError(f"'models[{lev!r}]': unknown option(s) {', '.join(bad)}")
+        out[str(lev)] = dict(opts)
+    return out
 
 
 def _fit(blocks, models, scopes, by, unit, variance, pools, model_options, contrast=(),
@@ -199,48 +238,51 @@ def _is_shared(layout, j):
 
 
 def _start(problem, models):
-    """Starting coordinates: each block fitted alone, shared coordinates their median."""
+    """Starting coordinates: each block fitted alone; a shared coordinate the mean of its
+    blocks' values; a block that cannot be fitted alone takes the median of the blocks of
+    its kind (or, when none can, one fit to their points pooled)."""
     L = problem.L
-    local = []
-    separate = []
-    for b, m in zip(problem.blocks, models):
+    local, separate = [], []
+    for k, (b, m) in enumerate(zip(problem.blocks, models)):
+        sh = L.shapes[k]
         try:
             f = m.fit(b.t, b.y, b.sd if b.has_sd else None, warn=False)
-            th = np.array([f.params[nm].value for nm in L.names])
-            local.append(L.local_from_theta(th))
+            th = np.array([f.params[nm].value for nm in sh.names])
+            local.append(sh.local_from_theta(th))
             separate.append(f)
         except (DataError, FitError):
             local.append(None)
             separate.append(None)
-    good = [c for c in local if c is not None]
-    if good:
-        med = np.median(np.array(good), axis=0)
-    else:  # blocks too short to fit alone (one animal per time): the pooled series
-        med = _pooled_start(problem, models[0])
+    for k, c in enumerate(local):
+        if c is not None:
+            continue
+        same = [j for j, sh in enumerate(L.shapes) if sh is L.shapes[k]]
+        good = [local[j] for j in same if local[j] is not None]
+        local[k] = np.median(np.array(good), axis=0) if good else \
+            _pooled_start(problem, models[k], same)
     sums = np.zeros(L.size)
     counts = np.zeros(L.size)
     for k, c in enumerate(local):
-        c = med if c is None else c
         for i, rows in enumerate(L.rows[k]):
             if len(rows) == 1:
                 sums[rows[0]] += c[i]
                 counts[rows[0]] += 1
     z = np.where(counts > 0, sums / np.maximum(counts, 1), 0.0)
-    for k, c in enumerate(local):  # contrast coordinates: difference of the medians
-        c = med if c is None else c
+    for k, c in enumerate(local):  # contrast coordinates: difference to the reference
         for i, rows in enumerate(L.rows[k]):
             if len(rows) == 2:
                 z[rows[1]] = c[i] - z[rows[0]]
     return np.maximum(z, L.lower), separate
 
 
-def _pooled_start(problem, model):
-    """Local coordinates of one fit to every block's points pooled (as one series)."""
-    t = np.concatenate([b.t for b in problem.blocks])
-    y = np.concatenate([b.y for b in problem.blocks])
-    sd = np.concatenate([b.sd for b in problem.blocks])
+def _pooled_start(problem, model, blocks):
+    """Local coordinates of one fit to the points of ``blocks`` pooled (as one series)."""
+    bl = [problem.blocks[k] for k in blocks]
+    t = np.concatenate([b.t for b in bl])
+    y = np.concatenate([b.y for b in bl])
+    sd = np.concatenate([b.sd for b in bl])
     order = np.argsort(t, kind="stable")
-    has_sd = all(b.has_sd for b in problem.blocks)
+    has_sd = all(b.has_sd for b in bl)
     try:
         with warnings.catch_warnings():  # repeated times are expected here (several blocks)
             warnings.simplefilter("ignore", DataWarning)
@@ -248,8 +290,9 @@ def _pooled_start(problem, model):
     except (DataError, FitError):
         raise FitError("no series could be fitted alone, nor all of them pooled, to start "
                        "the shared fit") from None
-    th = np.array([f.params[nm].value for nm in problem.L.names])
-    return problem.L.local_from_theta(th)
+    sh = problem.L.shapes[blocks[0]]
+    th = np.array([f.params[nm].value for nm in sh.names])
+    return sh.local_from_theta(th)
 
 
 # ----------------------------------------------------------------------------------------
@@ -349,13 +392,13 @@ class SharedFit:
 
     # -- basic quantities -----------------------------------------------------------------
     def _check_order(self):
-        L = self._L
-        rates = [nm for nm, kind, _ in L.local if kind == "log"]
-        if len(rates) < 2 or self.model_options.get("structure", "parallel") == "chain":
-            return
-        idx = [L.names.index(nm) for nm in rates]
-        bad = [b.label for k, b in enumerate(self._p.blocks)
-               if np.any(np.diff(self._p.block_theta(self.z, k)[idx]) > 0)]
+        bad = []
+        for k, b in enumerate(self._p.blocks):
+            sh = self._L.shapes[k]
+            idx = [j for _, kind, j in sh.local if kind == "log"]
+            if len(idx) >= 2 and not sh.chain and \
+                    np.any(np.diff(self._p.block_theta(self.z, k)[idx]) > 0):
+                bad.append(b.label)
         if bad:
             self.warnings.append("in these series the pools are not ordered fastest first "
                                  f"(a shared rate sits between their own): {', '.join(bad)}")
@@ -418,13 +461,13 @@ class SharedFit:
     # -- parameters -----------------------------------------------------------------------
     def _param_entries(self):
         """(name, scope label, block index of a representative, natural index)."""
-        L = self._L
         out, seen = [], set()
         for k, b in enumerate(self._p.blocks):
-            for j, nm in enumerate(L.names):
-                if j in L.frac_idx and len(L.frac_idx) == 1:
+            sh = self._L.shapes[k]
+            for j, nm in enumerate(sh.names):
+                if j in sh.frac_idx and len(sh.frac_idx) == 1:
                     continue  # one pool: f1 = 1, not a parameter
-                if j in L.frac_idx:
+                if j in sh.frac_idx:
                     scope = self.scopes.get("f", False)
                 else:
                     scope = self.scopes.get(nm, False)
@@ -502,16 +545,16 @@ class SharedFit:
 
     def _single_coordinate(self, k, j):
         """The joint coordinate that alone sets natural parameter j (or None)."""
-        L = self._L
-        nm = L.names[j]
-        if j in L.frac_idx:
-            if len(L.frac_idx) != 2 or L.frac_idx.index(j) != 0:
+        sh = self._L.shapes[k]
+        nm = sh.names[j]
+        if j in sh.frac_idx:
+            if len(sh.frac_idx) != 2 or sh.frac_idx.index(j) != 0:
                 return None
-            i = next(i for i, (_, kind, _x) in enumerate(L.local) if kind == "stick")
+            i = next(i for i, (_, kind, _x) in enumerate(sh.local) if kind == "stick")
         else:
-            i = next(i for i, (n2, _k, _x) in enumerate(L.local) if n2 == nm)
-        rows = L.rows[k][i]
-        return (rows[0], L.local[i][1]) if len(rows) == 1 else None
+            i = next(i for i, (n2, _k, _x) in enumerate(sh.local) if n2 == nm)
+        rows = self._L.rows[k][i]
+        return (rows[0], sh.local[i][1]) if len(rows) == 1 else None
 
     def _interval(self, nm, lab, k, j, level, method):
         key = (nm, lab, level, method)
@@ -628,8 +671,9 @@ class SharedFit:
         for k, b in enumerate(self._p.blocks):
             th = self._p.block_theta(self.z, k)
             row = dict(zip(self.by, b.key))
-            row.update({nm: float(v) for j, (nm, v) in enumerate(zip(self._L.names, th))
-                        if not (j in self._L.frac_idx and len(self._L.frac_idx) == 1)})
+            sh = self._L.shapes[k]
+            row.update({nm: float(v) for j, (nm, v) in enumerate(zip(sh.names, th))
+                        if not (j in sh.frac_idx and len(sh.frac_idx) == 1)})
             row.update({"n": b.n, "rss": rb[k],
                         "residual_sd": math.sqrt(rb[k] / max(b.n, 1))
                         if self.variance == "per_block" else
@@ -684,7 +728,8 @@ class SharedFit:
         if any(f is None for f in self._separate):
             raise FitError("a series could not be fitted alone; the separate model is not "
                            "available")
-        short = [b.label for b in self._p.blocks if b.n <= len(self._L.local) + 1]
+        short = [b.label for k, b in enumerate(self._p.blocks)
+                 if b.n <= len(self._L.shapes[k].local) + 1]
         if self.variance == "per_block" and short:
             raise FitError("fitted alone with a variance of their own, these series have no "
                            f"residual degrees of freedom: {', '.join(short)}")
@@ -706,8 +751,9 @@ class SharedFit:
         L = Layout(self._p.blocks, {})
         z = np.zeros(L.size)
         for k, f in enumerate(self._separate):
-            th = np.array([f.params[nm].value for nm in L.names])
-            c = L.local_from_theta(th)
+            sh = L.shapes[k]
+            th = np.array([f.params[nm].value for nm in sh.names])
+            c = sh.local_from_theta(th)
             for i, rows in enumerate(L.rows[k]):
                 z[rows[0]] = c[i]
         return np.maximum(z, L.lower)

@@ -246,3 +246,39 @@ def test_profile_interval_of_a_shared_rate_covers_the_truth():
         row = iso.fit_shared(df, shared=("k1",)).conf_int().query("parameter == 'k1'").iloc[0]
         hits += row["lower"] <= 0.05 <= row["upper"]
     assert 0.90 <= hits / n <= 0.99
+
+
+def _chain_product(t, k1, k2, d0, de):
+    # product of a two-step chain after a step switch (written by hand):
+    # 1 - (k1 e^{-k2 t} - k2 e^{-k1 t}) / (k1 - k2) of the change is done at t
+    done = 1 - (k1 * np.exp(-k2 * t) - k2 * np.exp(-k1 * t)) / (k1 - k2)
+    return d0 + (de - d0) * done
+
+
+def test_a_measured_precursor_makes_the_chain_rates_identifiable():
+    # invented: plasma (one pool, 0.2 /d) feeds red cells (a chain whose first step is the
+    # plasma's own turnover, second step 0.02 /d); both sampled in four animals
+    rng = np.random.default_rng(12)
+    t = np.array([0.0, 1, 2, 4, 7, 10, 14, 21, 28, 42, 56, 84, 112, 140])
+    rows = []
+    for a in range(4):
+        d0, de = -22 + rng.normal(0, 0.3), -15 + rng.normal(0, 0.3)
+        plasma = de + (d0 - de) * np.exp(-0.2 * t) + rng.normal(0, 0.15, t.size)
+        cells = _chain_product(t, 0.2, 0.02, d0 - 0.5, de - 0.5) + rng.normal(0, 0.15, t.size)
+        for tis, y in (("plasma", plasma), ("red_cells", cells)):
+            rows += [{"subject": f"R{a}", "tissue": tis, "isotope": "d13C", "time": ti,
+                      "value": yi} for ti, yi in zip(t, y)]
+    df = pd.DataFrame(rows)
+    fit = iso.fit_shared(df, by=("subject", "tissue"), shared=("k1", "k2"),
+                         models={"plasma": {"pools": 1}, "red_cells": {"structure": "chain"}})
+    ps = fit.params
+    assert ps["k1"].value == pytest.approx(0.2, rel=0.1)
+    assert ps["k2"].value == pytest.approx(0.02, rel=0.1)
+    ci = fit.conf_int().set_index("parameter").loc[["k1", "k2"]]
+    assert (ci["lower"] < [0.2, 0.02]).all() and (ci["upper"] > [0.2, 0.02]).all()
+    assert (ci["method"] == "profile").all()
+    # the plasma blocks have no k2; the chain blocks have no pool fraction
+    tab = fit.table().set_index(["subject", "tissue"])
+    assert np.isnan(tab.loc[("R0", "plasma"), "k2"])
+    with pytest.raises(iso.DataError, match="'models'"):
+        iso.fit_shared(df, by=("subject", "tissue"), models={"bone": {"pools": 1}})
