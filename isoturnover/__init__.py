@@ -35,6 +35,7 @@ from .groups import FitSet, fit_each
 from .growth import GrowthCurve
 from .growthfit import GrowthFit, fit_growth, fit_growth_each, load_growth
 from .model import TurnoverModel, fit_power_dilution
+from .plotplan import plot_design
 from .population import population_estimate, random_effects
 from .progress import reaction_progress
 from .report import write_report
@@ -80,6 +81,7 @@ __all__ = [
     "SimulationResult",
     "sample_size",
     "SampleSize",
+    "plot_design",
     "read_samples",
     "read_diets",
     "read_masses",

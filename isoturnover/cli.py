@@ -17,6 +17,29 @@ import argparse
 import sys
 import warnings
 
+from .cliargs import (
+    parse_baseline,
+    parse_column_map,
+    parse_count,
+    parse_date_format,
+    parse_delta,
+    parse_fix,
+    parse_fraction,
+    parse_fractions,
+    parse_growth_curve,
+    parse_jobs,
+    parse_kinetics_list,
+    parse_level,
+    parse_n_sim,
+    parse_non_negative,
+    parse_pool_count,
+    parse_pools,
+    parse_positive,
+    parse_positive_int,
+    parse_time_unit,
+    parse_times,
+)
+
 EXIT_ERROR = 2
 
 
@@ -26,298 +49,6 @@ class _Parser(argparse.ArgumentParser):
 
     def error(self, message):
         self.exit(EXIT_ERROR, f"error: {message} (see {self.prog} --help)\n")
-
-
-def _jobs(text):
-    """Parse ``--jobs N``: a positive integer, or -1 for all cores.
-
-    Parameters
-    ----------
-    text : str
-        The argument as typed.
-
-    Returns
-    -------
-    int
-        The number of parallel workers (-1: all cores).
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        When ``text`` is not such a number (argparse turns it into one ``error:`` line).
-    """
-    from .conventions import check_n_jobs
-
-    try:
-        return check_n_jobs(int(text), "--jobs")
-    except ValueError:  # not a number, or refused by check_n_jobs (a DataError)
-        raise argparse.ArgumentTypeError(
-            f"must be a positive integer (number of parallel workers) or -1 (all cores); "
-            f"got {text!r}") from None
-
-
-def _fail(text, what):
-    raise argparse.ArgumentTypeError(f"{what}; got {text!r}")
-
-
-def _pools(text):
-    """Parse ``--pools 1,2,3``: distinct numbers of parallel pools, each from 1 to 4.
-
-    Parameters
-    ----------
-    text : str
-        The argument as typed.
-
-    Returns
-    -------
-    tuple of int
-        The numbers of pools to try.
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        When ``text`` is not such a list.
-    """
-    from .kinetics import MAX_POOLS
-
-    what = f"must be distinct numbers of pools from 1 to {MAX_POOLS}, such as 1,2"
-    try:
-        pools = tuple(int(x) for x in text.split(","))
-    except ValueError:
-        _fail(text, what)
-    if not pools or len(set(pools)) < len(pools) or not all(1 <= n <= MAX_POOLS
-                                                            for n in pools):
-        _fail(text, what)
-    return pools
-
-
-def _positive_int(text):
-    """Parse a whole number >= 1 (``--n-boot``).
-
-    Parameters
-    ----------
-    text : str
-        The argument as typed.
-
-    Returns
-    -------
-    int
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        When ``text`` is not a whole number >= 1.
-    """
-    try:
-        n = int(text)
-    except ValueError:
-        n = 0
-    if n < 1:
-        _fail(text, "must be a whole number >= 1")
-    return n
-
-
-def _level(text):
-    """Parse ``--level``: a confidence level strictly between 0 and 1.
-
-    Parameters
-    ----------
-    text : str
-        The argument as typed (``0.95``).
-
-    Returns
-    -------
-    float
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        When ``text`` is not a number in (0, 1).
-    """
-    try:
-        v = float(text)
-    except ValueError:
-        v = float("nan")
-    if not 0 < v < 1:
-        _fail(text, "must be a number between 0 and 1, such as 0.95")
-    return v
-
-
-def _time_unit(text):
-    """Parse ``--time-unit``: d, h or w (day(s), hour(s), week(s) also read).
-
-    Parameters
-    ----------
-    text : str
-        The argument as typed.
-
-    Returns
-    -------
-    str
-        The unit's code, ``"d"``, ``"h"`` or ``"w"``.
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        For another unit.
-    """
-    code = {"d": "d", "day": "d", "days": "d", "h": "h", "hour": "h", "hours": "h",
-            "w": "w", "week": "w", "weeks": "w"}.get(text.strip().lower())
-    if code is None:
-        _fail(text, "must be d, h or w (days, hours, weeks)")
-    return code
-
-
-def _date_format(text):
-    """Parse ``--date-format``: a strptime format with % directives (``%d/%m/%Y``).
-
-    Parameters
-    ----------
-    text : str
-        The argument as typed.
-
-    Returns
-    -------
-    str
-        ``text`` unchanged.
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        When ``text`` has no % directive.
-    """
-    if "%" not in text:
-        _fail(text, "must be a format such as %d/%m/%Y (day first) or %m/%d/%Y "
-                    "(month first), with % directives")
-    return text
-
-
-def _growth_curve(text):
-    """Parse ``--growth-curve``: the name of a growth curve of the library.
-
-    Parameters
-    ----------
-    text : str
-        The argument as typed.
-
-    Returns
-    -------
-    str
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        For a name that is not among :data:`~isoturnover.growthlaws.CURVES`.
-    """
-    from .growthlaws import CURVES
-
-    if text not in CURVES:
-        _fail(text, f"must be one of {', '.join(CURVES)}")
-    return text
-
-
-def _pairs(text, example):
-    """``a=b,c=d`` as a list of (a, b) text pairs; an ArgumentTypeError naming ``example``."""
-    out = []
-    for item in text.split(","):
-        name, eq, value = item.partition("=")
-        if not eq or not name.strip() or not value.strip():
-            _fail(text, f"must be NAME=VALUE pairs separated by commas, such as {example}")
-        out.append((name.strip(), value.strip()))
-    if len({n for n, _ in out}) < len(out):
-        _fail(text, f"names one thing twice (pairs such as {example})")
-    return out
-
-
-def _column_map(allowed, example):
-    """A parser of ``--columns``-style options: ``canonical=yours,...`` to the readers'
-    mapping ``{yours: canonical}``, canonical names among ``allowed``."""
-
-    def parse(text):
-        mapping = {}
-        for canonical, yours in _pairs(text, example):
-            if canonical not in allowed:
-                _fail(text, f"{canonical!r} is not a column name of the table; names: "
-                            f"{', '.join(allowed)} (pairs such as {example})")
-            if yours in mapping:
-                _fail(text, f"maps your column {yours!r} twice")
-            mapping[yours] = canonical
-        return mapping
-
-    parse.__doc__ = f"Parse a column mapping such as {example}."
-    return parse
-
-
-def _fix(text):
-    """Parse ``--fix delta0=-25,lag=0``: parameters held at given values.
-
-    Parameters
-    ----------
-    text : str
-        The argument as typed.
-
-    Returns
-    -------
-    dict of str to float
-        Parameter name -> value (in the parameter's unit: ‰ for levels, 1/time for
-        rates).
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        For a malformed pair or a value that is not a finite number.
-    """
-    import math
-
-    out = {}
-    for name, value in _pairs(text, "delta0=-25,lag=0"):
-        try:
-            out[name] = float(value)
-        except ValueError:
-            _fail(text, f"the value of {name} is not a number")
-        if not math.isfinite(out[name]):
-            _fail(text, f"the value of {name} is not a finite number")
-    return out
-
-
-def _baseline(text):
-    """Parse ``--baseline``: δ (‰) of the unenriched material, one number or one per isotope.
-
-    Parameters
-    ----------
-    text : str
-        ``-25.5`` or ``d13C=-25.5,d15N=6``.
-
-    Returns
-    -------
-    float or dict of str to float
-        δ in ‰ (one for all isotopes, or isotope code -> δ).
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        When a value is not a finite number.
-    """
-    import math
-
-    if "=" not in text:
-        try:
-            v = float(text)
-        except ValueError:
-            v = float("nan")
-        if not math.isfinite(v):
-            _fail(text, "must be a δ value in per mil, such as -25.5, or one per isotope, "
-                        "such as d13C=-25.5,d15N=6")
-        return v
-    out = {}
-    for code, value in _pairs(text, "d13C=-25.5,d15N=6"):
-        try:
-            out[code] = float(value)
-        except ValueError:
-            _fail(text, f"the value for {code} is not a number")
-        if not math.isfinite(out[code]):
-            _fail(text, f"the value for {code} is not a finite number")
-    return out
 
 
 def _add_common(p):
@@ -338,7 +69,8 @@ def _formatter(prog):
 
 
 def build_parser() -> argparse.ArgumentParser:
-    """The parser of the ``isoturnover`` command and its sub-commands ``demo`` and ``fit``.
+    """The parser of the ``isoturnover`` command and its sub-commands ``demo``, ``fit``
+    and ``plan``.
 
     Returns
     -------
@@ -367,7 +99,7 @@ def build_parser() -> argparse.ArgumentParser:
                        formatter_class=_formatter,
                        description="Fit the invented demo experiment (goats, breath, fish) "
                        "and write results, figures and a report.")
-    d.add_argument("--jobs", metavar="N", type=_jobs, default=1,
+    d.add_argument("--jobs", metavar="N", type=parse_jobs, default=1,
                    help="parallel worker processes (-1: all cores; default 1)")
     _add_common(d)
 
@@ -381,17 +113,17 @@ def build_parser() -> argparse.ArgumentParser:
     a("samples", metavar="SAMPLES", help="samples table (CSV or .xlsx)")
     a("--diets", metavar="F", help="diets table: group or subject, isotope, start, value")
     a("--masses", metavar="F", help="body masses: subject, time (or date), mass")
-    a("--columns", metavar="MAP", type=_column_map(SAMPLE_COLUMNS, "subject=animal,time=day"),
+    a("--columns", metavar="MAP", type=parse_column_map(SAMPLE_COLUMNS, "subject=animal,time=day"),
       help="samples column names, e.g. subject=animal,time=day")
-    a("--diet-columns", metavar="MAP", type=_column_map(DIET_COLUMNS, "group=pen,start=day"),
+    a("--diet-columns", metavar="MAP", type=parse_column_map(DIET_COLUMNS, "group=pen,start=day"),
       help="diets column names, e.g. group=pen,start=day")
-    a("--mass-columns", metavar="MAP", type=_column_map(MASS_COLUMNS, "mass=weight_kg"),
+    a("--mass-columns", metavar="MAP", type=parse_column_map(MASS_COLUMNS, "mass=weight_kg"),
       help="masses column names, e.g. subject=animal,mass=weight_kg")
     a("--mass-unit", metavar="UNIT", default=None,
       help="unit of the body masses for the figures and report, e.g. kg")
-    a("--time-unit", metavar="UNIT", type=_time_unit, default="d",
+    a("--time-unit", metavar="UNIT", type=parse_time_unit, default="d",
       help="time unit of the tables: d, h or w (default d)")
-    a("--date-format", metavar="FMT", type=_date_format, default=None,
+    a("--date-format", metavar="FMT", type=parse_date_format, default=None,
       help="how non-ISO dates are written, e.g. %%d/%%m/%%Y")
     a("--switch-date", metavar="DATE", default=None,
       help="diet-switch date of every row when the tables hold dates")
@@ -399,11 +131,11 @@ def build_parser() -> argparse.ArgumentParser:
       help="switch date per group: a table F, a samples column, or diets")
     a("--unit", metavar="UNIT", choices=VALUE_UNITS, default="delta",
       help="unit of value: delta (default), atom_percent, atom_percent_excess")
-    a("--baseline", metavar="DELTA", type=_baseline, default=None,
+    a("--baseline", metavar="DELTA", type=parse_baseline, default=None,
       help="δ (‰) before enrichment, for atom_percent_excess (or d13C=X,...)")
     a("--by", metavar="COLS", default=None,
       help="series keys (default subject,tissue,isotope)")
-    a("--pools", metavar="LIST", type=_pools, default=(1, 2),
+    a("--pools", metavar="LIST", type=parse_pools, default=(1, 2),
       help="numbers of parallel pools to try (default 1,2)")
     a("--chain", action="store_true", help="also try a two-step precursor-product chain")
     a("--lag", action="store_true", help="fit a delay after each switch")
@@ -413,27 +145,95 @@ def build_parser() -> argparse.ArgumentParser:
       choices=("auto", "yes", "no"), help="one separation per diet: auto (default), yes, no")
     a("--initial-state", metavar="STATE", choices=("equilibrium", "free"),
       default="equilibrium", help="at equilibrium with the first diet (default), or free")
-    a("--fix", metavar="VALUES", type=_fix, default=None,
+    a("--fix", metavar="VALUES", type=parse_fix, default=None,
       help="hold parameters at values, e.g. delta0=-25,lag=0")
     a("--known-sd", action="store_true", help="take the sd column as known analytic error")
     a("--loss", metavar="LOSS", choices=LOSSES, default="linear",
       help="linear (default), or soft_l1 or huber (robust to outliers)")
     a("--criterion", metavar="NAME", choices=CRITERIA, default="aicc",
       help="model choice: aicc (default), aic or bic")
-    a("--growth-curve", metavar="NAME", type=_growth_curve, default="logistic",
+    a("--growth-curve", metavar="NAME", type=parse_growth_curve, default="logistic",
       help="growth curve fitted to --masses (default logistic)")
     a("--ci", metavar="METHOD", default="profile", choices=("profile", "asymptotic",
                                                              "bootstrap"),
       help="intervals: profile (default), asymptotic or bootstrap")
-    a("--n-boot", metavar="N", type=_positive_int, default=499,
+    a("--n-boot", metavar="N", type=parse_positive_int, default=499,
       help="bootstrap replicates with --ci bootstrap (default 499)")
-    a("--level", metavar="P", type=_level, default=0.95,
+    a("--level", metavar="P", type=parse_level, default=0.95,
       help="confidence level (default 0.95)")
-    a("--jobs", metavar="N", type=_jobs, default=1,
+    a("--jobs", metavar="N", type=parse_jobs, default=1,
       help="parallel worker processes (-1: all cores; default 1)")
     _add_common(f)
-    p.commands = {"demo": d, "fit": f}
+    p.commands = {"demo": d, "fit": f, "plan": _plan_parser(sub, common)}
     return p
+
+
+def _plan_parser(sub, common):
+    """The parser of ``plan``: a sampling schedule for a guess of the kinetics."""
+    from .design import CRITERIA, SD_GUIDANCE
+
+    g = sub.add_parser(
+        "plan", parents=[common], help="plan the sampling times of a diet-switch experiment",
+        formatter_class=_formatter,
+        description="Choose when to sample a diet-switch experiment (and on how many "
+        "animals) for a guess of the kinetics: the D-optimal or c-optimal schedule, its "
+        "expected precision, and optionally a check by simulated experiments. Prints the plan; "
+        "--out also writes plan.csv, plan.md and plan.png. " + SD_GUIDANCE + " A plan is a "
+        "proposal to put before the local animal-care authority (human hair or blood: a "
+        "human-research ethics board); it supports that approval and does not replace it.")
+    a = g.add_argument
+    a("--pools", metavar="N", type=parse_pool_count, default=None,
+      help="parallel pools (default: one per --half-lives value)")
+    a("--chain", action="store_true", help="a two-step precursor-product chain instead")
+    a("--lag", metavar="T", type=parse_positive, default=None,
+      help="guessed delay after the switch (time unit); estimated by the fit")
+    a("--half-lives", metavar="LIST", type=parse_kinetics_list, default=None,
+      help="guessed half-lives, one per pool or chain step, e.g. 3,30")
+    a("--rates", metavar="LIST", type=parse_kinetics_list, default=None,
+      help="guessed rates per time unit instead of --half-lives, e.g. 0.23,0.023")
+    a("--fractions", metavar="LIST", type=parse_fractions, default=None,
+      help="pool fractions in the order of the half-lives, e.g. 0.4,0.6")
+    a("--from", dest="delta_from", metavar="DELTA", type=parse_delta, required=True,
+      help="δ (‰) of the tissue before the switch, e.g. -22 (required)")
+    a("--to", dest="delta_to", metavar="DELTA", type=parse_delta, required=True,
+      help="δ (‰) the tissue tends to on the new diet, e.g. -14 (required)")
+    a("--samples", metavar="N", type=parse_positive_int, required=True,
+      help="total samples, baseline and fixed times included (required)")
+    a("--duration", metavar="T", type=parse_positive, required=True,
+      help="sampling span after the switch, in the time unit (required)")
+    a("--time-unit", metavar="UNIT", type=parse_time_unit, default="d",
+      help="time unit of half-lives, lag and times: d, h or w (default d)")
+    a("--sd", metavar="SD", type=parse_positive, required=True,
+      help="total residual sd of one sample, ‰ (required; see above)")
+    a("--criterion", metavar="NAME", choices=CRITERIA, default="D",
+      help="D (default), half_life (of --pool) or time_to (--fraction)")
+    a("--pool", metavar="K", type=parse_positive_int, default=None,
+      help="pool whose half-life is the target, 1 = fastest (default slowest)")
+    a("--fraction", metavar="P", type=parse_fraction, default=None,
+      help="fraction of the change for --criterion time_to (default 0.95)")
+    a("--prior-cv", metavar="CV", type=parse_positive, default=None,
+      help="average over a log-normal prior on the rates with this cv, e.g. 0.5")
+    a("--baseline", metavar="N", type=parse_count, default=1,
+      help="samples before the switch (default 1)")
+    a("--fixed-times", metavar="LIST", type=parse_times, default=(),
+      help="times that must be in the plan, e.g. 7,14")
+    a("--min-spacing", metavar="T", type=parse_non_negative, default=0.0,
+      help="smallest gap between sampling times, time unit (default 0)")
+    a("--max-per-animal", metavar="N", type=parse_positive_int, default=None,
+      help="most samples one animal can give (blood-volume limit)")
+    a("--destructive", action="store_true", help="one animal per sample (destructive sampling)")
+    a("--level", metavar="P", type=parse_level, default=0.95,
+      help="level of the reported half-width (default 0.95)")
+    a("--simulate", metavar="N", type=parse_n_sim, default=None,
+      help="check the plan by N simulated experiments (e.g. 200)")
+    a("--seed", metavar="S", type=parse_count, default=None,
+      help="seed of --simulate (default 0)")
+    a("--jobs", metavar="N", type=parse_jobs, default=None,
+      help="parallel worker processes of --simulate (-1: all cores; default 1)")
+    a("--out", metavar="DIR", default=None,
+      help="also write plan.csv, plan.md and plan.png into this folder")
+    a("--force", action="store_true", help="replace the files of a non-empty output folder")
+    return g
 
 
 def _check_fit(args, parser):
@@ -455,6 +255,65 @@ def _check_fit(args, parser):
     if args.baseline is not None and args.unit != "atom_percent_excess":
         parser.error(f"argument --baseline: applies only with --unit atom_percent_excess; "
                      f"--unit is {args.unit}")
+
+
+def _check_plan(args, parser):
+    """Checks of ``plan`` that involve several options: an ``error:`` line, exit status 2."""
+    import math
+
+    if (args.half_lives is None) == (args.rates is None):
+        parser.error("argument --half-lives: give the guessed kinetics as --half-lives or as "
+                     "--rates (one of them)")
+    opt = "--half-lives" if args.rates is None else "--rates"
+    values = args.half_lives if args.rates is None else args.rates
+    n = len(values)
+    if args.chain:
+        if args.pools is not None:
+            parser.error("argument --pools: not allowed with --chain (the chain has two "
+                         "steps)")
+        if n != 2:
+            parser.error(f"argument {opt}: --chain needs two values (precursor step, then "
+                         f"product step); got {n}")
+        if args.fractions is not None:
+            parser.error("argument --fractions: not allowed with --chain (the chain has no "
+                         "pool fractions)")
+    else:
+        if args.pools is not None and args.pools != n:
+            parser.error(f"argument {opt}: --pools {args.pools} needs {args.pools} value"
+                         f"{'s' * (args.pools != 1)}; got {n}")
+        if n > 1 and args.fractions is None:
+            parser.error(f"argument --fractions: {n} pools need their fractions, e.g. "
+                         f"--fractions {','.join(['0.5'] * 2) if n == 2 else '0.2,0.3,0.5'}")
+        if n == 1 and args.fractions is not None:
+            parser.error("argument --fractions: applies only with two or more pools")
+        if args.fractions is not None:
+            if len(args.fractions) != n:
+                parser.error(f"argument --fractions: needs one value per pool ({n}); got "
+                             f"{len(args.fractions)}")
+            if abs(sum(args.fractions) - 1.0) > 1e-3:
+                parser.error(f"argument --fractions: must sum to 1; they sum to "
+                             f"{sum(args.fractions):g}")
+    if args.pool is not None and args.pool > n:
+        parser.error(f"argument --pool: must be a pool number from 1 to {n} (1 = fastest); "
+                     f"got {args.pool}")
+    if args.pool is not None and args.criterion == "time_to":
+        parser.error("argument --pool: applies to the half-life (--criterion D or "
+                     "half_life), not to time_to")
+    if args.fraction is not None and args.criterion != "time_to":
+        parser.error(f"argument --fraction: applies only with --criterion time_to; "
+                     f"--criterion is {args.criterion}")
+    if math.isclose(args.delta_from, args.delta_to, rel_tol=0.0, abs_tol=1e-9):
+        parser.error(f"argument --to: must differ from --from (no isotopic change to "
+                     f"follow); both are {args.delta_to:g}")
+    if args.destructive and args.max_per_animal is not None:
+        parser.error("argument --max-per-animal: not allowed with --destructive (one sample "
+                     "per animal)")
+    if args.simulate is None:
+        for name, value in (("--seed", args.seed), ("--jobs", args.jobs)):
+            if value is not None:
+                parser.error(f"argument {name}: applies only with --simulate")
+    if args.force and args.out is None:
+        parser.error("argument --force: applies only with --out")
 
 
 def _progress_default(args):
@@ -530,6 +389,109 @@ def _cmd_fit(args, out):
     return 0
 
 
+#: Library argument names of ``design_schedule`` and the ``plan`` options that set them.
+_PLAN_OPTIONS = {"n_samples": "--samples", "duration": "--duration", "sd": "--sd",
+                 "min_spacing": "--min-spacing", "max_per_animal": "--max-per-animal",
+                 "baseline": "--baseline", "fixed_times": "--fixed-times",
+                 "prior_cv": "--prior-cv", "pool": "--pool", "fraction": "--fraction",
+                 "truth['lag']": "--lag", "n_sim": "--simulate"}
+
+
+def _plan_model(args):
+    """The model and guessed parameters of ``plan`` (pools ordered fastest first)."""
+    import math
+
+    from .model import TurnoverModel
+
+    ln2 = math.log(2.0)
+    rates = list(args.rates) if args.rates is not None else \
+        [ln2 / h for h in args.half_lives]
+    truth = {"delta0": args.delta_from, "delta_eq": args.delta_to}
+    if args.chain:
+        model = TurnoverModel(structure="chain", lag=args.lag is not None)
+        truth.update(k1=rates[0], k2=rates[1])
+    else:
+        n = len(rates)
+        fr = [1.0] if n == 1 else [f / sum(args.fractions) for f in args.fractions]
+        order = sorted(range(n), key=lambda i: -rates[i])  # the model's pools: fastest first
+        model = TurnoverModel(n, lag=args.lag is not None)
+        for j, i in enumerate(order, start=1):
+            truth[f"k{j}"], truth[f"f{j}"] = rates[i], fr[i]
+    if args.lag is not None:
+        truth["lag"] = args.lag
+    return model, truth
+
+
+def _guess_line(args, truth):
+    """One line naming the guessed kinetics."""
+    import math
+
+    from .conventions import unit_word
+
+    unit = unit_word(args.time_unit)
+    ks = [v for k, v in truth.items() if k.startswith("k")]
+    parts = [f"δ from {args.delta_from:g} ‰ to {args.delta_to:g} ‰",
+             ("step half-lives" if args.chain else "half-lives") + " "
+             + ", ".join(f"{math.log(2.0) / k:.4g}" for k in ks) + f" {unit} (rates "
+             + ", ".join(f"{k:.4g}" for k in ks) + f" per {unit.rstrip('s')})"]
+    frs = [v for k, v in truth.items() if k.startswith("f")]
+    if len(frs) > 1:
+        parts.append("fractions " + ", ".join(f"{f:.3g}" for f in frs) + " (fastest first)")
+    if "lag" in truth:
+        parts.append(f"lag {truth['lag']:g} {unit}")
+    return "Guess: " + "; ".join(parts)
+
+
+def _plan(args, out):
+    """Run ``plan``: design (and simulate) and print; write the files when ``out``."""
+    import re
+
+    from .design import design_schedule
+    from .errors import DataError
+    from .outputdir import write_output
+    from .simulate import simulate_design
+
+    model, truth = _plan_model(args)
+    try:
+        design = design_schedule(
+            model, truth, n_samples=args.samples, duration=args.duration, sd=args.sd,
+            criterion=args.criterion, prior_cv=args.prior_cv, baseline=args.baseline,
+            min_spacing=args.min_spacing, fixed_times=args.fixed_times,
+            max_per_animal=args.max_per_animal, destructive=args.destructive,
+            fraction=0.95 if args.fraction is None else args.fraction,
+            pool=None if args.pool is None else args.pool, level=args.level,
+            time_unit=args.time_unit)
+        sim = None
+        if args.simulate is not None:
+            sim = simulate_design(
+                model, truth, design, sd=args.sd, n_sim=args.simulate,
+                rng=0 if args.seed is None else args.seed, level=args.level,
+                n_jobs=1 if args.jobs is None else args.jobs,
+                quantity="time_to" if args.criterion == "time_to" else "half_life",
+                pool=args.pool, fraction=design.fraction)
+    except DataError as e:  # name the options, not the library's arguments
+        msg = str(e)
+        for name, option in _PLAN_OPTIONS.items():
+            msg = re.sub(rf"'{re.escape(name)}'", option, msg)
+        raise DataError(msg) from e
+    from .planreport import plan_files, plan_text
+
+    text = plan_text(design, sim, _guess_line(args, truth))
+    if out is not None:
+        write_output(out, plan_files(design, sim, _guess_line(args, truth), text),
+                     force=args.force)
+    print(text)
+    if out is not None:
+        print(f"plan written to {out}/ (plan.csv, plan.md, plan.png)")
+    return 0
+
+
+def _cmd_plan(args):
+    if args.out is None:
+        return _plan(args, None)
+    return _held(_plan)(args)
+
+
 def _report(a, out):
     n = a.n_fitted()
     fails = a.failures()
@@ -586,7 +548,9 @@ def main(argv: list[str] | None = None) -> int:
         return 0
     if args.command == "fit":
         _check_fit(args, parser.commands["fit"])
-    handler = {"demo": _cmd_demo, "fit": _cmd_fit}[args.command]
+    if args.command == "plan":
+        _check_plan(args, parser.commands["plan"])
+    handler = {"demo": _cmd_demo, "fit": _cmd_fit, "plan": _cmd_plan}[args.command]
     try:
         with warnings.catch_warnings():
             _print_library_warnings()

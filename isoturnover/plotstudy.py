@@ -211,7 +211,9 @@ def plot_study(table, *, level=0.95, max_rows=60, title=None):
             ticks, labels, bold = [], [], []
             for y, (kind, text, s) in enumerate(lines):
                 ticks.append(y)
-                labels.append(pretty_isotopes(text))
+                # tissue names are words on a figure ("red_cells" → "red cells")
+                labels.append(pretty_isotopes(text.replace("_", " ") if kind == "group"
+                                              else text))
                 bold.append(kind == "group")
                 if kind == "group":
                     base = text[:-8] if text.endswith(" (cont.)") else text

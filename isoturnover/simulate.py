@@ -264,8 +264,9 @@ class SimulationResult:
             f"residual sd {self.sd:g}",
             f"Target: {self.target_name}, truth {self.truth_value:.4g}",
             f"Fits failed: {self.n_sim - self.n_ok} ({100 * self.failure_rate:.1f} %)",
-            f"Estimates: mean {self.mean:.4g}, median {self.median:.4g}, sd "
-            f"{self.empirical_se:.3g} (predicted {self.predicted_se:.3g})",
+            f"Estimates: mean {self.mean:.4g}, median {self.median:.4g}; spread: robust sd "
+            f"{self.robust_se:.3g} (1.4826 × MAD; predicted se {self.predicted_se:.3g}), "
+            f"plain sd {self.empirical_se:.3g} (a few far-off estimates can dominate it)",
             f"{100 * self.level:g} % intervals ({self.method}): coverage "
             f"{100 * self.coverage:.1f} %, median width {self.median_width:.3g}, median "
             f"relative half-width {100 * self.median_rel_half_width:.1f} %",
@@ -274,7 +275,7 @@ class SimulationResult:
         return "\n".join(lines)
 
     def __repr__(self):
-        return (f"<SimulationResult {self.target_name}: sd {self.empirical_se:.3g} "
+        return (f"<SimulationResult {self.target_name}: robust sd {self.robust_se:.3g} "
                 f"(predicted {self.predicted_se:.3g}), coverage {self.coverage:.3f}, "
                 f"failures {self.failure_rate:.3f}>")
 

@@ -38,8 +38,9 @@ LAYERS = {
     "model": 8, "selection": 8, "serialization": 8, "seriesrows": 8,
     "groups": 9, "sharedfit": 9, "designmodel": 9,
     "plotting": 10, "plotkit": 10, "plotstudy": 10, "design": 10, "simulate": 10,
-    "report": 11, "reportfigures": 11,
-    "analysis": 12,
+    "plotplan": 10,
+    "report": 11, "reportfigures": 11, "planreport": 11,
+    "analysis": 12, "cliargs": 12,
     "cli": 13,
     "__main__": 14, "__init__": 14,
 }
@@ -56,7 +57,8 @@ SAME_LAYER = {("isotopes", "conventions"), ("data", "diet"), ("demo", "data"),
               ("results", "intervalcache"), ("results", "records"),
               ("growth", "growthlaws"), ("plotting", "plotkit"),
               ("plotstudy", "plotkit"), ("report", "reportfigures"),
-              ("progress", "progressvariable"), ("simulate", "design")}
+              ("progress", "progressvariable"), ("simulate", "design"),
+              ("plotplan", "plotkit"), ("plotplan", "design")}
 
 
 def _modules():

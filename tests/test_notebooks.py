@@ -117,6 +117,36 @@ def test_growth_dilution_notebook_runs(tmp_path, monkeypatch):
     assert list(work.iterdir()) == []
 
 
+def test_field_plan_notebook_runs_committed_clean(tmp_path, monkeypatch):
+    from isoturnover.design import PLAN_CAUTION
+
+    name = "04_field_plan.ipynb"
+    committed = _read(name)
+    nbformat.validate(committed)
+    assert all(not c.outputs and c.execution_count is None
+               for c in committed.cells if c.cell_type == "code")
+    assert committed.metadata.get("kernelspec", {}).get("name") == "python3"
+    markdown = [" ".join(c.source.split()) for c in committed.cells
+                if c.cell_type == "markdown"]
+    assert "data are invented" in markdown[0]
+    assert "animal-care authority" in markdown[-1] and "not replace it" in markdown[-1]
+    nb, work, tmp = _execute(name, tmp_path, monkeypatch)
+    text, tables, errors = _outputs(nb)
+    assert errors == []
+    assert tables >= 5, f"expected the notebook to show tables; found {tables}"
+    # equilibration and windows: from rates, from the pilot population (a new bird)
+    assert "Equilibration time (95 %)" in text and "prediction" in text
+    # the window checked by numerical integration of the weight (in the notebook)
+    assert "∫ w over the red-cell 50 % window: 0.50000" in text
+    # designs with constraints, a prior-averaged one, the command line, the checks
+    assert "Samples: 20 on 5 animals" in text
+    assert "averaged over a log-normal prior on the rates (cv 0.5" in text
+    assert "Simulated experiments: 150" in text and "Smallest number of animals" in text
+    assert " ".join(PLAN_CAUTION.split()) in " ".join(text.split())
+    # nothing written: not in the work dir, not in the temporary folder
+    assert list(work.iterdir()) == []
+    assert not [p for p in tmp.rglob("plan.*")]
+
 @pytest.mark.parametrize("name", NAMES)
 def test_notebook_committed_without_outputs(name):
     nb = _read(name)

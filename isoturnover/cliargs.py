@@ -1,0 +1,580 @@
+"""Argument types of the ``isoturnover`` command line: each parses one option as typed.
+
+Every function takes the text of one option and returns its value, or raises
+:class:`argparse.ArgumentTypeError` with a message naming what is expected (argparse turns it
+into the command line's one line ``error: …``, exit status 2). Used by :mod:`isoturnover.cli`.
+"""
+
+from __future__ import annotations
+
+import argparse
+
+__all__ = ["fail", "parse_baseline", "parse_column_map", "parse_count", "parse_date_format",
+           "parse_delta", "parse_fix", "parse_fraction", "parse_fractions", "parse_growth_curve",
+           "parse_jobs", "parse_kinetics_list", "parse_level", "parse_n_sim",
+           "parse_non_negative", "parse_number", "parse_number_list", "parse_pairs",
+           "parse_pool_count", "parse_pools", "parse_positive", "parse_positive_int",
+           "parse_time_unit", "parse_times"]
+
+
+def parse_jobs(text):
+    """Parse ``--jobs N``: a positive integer, or -1 for all cores.
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    int
+        The number of parallel workers (-1: all cores).
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not such a number (argparse turns it into one ``error:`` line).
+    """
+    from .conventions import check_n_jobs
+
+    try:
+        return check_n_jobs(int(text), "--jobs")
+    except ValueError:  # not a number, or refused by check_n_jobs (a DataError)
+        raise argparse.ArgumentTypeError(
+            f"must be a positive integer (number of parallel workers) or -1 (all cores); "
+            f"got {text!r}") from None
+
+
+def fail(text, what):
+    raise argparse.ArgumentTypeError(f"{what}; got {text!r}")
+
+
+def parse_pools(text):
+    """Parse ``--pools 1,2,3``: distinct numbers of parallel pools, each from 1 to 4.
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    tuple of int
+        The numbers of pools to try.
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not such a list.
+    """
+    from .kinetics import MAX_POOLS
+
+    what = f"must be distinct numbers of pools from 1 to {MAX_POOLS}, such as 1,2"
+    try:
+        pools = tuple(int(x) for x in text.split(","))
+    except ValueError:
+        fail(text, what)
+    if not pools or len(set(pools)) < len(pools) or not all(1 <= n <= MAX_POOLS
+                                                            for n in pools):
+        fail(text, what)
+    return pools
+
+
+def parse_positive_int(text):
+    """Parse a whole number >= 1 (``--n-boot``).
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    int
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not a whole number >= 1.
+    """
+    try:
+        n = int(text)
+    except ValueError:
+        n = 0
+    if n < 1:
+        fail(text, "must be a whole number >= 1")
+    return n
+
+
+def parse_level(text):
+    """Parse ``--level``: a confidence level strictly between 0 and 1.
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed (``0.95``).
+
+    Returns
+    -------
+    float
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not a number in (0, 1).
+    """
+    try:
+        v = float(text)
+    except ValueError:
+        v = float("nan")
+    if not 0 < v < 1:
+        fail(text, "must be a number between 0 and 1, such as 0.95")
+    return v
+
+
+def parse_time_unit(text):
+    """Parse ``--time-unit``: d, h or w (day(s), hour(s), week(s) also read).
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    str
+        The unit's code, ``"d"``, ``"h"`` or ``"w"``.
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        For another unit.
+    """
+    code = {"d": "d", "day": "d", "days": "d", "h": "h", "hour": "h", "hours": "h",
+            "w": "w", "week": "w", "weeks": "w"}.get(text.strip().lower())
+    if code is None:
+        fail(text, "must be d, h or w (days, hours, weeks)")
+    return code
+
+
+def parse_date_format(text):
+    """Parse ``--date-format``: a strptime format with % directives (``%d/%m/%Y``).
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    str
+        ``text`` unchanged.
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` has no % directive.
+    """
+    if "%" not in text:
+        fail(text, "must be a format such as %d/%m/%Y (day first) or %m/%d/%Y "
+                    "(month first), with % directives")
+    return text
+
+
+def parse_growth_curve(text):
+    """Parse ``--growth-curve``: the name of a growth curve of the library.
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    str
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        For a name that is not among :data:`~isoturnover.growthlaws.CURVES`.
+    """
+    from .growthlaws import CURVES
+
+    if text not in CURVES:
+        fail(text, f"must be one of {', '.join(CURVES)}")
+    return text
+
+
+def parse_pairs(text, example):
+    """``a=b,c=d`` as a list of (a, b) text pairs; an ArgumentTypeError naming ``example``."""
+    out = []
+    for item in text.split(","):
+        name, eq, value = item.partition("=")
+        if not eq or not name.strip() or not value.strip():
+            fail(text, f"must be NAME=VALUE pairs separated by commas, such as {example}")
+        out.append((name.strip(), value.strip()))
+    if len({n for n, _ in out}) < len(out):
+        fail(text, f"names one thing twice (pairs such as {example})")
+    return out
+
+
+def parse_column_map(allowed, example):
+    """A parser of ``--columns``-style options: ``canonical=yours,...`` to the readers'
+    mapping ``{yours: canonical}``, canonical names among ``allowed``."""
+
+    def parse(text):
+        mapping = {}
+        for canonical, yours in parse_pairs(text, example):
+            if canonical not in allowed:
+                fail(text, f"{canonical!r} is not a column name of the table; names: "
+                            f"{', '.join(allowed)} (pairs such as {example})")
+            if yours in mapping:
+                fail(text, f"maps your column {yours!r} twice")
+            mapping[yours] = canonical
+        return mapping
+
+    parse.__doc__ = f"Parse a column mapping such as {example}."
+    return parse
+
+
+def parse_fix(text):
+    """Parse ``--fix delta0=-25,lag=0``: parameters held at given values.
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    dict of str to float
+        Parameter name -> value (in the parameter's unit: ‰ for levels, 1/time for
+        rates).
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        For a malformed pair or a value that is not a finite number.
+    """
+    import math
+
+    out = {}
+    for name, value in parse_pairs(text, "delta0=-25,lag=0"):
+        try:
+            out[name] = float(value)
+        except ValueError:
+            fail(text, f"the value of {name} is not a number")
+        if not math.isfinite(out[name]):
+            fail(text, f"the value of {name} is not a finite number")
+    return out
+
+
+def parse_baseline(text):
+    """Parse ``--baseline``: δ (‰) of the unenriched material, one number or one per isotope.
+
+    Parameters
+    ----------
+    text : str
+        ``-25.5`` or ``d13C=-25.5,d15N=6``.
+
+    Returns
+    -------
+    float or dict of str to float
+        δ in ‰ (one for all isotopes, or isotope code -> δ).
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When a value is not a finite number.
+    """
+    import math
+
+    if "=" not in text:
+        try:
+            v = float(text)
+        except ValueError:
+            v = float("nan")
+        if not math.isfinite(v):
+            fail(text, "must be a δ value in per mil, such as -25.5, or one per isotope, "
+                        "such as d13C=-25.5,d15N=6")
+        return v
+    out = {}
+    for code, value in parse_pairs(text, "d13C=-25.5,d15N=6"):
+        try:
+            out[code] = float(value)
+        except ValueError:
+            fail(text, f"the value for {code} is not a number")
+        if not math.isfinite(out[code]):
+            fail(text, f"the value for {code} is not a finite number")
+    return out
+
+
+# ----------------------------------------------------------------------------------------
+# `plan`: values of its options
+# ----------------------------------------------------------------------------------------
+def parse_number(text, what):
+    """A finite float from ``text``, or an ArgumentTypeError saying ``what`` it must be."""
+    import math
+
+    try:
+        v = float(text)
+    except ValueError:
+        v = math.nan
+    if not math.isfinite(v):
+        fail(text, what)
+    return v
+
+
+def parse_delta(text):
+    """Parse ``--from`` and ``--to``: a δ value in ‰ (any finite number).
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed (``-22``).
+
+    Returns
+    -------
+    float
+        δ in ‰.
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not a finite number.
+    """
+    return parse_number(text, "must be a δ value in per mil, such as -22")
+
+
+def parse_positive(text):
+    """Parse a positive finite number (``--sd``, ``--duration``, ``--lag``, ``--prior-cv``).
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    float
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not a number > 0.
+    """
+    v = parse_number(text, "must be a positive number")
+    if v <= 0:
+        fail(text, "must be a positive number")
+    return v
+
+
+def parse_non_negative(text):
+    """Parse a finite number >= 0 (``--min-spacing``).
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    float
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not a number >= 0.
+    """
+    v = parse_number(text, "must be a number >= 0 (time unit)")
+    if v < 0:
+        fail(text, "must be a number >= 0 (time unit)")
+    return v
+
+
+def parse_count(text):
+    """Parse a whole number >= 0 (``--baseline``, ``--seed``).
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    int
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not a whole number >= 0.
+    """
+    try:
+        n = int(text)
+    except ValueError:
+        n = -1
+    if n < 0:
+        fail(text, "must be a whole number >= 0")
+    return n
+
+
+def parse_n_sim(text):
+    """Parse ``--simulate N``: a whole number of simulated experiments >= 2.
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    int
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not a whole number >= 2.
+    """
+    try:
+        n = int(text)
+    except ValueError:
+        n = 0
+    if n < 2:
+        fail(text, "must be a whole number of simulated experiments >= 2")
+    return n
+
+
+def parse_fraction(text):
+    """Parse ``--fraction``: a fraction of the change strictly between 0 and 1.
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed (``0.95``).
+
+    Returns
+    -------
+    float
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not a number in (0, 1).
+    """
+    v = parse_number(text, "must be a fraction of the change between 0 and 1, such as 0.95")
+    if not 0 < v < 1:
+        fail(text, "must be a fraction of the change between 0 and 1, such as 0.95")
+    return v
+
+
+def parse_number_list(text, what, test):
+    """Numbers separated by commas, each passing ``test``; else an ArgumentTypeError."""
+    import math
+
+    values = []
+    for item in text.split(","):
+        try:
+            v = float(item)
+        except ValueError:
+            v = math.nan
+        if not (math.isfinite(v) and test(v)):
+            fail(text, what)
+        values.append(v)
+    return tuple(values)
+
+
+def parse_kinetics_list(text):
+    """Parse ``--half-lives`` or ``--rates``: one positive number per pool (or chain step).
+
+    Parameters
+    ----------
+    text : str
+        ``3,30`` (time unit for half-lives, per time unit for rates).
+
+    Returns
+    -------
+    tuple of float
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When an entry is not a positive number, or there are more than the pools allowed.
+    """
+    from .kinetics import MAX_POOLS
+
+    what = f"must be 1 to {MAX_POOLS} positive numbers separated by commas, such as 3,30"
+    values = parse_number_list(text, what, lambda v: v > 0)
+    if len(values) > MAX_POOLS:
+        fail(text, what)
+    return values
+
+
+def parse_fractions(text):
+    """Parse ``--fractions 0.4,0.6``: pool fractions, each in (0, 1).
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    tuple of float
+        The fractions in the order of ``--half-lives`` (their sum is checked later).
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When an entry is not a number in (0, 1).
+    """
+    return parse_number_list(text, "must be fractions between 0 and 1 separated by commas, one "
+                              "per pool, summing to 1, such as 0.4,0.6", lambda v: 0 < v < 1)
+
+
+def parse_times(text):
+    """Parse ``--fixed-times 7,14``: sampling times that must be in the plan.
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed (time unit).
+
+    Returns
+    -------
+    tuple of float
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When an entry is not a finite number.
+    """
+    return parse_number_list(text, "must be times separated by commas, such as 7,14",
+                        lambda v: True)
+
+
+def parse_pool_count(text):
+    """Parse ``--pools N`` of ``plan``: one number of parallel pools, 1 to the maximum.
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    int
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is not such a number.
+    """
+    from .kinetics import MAX_POOLS
+
+    try:
+        n = int(text)
+    except ValueError:
+        n = 0
+    if not 1 <= n <= MAX_POOLS:
+        fail(text, f"must be one number of parallel pools from 1 to {MAX_POOLS}")
+    return n
