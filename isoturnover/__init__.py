@@ -36,6 +36,7 @@ from .growth import GrowthCurve
 from .growthfit import GrowthFit, fit_growth, fit_growth_each, load_growth
 from .model import TurnoverModel, fit_power_dilution
 from .plotplan import plot_design
+from .plotpop import plot_population
 from .population import population_estimate, random_effects
 from .progress import reaction_progress
 from .report import write_report
@@ -82,6 +83,7 @@ __all__ = [
     "sample_size",
     "SampleSize",
     "plot_design",
+    "plot_population",
     "read_samples",
     "read_diets",
     "read_masses",

@@ -591,7 +591,7 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     else:
         # every series is fitted by the same function on the same inputs as in the serial
         # branch; the generator hands the results back in submission order
-        par = _joblib.Parallel(n_jobs=workers, backend="loky", return_as="generator")
+        par = _joblib.Parallel(n_jobs=workers, return_as="generator")
         jobs = par(_joblib.delayed(_fit_one_in_worker)(d, key, key_map, cands, options,
                                                        warm=(level, method))
                    for d, key, key_map in tasks)

@@ -21,12 +21,16 @@ import pandas as pd
 from scipy import optimize, sparse, special
 
 from .diet import DietHistory
-from .errors import DataError
+from .errors import DataError, DataWarning, FitError
 
 __all__ = ["Block", "Shape", "Layout", "Joint", "loglik", "safe_label", "SPARSE_ABOVE",
-           "read_study",
+           "read_study", "MODEL_OPTIONS", "check_models", "start_coordinates", "pooled_start",
+           "bootstrap_refits", "in_scope", "natural_bound",
            "key_label", "parse_shared", "diet_of"]
 
+#: Options of a TurnoverModel a shared fit passes on (besides ``pools``).
+MODEL_OPTIONS = ("structure", "lag", "separation", "scale", "isotope", "initial",
+                  "per_diet_separation")
 SPARSE_ABOVE = 40  # joint coordinates from which the Jacobian is passed as sparse
 
 
@@ -308,6 +312,61 @@ class Joint:
         ok = bool(res.status > 0 and np.all(np.isfinite(r)))
         return z, float(r @ r), ok, res
 
+    def profile_bounds(self, z_hat, i, kind, crit, s2, rss_hat, se_u):
+        """Both profile bounds of joint coordinate ``i`` (the other coordinates refitted).
+
+        The deviance :math:`D(u) = (\\mathrm{RSS}(u) - \\mathrm{RSS})/s^2` (weights fixed) and
+        its envelope-theorem derivative :math:`2 r^\top J_{:,i}/s^2` feed the project's one
+        root finder (:func:`isoturnover.profiles.find_bound`), each refit warm-started from
+        the last one on its side.
+
+        Parameters
+        ----------
+        z_hat : ndarray
+            Coordinates at the optimum.
+        i : int
+            The profiled coordinate.
+        kind : {"log", "stick", "lag", "id"}
+            Its scale (sets the search limits: ±40 on log and logit scales, ``lag >= 0``).
+        crit : float
+            Critical value of D.
+        s2 : float
+            Residual variance of the weighted problem.
+        rss_hat : float
+            Weighted RSS at the optimum.
+        se_u : float
+            Standard error of the coordinate (first step: √crit standard errors).
+
+        Returns
+        -------
+        tuple of BoundSearch
+            The lower and the upper search.
+        """
+        from .profiles import find_bound
+
+        u_hat = float(z_hat[i])
+        ends = []
+        for direction in (-1, 1):
+            warm = {"z": z_hat.copy()}
+
+            def evaluate(u, warm=warm):
+                z, rss, ok, _ = self.solve(warm["z"], fixed={i: u})
+                if not ok:
+                    return math.nan, math.nan, False, "refit"
+                warm["z"] = z
+                r = self.residuals(z)
+                J = self.jacobian(z)
+                col = J[:, [i]].toarray().ravel() if sparse.issparse(J) else J[:, i]
+                return (rss - rss_hat) / s2, 2.0 * float(r @ col) / s2, True, ""
+
+            span = 40.0 if kind in ("log", "stick") else 50.0 * se_u
+            limit = u_hat + direction * max(span, 10 * se_u)
+            if kind == "lag" and direction < 0:
+                limit = 0.0
+            ends.append(find_bound(evaluate, u_hat, direction, math.sqrt(crit) * se_u, limit,
+                                   crit))
+        return ends[0], ends[1]
+
     def block_rss(self, z):
         """Raw (unscaled) RSS of each block."""
         return np.array([float(np.sum(self.raw(z, k) ** 2)) for k in range(len(self.blocks))])
@@ -523,3 +582,169 @@ def diet_of(diets, key):
         raise DataError(f"'diets' has no diet history for the series {key!r}")
     raise DataError("'diets' must be None, a DietHistory or a dict series key -> DietHistory; "
                     f"got {type(diets).__name__}")
+
+
+# ----------------------------------------------------------------------------------------
+# starting values, models per level, bootstrap replicates
+# ----------------------------------------------------------------------------------------
+def check_models(models, model_by, frame):
+    """``models`` checked: level (text) -> options of TurnoverModel (with ``pools``)."""
+    if models is None:
+        return {}
+    if not isinstance(models, dict) or not models:
+        raise DataError(f"'models' must be a dict level -> model options; got {models!r:.80}")
+    if not isinstance(model_by, str) or model_by not in frame.columns:
+        raise DataError(f"'model_by': column {model_by!r} is not in the samples table")
+    known = set(frame[model_by].astype(str))
+    out = {}
+    for lev, opts in models.items():
+        if str(lev) not in known:
+            raise DataError(f"'models': {model_by} {lev!r} is not in the samples table "
+                            f"({', '.join(sorted(known))})")
+        if not isinstance(opts, dict):
+            raise DataError(f"'models[{lev!r}]' must be a dict of model options")
+        bad = sorted(set(opts) - set(MODEL_OPTIONS) - {"pools"})
+        if bad:
+            raise DataError(f"'models[{lev!r}]': unknown option(s) {', '.join(bad)}")
+        out[str(lev)] = dict(opts)
+    return out
+
+
+def start_coordinates(problem, models):
+    """Starting coordinates: each block fitted alone; a shared coordinate the mean of its
+    blocks' values; a block that cannot be fitted alone takes the median of the blocks of
+    its kind (or, when none can, one fit to their points pooled)."""
+    L = problem.L
+    local, separate = [], []
+    for k, (b, m) in enumerate(zip(problem.blocks, models)):
+        sh = L.shapes[k]
+        try:
+            f = m.fit(b.t, b.y, b.sd if b.has_sd else None, warn=False)
+            th = np.array([f.params[nm].value for nm in sh.names])
+            local.append(sh.local_from_theta(th))
+            separate.append(f)
+        except (DataError, FitError):
+            local.append(None)
+            separate.append(None)
+    for k, c in enumerate(local):
+        if c is not None:
+            continue
+        same = [j for j, sh in enumerate(L.shapes) if sh is L.shapes[k]]
+        good = [local[j] for j in same if local[j] is not None]
+        local[k] = np.median(np.array(good), axis=0) if good else \
+            pooled_start(problem, models[k], same)
+    sums = np.zeros(L.size)
+    counts = np.zeros(L.size)
+    for k, c in enumerate(local):
+        for i, rows in enumerate(L.rows[k]):
+            if len(rows) == 1:
+                sums[rows[0]] += c[i]
+                counts[rows[0]] += 1
+    z = np.where(counts > 0, sums / np.maximum(counts, 1), 0.0)
+    for k, c in enumerate(local):  # contrast coordinates: difference to the reference
+        for i, rows in enumerate(L.rows[k]):
+            if len(rows) == 2:
+                z[rows[1]] = c[i] - z[rows[0]]
+    return np.maximum(z, L.lower), separate
+
+
+def pooled_start(problem, model, blocks):
+    """Local coordinates of one fit to the points of ``blocks`` pooled (as one series)."""
+    bl = [problem.blocks[k] for k in blocks]
+    t = np.concatenate([b.t for b in bl])
+    y = np.concatenate([b.y for b in bl])
+    sd = np.concatenate([b.sd for b in bl])
+    order = np.argsort(t, kind="stable")
+    has_sd = all(b.has_sd for b in bl)
+    try:
+        with warnings.catch_warnings():  # repeated times are expected here (several blocks)
+            warnings.simplefilter("ignore", DataWarning)
+            f = model.fit(t[order], y[order], sd[order] if has_sd else None, warn=False)
+    except (DataError, FitError):
+        raise FitError("no series could be fitted alone, nor all of them pooled, to start "
+                       "the shared fit") from None
+    sh = problem.L.shapes[blocks[0]]
+    th = np.array([f.params[nm].value for nm in sh.names])
+    return sh.local_from_theta(th)
+
+
+def bootstrap_refits(setup, picks):
+    """Refit the joint model to each replicate's blocks (``picks``: block indices).
+
+    Runs in the caller's process or in a joblib worker. Returns the shared parameters of
+    each replicate (a row of NaN for a refit that failed), the number of failed refits and
+    the warnings issued, as (message, category) pairs, for the caller to issue again under
+    its own filters.
+    """
+    blocks, starts, scopes, contrast, per_block, entries = setup
+    draws = np.full((len(picks), len(entries)), np.nan)
+    failed = 0
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("default")
+        for r, pick in enumerate(picks):
+            new_blocks = []
+            for m, k in enumerate(pick):
+                b = blocks[k]
+                new_blocks.append(Block((*b.key, m), f"{b.label}_{m}", b.kin, b.t, b.y,
+                                        b.sd if b.has_sd else None, b.levels))
+            L = Layout(new_blocks, scopes, contrast)
+            z0 = np.zeros(L.size)
+            for m, k in enumerate(pick):
+                for i, rows in enumerate(L.rows[m]):
+                    if len(rows) == 1:
+                        z0[rows[0]] = starts[k][i]
+            prob = Joint(L)
+            try:
+                z, ok, _ = prob.fit(z0, per_block)
+            except (FloatingPointError, np.linalg.LinAlgError):
+                ok = False
+            if not ok:
+                failed += 1
+                continue
+            for e, (lab, j) in enumerate(entries):
+                m = next(mm for mm, kk in enumerate(pick) if in_scope(blocks[kk], lab))
+                draws[r, e] = prob.block_theta(z, m)[j]
+    return draws, failed, [(str(w.message), w.category) for w in caught]
+
+
+def in_scope(block, lab):
+    """Whether a block belongs to a scope label ("all" or "column=level")."""
+    if lab == "all":
+        return True
+    col, _, lev = lab.partition("=")
+    return block.levels.get(col) == lev
+
+
+def natural_bound(res, kind, side):
+    """A profile search's bound on the natural scale, with its status.
+
+    Parameters
+    ----------
+    res : BoundSearch
+        From :meth:`Joint.profile_bounds`.
+    kind : {"log", "stick", "lag", "id"}
+        Scale of the coordinate.
+    side : {-1, 1}
+        Lower or upper bound.
+
+    Returns
+    -------
+    tuple
+        ``(value, status)``: an open bound is 0 or inf for a rate, 0 or 1 for a fraction,
+        ±inf otherwise; a lag stopped at 0 is ``at_bound``.
+    """
+    if res.status == "open":
+        if kind == "log":
+            return (0.0 if side < 0 else math.inf), "open"
+        if kind == "stick":
+            return (0.0 if side < 0 else 1.0), "open"
+        return (-math.inf if side < 0 else math.inf), "open"
+    if res.status == "at_bound" and kind == "lag":
+        return 0.0, "at_bound"
+    if not math.isfinite(res.u):
+        return math.nan, res.status
+    if kind == "log":
+        return math.exp(res.u), res.status
+    if kind == "stick":
+        return float(special.expit(res.u)), res.status
+    return res.u, res.status

@@ -928,7 +928,7 @@ class PopulationEstimate:
             and the direction of the bias this causes, then the model's summary.
         """
         pct = f"{100 * self.level:g} %"
-        lines = [f"Population {self.quantity} from {self.k} animals "
+        lines = [f"Population {self.quantity.replace('_', '-')} from {self.k} animals "
                  f"({self.scale} scale, {self.method})"]
         if np.isfinite(self.estimate):
             what = " (median, geometric mean)" if self.scale == "log" else " (mean)"

@@ -49,26 +49,34 @@ import pandas as pd
 from scipy import sparse, special, stats
 
 from .conventions import check_choice, check_level, check_method, check_positive_int
-from .errors import DataError, DataWarning, FitError
+from .errors import DataError, FitError
+from .groups import parallel_workers
 from .jointproblem import (
+    MODEL_OPTIONS,
     Block,
     Joint,
     Layout,
+    bootstrap_refits,
+    check_models,
     diet_of,
     key_label,
     loglik,
+    natural_bound,
     parse_shared,
     read_study,
     safe_label,
+    start_coordinates,
 )
 from .model import TurnoverModel
-from .profiles import find_bound
+
+try:  # optional (the "fast" extra): parallel bootstrap refits
+    import joblib as _joblib
+except ImportError:  # pragma: no cover - exercised only without joblib
+    _joblib = None
 
 __all__ = ["fit_shared", "SharedFit", "compare_groups"]
 
 _LN2 = math.log(2.0)
-_MODEL_OPTIONS = ("structure", "lag", "separation", "scale", "isotope", "initial",
-                  "per_diet_separation")
 
 
 # ----------------------------------------------------------------------------------------
@@ -130,10 +138,10 @@ def fit_shared(samples, *, pools=1, shared=("k1",), by="subject", diets=None,
     FitError
         When the joint fit does not reach finite residuals.
     """
-    unknown = sorted(set(options) - set(_MODEL_OPTIONS))
+    unknown = sorted(set(options) - set(MODEL_OPTIONS))
     if unknown:
         raise DataError(f"fit_shared: unknown option(s) {', '.join(unknown)}; allowed: "
-                        f"{', '.join(_MODEL_OPTIONS)}")
+                        f"{', '.join(MODEL_OPTIONS)}")
     variance = check_choice("variance", variance, ("auto", "per_block", "common"))
     frame, by, unit = read_study(samples, by)
     groups = list(frame.groupby(list(by), sort=True))
@@ -141,7 +149,7 @@ def fit_shared(samples, *, pools=1, shared=("k1",), by="subject", diets=None,
         raise DataError(f"fit_shared needs at least two series (blocks by {', '.join(by)}); "
                         f"got {len(groups)}")
     model_options = dict(options)
-    per_level = _check_models(models, model_by, frame)
+    per_level = check_models(models, model_by, frame)
     built = []  # (key, sub, model)
     for key, sub in groups:
         key = key if isinstance(key, tuple) else (key,)
@@ -187,29 +195,6 @@ def fit_shared(samples, *, pools=1, shared=("k1",), by="subject", diets=None,
     return _fit(blocks, models, scopes, by, unit, variance, pools, model_options)
 
 
-def _check_models(models, model_by, frame):
-    """``models`` checked: level (text) -> options of TurnoverModel (with ``pools``)."""
-    if models is None:
-        return {}
-    if not isinstance(models, dict) or not models:
-        raise DataError(f"'models' must be a dict level -> model options; got {models!r:.80}")
-    if not isinstance(model_by, str) or model_by not in frame.columns:
-        raise DataError(f"'model_by': column {model_by!r} is not in the samples table")
-    known = set(frame[model_by].astype(str))
-    out = {}
-    for lev, opts in models.items():
-        if str(lev) not in known:
-            raise DataError(f"'models': {model_by} {lev!r} is not in the samples table "
-                            f"({', '.join(sorted(known))})")
-        if not isinstance(opts, dict):
-            raise DataError(f"'models[{lev!r}]' must be a dict of model options")
-        bad = sorted(set(opts) - set(_MODEL_OPTIONS) - {"pools"})
-        if bad:
-            raise DataError(f"'models[{lev!r}]': unknown option(s) {', '.join(bad)}")
-        out[str(lev)] = dict(opts)
-    return out
-
-
 def _fit(blocks, models, scopes, by, unit, variance, pools, model_options, contrast=(),
          start=None):
     layout = Layout(blocks, scopes, contrast)
@@ -224,7 +209,7 @@ def _fit(blocks, models, scopes, by, unit, variance, pools, model_options, contr
     problem = Joint(layout)
     separate = [None] * len(blocks)
     if start is None:
-        start, separate = _start(problem, models)
+        start, separate = start_coordinates(problem, models)
     z, converged, n_iter = problem.fit(start, variance == "per_block")
     r = problem.residuals(z)
     if not np.all(np.isfinite(r)):
@@ -235,64 +220,6 @@ def _fit(blocks, models, scopes, by, unit, variance, pools, model_options, contr
 
 def _is_shared(layout, j):
     return "@" not in layout.labels[j] or "=" in layout.labels[j]
-
-
-def _start(problem, models):
-    """Starting coordinates: each block fitted alone; a shared coordinate the mean of its
-    blocks' values; a block that cannot be fitted alone takes the median of the blocks of
-    its kind (or, when none can, one fit to their points pooled)."""
-    L = problem.L
-    local, separate = [], []
-    for k, (b, m) in enumerate(zip(problem.blocks, models)):
-        sh = L.shapes[k]
-        try:
-            f = m.fit(b.t, b.y, b.sd if b.has_sd else None, warn=False)
-            th = np.array([f.params[nm].value for nm in sh.names])
-            local.append(sh.local_from_theta(th))
-            separate.append(f)
-        except (DataError, FitError):
-            local.append(None)
-            separate.append(None)
-    for k, c in enumerate(local):
-        if c is not None:
-            continue
-        same = [j for j, sh in enumerate(L.shapes) if sh is L.shapes[k]]
-        good = [local[j] for j in same if local[j] is not None]
-        local[k] = np.median(np.array(good), axis=0) if good else \
-            _pooled_start(problem, models[k], same)
-    sums = np.zeros(L.size)
-    counts = np.zeros(L.size)
-    for k, c in enumerate(local):
-        for i, rows in enumerate(L.rows[k]):
-            if len(rows) == 1:
-                sums[rows[0]] += c[i]
-                counts[rows[0]] += 1
-    z = np.where(counts > 0, sums / np.maximum(counts, 1), 0.0)
-    for k, c in enumerate(local):  # contrast coordinates: difference to the reference
-        for i, rows in enumerate(L.rows[k]):
-            if len(rows) == 2:
-                z[rows[1]] = c[i] - z[rows[0]]
-    return np.maximum(z, L.lower), separate
-
-
-def _pooled_start(problem, model, blocks):
-    """Local coordinates of one fit to the points of ``blocks`` pooled (as one series)."""
-    bl = [problem.blocks[k] for k in blocks]
-    t = np.concatenate([b.t for b in bl])
-    y = np.concatenate([b.y for b in bl])
-    sd = np.concatenate([b.sd for b in bl])
-    order = np.argsort(t, kind="stable")
-    has_sd = all(b.has_sd for b in bl)
-    try:
-        with warnings.catch_warnings():  # repeated times are expected here (several blocks)
-            warnings.simplefilter("ignore", DataWarning)
-            f = model.fit(t[order], y[order], sd[order] if has_sd else None, warn=False)
-    except (DataError, FitError):
-        raise FitError("no series could be fitted alone, nor all of them pooled, to start "
-                       "the shared fit") from None
-    sh = problem.L.shapes[blocks[0]]
-    th = np.array([f.params[nm].value for nm in sh.names])
-    return sh.local_from_theta(th)
 
 
 # ----------------------------------------------------------------------------------------
@@ -580,53 +507,11 @@ class SharedFit:
     def _profile(self, i, kind, level, value):
         """Profile-likelihood interval of joint coordinate ``i`` (natural scale)."""
         crit = float(special.fdtri(1, self.dof, level))
-        u_hat = float(self.z[i])
         se_u = math.sqrt(max(self.cov_z[i, i], 0.0))
         if not math.isfinite(se_u) or se_u <= 0:
             return None
-        rss_hat = self.rss
-        p = self._p
-        ends = []
-        for direction in (-1, 1):
-            warm = {"z": self.z.copy()}
-
-            def evaluate(u, warm=warm):
-                z, rss, ok, _ = p.solve(warm["z"], fixed={i: u})
-                if not ok:
-                    return math.nan, math.nan, False, "refit"
-                warm["z"] = z
-                r = p.residuals(z)
-                J = p.jacobian(z)
-                col = J[:, [i]].toarray().ravel() if sparse.issparse(J) else J[:, i]
-                return (rss - rss_hat) / self.s2, 2.0 * float(r @ col) / self.s2, True, ""
-
-            span = 40.0 if kind in ("log", "stick") else 50.0 * se_u
-            limit = u_hat + direction * max(span, 10 * se_u)
-            if kind == "lag" and direction < 0:
-                limit = 0.0
-            res = find_bound(evaluate, u_hat, direction, math.sqrt(crit) * se_u, limit, crit)
-            ends.append(res)
-        lo, hi = ends
-
-        def nat(u):
-            if kind == "log":
-                return math.exp(u)
-            if kind == "stick":
-                return float(special.expit(u))
-            return u
-
-        def bound(res, side):
-            if res.status == "open":
-                if kind == "log":
-                    return (0.0 if side < 0 else math.inf), "open"
-                if kind == "stick":
-                    return (0.0 if side < 0 else 1.0), "open"
-                return (-math.inf if side < 0 else math.inf), "open"
-            if res.status == "at_bound" and kind == "lag":
-                return 0.0, "at_bound"
-            return (nat(res.u) if math.isfinite(res.u) else math.nan), res.status
-        lv, ls = bound(lo, -1)
-        uv, us = bound(hi, 1)
+        lo, hi = self._p.profile_bounds(self.z, i, kind, crit, self.s2, self.rss, se_u)
+        (lv, ls), (uv, us) = natural_bound(lo, kind, -1), natural_bound(hi, kind, 1)
         return {"estimate": value, "lower": lv, "upper": uv, "level": level,
                 "method": "profile", "lower_status": ls, "upper_status": us}
 
@@ -664,9 +549,13 @@ class SharedFit:
         -------
         DataFrame
             Key columns (``by``), then the natural parameters (shared ones repeat),
-            ``n``, ``rss`` (raw, in the data's units over σ) and ``residual_sd``.
+            ``n``, ``rss`` (sum of squared residuals over the relative σ: ‰² without an
+            ``sd`` column) and ``residual_sd`` (‰, unweighted: the root mean square of the
+            block's residuals, or of all residuals with one common variance).
         """
         rows = []
+        raw = [self._p.raw(self.z, k) * b.sd for k, b in enumerate(self._p.blocks)]
+        all_sd = math.sqrt(sum(float(r @ r) for r in raw) / self.nobs)
         rb = self._p.block_rss(self.z)
         for k, b in enumerate(self._p.blocks):
             th = self._p.block_theta(self.z, k)
@@ -675,9 +564,8 @@ class SharedFit:
             row.update({nm: float(v) for j, (nm, v) in enumerate(zip(sh.names, th))
                         if not (j in sh.frac_idx and len(sh.frac_idx) == 1)})
             row.update({"n": b.n, "rss": rb[k],
-                        "residual_sd": math.sqrt(rb[k] / max(b.n, 1))
-                        if self.variance == "per_block" else
-                        math.sqrt(rb.sum() / self.nobs)})
+                        "residual_sd": math.sqrt(float(raw[k] @ raw[k]) / max(b.n, 1))
+                        if self.variance == "per_block" else all_sd})
             rows.append(row)
         return pd.DataFrame(rows)
 
@@ -759,20 +647,30 @@ class SharedFit:
         return np.maximum(z, L.lower)
 
     # -- bootstrap ------------------------------------------------------------------------
-    def bootstrap(self, n=999, rng=0, level=0.95) -> pd.DataFrame:
+    def bootstrap(self, n=999, rng=0, level=0.95, n_jobs=1) -> pd.DataFrame:
         """Whole-animal bootstrap of the shared parameters and their half-lives.
 
         Blocks are drawn with replacement (within the levels of the columns that scope
         shared parameters), the joint model refitted from the estimate, and percentile
         intervals reported.
 
+        Replicate ``r`` draws its blocks from its own child of one
+        :class:`numpy.random.SeedSequence` (seeded from ``rng``), so the draws, and the
+        table, are the same whatever ``n_jobs`` and however the replicates are shared out.
+        The refits run through joblib: under ``with joblib.parallel_backend("dask"):`` (and
+        a ``dask.distributed.Client``) they run on the cluster with no other change.
+
         Parameters
         ----------
         n : int, default=999
             Replicates.
         rng : int, numpy Generator or None, default=0
-            Seed or generator of the draws.
+            Seed or generator of the draws (a generator is advanced by one draw).
         level : float, default=0.95
+        n_jobs : int, default=1
+            Parallel workers for the refits (joblib; ``-1`` all cores, or the workers of
+            the active joblib backend). Without joblib a warning is given and the refits
+            run serially. The result does not depend on it.
 
         Returns
         -------
@@ -782,43 +680,39 @@ class SharedFit:
         """
         n = check_positive_int("n", n)
         level = check_level(level)
+        workers = parallel_workers(n_jobs)
         gen = np.random.default_rng(rng)
+        root = np.random.SeedSequence([int(v) for v in gen.integers(0, 2**32, size=4)])
         blocks = self._p.blocks
         cols = sorted({c for c in self.scopes.values() if c is not None})
         strata = {}
         for k, b in enumerate(blocks):
             strata.setdefault(tuple(b.levels[c] for c in cols), []).append(k)
+        picks = []
+        for child in root.spawn(n):
+            g = np.random.default_rng(child)
+            picks.append(np.concatenate([g.choice(idx, size=len(idx), replace=True)
+                                         for idx in strata.values()]))
         entries = [(nm, lab, k, j) for nm, lab, k, j in self._param_entries()
                    if lab == "all" or "=" in lab]
-        draws = np.full((n, len(entries)), np.nan)
-        failed = 0
-        for r in range(n):
-            pick = []
-            for idx in strata.values():
-                pick += list(gen.choice(idx, size=len(idx), replace=True))
-            new_blocks = []
-            for m, k in enumerate(pick):
-                b = blocks[k]
-                new_blocks.append(Block((*b.key, m), f"{b.label}_{m}", b.kin, b.t, b.y,
-                                         b.sd if b.has_sd else None, b.levels))
-            L = Layout(new_blocks, self.scopes, self._contrast)
-            z0 = np.zeros(L.size)
-            for m, k in enumerate(pick):
-                c = self._L.A[k] @ self.z[self._L.cols[k]]
-                for i, rows in enumerate(L.rows[m]):
-                    if len(rows) == 1:
-                        z0[rows[0]] = c[i]
-            prob = Joint(L)
-            try:
-                z, ok, _ = prob.fit(z0, self.variance == "per_block")
-            except (FloatingPointError, np.linalg.LinAlgError):
-                ok = False
-            if not ok:
-                failed += 1
-                continue
-            for e, (_nm, lab, _k, j) in enumerate(entries):
-                m = next(mm for mm, kk in enumerate(pick) if _in_scope(blocks[kk], lab))
-                draws[r, e] = prob.block_theta(z, m)[j]
+        # what every replicate needs, and no more: the blocks' data and kinetics, each
+        # block's starting local coordinates, the sharing; not the fit and its caches
+        starts = [self._L.A[k] @ self.z[self._L.cols[k]] for k in range(len(blocks))]
+        setup = (blocks, starts, self.scopes, self._contrast, self.variance == "per_block",
+                 [(lab, j) for _nm, lab, _k, j in entries])
+        if workers == 1 or n < 2:
+            parts = [bootstrap_refits(setup, picks)]
+        else:
+            # a few batches per worker: the blocks travel once per batch, not per replicate
+            size = max(1, -(-n // (4 * max(1, _joblib.effective_n_jobs(workers)))))
+            batches = [picks[i:i + size] for i in range(0, n, size)]
+            parts = _joblib.Parallel(n_jobs=workers)(
+                _joblib.delayed(bootstrap_refits)(setup, b) for b in batches)
+        draws = np.vstack([d for d, _, _ in parts])
+        failed = sum(f for _, f, _ in parts)
+        for _d, _f, caught in parts:
+            for message, category in caught:
+                warnings.warn(message, category, stacklevel=2)
         rows = []
         a = (1 - level) / 2
         for e, (nm, lab, k, j) in enumerate(entries):
@@ -868,26 +762,20 @@ class SharedFit:
                 f"{dict(self.scopes)!r}, variance={self.variance!r})")
 
 
-def _in_scope(block, lab):
-    """Whether a block belongs to a scope label ("all" or "column=level")."""
-    if lab == "all":
-        return True
-    col, _, lev = lab.partition("=")
-    return block.levels.get(col) == lev
-
-
 def compare_groups(samples, *, group="group", parameter="k1", pools=1, by="subject",
                    shared=(), diets=None, variance="auto", level=0.95, **options):
-    r"""Does a rate differ between groups? Likelihood-ratio test and half-life ratios.
+    r"""Does a rate differ between groups? F (and likelihood-ratio) test, half-life ratios.
 
     Fits the series twice: with ``parameter`` common to all series (H0) and with one value
     per level of ``group`` (H1, coded as the reference level's value and each other
-    level's difference on the log scale); both share the parameters in ``shared``. With
-    one common variance the test is the F test
-    :math:`F = [(\mathrm{RSS}_0 - \mathrm{RSS}_1)/q] / [\mathrm{RSS}_1/(N - P_1)]`; with
-    variances per series the likelihood-ratio test :math:`2(\ln L_1 - \ln L_0) \sim
-    \chi^2_q` (Wilks 1938). For a rate the ratio of each level's half-life to the
-    reference level's, :math:`e^{-d}`, gets the profile interval of the difference ``d``.
+    level's difference on the log scale); both share the parameters in ``shared``. The test
+    is the F test :math:`F = [(\mathrm{RSS}_0 - \mathrm{RSS}_1)/q] / [\mathrm{RSS}_1/(N - P_1)]`
+    on the weighted problem of the by-group fit (with variances per series, those of the
+    by-group fit held fixed, the convention of its profile intervals), so that the test and
+    the interval of the ratio agree; the likelihood-ratio test with the variances
+    re-estimated, :math:`2(\ln L_1 - \ln L_0) \sim \chi^2_q` (Wilks 1938), is reported
+    beside it. For a rate the ratio of each level's half-life to the reference level's,
+    :math:`e^{-d}`, gets the profile interval of the difference ``d``.
 
     Parameters
     ----------
@@ -905,7 +793,8 @@ def compare_groups(samples, *, group="group", parameter="k1", pools=1, by="subje
     Returns
     -------
     dict
-        ``test`` (DataFrame: statistic, df, p_value, kind, loglik and AICc of both fits),
+        ``test`` (DataFrame: kind ``"F"``, statistic, df, df_resid, p_value, lr_statistic,
+        lr_p_value, loglik and AICc of both fits),
         ``ratios`` (DataFrame: level, reference, ratio of half-lives (or of the parameter
         for a non-rate: the difference), lower, upper, statuses), ``common`` and
         ``by_group`` (the two :class:`SharedFit`).
@@ -940,17 +829,21 @@ def compare_groups(samples, *, group="group", parameter="k1", pools=1, by="subje
     h1 = _fit(blocks, models, scopes, h0.by, unit, h0.variance, pools, dict(options),
               contrast=(group,))
     q = len(levels) - 1
-    if h0.variance == "common":
-        stat = ((h0._p.block_rss(h0.z).sum() - h1._p.block_rss(h1.z).sum()) / q) / (
-            h1._p.block_rss(h1.z).sum() / h1.dof)
-        p = float(stats.f.sf(max(stat, 0.0), q, h1.dof))
-        kind = "F"
-    else:
-        stat = 2 * (h1.loglik - h0.loglik)
-        p = float(stats.chi2.sf(max(stat, 0.0), q))
-        kind = "likelihood ratio"
-    test = pd.DataFrame([{"parameter": parameter, "group": group, "kind": kind,
-                          "statistic": float(stat), "df": q, "p_value": p,
+    # the F test of the differences, on the weighted problem of the by-group fit (its
+    # variances held fixed, as its profile intervals hold them): the common fit is that
+    # problem with every difference at 0, so the test and the ratio's interval agree
+    diffs = [h1._L.index[f"{parameter}@{group}={lev}-{levels[0]}"] for lev in levels[1:]
+             if f"{parameter}@{group}={lev}-{levels[0]}" in h1._L.index]
+    _, rss0, ok0, _ = h1._p.solve(h1.z, fixed={i: 0.0 for i in diffs})
+    if not ok0:
+        rss0 = h0.rss * h1.s2 / h0.s2 if h0.variance == "common" else math.nan
+    stat = ((rss0 - h1.rss) / q) / (h1.rss / h1.dof) if h1.dof > 0 else math.nan
+    p = float(stats.f.sf(max(stat, 0.0), q, h1.dof)) if math.isfinite(stat) else math.nan
+    lr = 2 * (h1.loglik - h0.loglik)
+    test = pd.DataFrame([{"parameter": parameter, "group": group, "kind": "F",
+                          "statistic": float(stat), "df": q, "df_resid": h1.dof,
+                          "p_value": p, "lr_statistic": float(lr),
+                          "lr_p_value": float(stats.chi2.sf(max(lr, 0.0), q)),
                           "loglik_common": h0.loglik, "loglik_by_group": h1.loglik,
                           "aicc_common": h0.aicc, "aicc_by_group": h1.aicc}])
     rows = []

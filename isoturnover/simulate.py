@@ -378,10 +378,10 @@ def simulate_design(model, truth, times, *, sd, n_subjects=1, n_sim=500, rng=Non
     if workers == 1 or joblib is None:
         out = _chunk(*args, seeds, options)
     else:
-        n_w = joblib.cpu_count() if workers == -1 else workers
+        n_w = joblib.effective_n_jobs(workers)
         n_chunks = min(n_sim, 2 * n_w)  # few, large tasks: one fit costs milliseconds
         parts = np.array_split(np.arange(n_sim), n_chunks)
-        res = joblib.Parallel(n_jobs=workers, backend="loky")(
+        res = joblib.Parallel(n_jobs=workers)(
             joblib.delayed(_chunk)(*args, [seeds[i] for i in p], options) for p in parts)
         out = [r for part in res for r in part]
     draws = pd.DataFrame({
@@ -540,6 +540,10 @@ def sample_size(model, truth, times, *, sd, target_rel_precision=0.1, quantity="
                         f"{target_rel_precision!r}")
     max_subjects = check_positive_int("max_subjects", max_subjects)
     level = check_level(level)
+    if isinstance(times, Design) and times.n_animals > 1:
+        raise DataError(f"'times': sample_size counts animals each sampled at the whole "
+                        f"schedule, but this schedule is spread over {times.n_animals} animals; "
+                        "give a one-animal schedule (max_per_animal=None, destructive=False)")
     t1 = _schedule(times)
     quantity = check_choice("quantity", quantity, QUANTITIES)
     one = evaluate_design(model, truth, t1, sd=sd, criterion=quantity, pool=pool,

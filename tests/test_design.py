@@ -345,3 +345,13 @@ def test_simulation_arguments_are_checked():
         simulate_design(m, ONE, [0, np.nan], sd=0.3)
     with pytest.raises(DataError, match="'target_rel_precision'"):
         sample_size(m, ONE, [0, 10, 20, 40], sd=0.3, target_rel_precision=0)
+
+
+def test_sample_size_refuses_a_schedule_spread_over_animals():
+    model = iso.TurnoverModel(1)
+    guess = {"delta0": -22.0, "delta_eq": -14.0, "k1": 0.07, "f1": 1.0}
+    plan = iso.design_schedule(model, guess, n_samples=8, duration=60, sd=0.3,
+                               max_per_animal=4, min_spacing=2)
+    assert plan.n_animals == 2
+    with pytest.raises(iso.DataError, match="spread over 2 animals"):
+        iso.sample_size(model, guess, plan, sd=0.3, n_sim=10)

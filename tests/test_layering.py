@@ -38,7 +38,7 @@ LAYERS = {
     "model": 8, "selection": 8, "serialization": 8, "seriesrows": 8,
     "groups": 9, "sharedfit": 9, "designmodel": 9,
     "plotting": 10, "plotkit": 10, "plotstudy": 10, "design": 10, "simulate": 10,
-    "plotplan": 10,
+    "plotplan": 10, "plotpop": 10,
     "report": 11, "reportfigures": 11, "planreport": 11,
     "analysis": 12, "cliargs": 12,
     "cli": 13,
@@ -57,8 +57,10 @@ SAME_LAYER = {("isotopes", "conventions"), ("data", "diet"), ("demo", "data"),
               ("results", "intervalcache"), ("results", "records"),
               ("growth", "growthlaws"), ("plotting", "plotkit"),
               ("plotstudy", "plotkit"), ("report", "reportfigures"),
-              ("progress", "progressvariable"), ("simulate", "design"),
-              ("plotplan", "plotkit"), ("plotplan", "design")}
+              ("progress", "progressvariable"), ("jointproblem", "profiles"),
+              ("simulate", "design"),
+              ("plotplan", "plotkit"), ("plotplan", "design"), ("plotpop", "plotkit"),
+              ("sharedfit", "groups")}
 
 
 def _modules():

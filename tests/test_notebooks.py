@@ -147,6 +147,38 @@ def test_field_plan_notebook_runs_committed_clean(tmp_path, monkeypatch):
     assert list(work.iterdir()) == []
     assert not [p for p in tmp.rglob("plan.*")]
 
+
+def test_population_notebook_runs_committed_clean(tmp_path, monkeypatch):
+    from isoturnover.conventions import CAUTION
+
+    name = "03_population.ipynb"
+    committed = _read(name)
+    nbformat.validate(committed)
+    assert all(not c.outputs and c.execution_count is None
+               for c in committed.cells if c.cell_type == "code")
+    assert committed.metadata.get("kernelspec", {}).get("name") == "python3"
+    markdown = [" ".join(c.source.split()) for c in committed.cells
+                if c.cell_type == "markdown"]
+    assert "data are invented" in markdown[0]
+    assert "animal-care authority" in markdown[-1] and "not replace it" in markdown[-1]
+    nb, work, tmp = _execute(name, tmp_path, monkeypatch)
+    text, tables, errors = _outputs(nb)
+    assert errors == []
+    assert tables >= 5, f"expected the notebook to show tables; found {tables}"
+    # the shared fit of the eight goats, its half-life and the AICc comparison
+    assert "Shared fit of 8 series" in text and "half-life of pool 1 [all]" in text
+    assert "AICc prefers the" in text
+    # the pen comparison: the test and the half-life ratio
+    assert "F test p = " in text and "likelihood-ratio p = " in text
+    assert "half-life of pen B / pen A" in text
+    # the population estimate, its forest plot's axis and the caution
+    assert "Population half-life from 8 animals" in text
+    assert "prediction interval" in text and "x axis: Half-life (days)" in text
+    assert " ".join(CAUTION.split()) in " ".join(text.split())
+    # nothing written: not in the work dir, no figure or table in the temporary folder
+    assert list(work.iterdir()) == []
+    assert not [p for p in tmp.rglob("*") if p.suffix in (".png", ".csv", ".md", ".html")]
+
 @pytest.mark.parametrize("name", NAMES)
 def test_notebook_committed_without_outputs(name):
     nb = _read(name)

@@ -161,10 +161,16 @@ def test_compare_groups_detects_a_difference_and_its_half_life_ratio():
     df = _study(n=8, k=(0.05, 0.08), seed=3)
     out = iso.compare_groups(df, group="group", parameter="k1")
     test = out["test"].iloc[0]
-    assert test["kind"] == "likelihood ratio" and test["p_value"] < 1e-4
-    # the statistic is 2 (lnL1 - lnL0) of the two fits it returns
-    assert test["statistic"] == pytest.approx(
+    assert test["kind"] == "F" and test["p_value"] < 1e-4 and test["lr_p_value"] < 1e-4
+    # the likelihood-ratio statistic is 2 (lnL1 - lnL0) of the two fits it returns
+    assert test["lr_statistic"] == pytest.approx(
         2 * (out["by_group"].loglik - out["common"].loglik), rel=1e-12)
+    # the F test and the ratio's profile interval are one computation: the interval
+    # excludes 1 exactly when p < 0.05 (here both), and at the 1 - p level 1 is a bound
+    by = out["by_group"]
+    i = next(j for j, lab in enumerate(by._L.labels) if lab.startswith("k1@group=B-"))
+    iv = by._profile(i, "id", 1 - test["p_value"], float(by.z[i]))
+    assert min(abs(iv["lower"]), abs(iv["upper"])) == pytest.approx(0.0, abs=1e-4)
     ratio = out["ratios"].iloc[0]
     true = 0.05 / 0.08  # half-life of B over A = k_A / k_B
     assert ratio["lower"] < true < ratio["upper"]
@@ -282,3 +288,42 @@ def test_a_measured_precursor_makes_the_chain_rates_identifiable():
     assert np.isnan(tab.loc[("R0", "plasma"), "k2"])
     with pytest.raises(iso.DataError, match="'models'"):
         iso.fit_shared(df, by=("subject", "tissue"), models={"bone": {"pools": 1}})
+
+
+# ----------------------------------------------------------------------------------------
+# the bootstrap's refits in parallel workers (n_jobs)
+# ----------------------------------------------------------------------------------------
+def test_bootstrap_is_identical_for_one_and_two_jobs():
+    # each replicate draws from its own child of one SeedSequence, so the table cannot depend
+    # on how the replicates are shared out; reference: the same call with n_jobs=1
+    pytest.importorskip("joblib")
+    df = _study(n=6, k=(0.05, 0.08), seed=6)
+    fit = iso.fit_shared(df, shared={"k1": "group"})
+    one = fit.bootstrap(n=24, rng=5, n_jobs=1)
+    two = fit.bootstrap(n=24, rng=5, n_jobs=2)
+    pd.testing.assert_frame_equal(one, two)
+    assert set(one["scope"]) == {"group=A", "group=B"}
+    # a generator seeds the same way as its integer seed (np.random.default_rng(5))
+    pd.testing.assert_frame_equal(fit.bootstrap(n=24, rng=np.random.default_rng(5)), one)
+    # and a different seed gives different draws (the test can fail)
+    other = fit.bootstrap(n=24, rng=6, n_jobs=2)
+    assert not np.allclose(other["lower"], one["lower"])
+
+
+@pytest.mark.parametrize("bad", [0, -2, 1.5, "2", True])
+def test_bootstrap_bad_n_jobs_is_named(bad):
+    fit = iso.fit_shared(_study(n=4), shared=("k1",))
+    with pytest.raises(iso.DataError, match="'n_jobs'"):
+        fit.bootstrap(n=4, n_jobs=bad)
+
+
+def test_bootstrap_without_joblib_warns_and_runs_serially(monkeypatch):
+    # reference: the same call with n_jobs=1 (the serial path the fallback must take)
+    from isoturnover import groups
+
+    fit = iso.fit_shared(_study(n=4, k=(0.05, 0.05), seed=6), shared=("k1",))
+    serial = fit.bootstrap(n=6, rng=2, n_jobs=1)
+    monkeypatch.setattr(groups, "_joblib", None)
+    with pytest.warns(iso.IsoturnoverWarning, match="n_jobs=2 asks for parallel workers"):
+        out = fit.bootstrap(n=6, rng=2, n_jobs=2)
+    pd.testing.assert_frame_equal(out, serial)
