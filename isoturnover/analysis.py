@@ -522,7 +522,8 @@ def _switch_dates_of_samples(s, keys) -> pd.DataFrame:
 
 
 def _read_tables(samples, diets, masses, *, time_unit, date_format, columns, diet_columns,
-                 mass_columns, switch_date, switch_dates, unit, baseline, mass_unit=None):
+                 mass_columns, switch_date, switch_dates, unit, baseline, mass_unit=None,
+                 on_bad_rows="raise"):
     """The three tables read and checked, dates turned into times since the switch.
 
     The samples' switch date (one, or one per group or subject: a frame, a column name, or
@@ -548,7 +549,7 @@ def _read_tables(samples, diets, masses, *, time_unit, date_format, columns, die
         from .tables import load_table
 
         switch_dates = load_table(switch_dates, None).frame  # names a missing file
-    common = dict(time_unit=time_unit, date_format=date_format)
+    common = dict(time_unit=time_unit, date_format=date_format, on_bad_rows=on_bad_rows)
     s = read_samples(samples, columns=columns, switch_date=switch_date,
                      switch_dates=switch_dates, unit=unit, baseline=baseline, **common)
     dated = "date" in s.columns and (switch_date is not None or switch_dates is not None)
@@ -591,7 +592,7 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
             separation="difference", initial="equilibrium", fixed=None, absolute_sigma=False,
             loss="linear", columns=None, diet_columns=None, mass_columns=None,
             switch_date=None, switch_dates=None, unit="delta", baseline=None,
-            mass_unit=None) -> Analysis:
+            mass_unit=None, on_bad_rows="raise") -> Analysis:
     """Fit every series of a samples table and choose its model (pools, separation) by AICc.
 
     Parameters
@@ -656,6 +657,9 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
         Your column names to the canonical ones, per table (``{"animal": "subject"}``).
     mass_unit : str, optional
         Unit of the body masses (``"kg"``), shown on the growth figures and in the report.
+    on_bad_rows : {"raise", "drop"}, default="raise"
+        A bad row of any table: an error naming file, row and column, or (``"drop"``) a
+        warning listing every dropped row (see :func:`~isoturnover.read_samples`).
     switch_date : date-like, optional
         One diet-switch date for every row: the tables' dates become times since it (the
         samples' ``date`` column; a diets table whose ``start`` holds dates; a masses
@@ -710,7 +714,8 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
                            date_format=date_format, columns=columns,
                            diet_columns=diet_columns, mass_columns=mass_columns,
                            switch_date=switch_date, switch_dates=switch_dates, unit=unit,
-                           baseline=baseline, mass_unit=mass_unit)
+                           baseline=baseline, mass_unit=mass_unit,
+                           on_bad_rows=on_bad_rows)
     by = _parse_by(by, [c for c in s.columns if c != "is_replicate_group"])
     if by is None:
         per = s.groupby(["subject", "tissue", "isotope"])["time"].nunique()

@@ -24,7 +24,7 @@ import numpy as np
 
 from .errors import DataError
 
-__all__ = ["DietHistory"]
+__all__ = ["DietHistory", "diet_for_series"]
 
 
 def _try_float(v):
@@ -391,3 +391,38 @@ class DietHistory:
                 parts.insert(0, f"previous={self._previous:g}")
         parts += [f"t={t:g}: {fmt(v)}" for t, v in zip(self._times, self._values[1:])]
         return f"DietHistory({', '.join(parts)})"
+
+
+def diet_for_series(diets, subject, group, isotope):
+    """The diet history of one series from a diets table: by subject, else by group.
+
+    Parameters
+    ----------
+    diets : DataFrame
+        A diets table (:func:`~isoturnover.read_diets`): ``isotope``, ``start``, ``value``
+        and ``subject`` and/or ``group`` (or neither: one history for every series).
+    subject, group : str or None
+        The series' subject and group (None when unknown).
+    isotope : str
+        The series' isotope.
+
+    Returns
+    -------
+    tuple
+        ``(DietHistory, None)``, or ``(None, reason)`` when the table has no rows for it.
+    """
+    d = diets[diets["isotope"].astype(str) == str(isotope)]
+    if "subject" in d.columns and subject is not None:
+        rows = d[d["subject"].astype(str) == str(subject)]
+        if len(rows):
+            return DietHistory.from_table(rows.sort_values("start"), isotope=isotope), None
+    if "group" in d.columns and group is not None:
+        rows = d[d["group"].astype(str) == str(group)]
+        if len(rows):
+            return DietHistory.from_table(rows.sort_values("start"), isotope=isotope), None
+    if "group" not in d.columns and "subject" not in d.columns and len(d):
+        return DietHistory.from_table(d.sort_values("start"), isotope=isotope), None
+    what = f"subject {subject!r}" if subject is not None else ""
+    if group is not None:
+        what += f"{' / ' if what else ''}group {group!r}"
+    return None, f"no diet rows for {what or 'this series'} and isotope {isotope}"

@@ -34,7 +34,7 @@ from .conventions import (
     check_pool_numbers,
 )
 from .diagnostics import after_switch_reason
-from .diet import DietHistory
+from .diet import diet_for_series
 from .engine import Coordinates, check_names
 from .errors import DataError, DataWarning, IsoturnoverWarning
 from .kinetics import MAX_POOLS
@@ -418,25 +418,6 @@ def _per_diet_applies(diet, initial, separation):
     return diet is not None and n[1] > n[0]
 
 
-def _diet_for(diets, key_map, subject_group, isotope):
-    """The DietHistory of a series from a diets table: by subject, else by group."""
-    d = diets[diets["isotope"].astype(str) == str(isotope)]
-    if "subject" in d.columns and key_map.get("subject") is not None:
-        rows = d[d["subject"].astype(str) == str(key_map["subject"])]
-        if len(rows):
-            return DietHistory.from_table(rows.sort_values("start"), isotope=isotope), None
-    if "group" in d.columns and subject_group is not None:
-        rows = d[d["group"].astype(str) == str(subject_group)]
-        if len(rows):
-            return DietHistory.from_table(rows.sort_values("start"), isotope=isotope), None
-    if "group" not in d.columns and "subject" not in d.columns and len(d):
-        return DietHistory.from_table(d.sort_values("start"), isotope=isotope), None
-    what = f"subject {key_map.get('subject')!r}" if key_map.get("subject") is not None else ""
-    if subject_group is not None:
-        what += f"{' / ' if what else ''}group {subject_group!r}"
-    return None, f"no diet rows for {what or 'this series'} and isotope {isotope}"
-
-
 def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets=None,
              masses=None, criterion="aicc", level=0.95, method="profile", lag=False,
              separation="difference", initial="equilibrium", fixed=None, absolute_sigma=False,
@@ -619,7 +600,7 @@ def _attach_diets(data, groups, by, diets, initial, separation):
         mk = (key_map.get("subject") if subject_col else None, d.group, d.isotope)
         if mk not in memo:
             try:
-                memo[mk] = _diet_for(diets, key_map, d.group, d.isotope)
+                memo[mk] = diet_for_series(diets, key_map.get("subject"), d.group, d.isotope)
             except SERIES_ERRORS as e:
                 memo[mk] = (None, f"diet history could not be built: {e}", "failed")
         diet, why, *code = memo[mk]

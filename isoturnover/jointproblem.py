@@ -569,9 +569,27 @@ def parse_shared(shared, names, frame, by):
     return scopes
 
 
-def diet_of(diets, key):
+def diet_of(diets, key, sub=None):
+    """The diet history of one block: ``diets`` as given (None or one DietHistory), looked
+    up in a dict by the block's key, or matched in a diets table (a frame or a file, by the
+    block's subject, else its group, and its isotope: :func:`~isoturnover.diet.diet_for_series`)
+    from the block's rows ``sub``."""
     if diets is None or isinstance(diets, DietHistory):
         return diets
+    if isinstance(diets, (pd.DataFrame, str)) or hasattr(diets, "__fspath__"):
+        from .data import read_diets
+        from .diet import diet_for_series
+
+        table = read_diets(diets) if not isinstance(diets, pd.DataFrame) or \
+            "isotope" not in diets.columns or "start" not in diets.columns else diets
+
+        def first(col):
+            return str(sub[col].iloc[0]) if sub is not None and col in sub.columns else None
+
+        d, why = diet_for_series(table, first("subject"), first("group"), first("isotope"))
+        if d is None:
+            raise DataError(f"'diets': {why} (series {key!r})")
+        return d
     if isinstance(diets, dict):
         for k in (key, key[0] if len(key) == 1 else None, key_label(key)):
             if k is not None and k in diets:
@@ -580,8 +598,8 @@ def diet_of(diets, key):
                     raise DataError(f"'diets[{k!r}]' must be a DietHistory")
                 return d
         raise DataError(f"'diets' has no diet history for the series {key!r}")
-    raise DataError("'diets' must be None, a DietHistory or a dict series key -> DietHistory; "
-                    f"got {type(diets).__name__}")
+    raise DataError("'diets' must be None, a DietHistory, a dict series key -> DietHistory "
+                    f"or a diets table; got {type(diets).__name__}")
 
 
 # ----------------------------------------------------------------------------------------

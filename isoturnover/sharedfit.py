@@ -105,9 +105,11 @@ def fit_shared(samples, *, pools=1, shared=("k1",), by="subject", diets=None,
     by : str or sequence of str, default="subject"
         Columns that make a series (a block); each block must hold one tissue and one
         isotope (add ``"tissue"``, ``"isotope"`` to ``by`` otherwise).
-    diets : DietHistory or dict, optional
-        Diet history of every block, or a dict block key (tuple, single value or label)
-        → DietHistory. None: one step switch at time 0 (``delta0`` → ``delta_eq``).
+    diets : DietHistory, dict, DataFrame or path, optional
+        Diet history of every block, a dict block key (tuple, single value or label)
+        → DietHistory, or a diets table (:func:`~isoturnover.read_diets`) matched to each
+        block by subject, else group, and isotope, as :func:`~isoturnover.fit_each` does.
+        None: one step switch at time 0 (``delta0`` → ``delta_eq``).
     variance : {"auto", "per_block", "common"}, default="auto"
         Residual variance per block (estimated by maximum likelihood with the parameters)
         or one for all; ``"auto"``: per block when every block has at least two points
@@ -164,7 +166,7 @@ def fit_shared(samples, *, pools=1, shared=("k1",), by="subject", diets=None,
                                 f"series; series {key!r} has {', '.join(lev)}")
             opts.update(per_level.get(lev[0], {}))
         n_pools = opts.pop("pools", pools)
-        m = TurnoverModel(n_pools, diet=diet_of(diets, key), **opts)
+        m = TurnoverModel(n_pools, diet=diet_of(diets, key, sub), **opts)
         if m.kinetics.growth_kind is not None:
             raise DataError("fit_shared does not fit growth dilution")
         built.append((key, sub.sort_values("time", kind="stable"), m))
@@ -808,7 +810,7 @@ def compare_groups(samples, *, group="group", parameter="k1", pools=1, by="subje
     frame, by_t, unit = read_study(samples, by)
     if group not in frame.columns:
         raise DataError(f"'group': column {group!r} is not in the samples table")
-    models = [TurnoverModel(pools, diet=diet_of(diets, b.key), **options)
+    models = [TurnoverModel(pools, diet=b.kin.diet, **options)
               for b in h0._p.blocks]
     blocks = []
     for b in h0._p.blocks:

@@ -612,8 +612,8 @@ class Issues:
                 more = ", ..." if further.size > MAX_LISTED else ""
                 msg += (f". {further.size} further bad row{'s' if further.size > 1 else ''}"
                         f" ({shown}{more})")
-            msg += ("; correct the data, or pass on_bad_rows='drop' to drop bad rows with a "
-                    "warning")
+            msg += ("; correct the data, or pass on_bad_rows='drop' (command line: "
+                    "--drop-bad-rows) to drop bad rows with a warning")
             raise DataError(msg)
         if bad.all():
             first = 0

@@ -346,3 +346,17 @@ def test_readme_lists_every_option_of_fit():
         for name in action.option_strings:
             if name.startswith("--") and name != "--help":
                 assert re.search(rf"(?<![\w-]){re.escape(name)}(?![\w-])", section), name
+
+
+def test_drop_bad_rows_drops_and_lists_them_and_the_fit_is_the_clean_one(tmp_path, capsys):
+    clean = goats()
+    dirty = clean.copy().astype({"value": object})
+    dirty = pd.concat([dirty, dirty.iloc[[3]].assign(value="n/a")], ignore_index=True)
+    f = write(tmp_path, "dirty", dirty)
+    # without the option: one line naming the file, row and column, and the option
+    assert main(["fit", str(f), "--out", str(tmp_path / "o1"), *FAST]) == 2
+    err = capsys.readouterr().err
+    assert re.search(r"row \d+, column 'value'", err) and "--drop-bad-rows" in err
+    a, _ = fit(tmp_path, "clean", clean, capsys=capsys)
+    b, _ = fit(tmp_path, "dirty2", dirty, "--drop-bad-rows", capsys=None)
+    same_half_lives(a, b)

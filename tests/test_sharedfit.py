@@ -327,3 +327,22 @@ def test_bootstrap_without_joblib_warns_and_runs_serially(monkeypatch):
     with pytest.warns(iso.IsoturnoverWarning, match="n_jobs=2 asks for parallel workers"):
         out = fit.bootstrap(n=6, rng=2, n_jobs=2)
     pd.testing.assert_frame_equal(out, serial)
+
+
+def test_a_diets_table_is_matched_to_each_series_like_fit_each():
+    # the demo goats' plasma d15N with the demo diets table (invented data): the shared fit
+    # takes the table; each block's diet history is the one fit_each matches (by group)
+    from isoturnover.demo import demo_path
+
+    s = iso.read_samples(demo_path("goat_samples"))
+    s = s[(s["tissue"] == "plasma") & (s["isotope"] == "d15N")
+          & s["subject"].isin(["G01", "G02", "G05", "G06"])]
+    diets = iso.read_diets(demo_path("goat_diets"))
+    fit = iso.fit_shared(s, shared=("k1",), diets=diets, per_diet_separation=True)
+    each = iso.fit_each(s, diets=diets, pools=(1,), per_diet_separation=True)
+    for key, r in each.items():
+        k = fit._block_index(key[0])  # noqa: SLF001 - the block's own kinetics, for the check
+        assert fit._p.blocks[k].kin.diet == r.best.model.diet
+    assert fit.params["k1"].value > 0
+    with pytest.raises(iso.DataError, match="no diet rows"):
+        iso.fit_shared(s, diets=diets[diets["isotope"] == "d13C"])
