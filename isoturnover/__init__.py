@@ -12,6 +12,7 @@ from importlib.metadata import version as _version
 from . import isotopes, plotting, uncertainty
 from .allometry import AllometryFit, fit_allometry
 from .analysis import analyse, load_fits, run_demo
+from .clocks import ClockResult, plot_clock, time_since_switch, time_since_switch_table
 from .data import average_replicates, read_diets, read_masses, read_samples, series
 from .demo import demo_path, load_demo
 from .design import Design, design_schedule, evaluate_design
@@ -84,6 +85,10 @@ __all__ = [
     "SampleSize",
     "plot_design",
     "plot_population",
+    "time_since_switch",
+    "time_since_switch_table",
+    "ClockResult",
+    "plot_clock",
     "read_samples",
     "read_diets",
     "read_masses",

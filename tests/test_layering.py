@@ -38,7 +38,7 @@ LAYERS = {
     "model": 8, "selection": 8, "serialization": 8, "seriesrows": 8,
     "groups": 9, "sharedfit": 9, "designmodel": 9,
     "plotting": 10, "plotkit": 10, "plotstudy": 10, "design": 10, "simulate": 10,
-    "plotplan": 10, "plotpop": 10,
+    "plotplan": 10, "plotpop": 10, "clocks": 10,
     "report": 11, "reportfigures": 11, "planreport": 11,
     "analysis": 12, "cliargs": 12,
     "cli": 13,
