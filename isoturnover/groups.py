@@ -41,7 +41,13 @@ from .kinetics import MAX_POOLS
 from .model import LOSSES, TurnoverModel
 from .population import population_estimate
 from .selection import CRITERIA, compare
-from .seriesrows import SERIES_ERRORS, candidate_row, population_inputs, series_data
+from .seriesrows import (
+    SERIES_ERRORS,
+    candidate_row,
+    growth_for_series,
+    population_inputs,
+    series_data,
+)
 
 try:  # optional (the "fast" extra): parallel series
     import joblib as _joblib
@@ -718,7 +724,7 @@ def _fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation
         return _all_failed(res, cands, data.diet_status, data.diet_reason)
     growth = None
     if masses is not None:
-        growth, why = _growth_for(masses, data.subject, growth_curve)
+        growth, why = growth_for_series(masses, data.subject, growth_curve)
         if growth is None:
             return _all_failed(res, cands, "failed", why)
     # does any sample follow the switch? (before "no change": that is why there is none)
@@ -869,32 +875,3 @@ def _repeated(subject, t) -> bool:
         if first != ti:
             return True
     return False
-
-
-def _growth_for(masses, subject, curve):
-    """Growth curve for a series: the subject's masses, or all subjects' for a destructive
-    series (``subject``: the series' points' subjects, in time order)."""
-    from .growthfit import fit_growth
-
-    subj = pd.unique(subject)
-    m = masses[masses["subject"].astype(str).isin(subj)]
-    if len(m) == 0:
-        return None, f"no masses for subject(s) {', '.join(subj[:5])}"
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            g = fit_growth(m["time"].to_numpy(dtype=float), m["mass"].to_numpy(dtype=float),
-                           curve=curve)
-        except SERIES_ERRORS as e:
-            g, error = None, f"growth curve '{curve}' could not be fitted: {e}"
-    # the curve's trust notes, naming whose curve it is (the series' tables do not show them)
-    who = f"subject {subj[0]}" if len(subj) == 1 else f"subjects {', '.join(subj[:5])}"
-    for w in caught:
-        text = str(w.message)
-        if issubclass(w.category, IsoturnoverWarning):
-            text = f"growth curve of {who}: {text}"
-        warnings.warn(text, w.category, stacklevel=2)
-    if g is not None:
-        g.mass_unit = masses.attrs.get("mass_unit")  # a label for figures and tables
-    return (None, error) if g is None else (g, None)
-

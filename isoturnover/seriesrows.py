@@ -12,16 +12,18 @@ series) read the same computation.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
 from .conventions import check_level, check_method
-from .errors import IsoturnoverError
+from .errors import IsoturnoverError, IsoturnoverWarning
 from .summary import table_records
 
-__all__ = ["SERIES_ERRORS", "SeriesData", "series_data", "candidate_row"]
+__all__ = ["SERIES_ERRORS", "SeriesData", "series_data", "candidate_row", "population_inputs",
+           "growth_for_series"]
 
 #: Exceptions that make one series (or one candidate model of it) a failed row with its
 #: reason: the library's own errors and numerical breakdowns. Anything else propagates.
@@ -354,3 +356,49 @@ def population_inputs(fitset, pool, level, method):
                                 ("upper_status", "upper_status", None)):
             out[name].append(fill if row is None else row[col])
     return out
+
+
+def growth_for_series(masses, subject, curve):
+    """Growth curve for a series: the subject's masses, or all subjects' for a destructive
+    series.
+
+    The curve's trust notes are issued again naming whose curve it is, and the masses'
+    unit (``attrs["mass_unit"]``) is kept on the curve as ``mass_unit``.
+
+    Parameters
+    ----------
+    masses : DataFrame
+        A masses table (:func:`~isoturnover.read_masses`).
+    subject : array-like of str
+        The series' points' subjects, in time order.
+    curve : str
+        Growth curve (:func:`~isoturnover.fit_growth`).
+
+    Returns
+    -------
+    tuple
+        ``(GrowthFit, None)`` or ``(None, reason)``.
+    """
+    from .growthfit import fit_growth
+
+    subj = pd.unique(subject)
+    m = masses[masses["subject"].astype(str).isin(subj)]
+    if len(m) == 0:
+        return None, f"no masses for subject(s) {', '.join(subj[:5])}"
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            g = fit_growth(m["time"].to_numpy(dtype=float), m["mass"].to_numpy(dtype=float),
+                           curve=curve)
+        except SERIES_ERRORS as e:
+            g, error = None, f"growth curve '{curve}' could not be fitted: {e}"
+    # the curve's trust notes, naming whose curve it is (the series' tables do not show them)
+    who = f"subject {subj[0]}" if len(subj) == 1 else f"subjects {', '.join(subj[:5])}"
+    for w in caught:
+        text = str(w.message)
+        if issubclass(w.category, IsoturnoverWarning):
+            text = f"growth curve of {who}: {text}"
+        warnings.warn(text, w.category, stacklevel=2)
+    if g is not None:
+        g.mass_unit = masses.attrs.get("mass_unit")  # a label for figures and tables
+    return (None, error) if g is None else (g, None)
