@@ -592,7 +592,7 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
             separation="difference", initial="equilibrium", fixed=None, absolute_sigma=False,
             loss="linear", columns=None, diet_columns=None, mass_columns=None,
             switch_date=None, switch_dates=None, unit="delta", baseline=None,
-            mass_unit=None, on_bad_rows="raise") -> Analysis:
+            mass_unit=None, on_bad_rows="raise", scale="delta") -> Analysis:
     """Fit every series of a samples table and choose its model (pools, separation) by AICc.
 
     Parameters
@@ -657,6 +657,8 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
         Your column names to the canonical ones, per table (``{"animal": "subject"}``).
     mass_unit : str, optional
         Unit of the body masses (``"kg"``), shown on the growth figures and in the report.
+    scale : {"delta", "atom_fraction"}, default="delta"
+        Mixing scale of the pools (see :func:`~isoturnover.fit_each`).
     on_bad_rows : {"raise", "drop"}, default="raise"
         A bad row of any table: an error naming file, row and column, or (``"drop"``) a
         warning listing every dropped row (see :func:`~isoturnover.read_samples`).
@@ -726,7 +728,7 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
                   lag=lag, growth_curve=growth_curve, per_diet_separation=per_diet_separation,
                   progress=progress, n_jobs=n_jobs, criterion=criterion,
                   separation=separation, initial=initial, fixed=fixed,
-                  absolute_sigma=absolute_sigma, loss=loss)
+                  absolute_sigma=absolute_sigma, loss=loss, scale=scale)
     return Analysis({"samples": fs}, level=level, ci=ci, n_boot=n_boot, seed=seed,
                     title=title, n_jobs=n_jobs)
 

@@ -119,6 +119,8 @@ def build_parser() -> argparse.ArgumentParser:
       help="diets column names, e.g. group=pen,start=day")
     a("--mass-columns", metavar="MAP", type=parse_column_map(MASS_COLUMNS, "mass=weight_kg"),
       help="masses column names, e.g. subject=animal,mass=weight_kg")
+    a("--scale", metavar="SCALE", choices=("delta", "atom_fraction"), default="delta",
+      help="mixing scale of the pools: delta (default) or atom_fraction")
     a("--drop-bad-rows", action="store_true",
       help="drop bad rows with a warning listing each (default: stop)")
     a("--mass-unit", metavar="UNIT", default=None,
@@ -380,7 +382,7 @@ def _cmd_fit(args, out):
                 absolute_sigma=args.known_sd, loss=args.loss, columns=args.columns,
                 diet_columns=args.diet_columns, mass_columns=args.mass_columns,
                 mass_unit=args.mass_unit,
-                on_bad_rows="drop" if args.drop_bad_rows else "raise",
+                on_bad_rows="drop" if args.drop_bad_rows else "raise", scale=args.scale,
                 switch_date=args.switch_date, switch_dates=args.switch_dates,
                 unit=args.unit, baseline=args.baseline)
     if a.n_fitted() == 0:

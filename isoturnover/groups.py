@@ -428,7 +428,7 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
              masses=None, criterion="aicc", level=0.95, method="profile", lag=False,
              separation="difference", initial="equilibrium", fixed=None, absolute_sigma=False,
              loss="linear", growth_curve="logistic", progress=False,
-             per_diet_separation=False, n_jobs=1) -> FitSet:
+             per_diet_separation=False, n_jobs=1, scale="delta") -> FitSet:
     """Fit every series of a samples table with every candidate model; choose one each.
 
     Parameters
@@ -479,6 +479,9 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     progress : bool, default=False
         Show a progress bar (tqdm when installed); with several workers it advances as the
         series come back, in order.
+    scale : {"delta", "atom_fraction"}, default="delta"
+        Mixing scale of the pools (:class:`~isoturnover.TurnoverModel`); with
+        ``"atom_fraction"`` each series' model takes the series' isotope.
     per_diet_separation : bool or "auto", default=False
         One separation per diet value (only with ``diets``). ``"auto"`` fits every
         candidate both ways, with one shared separation and (label suffix
@@ -534,6 +537,7 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     structures = check_name_tuple("structures", structures,
                         "model structures, e.g. structures=('parallel', 'chain')")
     pools = check_pool_numbers(pools, structures, MAX_POOLS)
+    scale = check_choice("scale", scale, ("delta", "atom_fraction"))
     cands = _candidates(pools, structures, per_diet_separation, lag=lag,
                         separation=separation, initial=initial)
     s = _validated(read_samples, samples, "samples", time_unit=_unit_of(samples))
@@ -570,7 +574,7 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
         _attach_diets(data, groups, by, diets, initial, separation)
     options = dict(masses=masses, criterion=criterion, lag=lag, separation=separation,
                    initial=initial, fixed=fixed, absolute_sigma=absolute_sigma, loss=loss,
-                   growth_curve=growth_curve, time_unit=time_unit)
+                   growth_curve=growth_curve, time_unit=time_unit, scale=scale)
     tasks = [(d, key, dict(zip(by, key))) for d, key in zip(data, groups)]
     if workers == 1 or len(tasks) < 2:
         done = [_fit_one(d, key, key_map, cands, options)
@@ -709,7 +713,7 @@ def _progress(items, progress, desc, total=None):
 
 
 def _fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation,
-                initial, fixed, absolute_sigma, loss, growth_curve, time_unit):
+                initial, fixed, absolute_sigma, loss, growth_curve, time_unit, scale="delta"):
     res = SeriesResult(key=key, group=data.group)
     t, y, sd = data.t, data.y, data.sd
     n = len(t)
@@ -744,7 +748,9 @@ def _fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation
     for label, structure, p, per_diet, optional in cands:
         model = TurnoverModel(p, structure=structure, lag=lag, diet=diet,
                               separation=separation, initial=initial, growth=growth,
-                              per_diet_separation=per_diet and diet is not None)
+                              per_diet_separation=per_diet and diet is not None,
+                              scale=scale,
+                              isotope=data.isotope if scale == "atom_fraction" else None)
         try:
             n_free = _n_free(model, fixed)
         except SERIES_ERRORS as e:

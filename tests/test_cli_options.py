@@ -360,3 +360,15 @@ def test_drop_bad_rows_drops_and_lists_them_and_the_fit_is_the_clean_one(tmp_pat
     a, _ = fit(tmp_path, "clean", clean, capsys=capsys)
     b, _ = fit(tmp_path, "dirty2", dirty, "--drop-bad-rows", capsys=None)
     same_half_lives(a, b)
+
+
+def test_scale_atom_fraction_reaches_each_series_model(tmp_path, capsys):
+    # near natural abundance the atom-fraction and δ mixing scales give almost the same
+    # half-lives (the mixing is nearly linear in δ there); the fits are on the asked scale
+    a, _ = fit(tmp_path, "delta", goats(), capsys=capsys)
+    b, fits = fit(tmp_path, "atom", goats(), "--scale", "atom_fraction", capsys=capsys)
+    assert all(f.model.scale == "atom_fraction" and f.model.isotope == "d13C" for f in fits)
+    assert np.allclose(a["half_life_1"], b["half_life_1"], rtol=0.02)
+    with pytest.raises(SystemExit) as e:  # argparse's choices: one line, exit 2
+        main(["fit", str(write(tmp_path, "x", goats())), "--scale", "ppm"])
+    assert e.value.code == 2 and "--scale" in capsys.readouterr().err
