@@ -9,7 +9,8 @@ from __future__ import annotations
 
 import argparse
 
-__all__ = ["fail", "parse_baseline", "parse_column_map", "parse_count", "parse_date_format",
+__all__ = ["whole_number", "real_number", "fail", "parse_baseline", "parse_column_map",
+           "parse_count", "parse_date_format",
            "parse_delta", "parse_fix", "parse_fraction", "parse_fractions", "parse_growth_curve",
            "parse_jobs", "parse_kinetics_list", "parse_level", "parse_n_sim",
            "parse_non_negative", "parse_number", "parse_number_list", "parse_pairs",
@@ -78,58 +79,6 @@ def parse_pools(text):
                                                             for n in pools):
         fail(text, what)
     return pools
-
-
-def parse_positive_int(text):
-    """Parse a whole number >= 1 (``--n-boot``).
-
-    Parameters
-    ----------
-    text : str
-        The argument as typed.
-
-    Returns
-    -------
-    int
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        When ``text`` is not a whole number >= 1.
-    """
-    try:
-        n = int(text)
-    except ValueError:
-        n = 0
-    if n < 1:
-        fail(text, "must be a whole number >= 1")
-    return n
-
-
-def parse_level(text):
-    """Parse ``--level``: a confidence level strictly between 0 and 1.
-
-    Parameters
-    ----------
-    text : str
-        The argument as typed (``0.95``).
-
-    Returns
-    -------
-    float
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        When ``text`` is not a number in (0, 1).
-    """
-    try:
-        v = float(text)
-    except ValueError:
-        v = float("nan")
-    if not 0 < v < 1:
-        fail(text, "must be a number between 0 and 1, such as 0.95")
-    return v
 
 
 def parse_time_unit(text):
@@ -346,125 +295,72 @@ def parse_delta(text):
     return parse_number(text, "must be a δ value in per mil, such as -22")
 
 
-def parse_positive(text):
-    """Parse a positive finite number (``--sd``, ``--duration``, ``--lag``, ``--prior-cv``).
+def whole_number(minimum, what):
+    """A parser of whole numbers >= ``minimum``; ``what`` is the message when the text is not.
 
     Parameters
     ----------
-    text : str
-        The argument as typed.
+    minimum : int
+        The smallest value accepted.
+    what : str
+        What the option must be (``"must be a whole number >= 1"``).
 
     Returns
     -------
-    float
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        When ``text`` is not a number > 0.
+    callable
+        ``parse(text) -> int``, raising :class:`argparse.ArgumentTypeError`.
     """
-    v = parse_number(text, "must be a positive number")
-    if v <= 0:
-        fail(text, "must be a positive number")
-    return v
+    def parse(text):
+        try:
+            n = int(text)
+        except ValueError:
+            n = minimum - 1
+        if n < minimum:
+            fail(text, what)
+        return n
+
+    return parse
 
 
-def parse_non_negative(text):
-    """Parse a finite number >= 0 (``--min-spacing``).
+def real_number(test, what):
+    """A parser of finite numbers passing ``test``; ``what`` is the message otherwise.
 
     Parameters
     ----------
-    text : str
-        The argument as typed.
+    test : callable
+        ``test(value) -> bool``.
+    what : str
+        What the option must be (``"must be a positive number"``).
 
     Returns
     -------
-    float
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        When ``text`` is not a number >= 0.
+    callable
+        ``parse(text) -> float``, raising :class:`argparse.ArgumentTypeError`.
     """
-    v = parse_number(text, "must be a number >= 0 (time unit)")
-    if v < 0:
-        fail(text, "must be a number >= 0 (time unit)")
-    return v
+    def parse(text):
+        v = parse_number(text, what)
+        if not test(v):
+            fail(text, what)
+        return v
+
+    return parse
 
 
-def parse_count(text):
-    """Parse a whole number >= 0 (``--baseline``, ``--seed``).
-
-    Parameters
-    ----------
-    text : str
-        The argument as typed.
-
-    Returns
-    -------
-    int
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        When ``text`` is not a whole number >= 0.
-    """
-    try:
-        n = int(text)
-    except ValueError:
-        n = -1
-    if n < 0:
-        fail(text, "must be a whole number >= 0")
-    return n
-
-
-def parse_n_sim(text):
-    """Parse ``--simulate N``: a whole number of simulated experiments >= 2.
-
-    Parameters
-    ----------
-    text : str
-        The argument as typed.
-
-    Returns
-    -------
-    int
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        When ``text`` is not a whole number >= 2.
-    """
-    try:
-        n = int(text)
-    except ValueError:
-        n = 0
-    if n < 2:
-        fail(text, "must be a whole number of simulated experiments >= 2")
-    return n
-
-
-def parse_fraction(text):
-    """Parse ``--fraction``: a fraction of the change strictly between 0 and 1.
-
-    Parameters
-    ----------
-    text : str
-        The argument as typed (``0.95``).
-
-    Returns
-    -------
-    float
-
-    Raises
-    ------
-    argparse.ArgumentTypeError
-        When ``text`` is not a number in (0, 1).
-    """
-    v = parse_number(text, "must be a fraction of the change between 0 and 1, such as 0.95")
-    if not 0 < v < 1:
-        fail(text, "must be a fraction of the change between 0 and 1, such as 0.95")
-    return v
+#: ``--n-boot`` and other counts of at least one.
+parse_positive_int = whole_number(1, "must be a whole number >= 1")
+#: ``--baseline`` (samples before the switch) and other counts of at least zero.
+parse_count = whole_number(0, "must be a whole number >= 0")
+#: ``--simulate N``: simulated experiments.
+parse_n_sim = whole_number(2, "must be a whole number of simulated experiments >= 2")
+#: ``--level``: a confidence level.
+parse_level = real_number(lambda v: 0 < v < 1, "must be a number between 0 and 1, such as 0.95")
+#: ``--fraction``: a fraction of the change.
+parse_fraction = real_number(lambda v: 0 < v < 1,
+                             "must be a fraction of the change between 0 and 1, such as 0.95")
+#: A number > 0 (``--sd``, ``--duration``, ``--prior-cv``).
+parse_positive = real_number(lambda v: v > 0, "must be a positive number")
+#: A number >= 0 (``--min-spacing``, ``--lag``), in the time unit.
+parse_non_negative = real_number(lambda v: v >= 0, "must be a number >= 0 (time unit)")
 
 
 def parse_number_list(text, what, test):
