@@ -626,7 +626,8 @@ def design_schedule(model, truth, *, n_samples, duration, sd, criterion="D", pri
         time before the switch gives the same information.
     min_spacing : float, default=0
         Smallest gap between the optimised times, and between them and ``fixed_times``
-        (time unit). With 0, samples may be replicated at one time.
+        and the baseline samples at the switch (time unit). With 0, samples may be
+        replicated at one time.
     fixed_times : sequence of float, default=()
         Times that must be in the schedule (counted in ``n_samples``).
     max_per_animal : int, optional
@@ -704,10 +705,12 @@ def design_schedule(model, truth, *, n_samples, duration, sd, criterion="D", pri
     if n_samples < q:
         raise DataError(f"'n_samples' = {n_samples} is fewer than the {q} free parameters "
                         f"({', '.join(spec.free_names)})")
-    lo, hi = spec.switch, spec.switch + duration
-    if m > 1 and (m - 1) * spacing > duration:
+    # the optimised times keep min_spacing from the baseline samples (at the switch) too
+    lo, hi = spec.switch + (spacing if baseline else 0.0), spec.switch + duration
+    if m and (hi <= lo or (m - 1) * spacing > hi - lo):
         raise DataError(f"'min_spacing' = {spacing:g}: {m} optimised times cannot be "
-                        f"{spacing:g} apart within duration = {duration:g}")
+                        f"{spacing:g} apart (and from the baseline) within duration = "
+                        f"{duration:g}")
     thetas, weights = prior_points(spec, prior_cv, rng)
     grid = _grid(lo, hi)
     prob = _Problem(spec, criterion, sd, thetas, weights, pool, fraction, grid)

@@ -150,6 +150,15 @@ def _target(out) -> Path:
 def _check_path(target: Path) -> None:
     """Refuse a target that is not a writable folder or cannot be created (no change made)."""
     name = str(target)
+    try:
+        here = Path(os.path.realpath(os.getcwd()))
+    except OSError:  # the working folder was removed under us
+        here = None
+    real = Path(os.path.realpath(target))
+    if real.parent == real or (here is not None and (here == real or real in here.parents)):
+        # the folder is swapped in one move: the working folder would be moved away with it
+        raise DataError(f"output folder {name!r} is the current folder or holds it; name a "
+                        "new subfolder instead (for example --out results)")
     if os.path.lexists(target):
         if not target.is_dir():
             raise DataError(f"output folder {name!r} exists and is not a folder")

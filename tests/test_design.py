@@ -129,6 +129,8 @@ def test_constraints_spacing_fixed_times_baseline_and_animals():
     free = np.sort(tab.loc[tab["role"] != "baseline", "time"].to_numpy())
     assert np.all(np.diff(free) >= 3.0 * (1 - 1e-9))
     assert np.all((free >= 0) & (free <= 60.0))
+    opt = tab.loc[tab["role"] == "optimised", "time"].to_numpy()
+    assert opt.min() >= 3.0 * (1 - 1e-9)  # min_spacing kept from the baseline at t = 0 too
     assert d.n_animals == 3  # ceil(11 / 4)
     assert tab.groupby("animal").size().max() <= 4
     dd = design_schedule(m, truth, n_samples=9, duration=60.0, sd=0.3, destructive=True)

@@ -612,3 +612,22 @@ def test_path_problems_are_caught_before_any_fit(case, tmp_path, monkeypatch, ca
     else:
         assert not os.path.lexists(out)  # nothing was made
     assert not list(tmp_path.glob(".*isoturnover*"))
+
+
+@pytest.mark.parametrize("where", [".", ".."])
+def test_output_folder_holding_the_working_folder_is_refused(where, tmp_path, monkeypatch,
+                                                              capsys):
+    # the output is swapped in one move, which would carry the working folder away with it
+    from isoturnover.cli import main
+
+    work = tmp_path / "work"
+    work.mkdir()
+    (work / "notes.txt").write_text("mine", encoding="utf-8")
+    monkeypatch.chdir(work)
+    with pytest.raises(DataError, match="is the current folder or holds it"):
+        check_out_dir(where, True)
+    assert main(["demo", "--out", where, "--force", "--no-figures"]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error: ") and "current folder" in err
+    assert (work / "notes.txt").read_text(encoding="utf-8") == "mine"
+    assert Path.cwd() == work
