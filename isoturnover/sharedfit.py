@@ -49,6 +49,7 @@ import pandas as pd
 from scipy import sparse, special, stats
 
 from .conventions import check_choice, check_level, check_method, check_positive_int
+from .data import read_samples
 from .errors import DataError, FitError
 from .groups import parallel_workers
 from .jointproblem import (
@@ -805,6 +806,8 @@ def compare_groups(samples, *, group="group", parameter="k1", pools=1, by="subje
     if isinstance(shared, str):
         shared = (shared,)
     base = {nm: None for nm in shared if nm != parameter}
+    if not isinstance(samples, pd.DataFrame):
+        samples = read_samples(samples)  # read (and checked) once for both fits
     h0 = fit_shared(samples, pools=pools, shared={**base, parameter: None}, by=by,
                     diets=diets, variance=variance, **options)
     frame, by_t, unit = read_study(samples, by)
