@@ -78,7 +78,8 @@ MANIFEST = ".isoturnover-manifest.json"
 """Name of the manifest inside an output folder (the files the package wrote)."""
 
 TOOL_FILES = ("results.csv", "fits.json", "report.md", "report.html", "CAUTION.txt",
-              "report_figures/*.png", "plan.csv", "plan.md", "plan.png")
+              "report_figures/*.png", "plan.csv", "plan.md", "plan.png", "clock*.csv",
+              "clock_figures/*.png")
 """Files the package writes (shell patterns, relative to the output folder, ``/``-separated).
 
 A non-empty folder without a manifest is replaced with ``force`` only when every file in it
