@@ -31,6 +31,7 @@ from .cliargs import (
     parse_kinetics_list,
     parse_level,
     parse_n_sim,
+    parse_names,
     parse_non_negative,
     parse_pool_count,
     parse_pools,
@@ -38,6 +39,7 @@ from .cliargs import (
     parse_positive_int,
     parse_time_unit,
     parse_times,
+    parse_tissue_values,
 )
 
 EXIT_ERROR = 2
@@ -69,8 +71,8 @@ def _formatter(prog):
 
 
 def build_parser() -> argparse.ArgumentParser:
-    """The parser of the ``isoturnover`` command and its sub-commands ``demo``, ``fit``
-    and ``plan``.
+    """The parser of the ``isoturnover`` command and its sub-commands ``demo``, ``fit``,
+    ``plan`` and ``clock``.
 
     Returns
     -------
@@ -168,7 +170,8 @@ def build_parser() -> argparse.ArgumentParser:
     a("--jobs", metavar="N", type=parse_jobs, default=1,
       help="parallel worker processes (-1: all cores; default 1)")
     _add_common(f)
-    p.commands = {"demo": d, "fit": f, "plan": _plan_parser(sub, common)}
+    p.commands = {"demo": d, "fit": f, "plan": _plan_parser(sub, common),
+                  "clock": _clock_parser(sub, common)}
     return p
 
 
@@ -238,6 +241,53 @@ def _plan_parser(sub, common):
       help="also write plan.csv, plan.md and plan.png into this folder")
     a("--force", action="store_true", help="replace the files of a non-empty output folder")
     return g
+
+
+def _clock_parser(sub, common):
+    """The parser of ``clock``: time since a diet change from field samples."""
+    from .clockrun import FIELD_COLUMNS
+
+    c = sub.add_parser(
+        "clock", parents=[common], help="date diet changes of field animals (isotopic clock)",
+        formatter_class=_formatter,
+        description="Estimate how long ago each field animal changed diet from its tissues, "
+        "sampled once, and the captive fits of a previous fit or demo run (fits.json). The "
+        "field table has one row per animal and tissue: subject, tissue, value (δ ‰), and "
+        "optionally isotope, sd, new and old (equilibrium δ on the new and old diet). By "
+        "default each tissue's kinetics are the population estimate over the captive animals, "
+        "with their between-animal spread. Writes clock.csv, clock_tissues.csv, "
+        "clock_kinetics.csv and a likelihood figure per animal. Field sampling needs the "
+        "approval of the local animal-care authority; the estimates support that process "
+        "and do not replace it.")
+    a = c.add_argument
+    a("field", metavar="FIELD", help="field samples table (CSV or .xlsx)")
+    a("--fits", metavar="F", required=True,
+      help="fits.json of a previous isoturnover fit or demo run (required)")
+    a("--new", metavar="LIST", type=parse_tissue_values, default=None,
+      help="new-diet equilibrium δ per tissue, e.g. plasma=-10.5,red_cells=-11")
+    a("--old", metavar="LIST", type=parse_tissue_values, default=None,
+      help="old-diet equilibrium δ per tissue (default: unknown, 2+ tissues)")
+    a("--sd", metavar="SD", type=parse_positive, default=None,
+      help="sd (‰) of the rows without one: analytic and animal scatter")
+    a("--subjects", metavar="LIST", type=parse_names, default=None,
+      help="captive animals whose fits are used (one: its fit alone)")
+    a("--part", metavar="NAME", default=None,
+      help="only the captive fits of this part of the run, e.g. 'goats d13C'")
+    a("--rate-cv", metavar="CV", type=parse_positive, default=None,
+      help="between-animal cv of the rates, with one captive series")
+    a("--isotope", metavar="CODE", default=None, help="only the field rows of this isotope")
+    a("--max-offset", metavar="D", type=parse_positive, default=None,
+      help="largest plausible |old - new| (‰) when the old diet is unknown")
+    a("--columns", metavar="MAP", type=parse_column_map(FIELD_COLUMNS, "subject=animal"),
+      help="field column names, e.g. subject=animal,value=d13C")
+    a("--ci", metavar="METHOD", choices=("profile", "asymptotic"), default="profile",
+      help="intervals of the captive half-lives: profile (default) or asymptotic")
+    a("--level", metavar="P", type=parse_level, default=0.95,
+      help="confidence level (default 0.95)")
+    a("--out", metavar="DIR", default=None, help="output folder (default isoturnover_out_clock)")
+    a("--force", action="store_true", help="replace the files of a non-empty output folder")
+    a("--no-figures", action="store_true", help="skip the figures")
+    return c
 
 
 def _check_fit(args, parser):
@@ -497,6 +547,35 @@ def _cmd_plan(args):
     return _held(_plan)(args)
 
 
+#: Library argument names of ``run_clock`` and the ``clock`` options that set them.
+_CLOCK_OPTIONS = {"subjects": "--subjects", "rate_cv": "--rate-cv", "max_offset": "--max-offset",
+                  "new": "--new", "old": "--old", "sd": "--sd"}
+
+
+@_held
+def _cmd_clock(args, out):
+    import re
+
+    from .clockrun import run_clock
+    from .errors import DataError
+
+    try:
+        run = run_clock(args.field, args.fits, new=args.new, old=args.old, sd=args.sd,
+                        subjects=args.subjects, part=args.part, isotope=args.isotope,
+                        rate_cv=args.rate_cv, level=args.level, max_offset=args.max_offset,
+                        columns=args.columns, ci=args.ci)
+    except DataError as e:  # name the options, not the library's arguments
+        msg = str(e)
+        for name, option in _CLOCK_OPTIONS.items():
+            msg = re.sub(rf"'{re.escape(name)}'", option, msg)
+        raise DataError(msg) from e
+    run.write(out, force=args.force, figures=not args.no_figures)
+    print(run.summary())
+    print(f"results written to {out}/ (clock.csv, clock_tissues.csv, clock_kinetics.csv"
+          + (")" if args.no_figures else ", clock_figures/)"))
+    return 0
+
+
 def _report(a, out):
     n = a.n_fitted()
     fails = a.failures()
@@ -555,7 +634,8 @@ def main(argv: list[str] | None = None) -> int:
         _check_fit(args, parser.commands["fit"])
     if args.command == "plan":
         _check_plan(args, parser.commands["plan"])
-    handler = {"demo": _cmd_demo, "fit": _cmd_fit, "plan": _cmd_plan}[args.command]
+    handler = {"demo": _cmd_demo, "fit": _cmd_fit, "plan": _cmd_plan,
+               "clock": _cmd_clock}[args.command]
     try:
         with warnings.catch_warnings():
             _print_library_warnings()

@@ -15,7 +15,7 @@ __all__ = ["whole_number", "real_number", "fail", "parse_baseline", "parse_colum
            "parse_jobs", "parse_kinetics_list", "parse_level", "parse_n_sim",
            "parse_non_negative", "parse_number", "parse_number_list", "parse_pairs",
            "parse_pool_count", "parse_pools", "parse_positive", "parse_positive_int",
-           "parse_time_unit", "parse_times"]
+           "parse_time_unit", "parse_times", "parse_tissue_values", "parse_names"]
 
 
 def parse_jobs(text):
@@ -474,3 +474,67 @@ def parse_pool_count(text):
     if not 1 <= n <= MAX_POOLS:
         fail(text, f"must be one number of parallel pools from 1 to {MAX_POOLS}")
     return n
+
+
+# ----------------------------------------------------------------------------------------
+# `clock`: values of its options
+# ----------------------------------------------------------------------------------------
+def parse_tissue_values(text):
+    """Parse ``--new`` and ``--old``: δ (‰) per tissue, ``plasma=-10.5,red_cells=-11``.
+
+    Parameters
+    ----------
+    text : str
+        ``TISSUE=δ`` pairs separated by commas; ``TISSUE:ISOTOPE=δ`` (``plasma:d15N=8``) when
+        a tissue is measured for several isotopes.
+
+    Returns
+    -------
+    dict
+        Tissue (or (tissue, isotope)) -> δ in ‰.
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        For a malformed pair or a value that is not a finite number.
+    """
+    import math
+
+    example = "plasma=-10.5,red_cells=-11 (or plasma:d13C=-10.5)"
+    out = {}
+    for name, value in parse_pairs(text, example):
+        try:
+            v = float(value)
+        except ValueError:
+            v = math.nan
+        if not math.isfinite(v):
+            fail(text, f"the value for {name} is not a finite δ in per mil")
+        tissue, colon, isotope = name.partition(":")
+        if colon and not (tissue.strip() and isotope.strip()):
+            fail(text, f"{name!r} must be TISSUE or TISSUE:ISOTOPE (pairs such as {example})")
+        out[(tissue.strip(), isotope.strip()) if colon else name] = v
+    return out
+
+
+def parse_names(text):
+    """Parse a list of names such as ``--subjects G01,G02``.
+
+    Parameters
+    ----------
+    text : str
+        Names separated by commas.
+
+    Returns
+    -------
+    tuple of str
+        The distinct names, in the order given.
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        For an empty name or a name given twice.
+    """
+    names = tuple(n.strip() for n in text.split(","))
+    if not all(names) or len(set(names)) < len(names):
+        fail(text, "must be distinct names separated by commas, such as G01,G02")
+    return names

@@ -621,6 +621,10 @@ def time_since_switch_table(frame, kinetics, *, new, old=None, sd=None, populati
 def plot_clock(result, ax=None):
     """The log-likelihood over t with the interval and the estimate.
 
+    The estimate is not drawn for the statuses ``equilibrated`` and ``uninformative`` (the
+    likelihood is flat towards t → ∞, so where its maximum falls carries no information);
+    an open upper bound is marked, and the limit t → ∞ when it is within reach.
+
     Parameters
     ----------
     result : ClockResult
@@ -645,10 +649,13 @@ def plot_clock(result, ax=None):
     xmax = float(result.t[keep].max())
     hi = result.upper if math.isfinite(result.upper) else xmax
     ax.axvspan(result.lower, hi, color="tab:blue", alpha=0.15, label="interval")
-    if math.isfinite(result.estimate):
+    # with the likelihood flat towards t -> inf the maximum's place says nothing: not drawn
+    if math.isfinite(result.estimate) and result.status not in ("equilibrated",
+                                                                 "uninformative"):
         ax.axvline(result.estimate, color="tab:blue", lw=1.5, label="estimate")
     if not math.isfinite(result.upper):
-        ax.annotate("open →", (xmax, -result.threshold), ha="right", va="bottom", fontsize=8)
+        ax.annotate("upper bound open →", (xmax, -result.threshold), ha="right", va="bottom",
+                    fontsize=8)
     rel_inf = result.loglik_inf - result.loglik_max
     if rel_inf >= -4 * result.threshold:
         ax.plot([xmax], [rel_inf], marker=">", color="tab:red", ls="none",

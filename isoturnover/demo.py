@@ -11,7 +11,9 @@ C3 grass-hay ration to a C4 maize ration on day 0, and pen B back to hay on day 
 red cells are sampled for δ13C and plasma for δ15N to day 180, breath CO2 for δ13C over the
 first 72 hours (time unit hours), and the goats are weighed weekly. A hatchery batch of
 juvenile fish is switched to a new feed on day 0 and sampled destructively for muscle δ15N and
-δ13C, each fish weighed at sampling.
+δ13C, each fish weighed at sampling. Twelve adult field goats (W01–W12), moved from C3
+pasture to the maize ration at recorded times, are sampled once for plasma and red-cell δ13C:
+an isotopic clock to date their change with the captive fits.
 
 Tables (file name without ``.csv``; all times in days except ``goat_breath``, in hours):
 
@@ -26,6 +28,8 @@ fish_samples      samples    muscle δ15N and δ13C, one fish per sample (days)
 fish_masses       masses     mass of each fish at sampling, g (days)
 fish_diets        diets      starter feed and new feed δ13C, δ15N (days)
 truth             truth      the generator's true values per subject (and population)
+field_samples     field      field goats sampled once (an isotopic clock; days)
+field_truth       truth      the field goats' true times since their diet change
 ================  =========  ======================================================
 
 A real experiment of this kind needs the approval of the local animal-care authority; the
@@ -62,6 +66,8 @@ DEMO_TABLES = {
     "fish_masses": ("masses", "d", "mass of each fish at sampling (g)"),
     "fish_diets": ("diets", "d", "fish feeds (starter, new feed)"),
     "truth": ("truth", None, "the generator's true values"),
+    "field_samples": ("field", "d", "field goats sampled once: plasma and red-cell δ13C"),
+    "field_truth": ("truth", "d", "true times since the field goats' diet change"),
 }
 
 
@@ -141,7 +147,7 @@ def _read(key: str, validate: bool) -> pd.DataFrame:
             f"demo file {key}.csv is missing from the isoturnover installation (package data "
             "'demo_data/*.csv' not installed); reinstall the package"
         )
-    if validate and kind != "truth":
+    if validate and kind not in ("truth", "field"):
         from . import data
 
         reader = {"samples": data.read_samples, "diets": data.read_diets,
@@ -170,7 +176,8 @@ def load_demo(name=None, *, validate: bool = False):
         ``False``: the CSV as it is (:func:`pandas.read_csv`). ``True``: samples, diets and
         masses go through :func:`~isoturnover.read_samples`, :func:`~isoturnover.read_diets`
         or :func:`~isoturnover.read_masses` with the table's time unit (hours for
-        ``goat_breath``); ``truth`` is read as it is.
+        ``goat_breath``); ``truth``, ``field_truth`` and ``field_samples`` are read as they
+        are (the field table's reader is :func:`isoturnover.clockrun.read_field`).
 
     Returns
     -------

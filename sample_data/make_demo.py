@@ -79,6 +79,8 @@ FILES = (
     "fish_masses.csv",
     "fish_diets.csv",
     "truth.csv",
+    "field_samples.csv",
+    "field_truth.csv",
 )
 
 LN2 = math.log(2.0)
@@ -144,6 +146,13 @@ OFFSET_SD = 0.3  # ‰, per-animal offset of the separation (same for both diets
 BIO_SD = 0.2  # ‰, sample-level biological scatter beyond the analytic error
 MISSING_FRACTION = 0.03
 REPLICATE_FRACTION = 0.10
+
+# Field scenario (an isotopic clock): adult goats of a herd on C3 pasture, each moved to the
+# maize ration at its own (invented, recorded) time and sampled once, on one day, for plasma and
+# red cells δ13C. Times since the change in days; adults do not grow, so the catabolic rates
+# of the captive goats are their turnover rates.
+FIELD_TIMES = (0.1, 1.5, 4.0, 8.0, 12.0, 20.0, 30.0, 45.0, 60.0, 90.0, 130.0, 300.0)
+FIELD_SD = math.sqrt(0.10 ** 2 + BIO_SD ** 2 + OFFSET_SD ** 2)  # ‰: analytic, sample, animal
 
 _MARK = "<!-- make_demo:{name}:{end} -->"
 _BLOCKS = ("truth", "goats", "files", "missing")
@@ -476,6 +485,33 @@ def _fish():
             "truth": truth}
 
 
+def _field():
+    """Field samples (one per goat and tissue) and their truth (an isotopic clock).
+
+    Each field goat's rate is drawn about the captive population median (``RATE_CV``), its
+    separation offset per tissue (``OFFSET_SD``), its sample's scatter (``BIO_SD``) and the
+    analytic error (0.10 ‰); the stated sd is the total, ``FIELD_SD``.
+    """
+    rng = _rng(8)
+    specs = [s for s in GOAT_SERIES if s["isotope"] == "d13C"]
+    hay, maize = GOAT_DIETS["hay"]["d13C"], GOAT_DIETS["maize"]["d13C"]
+    s_rate = _lognormal_sd(RATE_CV)
+    samples, truth = [], []
+    for a, t in enumerate(FIELD_TIMES):
+        goat = f"W{a + 1:02d}"
+        for spec in specs:
+            k = LN2 / spec["half_lives"][0] * math.exp(rng.normal(0, s_rate))
+            d = spec["discrimination"]["hay"] + rng.normal(0, OFFSET_SD)
+            old, new = hay + d, maize + d
+            true = new + (old - new) * math.exp(-k * t)
+            value = true + rng.normal(0, BIO_SD) + rng.normal(0, 0.10)
+            samples.append((goat, spec["tissue"], "d13C", value, FIELD_SD))
+            truth.append((goat, spec["tissue"], "d13C", t, k, LN2 / k, old, new, true,
+                          hay + spec["discrimination"]["hay"],
+                          maize + spec["discrimination"]["maize"]))
+    return samples, truth
+
+
 # ---------------------------------------------------------------------------------------
 # Formatting (explicit, so the files are byte-for-byte reproducible)
 # ---------------------------------------------------------------------------------------
@@ -543,6 +579,17 @@ def build_demo() -> dict:
     truth = g["truth"] + f["truth"]
     files["truth.csv"] = _csv(TRUTH_COLUMNS, [tuple(_truth_value(c, r[c]) for c in TRUTH_COLUMNS)
                                               for r in truth])
+    fs, ft = _field()
+    files["field_samples.csv"] = _csv(("subject", "tissue", "isotope", "value", "sd"),
+                                      [(s, ti, iso, _num(v, 2), _num(sd, 2))
+                                       for s, ti, iso, v, sd in fs])
+    files["field_truth.csv"] = _csv(
+        ("subject", "tissue", "isotope", "time_since_switch", "time_unit", "rate", "half_life",
+         "plateau_old", "plateau_new", "value_noise_free", "population_old",
+         "population_new"),
+        [(s, ti, iso, _time(t), "d", f"{k:.6g}", f"{h:.6g}", _num(o, 3), _num(n, 3),
+          _num(v, 3), _num(po, 2), _num(pn, 2))
+         for s, ti, iso, t, k, h, o, n, v, po, pn in ft])
     assert tuple(files) == FILES
     missing = {"goat_samples.csv": sorted(g["missing"]),
                "goat_breath.csv": sorted(g["breath_missing"]),

@@ -179,6 +179,37 @@ def test_population_notebook_runs_committed_clean(tmp_path, monkeypatch):
     assert list(work.iterdir()) == []
     assert not [p for p in tmp.rglob("*") if p.suffix in (".png", ".csv", ".md", ".html")]
 
+def test_field_clock_notebook_runs_committed_clean(tmp_path, monkeypatch):
+    from isoturnover.conventions import CAUTION
+
+    name = "05_field_clock.ipynb"
+    committed = _read(name)
+    nbformat.validate(committed)
+    assert all(not c.outputs and c.execution_count is None
+               for c in committed.cells if c.cell_type == "code")
+    assert committed.metadata.get("kernelspec", {}).get("name") == "python3"
+    markdown = [" ".join(c.source.split()) for c in committed.cells
+                if c.cell_type == "markdown"]
+    assert "data are invented" in markdown[0]
+    assert "animal-care authority" in markdown[-1] and "not replace it" in markdown[-1]
+    nb, work, tmp = _execute(name, tmp_path, monkeypatch)
+    text, tables, errors = _outputs(nb)
+    assert errors == []
+    assert tables >= 2, f"expected the notebook to show tables; found {tables}"
+    # one animal's clock, and the closed form checked in the notebook (its own assert)
+    assert "Time since the diet change (plasma, red_cells)" in text
+    assert "closed form" in text
+    # the batch against the invented truth, both ways; the statuses explained on W01, W12
+    assert "old diet known: the true time inside the 95 % interval for" in text
+    assert "old diet unknown: the true time inside the 95 % interval for" in text
+    assert "W01 -> too_early" in text and "W12 -> equilibrated" in text
+    assert "x axis: time since the diet change (days)" in text
+    assert " ".join(CAUTION.split()) in " ".join(text.split())
+    # nothing written: not in the work dir, no figure or table in the temporary folder
+    assert list(work.iterdir()) == []
+    assert not [p for p in tmp.rglob("*") if p.suffix in (".png", ".csv", ".md", ".html")]
+
+
 @pytest.mark.parametrize("name", NAMES)
 def test_notebook_committed_without_outputs(name):
     nb = _read(name)
