@@ -660,6 +660,12 @@ def plot_clock(result, ax=None):
     if rel_inf >= -4 * result.threshold:
         ax.plot([xmax], [rel_inf], marker=">", color="tab:red", ls="none",
                 label="t → ∞ (tissues at new values)")
+    # the view: the interval with a margin (a long flat tail would squash it), and the
+    # likelihood down to a little below the cut-off
+    if math.isfinite(result.upper) and math.isfinite(result.lower):
+        right = min(xmax, result.upper + 1.5 * (result.upper - result.lower))
+        ax.set_xlim(max(0.0, result.lower - 0.5 * (result.upper - result.lower)), right)
+    ax.set_ylim(-3 * result.threshold, 0.15 * result.threshold)
     ax.set_xlabel(f"time since the diet change ({unit_word(result.time_unit)})")
     ax.set_ylabel("log-likelihood − maximum")
     tissues = ", ".join(str(t).replace("_", " ") for t in result.tissues)
