@@ -35,13 +35,17 @@ from .errors import (
 from .groups import FitSet, fit_each
 from .growth import GrowthCurve
 from .growthfit import GrowthFit, fit_growth, fit_growth_each, load_growth
+from .inverse import DietReconstruction, reconstruct_diet
 from .model import TurnoverModel, fit_power_dilution
+from .plotinverse import plot_reconstruction
 from .plotplan import plot_design
 from .plotpop import plot_population
 from .population import population_estimate, random_effects
 from .progress import reaction_progress
 from .report import write_report
 from .results import TurnoverFit
+from .segmentplan import SegmentPlan, SegmentProfile, plan_segments
+from .segments import formation_intervals
 from .selection import compare, lr_test
 from .serialization import load_fit
 from .sharedfit import SharedFit, compare_groups, fit_shared
@@ -89,6 +93,13 @@ __all__ = [
     "time_since_switch_table",
     "ClockResult",
     "plot_clock",
+    "reconstruct_diet",
+    "DietReconstruction",
+    "plot_reconstruction",
+    "formation_intervals",
+    "plan_segments",
+    "SegmentPlan",
+    "SegmentProfile",
     "read_samples",
     "read_diets",
     "read_masses",

@@ -31,8 +31,12 @@ from .engine import (
 from .errors import DataError, DataWarning
 from .kinetics import MAX_POOLS, TurnoverKinetics
 from .results import TurnoverFit
+from .segments import SegmentKinetics, formation_intervals, growth_schedule, segment_arrays
 
-__all__ = ["TurnoverModel", "LOSSES", "fit_power_dilution"]
+__all__ = ["TurnoverModel", "LOSSES", "RECORDS", "fit_power_dilution"]
+
+#: What a sample records: the tissue at its sampling time, or a segment of a growing tissue.
+RECORDS = ("points", "segments")
 
 # ----------------------------------------------------------------------------------------
 # The user-facing model
@@ -77,6 +81,19 @@ class TurnoverModel:
         (``growth_<p>``, held near their growth-fit values by a Gaussian penalty) so that
         the curve's uncertainty reaches the turnover rates; ``False`` uses the curve as
         fixed.
+    record : {"points", "segments"}, default="points"
+        ``"segments"``: each sample is a segment of a growing inert tissue (hair, whisker,
+        feather, claw) and records the exact time average of the model over the segment's
+        formation interval (:mod:`isoturnover.segments`); :meth:`fit` then needs segment ends.
+    growth_rate : float or table of (time, rate), optional
+        With ``record="segments"``: the tissue's growth rate (length per time unit), constant
+        or piecewise constant (:func:`~isoturnover.segments.growth_schedule`).
+    formation_lag : float, default=0.0
+        With ``record="segments"``: time from formation to emergence at the base (≥ 0).
+    origin : {"base", "tip"}, default="base"
+        With ``record="segments"``: segment distances measured from the base or the tip.
+    tissue_length : float or array-like, optional
+        With ``origin="tip"``: the tissue's length at sampling.
 
     Raises
     ------
@@ -96,7 +113,8 @@ class TurnoverModel:
 
     def __init__(self, pools=1, *, structure="parallel", growth=None, lag=False, diet=None,
                  separation="difference", scale="delta", isotope=None, initial="equilibrium",
-                 per_diet_separation=False, propagate_growth=True):
+                 per_diet_separation=False, propagate_growth=True, record="points",
+                 growth_rate=None, formation_lag=0.0, origin="base", tissue_length=None):
         self.pools = pools
         self.structure = structure
         self.growth = growth
@@ -108,6 +126,11 @@ class TurnoverModel:
         self.initial = initial
         self.per_diet_separation = per_diet_separation
         self.propagate_growth = propagate_growth
+        self.record = record
+        self.growth_rate = growth_rate
+        self.formation_lag = formation_lag
+        self.origin = origin
+        self.tissue_length = tissue_length
         self._kin = None
         self._kin_key = None
 
@@ -120,12 +143,22 @@ class TurnoverModel:
         dict
             The constructor's arguments by name (``pools``, ``structure``, ``growth``,
             ``lag``, ``diet``, ``separation``, ``scale``, ``isotope``, ``initial``,
-            ``per_diet_separation``, ``propagate_growth``); a diet history as its
-            ``to_dict()``, a growth curve object as ``{"curve": curve.to_dict()}``.
+            ``per_diet_separation``, ``propagate_growth``; with ``record="segments"`` also
+            ``record``, ``growth_rate``, ``formation_lag``, ``origin``, ``tissue_length``); a
+            diet history as its ``to_dict()``, a growth curve object as
+            ``{"curve": curve.to_dict()}``.
         """
         g = self.growth
         if g is not None and not isinstance(g, str):
             g = {"curve": g.to_dict()} if hasattr(g, "to_dict") else {"curve": repr(g)}
+        seg = {}
+        if self.record == "segments":
+            gr = np.asarray(self.growth_rate, dtype=float) if not hasattr(
+                self.growth_rate, "columns") else self.growth_rate[["time", "rate"]].to_numpy()
+            seg = {"record": "segments", "growth_rate": gr.tolist(),
+                   "formation_lag": float(self.formation_lag), "origin": self.origin,
+                   "tissue_length": None if self.tissue_length is None
+                   else np.asarray(self.tissue_length, dtype=float).tolist()}
         return {
             "pools": int(self.pools) if not isinstance(self.pools, bool) else self.pools,
             "structure": self.structure,
@@ -138,6 +171,7 @@ class TurnoverModel:
             "initial": self.initial,
             "per_diet_separation": bool(self.per_diet_separation),
             "propagate_growth": bool(self.propagate_growth),
+            **seg,
         }
 
     def _config_key(self):
@@ -375,6 +409,8 @@ class TurnoverModel:
             extra.append("free initial state")
         if self.scale == "atom_fraction":
             extra.append("mixing in atom fraction")
+        if self.record == "segments":
+            extra.append("segments of a growing tissue (formation-interval means)")
         if kin.growth_kind == "exponential":
             extra.append("exponential growth dilution")
         elif kin.growth_kind == "curve":
@@ -387,11 +423,11 @@ class TurnoverModel:
     def __repr__(self):
         args = [f"pools={self.pools!r}"]
         for k in ("structure", "growth", "lag", "diet", "separation", "scale", "isotope",
-                  "initial"):
+                  "initial", "record"):
             v = getattr(self, k)
             default = {"structure": "parallel", "growth": None, "lag": False, "diet": None,
                        "separation": "difference", "scale": "delta", "isotope": None,
-                       "initial": "equilibrium"}[k]
+                       "initial": "equilibrium", "record": "points"}[k]
             if v != default:
                 args.append(f"{k}={v!r}")
         return f"TurnoverModel({', '.join(args)})"
@@ -399,7 +435,7 @@ class TurnoverModel:
     # -- fitting ----------------------------------------------------------------------------
     def fit(self, t_or_frame, y=None, sigma=None, *, params=None, absolute_sigma=False,
             fixed=None, init=None, loss="linear", masses=None, time_unit=None, label=None,
-            warn=True):
+            warn=True, segment_start=None, segment_end=None):
         """Fit the model to one series.
 
         Parameters
@@ -440,6 +476,10 @@ class TurnoverModel:
             Name of the series used in summaries and tables.
         warn : bool, default=True
             Issue trust warnings through :mod:`warnings` (they are always on the result).
+        segment_start, segment_end : array-like of shape (n,), optional
+            With ``record="segments"`` and arrays: distances of each segment's ends from the
+            model's ``origin`` (``t_or_frame`` then holds the sampling time(s)); a frame
+            gives them as columns. The fit's ``t`` are the segments' formation midpoints.
 
         Returns
         -------
@@ -456,11 +496,20 @@ class TurnoverModel:
         FitError
             When no start leads to a finite fit.
         """
-        data = prepare_data(t_or_frame, y, sigma, time_unit)
+        if check_choice("record", self.record, RECORDS) == "segments":
+            kin, data = self._segment_inputs(t_or_frame, y, sigma, time_unit, segment_start,
+                                             segment_end)
+        else:
+            for nm, v in (("segment_start", segment_start), ("segment_end", segment_end),
+                          ("growth_rate", self.growth_rate)):
+                if v is not None:
+                    raise DataError(f"'{nm}' is used with record='segments'; this model has "
+                                    "record='points'")
+            data = prepare_data(t_or_frame, y, sigma, time_unit)
+            kin = self.kinetics
         check_choice("loss", loss, LOSSES)
         if absolute_sigma and data["sigma"] is None:
             raise DataError("absolute_sigma=True needs 'sigma' (the known analytic sd)")
-        kin = self.kinetics
         kin.check_values(data["y"], "y")  # δ ≤ −1000 ‰ has no atom fraction
         fixed = check_names(fixed, kin, "fixed")
         init = check_names(init, kin, "init")
@@ -511,6 +560,20 @@ class TurnoverModel:
             for wmsg in fit.warnings:
                 warnings.warn(wmsg.message, wmsg.category, stacklevel=2)
         return fit
+
+    def _segment_inputs(self, t_or_frame, y, sigma, time_unit, segment_start, segment_end):
+        """(SegmentKinetics, data) of a segment series: each segment's formation interval
+        from the model's growth rate, lag and origin; the engine fits the midpoints."""
+        growth_schedule(self.growth_rate)  # names a missing or bad growth rate first
+        arr = segment_arrays(t_or_frame, y, sigma, segment_start, segment_end)
+        t1, t2 = formation_intervals(arr["segment_start"], arr["segment_end"],
+                                     arr["sample_time"], self.growth_rate,
+                                     formation_lag=self.formation_lag, origin=self.origin,
+                                     tissue_length=self.tissue_length)
+        kin = SegmentKinetics(self.kinetics, t1, t2)
+        data = prepare_data((t1 + t2) / 2.0, arr["y"], arr["sigma"],
+                            time_unit or arr["time_unit"], warn_repeats=False)
+        return kin, data
 
 
 def fit_power_dilution(mass, y, sigma=None, *, mass0=None, absolute_sigma=False, label=None):

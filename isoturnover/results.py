@@ -22,7 +22,7 @@ from . import profiles, quantities
 from .conventions import METHODS, STATUSES, check_choice, check_level, check_method
 from .diagnostics import TrustNote, open_unresolved, trust_notes
 from .engine import FitState
-from .errors import DataError
+from .errors import DataError, DesignWarning
 from .growthdilution import (
     GrowthDilution,
     finite_array,
@@ -31,6 +31,7 @@ from .growthdilution import (
 )
 from .intervalcache import IntervalCache
 from .records import FitRecord
+from .segments import SegmentPredictions, resolution_notes
 from .summary import (
     LmfitViews,
     Summary,
@@ -49,7 +50,7 @@ _GROWTH_CURVES = ("curve", "curve_params")
 MRT_KINDS = ("incorporation", "catabolic")
 
 
-class TurnoverFit(LmfitViews, GrowthDilution, IntervalCache, FitRecord):
+class TurnoverFit(LmfitViews, GrowthDilution, IntervalCache, FitRecord, SegmentPredictions):
     """Result of :meth:`TurnoverModel.fit <isoturnover.TurnoverModel.fit>`.
 
     Parameters
@@ -121,7 +122,8 @@ class TurnoverFit(LmfitViews, GrowthDilution, IntervalCache, FitRecord):
             setattr(self, name, getattr(state, name))
         self.rate_kind = "catabolic" if self.kinetics.growth_kind is not None \
             else "incorporation"
-        self.warnings = trust_notes(self)
+        self.warnings = trust_notes(self) + [  # segments: pools faster than one segment
+            TrustNote(c, DesignWarning, m) for c, m in resolution_notes(self.kinetics, self._theta)]
 
     # -- predictions ---------------------------------------------------------------------
     def predict(self, t) -> np.ndarray:

@@ -28,7 +28,7 @@ LAYERS = {
     "growthlaws": 2, "outputdir": 2,
     "progressvariable": 2, "responses": 2, "population": 2, "reportdoc": 2,
     "popinputs": 2, "randomeffects": 2, "popestimate": 2,
-    "kinetics": 3,
+    "kinetics": 3, "segments": 3,
     "quantities": 4, "coordinates": 4, "starts": 4, "projection": 4, "state": 4,
     "inputs": 4,
     "engine": 5, "profiles": 5, "growthproblem": 5, "jointproblem": 5, "equilibration": 5,
@@ -36,18 +36,18 @@ LAYERS = {
     "growthfit": 6, "allometry": 6,
     "results": 7, "growthdilution": 7, "uncertainty": 7, "summary": 7,
     "intervalcache": 7, "records": 7,
-    "model": 8, "selection": 8, "serialization": 8, "seriesrows": 8,
+    "model": 8, "selection": 8, "serialization": 8, "seriesrows": 8, "inverse": 8,
     "groups": 9, "sharedfit": 9, "designmodel": 9,
     "plotting": 10, "plotkit": 10, "plotstudy": 10, "design": 10, "simulate": 10,
-    "plotplan": 10, "plotpop": 10, "clocks": 10,
-    "report": 11, "reportfigures": 11, "planreport": 11,
-    "analysis": 12, "cliargs": 12,
+    "plotplan": 10, "plotpop": 10, "clocks": 10, "plotinverse": 10,
+    "report": 11, "reportfigures": 11, "planreport": 11, "segmentplan": 11,
+    "analysis": 12, "cliargs": 12, "clockrun": 12,
     "cli": 13,
     "__main__": 14, "__init__": 14,
 }
 # Same-layer imports that are allowed (one way only).
 SAME_LAYER = {("isotopes", "conventions"), ("data", "diet"), ("demo", "data"),
-              ("isotopes", "references"),
+              ("isotopes", "references"), ("segments", "kinetics"),
               ("serialization", "model"), ("data", "tables"), ("diet", "tables"),
               ("data", "sampletimes"), ("sampletimes", "tables"),
               ("coordinates", "quantities"), ("starts", "coordinates"),
@@ -64,7 +64,8 @@ SAME_LAYER = {("isotopes", "conventions"), ("data", "diet"), ("demo", "data"),
               ("population", "popestimate"), ("population", "randomeffects"),
               ("simulate", "design"),
               ("plotplan", "plotkit"), ("plotplan", "design"), ("plotpop", "plotkit"),
-              ("sharedfit", "groups")}
+              ("plotinverse", "plotkit"),
+              ("sharedfit", "groups"), ("clockrun", "analysis")}
 
 
 def _modules():
