@@ -372,3 +372,19 @@ def test_scale_atom_fraction_reaches_each_series_model(tmp_path, capsys):
     with pytest.raises(SystemExit) as e:  # argparse's choices: one line, exit 2
         main(["fit", str(write(tmp_path, "x", goats())), "--scale", "ppm"])
     assert e.value.code == 2 and "--scale" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("command, heading", [("plan", "### `isoturnover plan`"),
+                                              ("clock", "### `isoturnover clock`")])
+def test_readme_lists_every_option_of_plan_and_clock(command, heading):
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    start = readme.index(heading)
+    end = readme.find("\n##", start + len(heading))  # the next heading of any level
+    section = readme[start:end]
+    parser = build_parser().commands[command]
+    for action in parser._actions:
+        for name in action.option_strings:
+            if name.startswith("--") and name != "--help":
+                assert re.search(rf"(?<![\w-]){re.escape(name)}(?![\w-])", section), name
