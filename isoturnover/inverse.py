@@ -29,13 +29,26 @@ so :math:`\delta = c + m A\,x` with :math:`x = (d_{-1}, d_0, \dots, d_{J-1})` an
 :math:`A` summing to 1 (every sample lies before :math:`e_J`). :func:`diet_operator` builds
 :math:`A`, vectorised over samples, edges and (for the bands) draws of the kinetics. It takes
 **observation windows** ``(start, end)``: a point sample is a zero-width window; a window of
-positive width gives the time average of the tissue over it, exact for parallel pools through
-:math:`C(\tau) = \int_0^\tau W = \sum_i f_i (1 - e^{-k_i\tau})/k_i` (:math:`\tau` for
-:math:`\tau \le 0`): the weight of edge :math:`e` is :math:`[C(b - e) - C(a - e)]/(b - a)`.
-That is the plug for segment profiles (hair, whiskers, feathers): map each segment to its
-formation interval (``isoturnover.segments.formation_intervals`` returns ``(start, end)``)
-and pass it as ``windows=`` to :func:`reconstruct_diet`; nothing else changes. Windows with
-the chain are refused for now (its window average is in ``segments.segment_means``).
+positive width gives the time average of the tissue over it, exact through the integral
+:math:`C(\tau) = \int_0^\tau W` (:math:`\tau` for :math:`\tau \le 0`): the weight of edge
+:math:`e` is :math:`[C(b - e) - C(a - e)]/(b - a)`. For parallel pools
+:math:`C(\tau) = \sum_i f_i (1 - e^{-k_i\tau})/k_i`; for the chain (rates :math:`a \ge b`,
+:math:`W = (a e^{-b\tau} - b e^{-a\tau})/(a - b)`)
+
+.. math::
+
+    C(\tau) = \Big(\frac1a + \frac1b\Big)(1 - e^{-b\tau})
+              - \frac ba\,\tau\,e^{-b\tau}\,\psi((a - b)\tau),\qquad
+    \psi(x) = \frac{1 - e^{-x}}{x},
+
+exact through :math:`a = b` (derivative by hand: :math:`C' = W`; ``scipy.special.exprel``).
+
+**Segment profiles** (hair, whiskers, feathers, claws): a samples frame with
+``segment_start``/``segment_end`` is mapped segment by segment to its formation interval by
+:func:`isoturnover.segments.formation_intervals` (growth rate, formation lag, origin and
+tissue length given, or taken from a segment fit passed as ``kinetics``) and those intervals
+are the windows; the result keeps the geometry (:class:`SegmentGeometry`), so positions along
+the tissue and times can be read against each other.
 
 **Regularisation.** :math:`A` is badly conditioned (a tissue smooths the diet), so the
 weighted least-squares problem is regularised:
@@ -106,6 +119,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 from scipy import linalg, optimize
+from scipy.special import exprel
 
 from .conventions import check_choice, check_level, check_positive_int, unit_word
 from .errors import ConvergenceWarning, DataError, IdentifiabilityWarning
@@ -114,8 +128,10 @@ from .kinetics import TurnoverKinetics
 from .resampling import BootstrapResult
 from .responses import remaining_chain
 from .results import TurnoverFit
+from .segments import ORIGINS, formation_intervals, growth_schedule, segment_arrays
 
-__all__ = ["reconstruct_diet", "DietReconstruction", "diet_operator", "tikhonov_gcv",
+__all__ = ["reconstruct_diet", "DietReconstruction", "SegmentGeometry", "diet_operator",
+           "tikhonov_gcv",
            "switch_times", "PENALTIES", "RECONSTRUCTION_STATUSES", "ILL_POSED_CONDITION",
            "SWITCH_SHARE", "ADMM_TOL", "ADMM_MAX_ITER"]
 
@@ -374,9 +390,17 @@ def _remaining(tau, rates, fractions, chain):
     return np.sum(fractions[:, :, None, None] * E, axis=1)
 
 
-def _cumulative(tau, rates, fractions):
-    """C(τ) = ∫_0^τ W: τ for τ ≤ 0, Σ f_i (1 − e^{−k_i τ})/k_i above (parallel pools)."""
+def _cumulative(tau, rates, fractions, chain=False):
+    """C(τ) = ∫_0^τ W: τ for τ ≤ 0; Σ f_i (1 − e^{−k_i τ})/k_i above (parallel pools), or
+    the chain's (1/a + 1/b)(1 − e^{−bτ}) − (b/a) τ e^{−bτ} ψ((a − b)τ), a ≥ b its rates
+    (module docstring)."""
     tp = np.maximum(tau, 0.0)
+    if chain:
+        a = np.max(rates, axis=1)[:, None, None]
+        b = np.min(rates, axis=1)[:, None, None]
+        pos = ((1.0 / a + 1.0 / b) * -np.expm1(-b * tp)
+               - (b / a) * tp * np.exp(-b * tp) * exprel(-(a - b) * tp))
+        return np.where(tau > 0, pos, tau)
     k = rates[:, :, None, None]
     pos = np.einsum("bp,bpne->bne", fractions, -np.expm1(-k * tp[:, None]) / k)
     return np.where(tau > 0, pos, tau)
@@ -390,13 +414,10 @@ def _operator(starts, ends, edges, rates, fractions, lag, chain):
     tau_end = ends[None, :, None] - edges[None, None, :] - lag[:, None, None]
     W = _remaining(tau_end, rates, fractions, chain)
     if not np.all(point):
-        if chain:
-            raise DataError("'windows': averages over observation windows are available for "
-                            "parallel pools only (the chain: point samples)")
         tau_start = starts[None, :, None] - edges[None, None, :] - lag[:, None, None]
         wd = np.where(point, 1.0, width)[None, :, None]
-        avg = (_cumulative(tau_end, rates, fractions)
-               - _cumulative(tau_start, rates, fractions)) / wd
+        avg = (_cumulative(tau_end, rates, fractions, chain)
+               - _cumulative(tau_start, rates, fractions, chain)) / wd
         W = np.where(point[None, :, None], W, avg)
     return np.concatenate([W[:, :, :1], np.diff(W, axis=2)], axis=2)
 
@@ -407,8 +428,9 @@ def diet_operator(windows, edges, rates, fractions=None, *, structure="parallel"
     Row :math:`i` holds the weights of the diet before ``edges[0]`` and of each grid
     interval in observation :math:`i` (module docstring): :math:`W(t - e_0)` and
     :math:`W(t - e_{j+1}) - W(t - e_j)` for a point sample, the exact time average over the
-    window :math:`[a, b]` for a window of positive width (parallel pools). Rows sum to 1, so
-    the tissue value is :math:`c + m A x` with the separation's ``c`` and ``m``.
+    window :math:`[a, b]` for a window of positive width (parallel pools and the chain).
+    Rows sum to 1, so the tissue value is :math:`c + m A x` with the separation's ``c`` and
+    ``m``.
 
     Parameters
     ----------
@@ -434,8 +456,7 @@ def diet_operator(windows, edges, rates, fractions=None, *, structure="parallel"
     Raises
     ------
     DataError
-        For bad windows, edges, rates or fractions, windows ending after the grid, or
-        windows of positive width with the chain.
+        For bad windows, edges, rates or fractions, or windows ending after the grid.
     """
     structure = check_choice("structure", structure, ("parallel", "chain"))
     spec = {"rates": rates, "structure": structure, "lag": lag}
@@ -767,6 +788,8 @@ class DietReconstruction:
         (lower, upper) diet bounds used (‰; ±inf when open).
     kinetics : object
         The point kinetics used (for :meth:`tissue`).
+    profile : SegmentGeometry or None
+        The segment profile's geometry (positions along the tissue), None for a series.
     """
 
     edges: np.ndarray
@@ -800,6 +823,7 @@ class DietReconstruction:
     warnings: tuple = ()
     bounds: tuple = (-math.inf, math.inf)
     kinetics: object = field(repr=False, default=None)
+    profile: SegmentGeometry | None = field(repr=False, default=None)
 
     # -- views ------------------------------------------------------------------------
     def fraction_b(self):
@@ -848,6 +872,28 @@ class DietReconstruction:
                 "penalty": self.penalty, "strength": self.strength, "status": self.status}))
         return pd.concat(frames, ignore_index=True)
 
+    def samples_table(self) -> pd.DataFrame:
+        """The data with the values the reconstruction implies, one row per sample.
+
+        Returns
+        -------
+        DataFrame
+            Columns time (the sample time, or a window's midpoint: a segment's formation
+            midpoint), window_start, window_end, value, sd (NaN when not given), fitted
+            (the tissue value, or the window average, the reconstructed diet implies; ‰),
+            residual (value − fitted); for a segment profile first sample_time,
+            segment_start and segment_end (length units from the profile's origin).
+        """
+        cols = {}
+        if self.profile is not None:
+            cols = {"sample_time": self.profile.sample_time,
+                    "segment_start": self.profile.segment_start,
+                    "segment_end": self.profile.segment_end}
+        cols.update({"time": self.t, "window_start": self.windows[0],
+                     "window_end": self.windows[1], "value": self.y, "sd": self.sigma,
+                     "fitted": self.fitted, "residual": self.y - self.fitted})
+        return pd.DataFrame(cols)
+
     def tissue(self, t):
         """The tissue values the reconstructed diet implies (point samples).
 
@@ -884,6 +930,10 @@ class DietReconstruction:
                  f"status: {self.status}; condition number without regularisation "
                  f"{self.condition_number:.3g}",
                  f"residual sd {self.residual_sd:.3g} ‰"]
+        if self.profile is not None:
+            lines.insert(1, self.profile.describe(self.time_unit) + "; formed from "
+                         f"{np.min(self.windows[0]):.4g} to {np.max(self.windows[1]):.4g} "
+                         f"{unit}")
         if self.switch_times.size:
             lines.append("switch times: " + ", ".join(f"{s:.4g}" for s in self.switch_times)
                          + f" {unit}")
@@ -912,6 +962,179 @@ def _statuses(v, lo, hi, n_boot):
     if not n_boot:
         out[:] = "not_available"
     return out
+
+
+# --------------------------------------------------------------------------- segments
+
+@dataclass(frozen=True, eq=False)
+class SegmentGeometry:
+    r"""Where the segments of a profile lie along the tissue, and when they were formed.
+
+    Made by :func:`reconstruct_diet` from a segment profile; the formation intervals are
+    :func:`isoturnover.segments.formation_intervals` of these arguments.
+
+    Parameters
+    ----------
+    segment_start, segment_end : ndarray of shape (n,)
+        Distances of each segment's ends from :attr:`origin` (length unit of the growth
+        rate), in the order of the reconstruction's samples (by formation time).
+    sample_time : ndarray of shape (n,)
+        Time the tissue was sampled (time unit).
+    growth_rate : float or table of (time, rate)
+        Growth rate of the tissue (length per time unit).
+    formation_lag : float
+        Time from formation to emergence at the base (time unit).
+    origin : {"base", "tip"}
+        Where the distances are measured from.
+    tissue_length : ndarray of shape (n,) or None
+        Tissue length at sampling (with ``origin="tip"``).
+    """
+
+    segment_start: np.ndarray
+    segment_end: np.ndarray
+    sample_time: np.ndarray
+    growth_rate: object
+    formation_lag: float
+    origin: str
+    tissue_length: np.ndarray | None = None
+
+    @property
+    def single_sampling(self) -> bool:
+        """True when every segment comes from one tissue sampled once (one sampling time
+        and, from the tip, one tissue length): positions and times then map one to one."""
+        one = np.ptp(self.sample_time) == 0
+        if self.origin == "tip":
+            one = one and np.ptp(self.tissue_length) == 0
+        return bool(one)
+
+    def _anchor(self):
+        if not self.single_sampling:
+            raise DataError("the profile's segments were sampled at several times (or "
+                            "tissue lengths): a position along the tissue is not one time")
+        sched = growth_schedule(self.growth_rate)
+        top = float(sched.cumulative(self.sample_time[0] - self.formation_lag))
+        length = None if self.tissue_length is None else float(self.tissue_length[0])
+        return sched, top, length
+
+    def position(self, t):
+        r"""Distance from :attr:`origin` of the tissue formed at time ``t``.
+
+        The geometry of :func:`isoturnover.segments.formation_intervals` read backwards:
+        :math:`x = G(T - \ell) - G(t)` from the base, :math:`\Lambda - x` from the tip.
+
+        Parameters
+        ----------
+        t : array-like
+            Formation times (time unit); outside the tissue the growth law is extended.
+
+        Returns
+        -------
+        ndarray
+            Distances (length unit of the growth rate), shaped like ``t``.
+
+        Raises
+        ------
+        DataError
+            When the segments were sampled at several times (no single position axis).
+        """
+        sched, top, length = self._anchor()
+        x = top - sched.cumulative(np.asarray(t, dtype=float))
+        return x if self.origin == "base" else length - x
+
+    def time_at(self, x):
+        r"""Formation time of the tissue at distance ``x`` from :attr:`origin`.
+
+        :math:`t = G^{-1}(G(T - \ell) - x)` (``x`` from the base; :math:`\Lambda - x` from
+        the tip), the inverse of :meth:`position`.
+
+        Parameters
+        ----------
+        x : array-like
+            Distances (length unit of the growth rate).
+
+        Returns
+        -------
+        ndarray
+            Times (time unit), shaped like ``x``.
+
+        Raises
+        ------
+        DataError
+            When the segments were sampled at several times.
+        """
+        sched, top, length = self._anchor()
+        x = np.asarray(x, dtype=float)
+        return sched.inverse(top - (x if self.origin == "base" else length - x))
+
+    def describe(self, time_unit="d") -> str:
+        """One line: segments, where they lie, the growth rate and the lag.
+
+        Parameters
+        ----------
+        time_unit : str, default="d"
+
+        Returns
+        -------
+        str
+        """
+        g = growth_schedule(self.growth_rate).rates
+        rate = (f"{g[0]:g} length units per {time_unit}" if g.size == 1
+                else f"piecewise ({g.size} rows of time, rate)")
+        times = ", ".join(f"{v:g}" for v in np.unique(self.sample_time))
+        return (f"segment profile: {self.segment_start.size} segments from "
+                f"{np.min(self.segment_start):g} to {np.max(self.segment_end):g} length units "
+                f"from the {self.origin}, sampled at {times} {unit_word(time_unit)}; growth "
+                f"rate {rate}, formation lag {self.formation_lag:g} {unit_word(time_unit)}")
+
+
+_GEOMETRY = ("growth_rate", "segment_origin", "formation_lag", "tissue_length")
+
+
+def _is_profile(data):
+    return (isinstance(data, pd.DataFrame) and "segment_start" in data.columns
+            and "segment_end" in data.columns
+            and bool(data[["segment_start", "segment_end"]].notna().any().any()))
+
+
+def _profile_data(data, kinetics, sigma, windows, geometry):
+    """(t, y, sigma, windows, time unit, SegmentGeometry) of a segment profile: formation
+    midpoints, values and sd sorted by formation time, the formation intervals."""
+    if windows is not None:
+        raise DataError("'windows' is not used with a segment profile: its windows are the "
+                        "segments' formation intervals (from 'growth_rate', "
+                        "'formation_lag', 'segment_origin' and 'tissue_length')")
+    if sigma is not None:
+        raise DataError("'sigma' goes with arrays; a segment profile's sd is its 'sd' column")
+    fit = kinetics.fit if isinstance(kinetics, BootstrapResult) else kinetics
+    model = fit.model if isinstance(fit, TurnoverFit) else None
+    if getattr(model, "record", "points") != "segments":
+        model = None
+    attrs = {"growth_rate": "growth_rate", "segment_origin": "origin",
+             "formation_lag": "formation_lag", "tissue_length": "tissue_length"}
+    geo = {k: (getattr(model, attrs[k]) if v is None and model is not None else v)
+           for k, v in geometry.items()}
+    if geo["growth_rate"] is None:
+        raise DataError("'growth_rate' is needed for a segment profile (the tissue's growth "
+                        "rate, length per time unit: a number or a table of (time, rate)); "
+                        "give growth_rate= or a segment fit (TurnoverModel(record="
+                        "'segments')) as 'kinetics'")
+    origin = check_choice("segment_origin", geo["segment_origin"] or "base", ORIGINS)
+    lag = 0.0 if geo["formation_lag"] is None else geo["formation_lag"]
+    arr = segment_arrays(data)
+    t1, t2 = formation_intervals(arr["segment_start"], arr["segment_end"],
+                                 arr["sample_time"], geo["growth_rate"], formation_lag=lag,
+                                 origin=origin, tissue_length=geo["tissue_length"])
+    d = prepare_data((t1 + t2) / 2.0, arr["y"], arr["sigma"], arr["time_unit"],
+                     warn_repeats=False)
+    o = np.asarray(d["order"])
+    n = t1.size
+    length = geo["tissue_length"]
+    length = None if length is None else np.broadcast_to(
+        np.asarray(length, dtype=float).ravel(), (n,))[o].copy()
+    geom = SegmentGeometry(arr["segment_start"][o], arr["segment_end"][o],
+                           arr["sample_time"][o], geo["growth_rate"], float(lag), origin,
+                           length)
+    return d["t"], d["y"], d["sigma"], (t1[o], t2[o]), d["time_unit"], geom
 
 
 # --------------------------------------------------------------------------- main
@@ -968,7 +1191,8 @@ def _box(bounds, sources):
 def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, bounds=None,
                      sources=None, rng=None, sigma=None, windows=None, initial=None,
                      order=None, separation=None, n_boot=200, level=0.95,
-                     resample="residual", kinetics_uncertainty=True):
+                     resample="residual", kinetics_uncertainty=True, growth_rate=None,
+                     segment_origin=None, formation_lag=None, tissue_length=None):
     r"""Reconstruct the diet history from a tissue record and known kinetics.
 
     Regularised least squares on the exact linear operator of the module docstring (the
@@ -980,6 +1204,10 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
     data : DataFrame or tuple
         A samples frame of one series (``time``, ``value``, optional ``sd``) or arrays
         ``(t, y)`` / ``(t, y, sigma)``: times in the kinetics' time unit, δ (‰), sd (‰).
+        A samples frame with ``segment_start`` and ``segment_end`` is a **segment
+        profile** of one tissue (``time`` its sampling time): each segment is mapped to its
+        formation interval (:func:`isoturnover.segments.formation_intervals`) and averaged
+        over it exactly; the result's times are the formation midpoints.
     kinetics : TurnoverFit, BootstrapResult or dict
         A fit (rates, fractions, lag, exponential growth, separation and parameter
         covariance), a bootstrap of one (its replicates are the kinetics' draws), or a dict
@@ -1019,6 +1247,20 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
     resample : {"residual", "parametric"}
     kinetics_uncertainty : bool, default=True
         Also draw the kinetics for each replicate (when they carry an uncertainty).
+    growth_rate : float or table of (time, rate), optional
+        Segment profiles: the tissue's growth rate (length per time unit, constant or
+        piecewise, :func:`isoturnover.segments.growth_schedule`). Taken from ``kinetics``
+        when it is a segment fit (``TurnoverModel(record="segments")``) and not given;
+        needed otherwise.
+    segment_origin : {"base", "tip"}, optional
+        Segment profiles: where the distances are measured from (default the segment fit's,
+        else ``"base"``).
+    formation_lag : float, optional
+        Segment profiles: time from formation to emergence at the base (≥ 0; default the
+        segment fit's, else 0).
+    tissue_length : float, optional
+        Segment profiles measured from the tip: the tissue's length at sampling (default
+        the segment fit's).
 
     Returns
     -------
@@ -1027,7 +1269,8 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
     Raises
     ------
     DataError
-        For bad data or arguments (each named).
+        For bad data or arguments (each named), e.g. a segment profile without a growth
+        rate (``'growth_rate'``), or segment arguments with data that are not a profile.
     """
     penalty = check_choice("penalty", penalty, PENALTIES)
     resample = check_choice("resample", resample, ("residual", "parametric"))
@@ -1043,7 +1286,18 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
         if strength < 0:
             raise DataError(f"'strength' must be >= 0; got {strength!r}")
     kin, notes = _kinetics(kinetics, separation)
-    t, y, sig, (wa, wb), unit = _data(data, sigma, windows)
+    geometry = {"growth_rate": growth_rate, "segment_origin": segment_origin,
+                "formation_lag": formation_lag, "tissue_length": tissue_length}
+    profile = None
+    if _is_profile(data):
+        t, y, sig, (wa, wb), unit, profile = _profile_data(data, kinetics, sigma, windows,
+                                                           geometry)
+    else:
+        given = [k for k in _GEOMETRY if geometry[k] is not None]
+        if given:
+            raise DataError(f"'{given[0]}' goes with a segment profile (a samples frame with "
+                            "'segment_start' and 'segment_end'); 'data' is not one")
+        t, y, sig, (wa, wb), unit = _data(data, sigma, windows)
     if kin.time_unit is not None and unit is not None and kin.time_unit != unit \
             and isinstance(data, pd.DataFrame):
         raise DataError(f"'data' is in {unit!r} and 'kinetics' in {kin.time_unit!r}; give "
@@ -1105,7 +1359,7 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
             sig if has_sigma else np.full(n, np.nan), (wa, wb), np.full(n, np.nan),
             math.nan, initial is not None, sources, int(n_boot), 0, False,
             kin.source, gcv, np.empty((0, p_full)), unit, tuple(warns + [msg]),
-            (lo_b, hi_b), kin)
+            (lo_b, hi_b), kin, profile)
 
     use_tv = penalty == "total_variation" and strength != 0
     if use_tv:
@@ -1190,4 +1444,4 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
         cond, float(df), switch_times(edges, estimate), t, y,
         sig if has_sigma else np.full(n, np.nan), (wa, wb), fitted, residual_sd,
         initial is not None, sources, int(n_boot), n_failed, use_kin, kin.source, gcv,
-        reps, unit, tuple(warns), (lo_b, hi_b), kin)
+        reps, unit, tuple(warns), (lo_b, hi_b), kin, profile)

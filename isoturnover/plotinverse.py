@@ -4,8 +4,14 @@ r"""The figure of a reconstructed diet history.
 panels sharing the time axis: above, the diet history as steps on the grid with its band
 (the diet before the grid as a short dotted step left of the first edge), the switch times
 as dashed vertical lines with their times, and, with ``sources``, a right axis reading the
-fraction of source B; below, the samples (with their sd) and the tissue curve the
-reconstructed diet implies (:meth:`~isoturnover.inverse.DietReconstruction.tissue`).
+fraction of source B (the end members drawn as grey lines); below, the samples (with their
+sd) and the tissue curve the reconstructed diet implies
+(:meth:`~isoturnover.inverse.DietReconstruction.tissue`).
+Samples that average the tissue over a window (segments of hair, whiskers, feathers) are
+drawn as bars over their formation intervals with the window averages the diet implies; for
+a segment profile sampled once, a top axis reads the distance along the tissue
+(:meth:`~isoturnover.inverse.SegmentGeometry.position`, the segments' geometry read
+backwards), so a switch time can be read as a place to cut.
 matplotlib is imported inside the function and no global style is changed; colours are the
 Okabe–Ito palette (:mod:`isoturnover.plotkit`).
 """
@@ -22,6 +28,7 @@ from .plotkit import (
     OKABE_ITO,
     TICK_PT,
     compact_number,
+    finite_points,
     place_legend,
     placing_layout,
     style_axes,
@@ -37,7 +44,7 @@ _DATA = OKABE_ITO["orange"]
 _RULES = {"gcv": "GCV", "gcv_linearised": "GCV, pieces as df", "given": "given"}
 
 
-def plot_reconstruction(result, axes=None, *, ylabel="δ (‰)"):
+def plot_reconstruction(result, axes=None, *, ylabel="δ (‰)", length_unit=None):
     """Reconstructed diet history with its band and switch times, and the tissue record.
 
     Parameters
@@ -49,6 +56,9 @@ def plot_reconstruction(result, axes=None, *, ylabel="δ (‰)"):
         None.
     ylabel : str, default="δ (‰)"
         Label of both δ axes (e.g. ``"δ¹³C (‰, VPDB)"``).
+    length_unit : str, optional
+        Unit of the segment distances (e.g. ``"mm"``), for the position axis of a segment
+        profile.
 
     Returns
     -------
@@ -102,12 +112,10 @@ def plot_reconstruction(result, axes=None, *, ylabel="δ (‰)"):
                       fontsize=TICK_PT, color=_SWITCH)
     if result.sources is not None:
         a, b = result.sources
-        for v, name in ((a, "A"), (b, "B")):
-            ax_d.axhline(v, color=GREY, lw=0.6, ls="-", alpha=0.6)
-            top = v == max(a, b)     # the upper end member labelled below its line
-            ax_d.annotate(f"source {name}", (0.0, v), xycoords=("axes fraction", "data"),
-                          xytext=(3, -2 if top else 2), textcoords="offset points",
-                          fontsize=TICK_PT, color=GREY, va="top" if top else "bottom")
+        for i, v in enumerate((a, b)):   # named in the legend: labels on the lines collide
+            ax_d.axhline(v, color=GREY, lw=0.6, ls="-", alpha=0.6,
+                         label=None if i else f"end members A = {compact_number(a)}, "
+                                              f"B = {compact_number(b)}")
         sec = ax_d.secondary_yaxis("right", functions=(lambda d: (d - a) / (b - a),
                                                        lambda f: a + f * (b - a)))
         sec.set_ylabel("fraction of source B", fontsize=TICK_PT + 1)
@@ -117,24 +125,52 @@ def plot_reconstruction(result, axes=None, *, ylabel="δ (‰)"):
                    f"{compact_number(result.strength)} "
                    f"({_RULES.get(result.strength_rule, result.strength_rule)})",
                    fontsize=TICK_PT + 1, loc="left")
-    place_legend(ax_d, first=("reconstructed", "diet before", "95", "switch"))
+    mid = np.r_[e[0] - step0 / 2, (e[:-1] + e[1:]) / 2]
+    keep = finite_points((mid, result.estimate), (mid, result.lower), (mid, result.upper))
+    place_legend(ax_d, first=("reconstructed", "diet before", "95", "switch", "end"),
+                 keep=keep)
 
     # -- the tissue ----------------------------------------------------------------------
     sd = result.sigma
+    wa, wb = result.windows
+    wide = wb - wa > 0
+    name = "segments" if result.profile is not None else "samples"
+    if np.any(wide):
+        ax_t.hlines(result.y[wide], wa[wide], wb[wide], color=_DATA, lw=3.2, alpha=0.6,
+                    label=f"{name} over their formation time")
     if np.all(np.isfinite(sd)):
         ax_t.errorbar(result.t, result.y, yerr=sd, fmt="o", ms=3, color=_DATA, ecolor=_DATA,
-                      elinewidth=0.7, capsize=0, label="samples (± sd)")
+                      elinewidth=0.7, capsize=0,
+                      label=None if np.any(wide) else f"{name} (± sd)")
     else:
-        ax_t.plot(result.t, result.y, "o", ms=3, color=_DATA, label="samples")
+        ax_t.plot(result.t, result.y, "o", ms=3, color=_DATA,
+                  label=None if np.any(wide) else name)
     if result.status != "ill_posed":
         tt = np.linspace(min(e[0], float(np.min(result.t))), e[-1], 600)
-        ax_t.plot(tt, result.tissue(tt), color=_TISSUE, lw=1.2,
-                  label="tissue implied by the diet")
-    style_axes(ax_t, f"time ({unit})", f"tissue {ylabel}")
-    place_legend(ax_t, first=("samples", "tissue"))
+        point = ("formed at each instant (implied)" if np.any(wide)
+                 else "tissue implied by the diet")
+        ax_t.plot(tt, result.tissue(tt), color=GREY if np.any(wide) else _TISSUE,
+                  lw=1.0 if np.any(wide) else 1.2, label=point)
+        if np.any(wide):
+            ax_t.hlines(result.fitted[wide], wa[wide], wb[wide], color=_TISSUE, lw=1.2,
+                        label="segment means implied by the diet")
+    style_axes(ax_t, f"time ({unit})", f"{'segment' if result.profile is not None else 'tissue'} "
+                                       f"{ylabel}")
+    keep = finite_points((result.t, result.y), (wa, result.y), (wb, result.y),
+                         (result.t, result.fitted))
+    place_legend(ax_t, first=("segments", "samples", "segment means", "tissue", "formed"),
+                 keep=keep)
     ax_d.set_xlim(x[0], e[-1])
+    geom = result.profile
+    if geom is not None and geom.single_sampling:
+        where = "base" if geom.origin == "base" else "tip"
+        top = ax_d.secondary_xaxis("top", functions=(geom.position, geom.time_at))
+        top.set_xlabel(f"distance from the {where} of the tissue"
+                       + (f" ({length_unit})" if length_unit else ""), fontsize=TICK_PT + 1)
+        top.tick_params(labelsize=TICK_PT)
     for ax in (ax_d, ax_t):
-        ax.spines[["top"]].set_visible(False)
+        ax.spines[["top"]].set_visible(geom is not None and ax is ax_d
+                                       and geom.single_sampling)
         if result.sources is None:
             ax.spines[["right"]].set_visible(False)
     return ax_d, ax_t

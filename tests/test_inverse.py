@@ -128,8 +128,16 @@ def test_window_average_matches_quadrature():
         assert abs(val - Aw[i] @ vals) < 1e-9
     # a zero-width window is the point sample
     assert np.allclose(diet_operator((a, a), edges, k, f), diet_operator(a, edges, k, f))
-    with pytest.raises(DataError, match="parallel pools only"):
-        diet_operator((a, b), edges, [0.2, 0.05], structure="chain")
+    # the chain's window average (its C(τ) in closed form), also through k1 = k2
+    for kc in ([0.2, 0.05], [0.05, 0.2], [0.07, 0.07 * (1 + 1e-9)]):
+        Ac = diet_operator((a, b), edges, kc, structure="chain")
+        for i in range(a.size):
+            val = integrate.quad(
+                lambda s, kc=kc: diet_operator(np.array([s]), edges, kc,
+                                               structure="chain")[0] @ vals,
+                a[i], b[i], points=edges[(edges > a[i]) & (edges < b[i])], epsabs=1e-12,
+                epsrel=1e-12, limit=200)[0] / (b[i] - a[i])
+            assert abs(val - Ac[i] @ vals) < 1e-9
 
 
 # --------------------------------------------------------------------------- strength
@@ -440,3 +448,177 @@ def test_bad_data():
     frame = pd.DataFrame({"time": T, "value": _series(0)})
     with pytest.raises(DataError, match="'windows' goes with arrays"):
         reconstruct_diet(frame, KIN, grid=EDGES, windows=(T, T))
+
+
+# --------------------------------------------------------------------------- segment profiles
+
+# The invented hair scenario: a goat moves from a C3 ration (-26 ‰) to a C4-rich one (-13 ‰)
+# at day 0; its tail hair grows 0.5 mm/d and is cut on day 153 into 5 mm segments from the
+# base (10 days each, 30 segments reaching back to day -147); the hair's precursor has two
+# pools (k = 0.3 and 0.03 /d, fractions 0.6 and 0.4), separation +2 ‰, scatter 0.25 ‰.
+HAIR_G, HAIR_T = 0.5, 153.0
+HAIR_START = np.arange(0.0, 150.0, 5.0)
+HAIR_KIN = {"rates": [0.3, 0.03], "fractions": [0.6, 0.4], "separation": 2.0}
+HAIR_EDGES = np.arange(-150.0, 161.0, 10.0)
+
+
+def _hair_profile(seed, sd=0.25):
+    from isoturnover.segments import formation_intervals
+
+    t1, t2 = formation_intervals(HAIR_START, HAIR_START + 5.0, HAIR_T, HAIR_G)
+    x = np.where(np.r_[-1.0, HAIR_EDGES[:-1]] < 0, -26.0, -13.0)
+    A = diet_operator((t1, t2), HAIR_EDGES, [0.3, 0.03], [0.6, 0.4])
+    y = 2.0 + A @ x + np.random.default_rng(seed).normal(0.0, sd, t1.size)
+    return pd.DataFrame({"subject": "h1", "tissue": "hair", "isotope": "d13C",
+                         "time": HAIR_T, "segment_start": HAIR_START,
+                         "segment_end": HAIR_START + 5.0, "value": y, "sd": sd})
+
+
+@pytest.mark.parametrize("structure, pools, lag", [
+    ("parallel", 1, 0.0), ("parallel", 2, 3.0), ("parallel", 3, 0.0), ("chain", 2, 1.5),
+    ("chain_equal", 2, 0.0)])
+def test_window_operator_matches_segment_means(structure, pools, lag):
+    # source: isoturnover.segments.segment_means, the exact segment average of the forward
+    # model, itself checked against scipy.integrate.quad to 1e-9 ‰ in tests/test_segments.py
+    from isoturnover.segments import formation_intervals, segment_means
+
+    rng = np.random.default_rng(8)
+    edges = np.linspace(-100.0, 160.0, 27)
+    vals = rng.normal(-20.0, 3.0, edges.size)
+    dh = iso.DietHistory(vals[0], changes=list(zip(edges[:-1], vals[1:])))
+    chain = structure != "parallel"
+    k = {1: [0.05], 2: [0.25, 0.02], 3: [0.5, 0.08, 0.01]}[pools]
+    if structure == "chain_equal":
+        k = [0.06, 0.06 * (1 + 1e-10)]
+    f = {1: [1.0], 2: [0.3, 0.7], 3: [0.2, 0.3, 0.5]}[pools]
+    kin = TurnoverKinetics(pools, structure="chain" if chain else "parallel", diet=dh,
+                           lag=lag > 0)
+    value = {"discrimination": 1.7, "lag": lag}
+    value.update({f"k{i + 1}": v for i, v in enumerate(k)})
+    value.update({f"f{i + 1}": v for i, v in enumerate(f)})
+    theta = np.array([value[n] for n in kin.param_names])
+    t1, t2 = formation_intervals(HAIR_START, HAIR_START + 5.0, HAIR_T, HAIR_G)
+    A = diet_operator((t1, t2), edges, k, None if chain else f,
+                      structure="chain" if chain else "parallel", lag=lag)
+    assert np.max(np.abs(segment_means(kin, theta, t1, t2) - (1.7 + A @ vals))) < 1e-9
+
+
+def _profile_hits(seeds):
+    hits = 0
+    for seed in seeds:
+        r = reconstruct_diet(_hair_profile(seed), HAIR_KIN, grid=HAIR_EDGES,
+                             penalty="total_variation", growth_rate=HAIR_G, n_boot=0)
+        s = r.switch_times
+        hits += bool(s.size == 1 and abs(s[0] - 0.0) <= HAIR_EDGES[1] - HAIR_EDGES[0])
+    return hits
+
+
+def test_segment_profile_switch_found():
+    # the invented step diet read back from the hair: the switch within one grid step
+    # (10 days) of day 0 in at least 9 of 10 seeded profiles
+    assert _profile_hits(range(10)) >= 9
+
+
+def test_segment_profile_windows_geometry_and_table():
+    from isoturnover.segments import formation_intervals
+
+    frame = _hair_profile(0)
+    before = frame.copy()
+    r = reconstruct_diet(frame, HAIR_KIN, grid=HAIR_EDGES, penalty="total_variation",
+                         growth_rate=HAIR_G, n_boot=0)
+    pd.testing.assert_frame_equal(frame, before)
+    t1, t2 = formation_intervals(HAIR_START, HAIR_START + 5.0, HAIR_T, HAIR_G)
+    order = np.argsort((t1 + t2) / 2)
+    # the windows are the formation intervals; by hand: a constant rate gives
+    # [T - b/g, T - a/g], so the base segment (0-5 mm) was formed on days 143-153
+    assert np.allclose(r.windows[0], t1[order]) and np.allclose(r.windows[1], t2[order])
+    assert np.allclose((r.windows[0][-1], r.windows[1][-1]), (143.0, 153.0))
+    assert np.allclose(r.t, (t1[order] + t2[order]) / 2)
+    # the same as the array call with windows= (nothing else changes)
+    r2 = reconstruct_diet((r.t, r.y, 0.25), HAIR_KIN, grid=HAIR_EDGES,
+                          penalty="total_variation", windows=r.windows, n_boot=0)
+    assert np.allclose(r.estimate, r2.estimate, atol=1e-8)
+    # geometry read backwards (by hand): x = g (T - t) from the base
+    g = r.profile
+    assert g.single_sampling and g.origin == "base"
+    assert np.allclose(g.position(r.windows[0]), g.segment_end)
+    assert np.allclose(g.position([153.0, 53.0]), [0.0, 50.0])
+    assert np.allclose(g.time_at(g.position([-20.0, 7.5])), [-20.0, 7.5])
+    tab = r.samples_table()
+    assert list(tab.columns[:4]) == ["sample_time", "segment_start", "segment_end", "time"]
+    assert np.allclose(tab["residual"], tab["value"] - tab["fitted"])
+    assert "segment profile: 30 segments from 0 to 150" in r.summary()
+    # from the tip: the same segments measured from the hair's far end (length 150 mm)
+    tip = frame.assign(segment_start=150.0 - frame["segment_end"],
+                       segment_end=150.0 - frame["segment_start"])
+    rt = reconstruct_diet(tip, HAIR_KIN, grid=HAIR_EDGES, penalty="total_variation",
+                          growth_rate=HAIR_G, segment_origin="tip", tissue_length=150.0,
+                          n_boot=0)
+    assert np.allclose(rt.estimate, r.estimate, atol=1e-8)
+    assert np.allclose(rt.profile.position([153.0]), [150.0])     # the base, from the tip
+
+
+def test_segment_profile_geometry_from_a_segment_fit():
+    # a segment fit carries its growth rate, origin and lag: no need to repeat them
+    frame = _hair_profile(1)
+    model = iso.TurnoverModel(1, diet=iso.DietHistory.step(-26.0, -13.0), record="segments",
+                              growth_rate=HAIR_G)
+    with warnings.catch_warnings():   # one pool for two: the fast one is averaged out
+        warnings.simplefilter("ignore", iso.DesignWarning)
+        fit = model.fit(frame)
+    r = reconstruct_diet(frame, fit, grid=HAIR_EDGES, penalty="total_variation", n_boot=0)
+    direct = reconstruct_diet(frame, fit, grid=HAIR_EDGES, penalty="total_variation",
+                              growth_rate=HAIR_G, segment_origin="base", formation_lag=0.0,
+                              n_boot=0)
+    assert np.allclose(r.estimate, direct.estimate)
+    assert r.profile.growth_rate == HAIR_G
+    # an argument given wins over the fit's: a faster growth rate, shorter windows
+    fast = reconstruct_diet(frame, fit, grid=HAIR_EDGES, penalty="total_variation",
+                            growth_rate=1.0, n_boot=0)
+    assert np.allclose(fast.windows[1] - fast.windows[0], 5.0)
+    boot = fit.bootstrap(n=20, rng=0)
+    rb = reconstruct_diet(frame, boot, grid=HAIR_EDGES, penalty="total_variation",
+                          n_boot=20)
+    assert rb.profile is not None and "bootstrap" in rb.kinetics_source
+
+
+@pytest.mark.parametrize("kwargs, match", [
+    ({}, "'growth_rate' is needed for a segment profile"),
+    ({"growth_rate": 0.5, "segment_origin": "middle"}, "'segment_origin' must be one of"),
+    ({"growth_rate": 0.5, "windows": ([1.0], [2.0])}, "'windows' is not used with a segment"),
+    ({"growth_rate": 0.5, "sigma": 0.2}, "'sigma' goes with arrays"),
+    ({"growth_rate": -0.5}, "'growth_rate' must be > 0"),
+    ({"growth_rate": 0.5, "formation_lag": -1.0}, "'formation_lag' must be one number >= 0"),
+    ({"growth_rate": 0.5, "segment_origin": "tip"}, "needs 'tissue_length'"),
+])
+def test_segment_profile_bad_arguments(kwargs, match):
+    with pytest.raises(DataError, match=match):
+        reconstruct_diet(_hair_profile(0), HAIR_KIN, grid=HAIR_EDGES, n_boot=0, **kwargs)
+
+
+def test_segment_arguments_need_a_profile():
+    with pytest.raises(DataError, match="'growth_rate' goes with a segment profile"):
+        reconstruct_diet((T, _series(0), SD), KIN, grid=EDGES, growth_rate=0.5, n_boot=0)
+    with pytest.raises(DataError, match="'tissue_length' goes with a segment profile"):
+        reconstruct_diet((T, _series(0), SD), KIN, grid=EDGES, tissue_length=9.0, n_boot=0)
+
+
+def test_plot_reconstruction_of_a_profile(tmp_path):
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    r = reconstruct_diet(_hair_profile(2), HAIR_KIN, grid=HAIR_EDGES,
+                         penalty="total_variation", growth_rate=HAIR_G,
+                         sources=(-27.0, -12.0), n_boot=30)
+    ax_d, ax_t = iso.plot_reconstruction(r, length_unit="mm")
+    tops = [c for c in ax_d.child_axes if "distance" in c.get_xlabel()]
+    assert len(tops) == 1 and tops[0].get_xlabel() == "distance from the base of the tissue (mm)"
+    # the segments drawn over their formation intervals, and the implied segment means
+    labels = ax_t.get_legend_handles_labels()[1]
+    assert "segments over their formation time" in labels
+    assert "segment means implied by the diet" in labels
+    ax_d.figure.savefig(tmp_path / "p.png", dpi=80)
+    assert (tmp_path / "p.png").stat().st_size > 1000
+    plt.close("all")

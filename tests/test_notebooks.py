@@ -210,6 +210,41 @@ def test_field_clock_notebook_runs_committed_clean(tmp_path, monkeypatch):
     assert not [p for p in tmp.rglob("*") if p.suffix in (".png", ".csv", ".md", ".html")]
 
 
+def test_segments_notebook_runs_committed_clean(tmp_path, monkeypatch):
+    from isoturnover.conventions import CAUTION
+
+    name = "06_segments.ipynb"
+    committed = _read(name)
+    nbformat.validate(committed)
+    assert all(not c.outputs and c.execution_count is None
+               for c in committed.cells if c.cell_type == "code")
+    assert committed.metadata.get("kernelspec", {}).get("name") == "python3"
+    markdown = [" ".join(c.source.split()) for c in committed.cells
+                if c.cell_type == "markdown"]
+    assert "data are invented" in markdown[0]
+    assert "animal-care authority" in markdown[-1] and "not replace it" in markdown[-1]
+    nb, work, tmp = _execute(name, tmp_path, monkeypatch)
+    text, tables, errors = _outputs(nb)
+    assert errors == []
+    assert tables >= 4, f"expected the notebook to show tables; found {tables}"
+    # the four goats' profiles, fitted with the segment model against the invented truth
+    assert "segments per goat: {'G01': 24, 'G02': 24, 'G05': 24, 'G06': 24}" in text
+    assert "the true half-life inside the 95 % profile interval for" in text
+    assert "segments of a growing tissue (formation-interval means)" in text
+    # the resolution warning on the 8 mm cut, the growth-rate check, the segment plan
+    assert "DesignWarning: pool k1: half-life" in text and "shortest 20" in text
+    assert "G05, true half-life" in text
+    assert "Segment plan for half-life (k1)" in text
+    # the diet history read back: switch times against the truth (day 0; day 120 for pen B)
+    assert "switch times within one grid step (10 days) of the truth for" in text
+    assert "segment profile: 24 segments from 0 to 96" in text
+    assert "top axis: ['distance from the base of the tissue (mm)']" in text
+    assert " ".join(CAUTION.split()) in " ".join(text.split())
+    # nothing written: not in the work dir, no figure or table in the temporary folder
+    assert list(work.iterdir()) == []
+    assert not [p for p in tmp.rglob("*") if p.suffix in (".png", ".csv", ".md", ".html")]
+
+
 @pytest.mark.parametrize("name", NAMES)
 def test_notebook_committed_without_outputs(name):
     nb = _read(name)
