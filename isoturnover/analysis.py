@@ -225,7 +225,7 @@ class Analysis:
         return FitSet(("part", "subject", "tissue", "isotope"), results, level=self.level,
                       method=self.interval_method, time_unit=unit)
 
-    def write(self, out_dir, *, force=False, figures=True) -> list[Path]:
+    def write(self, out_dir, *, force=False, figures=True, figure_jobs=None) -> list[Path]:
         """Write results.csv, fits.json, the report and CAUTION.txt, in one move.
 
         Written through :func:`~isoturnover.outputdir.write_output`: every file is made in
@@ -253,6 +253,9 @@ class Analysis:
             report.html, CAUTION.txt, report_figures/*.png).
         figures : bool, default=True
             Draw the report's figures.
+        figure_jobs : FigureJobs, optional
+            Figure workers already drawing figures of these fits (see
+            :func:`~isoturnover.report.write_report`); shut down when the report is done.
 
         Returns
         -------
@@ -273,7 +276,9 @@ class Analysis:
             table = neutralise_formulas(self.results_table())
             table.to_csv(tmp / "results.csv", index=False)
             with open(tmp / "fits.json", "w", encoding="utf-8") as fh:
-                json.dump(self.fits_json(), fh, allow_nan=True)
+                # one string from the C encoder (json.dump streams through the
+                # pure-Python one): the same text, several times faster
+                fh.write(json.dumps(self.fits_json(), allow_nan=True))
             boot = None
             if self.ci == "bootstrap":  # results_table above filled self.bootstrap
                 boot = {}
@@ -285,7 +290,8 @@ class Analysis:
             write_report(self.merged(), tmp / "report", title=self.title, level=self.level,
                          method=self.interval_method if boot is None else "bootstrap",
                          figures=figures, bootstrap=boot, n_boot=self.n_boot,
-                         seed=self.seed, n_jobs=None if self.n_jobs == 1 else self.n_jobs)
+                         seed=self.seed, n_jobs=None if self.n_jobs == 1 else self.n_jobs,
+                         figure_jobs=figure_jobs)
             (tmp / "CAUTION.txt").write_text(CAUTION + "\n", encoding="utf-8")
 
         return write_output(out_dir, build, force=force)
@@ -592,7 +598,8 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
             separation="difference", initial="equilibrium", fixed=None, absolute_sigma=False,
             loss="linear", columns=None, diet_columns=None, mass_columns=None,
             switch_date=None, switch_dates=None, unit="delta", baseline=None,
-            mass_unit=None, on_bad_rows="raise", scale="delta") -> Analysis:
+            mass_unit=None, on_bad_rows="raise", scale="delta", growth_rate=None,
+            segment_origin="base", formation_lag=0.0) -> Analysis:
     """Fit every series of a samples table and choose its model (pools, separation) by AICc.
 
     Parameters
@@ -659,6 +666,14 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
         Unit of the body masses (``"kg"``), shown on the growth figures and in the report.
     scale : {"delta", "atom_fraction"}, default="delta"
         Mixing scale of the pools (see :func:`~isoturnover.fit_each`).
+    growth_rate : float, table or dict of str → float, optional
+        Growth rate (length per time unit) of the tissues sampled as segments (samples with
+        ``segment_start``/``segment_end``): one for all or by tissue, ``{"hair": 0.4}``
+        (see :func:`~isoturnover.fit_each`).
+    segment_origin : {"base", "tip"}, default="base"
+        Where segment distances are measured from.
+    formation_lag : float, default=0.0
+        Time (≥ 0) from a segment's formation to its emergence at the base.
     on_bad_rows : {"raise", "drop"}, default="raise"
         A bad row of any table: an error naming file, row and column, or (``"drop"``) a
         warning listing every dropped row (see :func:`~isoturnover.read_samples`).
@@ -720,7 +735,11 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
                            on_bad_rows=on_bad_rows)
     by = _parse_by(by, [c for c in s.columns if c != "is_replicate_group"])
     if by is None:
-        per = s.groupby(["subject", "tissue", "isotope"])["time"].nunique()
+        # a point is a sampling time (and a segment: the segments of one hair are points)
+        pt = s["time"].astype(str)
+        if "segment_start" in s.columns:
+            pt = pt + "|" + s["segment_start"].astype(str)
+        per = pt.groupby([s["subject"], s["tissue"], s["isotope"]]).nunique()
         by = ("tissue", "isotope") if int(per.max()) == 1 and s["subject"].nunique() > 1 \
             else ("subject", "tissue", "isotope")
     fs = fit_each(s, by=by, pools=pools, structures=structures, diets=d, masses=m,
@@ -728,7 +747,9 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
                   lag=lag, growth_curve=growth_curve, per_diet_separation=per_diet_separation,
                   progress=progress, n_jobs=n_jobs, criterion=criterion,
                   separation=separation, initial=initial, fixed=fixed,
-                  absolute_sigma=absolute_sigma, loss=loss, scale=scale)
+                  absolute_sigma=absolute_sigma, loss=loss, scale=scale,
+                  growth_rate=growth_rate, segment_origin=segment_origin,
+                  formation_lag=formation_lag)
     return Analysis({"samples": fs}, level=level, ci=ci, n_boot=n_boot, seed=seed,
                     title=title, n_jobs=n_jobs)
 
@@ -744,6 +765,8 @@ def run_demo(out_dir=None, *, force=False, progress=False, figures=True,
     fish. Goats and fish are fitted as :func:`analyse` fits them: every candidate with one
     shared diet-tissue separation and with one per ration, chosen by AICc (the demo's
     plasma δ15N separation differs between hay and maize; see :func:`analyse`, Notes).
+    Goat tail hair: δ13C segment profiles cut on day 180, fitted as segments with the
+    invented growth rate of 0.4 mm/d (``sample_data/README.md``).
 
     Parameters
     ----------
@@ -764,7 +787,7 @@ def run_demo(out_dir=None, *, force=False, progress=False, figures=True,
     Returns
     -------
     Analysis
-        Four parts: "goats d13C", "goats d15N", "goat breath" and "fish".
+        Five parts: "goats d13C", "goats d15N", "goat breath", "goat hair" and "fish".
 
     Raises
     ------
@@ -787,17 +810,65 @@ def run_demo(out_dir=None, *, force=False, progress=False, figures=True,
     fm = read_masses(demo_path("fish_masses"), mass_unit="g")
     parts = {}
     common = dict(per_diet_separation="auto", progress=progress, n_jobs=workers)
-    for iso in ("d13C", "d15N"):
-        parts[f"goats {iso}"] = fit_each(gs[gs["isotope"] == iso], pools=(1, 2), diets=gd,
-                                         masses=gm, growth_curve="logistic", **common)
-    parts["goat breath"] = fit_each(breath, pools=(1, 2, 3), progress=progress,
-                                    n_jobs=workers)
-    parts["fish"] = fit_each(fsam, by=("tissue", "isotope"), pools=(1, 2), diets=fd,
-                             masses=fm, growth_curve="exponential", **common)
-    a = Analysis(parts, title="Demo analysis (invented data)", n_jobs=workers)
-    if a.n_fitted() == 0:  # pragma: no cover - the demo data always fit
-        raise FitError("no demo series could be fitted")
+    # the report's figures of each part are drawn by worker processes while the next parts
+    # are fitted (the same figures, drawn the same way, as the report would draw them)
+    ahead = _figures_ahead(out_dir is not None and figures, workers)
+    try:
+        for iso in ("d13C", "d15N"):
+            parts[f"goats {iso}"] = fit_each(gs[gs["isotope"] == iso], pools=(1, 2),
+                                             diets=gd, masses=gm, growth_curve="logistic",
+                                             **common)
+            _draw_ahead(ahead, parts[f"goats {iso}"])
+        parts["goat breath"] = fit_each(breath, pools=(1, 2, 3), progress=progress,
+                                        n_jobs=workers)
+        _draw_ahead(ahead, parts["goat breath"])
+        parts["goat hair"] = fit_each(read_samples(demo_path("goat_hair")), pools=(1, 2),
+                                      diets=gd, growth_rate={"hair": DEMO_HAIR_GROWTH},
+                                      **common)
+        _draw_ahead(ahead, parts["goat hair"])
+        parts["fish"] = fit_each(fsam, by=("tissue", "isotope"), pools=(1, 2), diets=fd,
+                                 masses=fm, growth_curve="exponential", **common)
+        a = Analysis(parts, title="Demo analysis (invented data)", n_jobs=workers,
+                     level=_DEMO_LEVEL)
+        if a.n_fitted() == 0:  # pragma: no cover - the demo data always fit
+            raise FitError("no demo series could be fitted")
+    except BaseException:
+        if ahead is not None:
+            ahead.cancel()
+        raise
     if out_dir is not None:
-        a.write(out_dir, force=force, figures=figures)
+        a.write(out_dir, force=force, figures=figures, figure_jobs=ahead)
     return a
+
+
+_DEMO_LEVEL = 0.95  # confidence level of the demo's intervals, bands and figures
+#: Growth rate of the demo goats' tail hair (mm/d; invented, sample_data/README.md).
+DEMO_HAIR_GROWTH = 0.4
+
+
+def _figures_ahead(wanted, workers):
+    """Figure workers for the report of a run that fits its study in parts, or None."""
+    if not wanted:
+        return None
+    from .reportfigures import FigureJobs, figure_workers
+
+    n = figure_workers(None if workers == 1 else workers, 8)
+    return FigureJobs(n, _DEMO_LEVEL) if n > 1 else None
+
+
+def _draw_ahead(ahead, fs):
+    """Start the report's figures of one fitted part (as :func:`write_report` adds them)."""
+    if ahead is None:
+        return
+    for r in fs.values():
+        f = r.best
+        if f is None:
+            continue
+        ahead.draw_ahead("overview", f)
+        if getattr(f.model, "record", "points") == "segments":
+            ahead.draw_ahead("segments", f)
+        g = getattr(f.model, "growth", None)
+        if g is not None and hasattr(g, "t") and hasattr(g, "mass"):
+            ahead.draw_ahead("growth", (g, f.time_unit,
+                                        f if hasattr(f, "growth_share_curve") else None))
 

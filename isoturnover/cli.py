@@ -27,6 +27,7 @@ from .cliargs import (
     parse_fraction,
     parse_fractions,
     parse_growth_curve,
+    parse_growth_rate,
     parse_jobs,
     parse_kinetics_list,
     parse_level,
@@ -99,7 +100,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     d = sub.add_parser("demo", parents=[common], help="analyse the invented demo experiment",
                        formatter_class=_formatter,
-                       description="Fit the invented demo experiment (goats, breath, fish) "
+                       description="Fit the invented demo experiment (goats, breath, hair, fish) "
                        "and write results, figures and a report.")
     d.add_argument("--jobs", metavar="N", type=parse_jobs, default=1,
                    help="parallel worker processes (-1: all cores; default 1)")
@@ -123,6 +124,12 @@ def build_parser() -> argparse.ArgumentParser:
       help="masses column names, e.g. subject=animal,mass=weight_kg")
     a("--scale", metavar="SCALE", choices=("delta", "atom_fraction"), default="delta",
       help="mixing scale of the pools: delta (default) or atom_fraction")
+    a("--growth-rate", metavar="RATE", type=parse_growth_rate, default=None,
+      help="segment growth rate, length per time unit: 0.4 or hair=0.4,...")
+    a("--segment-origin", metavar="END", choices=("base", "tip"), default="base",
+      help="segment distances measured from the base (default) or the tip")
+    a("--formation-lag", metavar="D", type=parse_non_negative, default=0.0,
+      help="time from formation to emergence at the base (default 0)")
     a("--drop-bad-rows", action="store_true",
       help="drop bad rows with a warning listing each (default: stop)")
     a("--mass-unit", metavar="UNIT", default=None,
@@ -434,7 +441,8 @@ def _cmd_fit(args, out):
                 mass_unit=args.mass_unit,
                 on_bad_rows="drop" if args.drop_bad_rows else "raise", scale=args.scale,
                 switch_date=args.switch_date, switch_dates=args.switch_dates,
-                unit=args.unit, baseline=args.baseline)
+                unit=args.unit, baseline=args.baseline, growth_rate=args.growth_rate,
+                segment_origin=args.segment_origin, formation_lag=args.formation_lag)
     if a.n_fitted() == 0:
         reasons = "; ".join(f"{' / '.join(map(str, k[1:]))}: {why}"
                             for k, why in list(a.failures().items())[:10])

@@ -12,6 +12,7 @@ import argparse
 __all__ = ["whole_number", "real_number", "fail", "parse_baseline", "parse_column_map",
            "parse_count", "parse_date_format",
            "parse_delta", "parse_fix", "parse_fraction", "parse_fractions", "parse_growth_curve",
+           "parse_growth_rate",
            "parse_jobs", "parse_kinetics_list", "parse_level", "parse_n_sim",
            "parse_non_negative", "parse_number", "parse_number_list", "parse_pairs",
            "parse_pool_count", "parse_pools", "parse_positive", "parse_positive_int",
@@ -514,6 +515,43 @@ def parse_tissue_values(text):
             fail(text, f"{name!r} must be TISSUE or TISSUE:ISOTOPE (pairs such as {example})")
         out[(tissue.strip(), isotope.strip()) if colon else name] = v
     return out
+
+
+def parse_growth_rate(text):
+    """Parse ``--growth-rate``: one rate for every tissue, or rates by tissue.
+
+    Parameters
+    ----------
+    text : str
+        A number (``0.4``) or ``TISSUE=RATE`` pairs separated by commas
+        (``hair=0.4,whisker=0.8``); rates in length per time unit of the tables, > 0.
+
+    Returns
+    -------
+    float or dict
+        The rate, or tissue → rate.
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        For a malformed pair or a rate that is not a positive finite number.
+    """
+    import math
+
+    def rate(value, where):
+        try:
+            v = float(value)
+        except ValueError:
+            v = math.nan
+        if not (math.isfinite(v) and v > 0):
+            fail(text, f"{where} must be a positive growth rate (length per time unit), "
+                       "such as 0.4")
+        return v
+
+    if "=" not in text:
+        return rate(text, "the value")
+    return {name: rate(value, f"the rate for {name}")
+            for name, value in parse_pairs(text, "hair=0.4,whisker=0.8")}
 
 
 def parse_names(text):

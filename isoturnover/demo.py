@@ -13,7 +13,9 @@ first 72 hours (time unit hours), and the goats are weighed weekly. A hatchery b
 juvenile fish is switched to a new feed on day 0 and sampled destructively for muscle δ15N and
 δ13C, each fish weighed at sampling. Twelve adult field goats (W01–W12), moved from C3
 pasture to the maize ration at recorded times, are sampled once for plasma and red-cell δ13C:
-an isotopic clock to date their change with the captive fits.
+an isotopic clock to date their change with the captive fits. Four of the captive goats (G01,
+G02, G05, G06) have their tail hair cut at the skin on day 180 and cut into 4 mm segments from
+the base: δ13C segment profiles, with an invented hair growth rate of 0.4 mm/d.
 
 Tables (file name without ``.csv``; all times in days except ``goat_breath``, in hours):
 
@@ -30,6 +32,8 @@ fish_diets        diets      starter feed and new feed δ13C, δ15N (days)
 truth             truth      the generator's true values per subject (and population)
 field_samples     field      field goats sampled once (an isotopic clock; days)
 field_truth       truth      the field goats' true times since their diet change
+goat_hair         samples    tail-hair δ13C segments of four goats, cut on day 180
+goat_hair_truth   truth      the hair's true kinetics and (invented) growth rate
 ================  =========  ======================================================
 
 A real experiment of this kind needs the approval of the local animal-care authority; the
@@ -68,6 +72,8 @@ DEMO_TABLES = {
     "truth": ("truth", None, "the generator's true values"),
     "field_samples": ("field", "d", "field goats sampled once: plasma and red-cell δ13C"),
     "field_truth": ("truth", "d", "true times since the field goats' diet change"),
+    "goat_hair": ("samples", "d", "goat tail-hair δ13C segment profiles (mm from the base)"),
+    "goat_hair_truth": ("truth", "d", "the hair generator's true values (growth 0.4 mm/d)"),
 }
 
 

@@ -40,6 +40,7 @@ from .errors import DataError, DataWarning, IsoturnoverWarning
 from .kinetics import MAX_POOLS
 from .model import LOSSES, TurnoverModel
 from .population import population_estimate
+from .segments import ORIGINS, formation_intervals, growth_schedule
 from .selection import CRITERIA, compare
 from .seriesrows import (
     SERIES_ERRORS,
@@ -126,6 +127,9 @@ class SeriesResult:
     group : str or None
         The ``group`` of the series' rows in the samples table (None when the table has no
         group column, or the rows name several groups).
+    record : {"points", "segments"}
+        What its samples record: the tissue at the sampling time, or segments of a growing
+        inert tissue (fitted with ``record="segments"``, :mod:`isoturnover.segments`).
     """
 
     key: tuple
@@ -137,6 +141,7 @@ class SeriesResult:
     comparison: pd.DataFrame | None = None
     nobs: int = 0
     group: str | None = None
+    record: str = "points"
 
     @property
     def best(self):
@@ -241,7 +246,8 @@ class FitSet(Mapping):
         -------
         DataFrame
             Columns: the ``by`` keys; ``group`` (the samples table's group of the series,
-            when the table has one and ``by`` does not name it); candidate, structure,
+            when the table has one and ``by`` does not name it); ``record`` (``"points"``
+            or ``"segments"``, when some series is a segment profile); candidate, structure,
             pools, status, reason, nobs, n_params, rss, aicc, delta_aicc, weight, chosen,
             converged, n_warnings, warnings; then the columns of :func:`candidate_row`
             (level parameters, half-lives, time to 95 %, with a growth model the
@@ -264,11 +270,14 @@ class FitSet(Mapping):
         method = check_method(self.method if method is None else method)
         with_group = "group" not in self.by and any(
             r.group is not None for r in self._results.values())
+        with_record = any(r.record == "segments" for r in self._results.values())
         rows = []
         for key, r in self._results.items():
             base = dict(zip(self.by, key))
             if with_group:
                 base["group"] = r.group
+            if with_record:
+                base["record"] = r.record
             cmp = r.comparison
             cmp_rows = ({} if cmp is None else
                         {lab: (int(k), float(d), float(w)) for lab, k, d, w in zip(
@@ -428,7 +437,8 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
              masses=None, criterion="aicc", level=0.95, method="profile", lag=False,
              separation="difference", initial="equilibrium", fixed=None, absolute_sigma=False,
              loss="linear", growth_curve="logistic", progress=False,
-             per_diet_separation=False, n_jobs=1, scale="delta") -> FitSet:
+             per_diet_separation=False, n_jobs=1, scale="delta", growth_rate=None,
+             segment_origin="base", formation_lag=0.0) -> FitSet:
     """Fit every series of a samples table with every candidate model; choose one each.
 
     Parameters
@@ -494,6 +504,22 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
         cores. The results, and their order, are those of ``n_jobs=1``. Each worker also
         computes the chosen fit's intervals (``level``, ``method``), which come back cached
         on the fit. Without joblib a warning is given and the series are fitted serially.
+    growth_rate : float, table or dict of str → (float or table), optional
+        Growth rate of the tissues whose samples carry ``segment_start``/``segment_end``,
+        in the segments' length unit per the samples' time unit: one number (or a table of
+        (time, rate) rows, :func:`~isoturnover.segments.growth_schedule`) for every such
+        tissue, or a dict by tissue (``{"hair": 0.4}``). A ``growth_rate`` column of the
+        samples (one value per series) takes precedence for its series. Those series are fitted with
+        ``record="segments"`` (each segment the exact mean of the model over its formation
+        interval), without growth dilution (an inert tissue is not diluted by body growth;
+        ``masses`` serve the other series).
+    segment_origin : {"base", "tip"}, default="base"
+        Where the segment distances are measured from. With ``"tip"`` the tissue's length
+        at sampling is taken as the series' largest ``segment_end`` (the segments cover the
+        whole tissue).
+    formation_lag : float, default=0.0
+        Time (≥ 0, the samples' time unit) from formation to emergence at the base, for
+        every segment series.
 
     Returns
     -------
@@ -506,7 +532,9 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
         For a bad table or option (``by``, ``pools``, ``structures``, ``criterion``,
         ``loss``, ``level``, ``method``, ``fixed``, ``n_jobs``, model options), before any
         series is fitted: an empty, repeated or wrong-typed ``pools``, ``by`` or
-        ``structures`` too.
+        ``structures`` too; samples with segments whose tissue has no growth rate (the
+        message names the tissue), a bad ``growth_rate``, ``segment_origin`` or
+        ``formation_lag``.
 
     Notes
     -----
@@ -540,6 +568,8 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     scale = check_choice("scale", scale, ("delta", "atom_fraction"))
     cands = _candidates(pools, structures, per_diet_separation, lag=lag,
                         separation=separation, initial=initial)
+    segment_origin = check_choice("segment_origin", segment_origin, ORIGINS)
+    formation_lag = _check_formation_lag(formation_lag)
     s = _validated(read_samples, samples, "samples", time_unit=_unit_of(samples))
     for col in by:
         if col not in s.columns:
@@ -570,11 +600,13 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     # the whole table is split, averaged and matched to its diets here, once and column-wise;
     # each series travels to its fit as a few arrays (no per-series frames)
     data = series_data(s, by, groups, average_replicates)
+    _attach_growth_rates(data, growth_rate)
     if diets is not None:
         _attach_diets(data, groups, by, diets, initial, separation)
     options = dict(masses=masses, criterion=criterion, lag=lag, separation=separation,
                    initial=initial, fixed=fixed, absolute_sigma=absolute_sigma, loss=loss,
-                   growth_curve=growth_curve, time_unit=time_unit, scale=scale)
+                   growth_curve=growth_curve, time_unit=time_unit, scale=scale,
+                   segment_origin=segment_origin, formation_lag=formation_lag)
     tasks = [(d, key, dict(zip(by, key))) for d, key in zip(data, groups)]
     if workers == 1 or len(tasks) < 2:
         done = [_fit_one(d, key, key_map, cands, options)
@@ -596,6 +628,50 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     results = {key: r for (_, key, _), r in zip(tasks, done)}
     return FitSet(by, results, criterion=criterion, level=level, method=method,
                   time_unit=time_unit)
+
+
+def _check_formation_lag(lag):
+    """``formation_lag`` as a float ≥ 0, else a DataError naming it."""
+    try:
+        v = float(lag)
+    except (TypeError, ValueError):
+        v = float("nan")
+    if not np.isfinite(v) or v < 0 or isinstance(lag, bool):
+        raise DataError(f"'formation_lag' must be one number >= 0 (time units); got {lag!r}")
+    return v
+
+
+def _attach_growth_rates(data, growth_rate):
+    """The growth rate of every segment series (its ``growth_rate`` column, else the
+    argument's entry for its tissue, else the argument's one value), checked before any
+    fit; a DataError names the tissues that have segments and no growth rate."""
+    per_tissue = isinstance(growth_rate, Mapping) and set(growth_rate) != {"time", "rate"}
+    if per_tissue:
+        for tissue, v in growth_rate.items():
+            growth_schedule(v, f"growth_rate[{tissue!r}]")
+    elif growth_rate is not None:
+        growth_schedule(growth_rate)
+    missing = []
+    for d in data:
+        if not d.is_segments or d.error is not None:
+            continue
+        if d.growth_rate is not None:
+            growth_schedule(d.growth_rate, f"growth_rate column (tissue {d.tissue!r})")
+            continue
+        if per_tissue:
+            d.growth_rate = growth_rate.get(d.tissue)
+        else:
+            d.growth_rate = growth_rate
+        if d.growth_rate is None and d.tissue not in missing:
+            missing.append(d.tissue)
+    if missing:
+        names = ", ".join(repr(t) for t in missing)
+        raise DataError(
+            f"samples of tissue {names} carry segment_start/segment_end (segments of a "
+            f"growing tissue) but 'growth_rate' gives no growth rate for it: give one, in "
+            f"length per time unit (growth_rate={{{missing[0]!r}: RATE}}, or one number for "
+            "every tissue, or a 'growth_rate' column in the samples; on the command line "
+            f"--growth-rate {missing[0]}=RATE)")
 
 
 def _attach_diets(data, groups, by, diets, initial, separation):
@@ -713,11 +789,29 @@ def _progress(items, progress, desc, total=None):
 
 
 def _fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation,
-                initial, fixed, absolute_sigma, loss, growth_curve, time_unit, scale="delta"):
+                initial, fixed, absolute_sigma, loss, growth_curve, time_unit, scale="delta",
+                segment_origin="base", formation_lag=0.0):
     res = SeriesResult(key=key, group=data.group)
     t, y, sd = data.t, data.y, data.sd
     n = len(t)
     res.nobs = n
+    # a segment profile: its model averages over each segment's formation interval, and
+    # its points lie at the formation midpoints (t stays the sampling time of each segment)
+    seg, t_formed = {}, t
+    if data.is_segments:
+        res.record = "segments"
+        seg = {"record": "segments", "growth_rate": data.growth_rate,
+               "formation_lag": formation_lag, "origin": segment_origin,
+               "tissue_length": (float(np.max(data.segment_end))
+                                 if segment_origin == "tip" else None)}
+        try:
+            t1, t2 = formation_intervals(data.segment_start, data.segment_end, t,
+                                         data.growth_rate, formation_lag=formation_lag,
+                                         origin=segment_origin,
+                                         tissue_length=seg["tissue_length"])
+        except SERIES_ERRORS as e:
+            return _all_failed(res, cands, "failed", f"segments could not be placed: {e}")
+        t_formed = (t1 + t2) / 2.0
     subjects = sorted(set(data.subject.tolist()))
     if "subject" not in key_map and len(subjects) > 1 and _repeated(data.subject, t):
         msg = ("several subjects sampled repeatedly in one series: add 'subject' to 'by' "
@@ -727,14 +821,14 @@ def _fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation
     if data.diet_status:
         return _all_failed(res, cands, data.diet_status, data.diet_reason)
     growth = None
-    if masses is not None:
+    if masses is not None and not seg:
         growth, why = growth_for_series(masses, data.subject, growth_curve)
         if growth is None:
             return _all_failed(res, cands, "failed", why)
     # does any sample follow the switch? (before "no change": that is why there is none)
     # (a single diet has no switch: every candidate says so as "model not valid")
     switch = float(diet.switch_times[0]) if diet is not None and diet.n_diets > 1 else 0.0
-    why = after_switch_reason(t, switch, time_unit)
+    why = after_switch_reason(t_formed, switch, time_unit)
     if why is not None:
         return _all_failed(res, cands, "too_few_points", why)
     # is there a change at all? (one point alone is too few points, said per candidate)
@@ -750,7 +844,8 @@ def _fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation
                               separation=separation, initial=initial, growth=growth,
                               per_diet_separation=per_diet and diet is not None,
                               scale=scale,
-                              isotope=data.isotope if scale == "atom_fraction" else None)
+                              isotope=data.isotope if scale == "atom_fraction" else None,
+                              **seg)
         try:
             n_free = _n_free(model, fixed)
         except SERIES_ERRORS as e:
@@ -772,7 +867,9 @@ def _fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation
                 warnings.simplefilter("ignore")
                 f = model.fit(t, y, sd, absolute_sigma=absolute_sigma and sd is not None,
                               fixed=fixed, loss=loss, time_unit=time_unit,
-                              label=f"{' / '.join(key)}: {label}", warn=False)
+                              label=f"{' / '.join(key)}: {label}", warn=False,
+                              **({"segment_start": data.segment_start,
+                                  "segment_end": data.segment_end} if seg else {}))
         except SERIES_ERRORS as e:
             res.fits[label] = None
             res.reasons[label] = f"fit failed: {e}"
@@ -786,6 +883,10 @@ def _fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation
             "n_rows": int(data.n_rows),
         })
         f.data_info.update({k: key_map.get(k) for k in _KEYS if k in key_map})
+        if seg:
+            f.data_info.update({"record": "segments", "sample_time": t.tolist(),
+                                "segment_start": data.segment_start.tolist(),
+                                "segment_end": data.segment_end.tolist()})
         res.fits[label] = f
         res.reasons[label] = ""
         ok_any = True

@@ -107,7 +107,11 @@ class FitRecord:
             ``derived``: the mean residence times named as in :meth:`table`
             (``mean_residence_time``, or with a growth model ``…_incorporation`` and
             ``…_catabolic``), in :attr:`time_unit`, ``None`` when infinite — for readers;
-            :func:`~isoturnover.load_fit` recomputes them.
+            :func:`~isoturnover.load_fit` recomputes them. A segment fit (``record``
+            ``"segments"`` in ``model``, with its growth rate, lag and origin) also writes
+            ``data.segments``: the segments' formation intervals (``formation_start``,
+            ``formation_end``) and, when the fit knows them, each point's ``sample_time``,
+            ``segment_start`` and ``segment_end``.
         """
         def fl(a):
             return None if a is None else [float(x) for x in np.asarray(a).ravel()]
@@ -117,6 +121,13 @@ class FitRecord:
 
         st = self.state
         sol, mb = st.solution, st.engine.mass_block
+        segments = None
+        if getattr(self.model, "record", "points") == "segments":
+            segments = {"formation_start": fl(self.kinetics.formation_start),
+                        "formation_end": fl(self.kinetics.formation_end)}
+            for key in ("sample_time", "segment_start", "segment_end"):
+                if self.data_info.get(key) is not None:
+                    segments[key] = fl(self.data_info[key])
         return {
             "format": "isoturnover-fit", "version": 1,
             "model": self.model.config(),
@@ -126,7 +137,8 @@ class FitRecord:
                      == "masses" else None,
                      "block_scale": None if self.block_scale is None else
                      list(self.block_scale),
-                     "fingerprint": self.data_fingerprint},
+                     "fingerprint": self.data_fingerprint,
+                     **({} if segments is None else {"segments": segments})},
             "options": {"absolute_sigma": self.absolute_sigma, "loss": self.loss,
                         "f_scale": self.f_scale, "fixed": self.fixed, "init": self.init,
                         "label": self.label, "tied": self.tied,

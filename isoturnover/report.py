@@ -620,7 +620,7 @@ def _study_table(series, half_lives):
 # ----------------------------------------------------------------------------------------
 def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="profile",
                  figures=True, overwrite=False, bootstrap=None, n_boot=499, seed=1,
-                 n_jobs=None):
+                 n_jobs=None, figure_jobs=None):
     """Write a Markdown and an HTML report of a set of fits, with PNG figures.
 
     Parameters
@@ -668,6 +668,13 @@ def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="p
         Worker processes drawing the figures (joblib, loky backend) and running bootstrap
         refits: None for up to two when there are eight figures or more, 1 for none, -1 for
         every core. The files written are the same whatever the number.
+    figure_jobs : FigureJobs, optional
+        Worker processes that may already be drawing figures of these fits
+        (:meth:`FigureJobs.draw_ahead <isoturnover.reportfigures.FigureJobs.draw_ahead>`,
+        e.g. while the rest of a study was fitted); they draw this report's figures, and
+        a figure drawn ahead is taken as it is. Used only at the same ``level``; the
+        report shuts them down when it is done (or fails). The files are the same as
+        without it.
 
     Returns
     -------
@@ -756,7 +763,15 @@ def write_report(fits, path, *, title="Turnover analysis", level=0.95, method="p
                 f"({', '.join(sorted(other)[:5])}); it will not be replaced")
 
     # -- figures of the series first: drawn by the workers while the text is built --------
-    jobs = FigureJobs(workers if n_figures else 1, level)
+    if figure_jobs is not None and not isinstance(figure_jobs, FigureJobs):
+        raise DataError("'figure_jobs' must be a FigureJobs (isoturnover.reportfigures) or "
+                        f"None; got {type(figure_jobs).__name__}")
+    if figure_jobs is not None and n_figures and figure_jobs.level == level:
+        jobs = figure_jobs
+    else:
+        if figure_jobs is not None:
+            figure_jobs.close()
+        jobs = FigureJobs(workers if n_figures else 1, level)
     try:
         return _write(series, fitset, jobs, title=title, level=level, method=method,
                       figures=figures and bool(fitted), overwrite=overwrite,
@@ -785,6 +800,19 @@ def _write(series, fitset, jobs, *, title, level, method, figures, overwrite, bo
                             "band (dashed lines: diet switches; squares: flagged points, kept "
                             "in the fit); (b) studentized residuals with ±2 and ±3 guides; "
                             "(c) reaction progress ln(1 − F) with the fitted curve."))
+            if getattr(s.fit.model, "record", "points") == "segments" and \
+                    s.fit.data_info.get("segment_start") is not None:
+                sname = f"{i:02d}_{slug(s.name)}_segments.png"
+                jobs.add(sname, "segments", s.fit)
+                entries.append((sname, f"Segment profile of {s.name}",
+                                f"{s.name}: δ along the tissue (distance in the length unit "
+                                "of the growth rate; top axis: formation time). Thick bars: "
+                                "measured segments over their length; thin black bars: fitted "
+                                "segment means (the model averaged over each segment's "
+                                "formation interval); dashed line: the precursor at the "
+                                "instant each place formed; dotted lines: tissue formed at a "
+                                "diet switch. In the overview above, each segment is a point "
+                                "at its formation midpoint."))
             g = getattr(s.fit.model, "growth", None)
             if g is not None and hasattr(g, "t") and hasattr(g, "mass"):
                 tf = s.fit if hasattr(s.fit, "growth_share_curve") else None

@@ -29,8 +29,9 @@ from .engine import LOSSES, Engine, FitState, Solution, Ties, prepare_data
 from .errors import DataError, FitError
 from .growthfit import load_growth
 from .growthlaws import check_curve_values, curve_law
-from .model import TurnoverModel
+from .model import RECORDS, TurnoverModel
 from .results import TurnoverFit
+from .segments import ORIGINS, SegmentKinetics, formation_intervals, growth_schedule
 
 __all__ = ["load_fit", "parse_json", "read_json", "MAX_DEPTH", "FORMAT_VERSION"]
 
@@ -41,10 +42,12 @@ MAX_DEPTH = 64
 #: The record format version this module reads (``version`` of ``TurnoverFit.to_dict``).
 FORMAT_VERSION = 1
 
+# Options of a segment fit (record="segments"), written only by such fits.
+_SEGMENT_KEYS = ("record", "growth_rate", "formation_lag", "origin", "tissue_length")
 # The model's options as TurnoverModel.config() writes them (the constructor's arguments).
-_MODEL_KEYS = tuple(TurnoverModel().config())
+_MODEL_KEYS = tuple(TurnoverModel().config()) + _SEGMENT_KEYS
 # Options that records written before they existed lack (the default is what those fits used).
-_MODEL_OPTIONAL = ("propagate_growth",)
+_MODEL_OPTIONAL = ("propagate_growth",) + _SEGMENT_KEYS
 
 # A JSON string (closed, or running to the end of a truncated text: the match never fails
 # once started, so the scan stays linear) and anything that is not a bracket.
@@ -412,12 +415,82 @@ def _check_model(c: _Checker, m: dict, path: str) -> TurnoverModel:
         cfg["growth"] = g["curve"] if isinstance(g, dict) else g
     if "diet" in m:
         cfg["diet"] = _check_diet(c, m["diet"], f"{path}.diet")
+    if "record" in m:
+        _check_segment_options(c, m, path)
     try:
         model = TurnoverModel(**cfg)
         model.kinetics  # noqa: B018 -- builds the kinetics, which checks the options
     except (DataError, FitError) as e:
         c.rebuilt(path, e)
     return model
+
+
+def _check_segment_options(c: _Checker, m: dict, path: str) -> None:
+    """The options of a segment fit: record, growth rate (a number or (time, rate) rows),
+    formation lag (≥ 0), origin, tissue length (numbers or null)."""
+    if c.text(m["record"], f"{path}.record", choices=RECORDS) != "segments":
+        return
+    for key in ("growth_rate", "formation_lag", "origin"):
+        c.require(m, key, path, "model")
+    gr = m["growth_rate"]
+    if isinstance(gr, (list, tuple)):
+        for i, row in enumerate(c.array(gr, f"{path}.growth_rate")):
+            c.numbers(row, f"{path}.growth_rate[{i}]", n=2)
+    else:
+        c.number(gr, f"{path}.growth_rate", positive=True)
+    try:
+        growth_schedule(gr, f"{path}.growth_rate")
+    except DataError as e:
+        c.rebuilt(f"{path}.growth_rate", e)
+    c.number(m["formation_lag"], f"{path}.formation_lag", minimum=0.0)
+    c.text(m["origin"], f"{path}.origin", choices=ORIGINS)
+    tl = m.get("tissue_length")
+    if isinstance(tl, (list, tuple)):
+        c.numbers(tl, f"{path}.tissue_length", positive=True)
+    else:
+        c.number(tl, f"{path}.tissue_length", none=True, positive=True)
+
+
+def _segment_kinetics(c: _Checker, model, dd: dict, data_t, path: str):
+    """The :class:`~isoturnover.segments.SegmentKinetics` of a segment fit, rebuilt from
+    ``data.segments`` (formation intervals; segment ends and sampling times when stored,
+    which must give the same intervals with the model's growth rate, lag and origin)."""
+    seg = c.mapping(c.require(dd, "segments", path, "data"), f"{path}.segments")
+    p = f"{path}.segments"
+    for key in ("formation_start", "formation_end"):
+        c.require(seg, key, p, "data.segments")
+    t1 = c.numbers(seg["formation_start"], f"{p}.formation_start", min_size=1)
+    t2 = c.numbers(seg["formation_end"], f"{p}.formation_end", n=t1.size,
+                   n_of=f"{p}.formation_start")
+    try:
+        kin = SegmentKinetics(model.kinetics, t1, t2)
+    except DataError as e:
+        c.rebuilt(p, e)
+    off = np.flatnonzero(~np.isin(data_t, kin.midpoints))
+    if off.size:
+        i = int(off[0])
+        c.fail(f"{path}.t[{i}]", f"{data_t[i]!r} is not the formation midpoint of a segment "
+                                 f"in {p}")
+    if all(seg.get(k) is not None for k in ("sample_time", "segment_start", "segment_end")):
+        a = c.numbers(seg["segment_start"], f"{p}.segment_start", min_size=1)
+        b = c.numbers(seg["segment_end"], f"{p}.segment_end", n=a.size,
+                      n_of=f"{p}.segment_start")
+        ts = c.numbers(seg["sample_time"], f"{p}.sample_time", n=a.size,
+                       n_of=f"{p}.segment_start")
+        try:
+            u1, u2 = formation_intervals(a, b, ts, model.growth_rate,
+                                         formation_lag=model.formation_lag,
+                                         origin=model.origin,
+                                         tissue_length=model.tissue_length)
+        except DataError as e:
+            c.rebuilt(p, e)
+        mid = (u1 + u2) / 2.0
+        # the stored points are the segments' formation midpoints, time-ordered
+        if mid.size != data_t.size or not np.allclose(np.sort(mid), np.sort(data_t),
+                                                      rtol=1e-12, atol=1e-9):
+            c.fail(p, "the segment ends, sampling times, growth rate, lag and origin do not "
+                      f"give the fitted formation midpoints {path}.t: edited after saving?")
+    return kin
 
 
 def _check_options(c: _Checker, o: dict, path: str, names: tuple) -> dict:
@@ -603,6 +676,8 @@ def load_fit(d, *, name: str = "d", source=None) -> TurnoverFit:
     opt = d["options"]
     extra = _check_options(c, opt, f"{name}.options", names)
     dd = _check_data(c, d["data"], f"{name}.data")
+    if getattr(model, "record", "points") == "segments":
+        kin = _segment_kinetics(c, model, d["data"], dd["data"]["t"], f"{name}.data")
     z, theta, jac = _check_solution(c, d["solution"], f"{name}.solution", names)
     _check_derived(c, d.get("derived"), f"{name}.derived")
     tied = extra["tied"]

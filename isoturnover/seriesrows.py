@@ -62,6 +62,12 @@ class SeriesData:
         Status code and reason when a diets table gives it no history ("" otherwise).
     per_diet : bool
         Whether one separation per diet value adds parameters to its model.
+    segment_start, segment_end : ndarray or None
+        Distances of each point's segment ends from the origin (a segment series: samples
+        of a growing inert tissue, hair or whisker); None for a series of whole samples.
+    growth_rate : float or None
+        The tissue's growth rate from a ``growth_rate`` column of the samples (one value
+        per series), else None.
     """
 
     t: np.ndarray = None
@@ -77,6 +83,14 @@ class SeriesData:
     diet_status: str = ""
     diet_reason: str = ""
     per_diet: bool = False
+    segment_start: np.ndarray | None = None
+    segment_end: np.ndarray | None = None
+    growth_rate: float | None = None
+
+    @property
+    def is_segments(self) -> bool:
+        """Whether the series is a segment profile (its points carry segment ends)."""
+        return self.segment_start is not None
 
 
 #: Name of the helper column that carries a row's series number through the averaging.
@@ -159,21 +173,47 @@ def series_data(s, by, groups, average):
 
 def _point_columns(avg):
     """time, value, sd (or None) and subject (as text) of an averaged table, as arrays."""
-    return {"time": avg["time"].to_numpy(dtype=float),
+    cols = {"time": avg["time"].to_numpy(dtype=float),
             "value": avg["value"].to_numpy(dtype=float),
             "sd": avg["sd"].to_numpy(dtype=float) if "sd" in avg.columns else None,
             "subject": avg["subject"].astype(str).to_numpy()}
+    for c in ("segment_start", "segment_end", "growth_rate"):
+        if c in avg.columns:
+            cols[c] = pd.to_numeric(avg[c], errors="coerce").to_numpy(dtype=float)
+    return cols
 
 
 def _set_points(d, cols):
     """Put one series' averaged points (``cols``, in the averaging's order) on ``d`` in
-    time order (a stable sort: points of equal time keep the averaging's order)."""
-    order = np.argsort(cols["time"], kind="stable")
+    time order (a stable sort: points of equal time keep the averaging's order; segments of
+    one sample by their start). Segment ends on every point make a segment series; on some
+    points only, the series fails with its reason (as does more than one growth rate)."""
+    a = cols.get("segment_start")
+    has_seg = a is not None and np.isfinite(a).any()
+    order = (np.lexsort((a, cols["time"])) if has_seg
+             else np.argsort(cols["time"], kind="stable"))
     d.t = cols["time"][order]
     d.y = cols["value"][order]
     sd = cols["sd"]
     d.sd = sd[order] if sd is not None and not np.isnan(sd[order]).any() else None
     d.subject = cols["subject"][order]
+    if has_seg:
+        a, b = a[order], cols["segment_end"][order]
+        if not (np.isfinite(a).all() and np.isfinite(b).all()):
+            d.error = ("series failed: some samples carry segment_start/segment_end and "
+                       "others do not; a series is either a segment profile or whole samples "
+                       "(split it by tissue)")
+            return
+        d.segment_start, d.segment_end = a, b
+    g = cols.get("growth_rate")
+    if g is not None and np.isfinite(g).any():
+        vals = np.unique(g[np.isfinite(g)])
+        if vals.size > 1 or not np.isfinite(g).all():
+            d.error = (f"series failed: column 'growth_rate' must hold one value per series; "
+                       f"got {', '.join(f'{v:g}' for v in vals[:5])}"
+                       + (" and empty cells" if not np.isfinite(g).all() else ""))
+            return
+        d.growth_rate = float(vals[0])
 
 
 def candidate_row(f, level, method) -> dict:
@@ -242,7 +282,7 @@ def _interval_columns(f, level, method) -> dict:
             row[f"{nm}_{side}"] = np.nan if ci is None else ci[nm][side]
             row[f"{nm}_{side}_status"] = "failed" if ci is None else ci[nm][f"{side}_status"]
     try:
-        hl = table_records(f.cached_frame("half_lives", level, method))
+        hl = table_records(f.cached_frame("half_lives", level, method, copy=False))
     except SERIES_ERRORS as e:
         notes.append(f"half-life intervals failed: {e}")
         hl = None
@@ -267,7 +307,8 @@ def _interval_columns(f, level, method) -> dict:
             row[f"lower_status_{i}"] = row[f"upper_status_{i}"] = "failed"
         row["interval_method"] = method
     try:
-        tt = table_records(f.cached_frame("time_to", 0.95, level, method))[0]
+        tt = table_records(f.cached_frame("time_to", 0.95, level, method,
+                                                copy=False))[0]
     except SERIES_ERRORS as e:
         notes.append(f"time to 95 % failed: {e}")
         tt = None

@@ -81,6 +81,8 @@ FILES = (
     "truth.csv",
     "field_samples.csv",
     "field_truth.csv",
+    "goat_hair.csv",
+    "goat_hair_truth.csv",
 )
 
 LN2 = math.log(2.0)
@@ -153,6 +155,22 @@ REPLICATE_FRACTION = 0.10
 # of the captive goats are their turnover rates.
 FIELD_TIMES = (0.1, 1.5, 4.0, 8.0, 12.0, 20.0, 30.0, 45.0, 60.0, 90.0, 130.0, 300.0)
 FIELD_SD = math.sqrt(0.10 ** 2 + BIO_SD ** 2 + OFFSET_SD ** 2)  # ‰: analytic, sample, animal
+
+# Hair scenario (segment profiles): tail hair of four of the captive goats, cut at the skin on
+# the last sampling day and cut into segments of equal length from the base (the skin end).
+# The hair's growth rate and its precursor's kinetics are invented: 0.4 mm/d for every goat (of
+# the order of the 0.3–0.5 mm/d of tail hair), no formation lag, one pool with a 15-day
+# half-life (no growth dilution: hair keratin is laid down from the precursor, not diluted by
+# body growth) and a keratin–diet separation of +3.0 ‰ δ13C.
+HAIR_GOATS = ("G01", "G02", "G05", "G06")
+HAIR_GROWTH = 0.4  # mm per day, invented
+HAIR_LAG = 0.0  # days from formation to emergence at the skin
+HAIR_SAMPLE_DAY = 180.0
+HAIR_SEGMENT = 4.0  # mm
+HAIR_LENGTH = 96.0  # mm: 24 segments, formed from day -60 to day 180
+HAIR_HALF_LIFE = 15.0  # days (population median)
+HAIR_DISCRIMINATION = 3.0  # ‰
+HAIR_SD = 0.10  # ‰, analytic
 
 _MARK = "<!-- make_demo:{name}:{end} -->"
 _BLOCKS = ("truth", "goats", "files", "missing")
@@ -512,6 +530,56 @@ def _field():
     return samples, truth
 
 
+def _hair():
+    """Tail-hair segment profiles (δ13C) of :data:`HAIR_GOATS` and their truth.
+
+    Each goat's rate is drawn about :data:`HAIR_HALF_LIFE` (``RATE_CV``) and its separation
+    offset (``OFFSET_SD``); each segment's value is the exact mean of the goat's one-pool
+    response over the segment's formation interval (constant growth :data:`HAIR_GROWTH`,
+    distances from the base), plus a scatter (``BIO_SD``) and the analytic error
+    (:data:`HAIR_SD`). Every segment is analysed once; none is missing.
+    """
+    from isoturnover.segments import formation_intervals, segment_means
+
+    rng = _rng(9)
+    iso = "d13C"
+    hay, maize = GOAT_DIETS["hay"][iso], GOAT_DIETS["maize"][iso]
+    pen_of = {g: pen for pen, ids in PENS.items() for g in ids}
+    starts = np.arange(0.0, HAIR_LENGTH, HAIR_SEGMENT)
+    ends = starts + HAIR_SEGMENT
+    t1, t2 = formation_intervals(starts, ends, HAIR_SAMPLE_DAY, HAIR_GROWTH,
+                                 formation_lag=HAIR_LAG, origin="base")
+    k_pop = LN2 / HAIR_HALF_LIFE
+    s_rate = _lognormal_sd(RATE_CV)
+    samples, truth = [], []
+    common = dict(tissue="hair", isotope=iso, time_unit="d", length_unit="mm",
+                  growth_rate=HAIR_GROWTH, formation_lag=HAIR_LAG, origin="base",
+                  sample_time=HAIR_SAMPLE_DAY, pools=1, pool=1, fraction=1.0)
+    for goat in HAIR_GOATS:
+        pen = pen_of[goat]
+        k = k_pop * math.exp(rng.normal(0, s_rate))
+        d = HAIR_DISCRIMINATION + rng.normal(0, OFFSET_SD)
+        kin = TurnoverKinetics(1, diet=_goat_diet(pen, iso))
+        y = segment_means(kin, _theta(kin, {"discrimination": d, "k1": k, "f1": 1.0}), t1, t2)
+        value = y + rng.normal(0, BIO_SD, y.size) + rng.normal(0, HAIR_SD, y.size)
+        samples += [(goat, pen, a, b, v) for a, b, v in zip(starts, ends, value)]
+        truth.append(dict(common, level="animal", subject=goat, group=pen, rate=k,
+                          half_life=LN2 / k, discrimination=d, plateau_old=hay + d,
+                          plateau_new=maize + d))
+    truth.append(dict(common, level="population", subject="population", group="A;B",
+                      rate=k_pop, half_life=HAIR_HALF_LIFE, discrimination=HAIR_DISCRIMINATION,
+                      plateau_old=hay + HAIR_DISCRIMINATION,
+                      plateau_new=maize + HAIR_DISCRIMINATION))
+    return samples, truth
+
+
+HAIR_TRUTH_COLUMNS = (
+    "level", "subject", "group", "tissue", "isotope", "time_unit", "length_unit",
+    "growth_rate", "formation_lag", "origin", "sample_time", "pools", "pool", "fraction",
+    "rate", "half_life", "discrimination", "plateau_old", "plateau_new",
+)
+
+
 # ---------------------------------------------------------------------------------------
 # Formatting (explicit, so the files are byte-for-byte reproducible)
 # ---------------------------------------------------------------------------------------
@@ -559,7 +627,7 @@ def build_demo() -> dict:
     dict
         ``"files"``: file name → CSV text (UTF-8, ``\\n`` line ends); ``"missing"``: file
         name → list of (subject, group, tissue, isotope, time) of the missing samples;
-        ``"truth"``: the truth rows as dicts.
+        ``"truth"``: the truth rows as dicts; ``"hair_truth"``: the hair truth rows.
     """
     g = _goats()
     f = _fish()
@@ -590,11 +658,20 @@ def build_demo() -> dict:
         [(s, ti, iso, _time(t), "d", f"{k:.6g}", f"{h:.6g}", _num(o, 3), _num(n, 3),
           _num(v, 3), _num(po, 2), _num(pn, 2))
          for s, ti, iso, t, k, h, o, n, v, po, pn in ft])
+    hs, ht = _hair()
+    files["goat_hair.csv"] = _csv(
+        ("subject", "group", "tissue", "isotope", "time", "segment_start", "segment_end",
+         "value", "sd"),
+        [(s, g, "hair", "d13C", _time(HAIR_SAMPLE_DAY), _time(a), _time(b), _num(v, 2),
+          _num(HAIR_SD, 2)) for s, g, a, b, v in hs])
+    files["goat_hair_truth.csv"] = _csv(
+        HAIR_TRUTH_COLUMNS,
+        [tuple(_truth_value(c, r[c]) for c in HAIR_TRUTH_COLUMNS) for r in ht])
     assert tuple(files) == FILES
     missing = {"goat_samples.csv": sorted(g["missing"]),
                "goat_breath.csv": sorted(g["breath_missing"]),
                "fish_samples.csv": sorted(f["missing"])}
-    return {"files": files, "missing": missing, "truth": truth}
+    return {"files": files, "missing": missing, "truth": truth, "hair_truth": ht}
 
 
 # ---------------------------------------------------------------------------------------
