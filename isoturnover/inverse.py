@@ -90,10 +90,32 @@ of :math:`W_\sigma A` exceeds :data:`ILL_POSED_CONDITION` (or there are fewer sa
 unknowns) the result is ``ill_posed``, its values NaN, with a warning naming the condition
 number: the noise would be amplified up to that factor.
 
-**Bands.** ``n_boot`` replicate data sets (residual bootstrap of the weighted residuals,
-rescaled by :math:`\sqrt{n/(n - \mathrm{df})}`, or parametric: Gaussian with the given sd
-or the estimated residual sd) are generated from the fitted tissue curve and solved again at
-the same strength; with ``kinetics_uncertainty`` each replicate also uses its own draw of
+**Bands.** ``n_boot`` replicate data sets are generated from the fitted tissue curve and
+solved again at the same strength. Their noise is **parametric** (Gaussian) from the data's
+sd when the data carry one (an ``sd`` column, ``sigma=``, or ``analytic_sd=``, the
+instrument's analytical sd of every value): ``resample="auto"``, the default. The sd is a
+floor: when the residuals have at least :data:`MIN_RESIDUAL_DF` degrees of freedom
+:math:`\nu` (below) and scatter more than it (:math:`s^2 = \mathrm{RSS}_w/\nu > 1` in the
+weighted scale, e.g. an sd column holding only the analytic error while segments also differ
+by the animal's own variation) the noise is widened by :math:`s`, never narrowed. Otherwise it is
+taken from the residuals, which a weakly regularised fit leaves nearly zero (with as many
+unknowns as samples GCV may choose almost no smoothing), so they are first made honest: the
+**modified residuals** :math:`e_i/\sqrt{1 - 2h_{ii} + (HH^T)_{ii}}`, centred, :math:`H` the
+influence matrix (Tikhonov: :math:`A(A^TA + \lambda D^TD)^{-1}A^T`, that of the unbounded
+problem when bounds are active; total variation of first differences: the projection on the
+free pieces; otherwise every :math:`h_{ii} = \mathrm{df}/n`, i.e. the residuals times
+:math:`\sqrt{n/(n - \mathrm{df})}`), which have the errors' variance: the leverage
+correction of Davison & Hinkley (1997, *Bootstrap Methods and their Application*, §6.2),
+:math:`e_i/\sqrt{1 - h_{ii}}`, for a smoother that is not a projection
+(:func:`isoturnover.dietsolvers.modified_residuals`). Residuals the fit follows almost
+exactly (:math:`1 - 2h_{ii} + (HH^T)_{ii} < 0.01`) are left out of the pool. When the
+residual degrees of freedom :math:`\nu = n - 2\,\mathrm{tr}\,H + \mathrm{tr}(HH^T)` are
+below :data:`MIN_RESIDUAL_DF` the scatter of the data cannot be estimated and **no band is
+given**: ``band_status="too_few_residual_df"``, the band NaN, an
+:class:`~isoturnover.errors.IdentifiabilityWarning` (give the sd, a coarser grid or a larger
+strength). ``resample="parametric"`` without an sd uses :math:`\sqrt{\mathrm{RSS}/\nu}`
+under the same rule; ``resample="residual"`` forces the modified residuals. With
+``kinetics_uncertainty`` each replicate also uses its own draw of
 the kinetics (a fit's parameter covariance, multivariate normal with invalid draws redrawn;
 the replicates of a ``BootstrapResult``; or independent log-normal rates and a normal
 separation from given standard errors). The band is the percentile interval of the
@@ -118,22 +140,41 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import linalg, optimize
-from scipy.special import exprel
 
 from .conventions import check_choice, check_level, check_positive_int, unit_word
+from .dietoperator import (
+    as_number,
+    as_vector,
+    diet_operator,
+    read_edges,
+    read_kinetics,
+    read_windows,
+    window_operator,
+)
+from .dietprofile import GEOMETRY_ARGUMENTS, SegmentGeometry, is_profile, profile_data
+from .dietsolvers import (
+    ADMM_MAX_ITER,
+    ADMM_TOL,
+    SWITCH_SHARE,
+    differences,
+    modified_residuals,
+    pieces_influence,
+    switch_times,
+    tikhonov_batch,
+    tikhonov_gcv,
+    tikhonov_influence,
+    tv_admm,
+    tv_df,
+    tv_lambda_max,
+)
 from .errors import ConvergenceWarning, DataError, IdentifiabilityWarning
 from .inputs import prepare_data
-from .kinetics import TurnoverKinetics
-from .resampling import BootstrapResult
-from .responses import remaining_chain
-from .results import TurnoverFit
-from .segments import ORIGINS, formation_intervals, growth_schedule, segment_arrays
 
 __all__ = ["reconstruct_diet", "DietReconstruction", "SegmentGeometry", "diet_operator",
            "tikhonov_gcv",
            "switch_times", "PENALTIES", "RECONSTRUCTION_STATUSES", "ILL_POSED_CONDITION",
-           "SWITCH_SHARE", "ADMM_TOL", "ADMM_MAX_ITER"]
+           "SWITCH_SHARE", "ADMM_TOL", "ADMM_MAX_ITER", "BAND_STATUSES", "MIN_RESIDUAL_DF",
+           "RESAMPLE"]
 
 #: Regularisation penalties.
 PENALTIES = ("smooth", "total_variation")
@@ -141,597 +182,25 @@ PENALTIES = ("smooth", "total_variation")
 #: number above :data:`ILL_POSED_CONDITION`: values NaN); ``not_converged`` (ADMM stopped at
 #: :data:`ADMM_MAX_ITER` for the estimate).
 RECONSTRUCTION_STATUSES = ("ok", "ill_posed", "not_converged")
+#: Status of a reconstruction's band: ``ok``; ``none`` (no replicates asked for, or no
+#: estimate); ``too_few_residual_df`` (the data carry no sd and the residuals have fewer than
+#: :data:`MIN_RESIDUAL_DF` degrees of freedom: their scatter, hence the band, is unknown).
+BAND_STATUSES = ("ok", "none", "too_few_residual_df")
+#: Fewest residual degrees of freedom from which the band's noise is taken from residuals.
+MIN_RESIDUAL_DF = 5.0
+#: How the band's replicate data are made: ``auto`` (parametric from the data's sd when
+#: they carry one, else the residuals), ``residual``, ``parametric``.
+RESAMPLE = ("auto", "residual", "parametric")
 #: Condition number of the weighted operator above which an unregularised solve is refused.
 ILL_POSED_CONDITION = 10.0
-#: A switch is a change larger than this share of the largest change.
-SWITCH_SHARE = 0.5
-#: (absolute, relative) tolerances of the ADMM residuals (Boyd et al. 2011 §3.3.1).
-ADMM_TOL = (1e-7, 1e-6)
-#: Most ADMM iterations.
-ADMM_MAX_ITER = 20000
-_POOL_SHARE = 0.1
 _N_TV_GRID = 30
-
-
-# --------------------------------------------------------------------------- kinetics
-
-@dataclass(frozen=True)
-class _Kinetics:
-    """Point kinetics and a way to draw from their uncertainty (arrays over draws)."""
-
-    chain: bool
-    rates: np.ndarray          # (P,)
-    fractions: np.ndarray      # (P,)
-    lag: float
-    separation: float
-    epsilon: bool
-    time_unit: str | None
-    source: str
-    draws: object = None       # callable(rng, n) -> (rates, fractions, lag, separation)
-
-    def arrays(self):
-        return (self.rates[None], self.fractions[None], np.array([self.lag]),
-                np.array([self.separation]))
-
-    def affine(self, separation):
-        """(c, m) of the separation: y = c + m (A x)."""
-        sep = np.asarray(separation, dtype=float)
-        if self.epsilon:
-            return sep, 1.0 + sep / 1000.0
-        return sep, np.ones_like(sep)
-
-
-def _valid(rates, fractions, lag):
-    ok = np.all(rates > 0, axis=1) & np.all(np.isfinite(rates), axis=1)
-    ok &= np.all((fractions >= -1e-12) & (fractions <= 1 + 1e-12), axis=1)
-    return ok & (lag >= 0)
-
-
-def _from_fit(fit, separation, boot=None):
-    kin = fit.kinetics
-    if not isinstance(kin, TurnoverKinetics):
-        raise DataError("'kinetics': the fit carries no kinetics")
-    if kin.growth_kind in ("curve", "curve_params"):
-        raise DataError("'kinetics': a fit with a growth curve is not supported (the dilution "
-                        "W(s)/W(t) is not a function of t - s); use exponential growth or none")
-    if kin.scale != "delta":
-        raise DataError("'kinetics': a fit on the atom-fraction scale is not linear in the diet "
-                        "δ; reconstruct from a fit with scale='delta'")
-    theta = np.array(fit.state.theta, dtype=float)
-    names = kin.separation_names
-    notes = []
-    if separation is None:
-        if len(names) == 1:
-            sep_index = kin.param_names.index(names[0])
-        elif not names:
-            sep_index = None
-            notes.append("the fit has no separation parameter (its diets were not given): "
-                         "the history is of the tissue-equivalent diet (diet + separation); "
-                         "give separation= to correct it")
-        else:
-            raise DataError(f"'kinetics': the fit has {len(names)} separations "
-                            f"({', '.join(names)}); give separation= (one value, ‰)")
-    else:
-        sep_index = None
-    sep0 = theta[sep_index] if sep_index is not None else (
-        0.0 if separation is None else separation)
-    ri, fi = list(kin.rate_index), list(kin.fraction_index)
-    li, gi = kin.lag_index, kin.growth_rate_index
-
-    def pieces(th):
-        th = np.atleast_2d(th)
-        k = th[:, ri]
-        if gi is not None:
-            k = k + th[:, [gi]]
-        f = th[:, fi] if fi else np.zeros_like(k)
-        lag = th[:, li] if li is not None else np.zeros(th.shape[0])
-        sep = th[:, sep_index] if sep_index is not None else np.full(th.shape[0], sep0)
-        return k, f, lag, sep
-
-    k0, f0, lag0, _ = pieces(theta)
-    chain = kin.structure == "chain"
-    cov = np.array(fit.covar, dtype=float)
-    cov[~np.isfinite(cov)] = 0.0
-    draws = None
-    if boot is not None:
-        rows = boot.usable
-        cols = [c for c in kin.param_names]
-        if rows.empty or any(c not in rows.columns for c in cols):
-            raise DataError("'kinetics': the bootstrap holds no usable replicates of the "
-                            "fit's parameters")
-        th_all = rows[cols].to_numpy(dtype=float)
-
-        def draws(rng, n):
-            k, f, lag, sep = pieces(th_all[rng.integers(0, th_all.shape[0], n)])
-            return k, _norm(f, chain), np.maximum(lag, 0.0), sep
-        source = "the fit's bootstrap replicates"
-    elif np.any(np.diag(cov) > 0):
-        def draws(rng, n):
-            return _mvn_draws(rng, n, theta, cov, pieces, chain)
-        source = "the fit's parameter covariance"
-    else:
-        source = "the fit (no covariance)"
-    return _Kinetics(chain, k0[0], f0[0] if not chain else np.zeros(2), float(lag0[0]),
-                     float(sep0), kin.separation == "epsilon", fit.time_unit, source,
-                     draws), notes
-
-
-def _norm(f, chain):
-    if chain:
-        return f
-    f = np.clip(f, 0.0, None)
-    return f / f.sum(axis=1, keepdims=True)
-
-
-def _mvn_draws(rng, n, theta, cov, pieces, chain):
-    """Multivariate-normal draws of θ, invalid ones (rate ≤ 0, fraction outside [0, 1],
-    negative lag) redrawn up to 50 rounds."""
-    out = None
-    need = n
-    for _ in range(50):
-        th = rng.multivariate_normal(theta, cov, size=max(2 * need, 8), method="eigh")
-        k, f, lag, sep = pieces(th)
-        ok = _valid(k, f if not chain else np.full_like(k, 0.5), lag)
-        got = [a[ok][:need] for a in (k, f, lag, sep)]
-        out = got if out is None else [np.concatenate([a, b]) for a, b in zip(out, got)]
-        need = n - out[0].shape[0]
-        if need <= 0:
-            break
-    if need > 0:
-        raise DataError("'kinetics': the covariance puts almost no mass on valid rates and "
-                        "fractions; the kinetics are too uncertain to draw from")
-    k, f, lag, sep = out
-    return k, _norm(f, chain), lag, sep
-
-
-def _from_dict(spec, separation):
-    known = {"rates", "fractions", "structure", "separation", "form", "lag", "stderr",
-             "separation_stderr", "time_unit"}
-    extra = sorted(set(spec) - known)
-    if extra:
-        raise DataError(f"'kinetics' has unknown key(s) {', '.join(extra)}; allowed: "
-                        f"{', '.join(sorted(known))}")
-    if "rates" not in spec:
-        raise DataError("'kinetics' needs 'rates' (per time unit)")
-    structure = check_choice("kinetics['structure']", spec.get("structure", "parallel"),
-                             ("parallel", "chain"))
-    form = check_choice("kinetics['form']", spec.get("form", "difference"),
-                        ("difference", "epsilon"))
-    k = _vector("kinetics['rates']", spec["rates"])
-    if not np.all(k > 0):
-        raise DataError(f"'kinetics['rates']' must be > 0; got {spec['rates']!r}")
-    chain = structure == "chain"
-    if chain and k.size != 2:
-        raise DataError(f"'kinetics': the chain has 2 rates; got {k.size}")
-    if chain and spec.get("fractions") is not None:
-        raise DataError("'kinetics': 'fractions' does not apply to the chain")
-    f = np.zeros(2)
-    if not chain:
-        fr = spec.get("fractions", [1.0] if k.size == 1 else None)
-        if fr is None:
-            raise DataError(f"'kinetics' needs 'fractions' with {k.size} pools")
-        f = _vector("kinetics['fractions']", fr)
-        if f.shape != k.shape or np.any(f < 0) or abs(f.sum() - 1) > 1e-6:
-            raise DataError(f"'kinetics['fractions']' must give one fraction >= 0 per rate, "
-                            f"summing to 1; got {fr!r}")
-    lag = _number("kinetics['lag']", spec.get("lag", 0.0))
-    if lag < 0:
-        raise DataError(f"'kinetics['lag']' must be >= 0; got {lag!r}")
-    sep = _number("kinetics['separation']", spec.get("separation", 0.0))
-    if separation is not None:
-        sep = separation
-    se = None
-    if spec.get("stderr") is not None:
-        se = _vector("kinetics['stderr']", spec["stderr"])
-        if se.shape != k.shape or np.any(se < 0):
-            raise DataError(f"'kinetics['stderr']' must give one standard error >= 0 per rate; "
-                            f"got {spec['stderr']!r}")
-    sep_se = _number("kinetics['separation_stderr']", spec.get("separation_stderr", 0.0))
-    if sep_se < 0:
-        raise DataError(f"'kinetics['separation_stderr']' must be >= 0; got {sep_se!r}")
-    draws = None
-    source = "given rates"
-    if (se is not None and np.any(se > 0)) or sep_se > 0:
-        sd_log = (se if se is not None else np.zeros_like(k)) / k
-
-        def draws(rng, n):
-            kk = k * np.exp(sd_log * rng.standard_normal((n, k.size)))
-            ss = sep + sep_se * rng.standard_normal(n)
-            return kk, np.broadcast_to(f, (n, f.size)).copy(), np.full(n, lag), ss
-        source = "given rates with standard errors (log-normal rates)"
-    return _Kinetics(chain, k, f, lag, sep, form == "epsilon", spec.get("time_unit"), source,
-                     draws), []
-
-
-def _kinetics(kinetics, separation):
-    if separation is not None:
-        separation = _number("'separation'", separation)
-    if isinstance(kinetics, BootstrapResult):
-        if not isinstance(kinetics.fit, TurnoverFit):
-            raise DataError("'kinetics': the bootstrap carries no fit")
-        return _from_fit(kinetics.fit, separation, boot=kinetics)
-    if isinstance(kinetics, TurnoverFit):
-        return _from_fit(kinetics, separation)
-    if isinstance(kinetics, dict):
-        return _from_dict(kinetics, separation)
-    raise DataError("'kinetics' must be a TurnoverFit, a BootstrapResult of one, or a dict "
-                    f"with 'rates' (and 'fractions'); got {type(kinetics).__name__}")
-
-
-def _number(what, v):
-    try:
-        x = float(v)
-    except (TypeError, ValueError):
-        raise DataError(f"{what} must be a number; got {v!r:.80}") from None
-    if not math.isfinite(x):
-        raise DataError(f"{what} must be finite; got {v!r:.80}")
-    return x
-
-
-def _vector(what, v):
-    try:
-        a = np.atleast_1d(np.asarray(v, dtype=float))
-    except (TypeError, ValueError):
-        raise DataError(f"'{what}' must be numbers; got {v!r:.80}") from None
-    if a.ndim != 1 or a.size == 0 or not np.all(np.isfinite(a)):
-        raise DataError(f"'{what}' must be a non-empty list of finite numbers; got {v!r:.80}")
-    return a
-
-
-# --------------------------------------------------------------------------- operator
-
-def _remaining(tau, rates, fractions, chain):
-    """W(τ) for draws: tau (B, n, E), rates (B, P) -> (B, n, E); 1 for τ ≤ 0."""
-    tp = np.maximum(tau, 0.0)
-    if chain:
-        return np.stack([remaining_chain(tp[b], rates[b, 0], rates[b, 1])
-                         for b in range(rates.shape[0])])
-    E = np.exp(-rates[:, :, None, None] * tp[:, None])          # (B, P, n, E)
-    return np.sum(fractions[:, :, None, None] * E, axis=1)
-
-
-def _cumulative(tau, rates, fractions, chain=False):
-    """C(τ) = ∫_0^τ W: τ for τ ≤ 0; Σ f_i (1 − e^{−k_i τ})/k_i above (parallel pools), or
-    the chain's (1/a + 1/b)(1 − e^{−bτ}) − (b/a) τ e^{−bτ} ψ((a − b)τ), a ≥ b its rates
-    (module docstring)."""
-    tp = np.maximum(tau, 0.0)
-    if chain:
-        a = np.max(rates, axis=1)[:, None, None]
-        b = np.min(rates, axis=1)[:, None, None]
-        pos = ((1.0 / a + 1.0 / b) * -np.expm1(-b * tp)
-               - (b / a) * tp * np.exp(-b * tp) * exprel(-(a - b) * tp))
-        return np.where(tau > 0, pos, tau)
-    k = rates[:, :, None, None]
-    pos = np.einsum("bp,bpne->bne", fractions, -np.expm1(-k * tp[:, None]) / k)
-    return np.where(tau > 0, pos, tau)
-
-
-def _operator(starts, ends, edges, rates, fractions, lag, chain):
-    """A of shape (B, n, J + 1): columns the diet before edges[0], then each interval."""
-    lag = np.asarray(lag, dtype=float)
-    width = ends - starts
-    point = width <= 1e-12 * max(1.0, float(np.max(np.abs(edges))))
-    tau_end = ends[None, :, None] - edges[None, None, :] - lag[:, None, None]
-    W = _remaining(tau_end, rates, fractions, chain)
-    if not np.all(point):
-        tau_start = starts[None, :, None] - edges[None, None, :] - lag[:, None, None]
-        wd = np.where(point, 1.0, width)[None, :, None]
-        avg = (_cumulative(tau_end, rates, fractions, chain)
-               - _cumulative(tau_start, rates, fractions, chain)) / wd
-        W = np.where(point[None, :, None], W, avg)
-    return np.concatenate([W[:, :, :1], np.diff(W, axis=2)], axis=2)
-
-
-def diet_operator(windows, edges, rates, fractions=None, *, structure="parallel", lag=0.0):
-    r"""The linear map from a piecewise-constant diet to the tissue's values.
-
-    Row :math:`i` holds the weights of the diet before ``edges[0]`` and of each grid
-    interval in observation :math:`i` (module docstring): :math:`W(t - e_0)` and
-    :math:`W(t - e_{j+1}) - W(t - e_j)` for a point sample, the exact time average over the
-    window :math:`[a, b]` for a window of positive width (parallel pools and the chain).
-    Rows sum to 1, so the tissue value is :math:`c + m A x` with the separation's ``c`` and
-    ``m``.
-
-    Parameters
-    ----------
-    windows : array-like of shape (n,) or tuple of two such arrays
-        Sampling times (point samples), or ``(start, end)`` of each observation window
-        (formation interval of a segment; ``start == end`` for a point), in the kinetics'
-        time unit.
-    edges : array-like of shape (J + 1,)
-        Grid edges, strictly increasing; every window must end at or before ``edges[-1]``.
-    rates : array-like of shape (P,)
-        Incorporation rates :math:`k_i` (per time unit), > 0.
-    fractions : array-like of shape (P,), optional
-        Pool fractions (sum 1); default one pool. Not used for the chain.
-    structure : {"parallel", "chain"}
-    lag : float, default=0.0
-        Delay between a diet change and the tissue's response (time unit), >= 0.
-
-    Returns
-    -------
-    ndarray of shape (n, J + 1)
-        Dimensionless weights; column 0 the diet before the grid.
-
-    Raises
-    ------
-    DataError
-        For bad windows, edges, rates or fractions, or windows ending after the grid.
-    """
-    structure = check_choice("structure", structure, ("parallel", "chain"))
-    spec = {"rates": rates, "structure": structure, "lag": lag}
-    if fractions is not None:
-        spec["fractions"] = fractions
-    kin, _ = _from_dict(spec, None)
-    starts, ends = _windows(windows)
-    e = _edges(edges, ends)
-    return _operator(starts, ends, e, *kin.arrays()[:3], kin.chain)[0]
-
-
-def _windows(windows):
-    if isinstance(windows, tuple) and len(windows) == 2:
-        a = _vector("windows[0]", windows[0])
-        b = _vector("windows[1]", windows[1])
-        if a.shape != b.shape:
-            raise DataError(f"'windows': start and end must have one value per sample; got "
-                            f"{a.size} and {b.size}")
-        if np.any(b < a):
-            raise DataError("'windows': every window must end at or after its start")
-        return a, b
-    t = _vector("windows", windows)
-    return t, t.copy()
-
-
-def _edges(grid, ends):
-    e = _vector("grid", grid)
-    if e.size < 2 or np.any(np.diff(e) <= 0):
-        raise DataError(f"'grid' must be at least 2 strictly increasing edges (or a number of "
-                        f"intervals); got {e.size} edge(s)")
-    if np.max(ends) > e[-1] + 1e-9 * max(1.0, abs(e[-1])):
-        raise DataError(f"'grid' must reach the last sample: its last edge {e[-1]:g} is "
-                        f"before the sample at {np.max(ends):g}")
-    return e
-
-
-# --------------------------------------------------------------------------- solvers
-
-def _differences(p, order):
-    return np.diff(np.eye(p), n=order, axis=0)
-
-
-def tikhonov_gcv(A, b, D, strengths=None):
-    r"""Generalised cross-validation of Tikhonov regularisation over many strengths.
-
-    :math:`G(\lambda) = n\,\lVert b - A x_\lambda\rVert^2 / (n - \mathrm{tr}\,H_\lambda)^2`
-    with :math:`x_\lambda = (A^TA + \lambda D^TD)^{-1}A^Tb` and
-    :math:`H_\lambda = A(A^TA + \lambda D^TD)^{-1}A^T` (Golub, Heath & Wahba 1979), all
-    strengths at once from the eigenproblem :math:`D^TD v = \nu (A^TA + D^TD) v` (a ridge of
-    :math:`10^{-12}\,\mathrm{tr}(A^TA)/p` keeps it definite).
-
-    Parameters
-    ----------
-    A : ndarray of shape (n, p)
-        The (weighted) operator.
-    b : ndarray of shape (n,)
-        The (weighted) data.
-    D : ndarray of shape (q, p)
-        The penalty's difference matrix.
-    strengths : array-like, optional
-        Strengths :math:`\lambda \ge 0` to evaluate; default 200 values log-spaced over
-        :math:`10^{-6}` to :math:`10^{6}` times :math:`\mathrm{tr}(A^TA)/\mathrm{tr}(D^TD)`.
-
-    Returns
-    -------
-    dict
-        ``strengths``, ``scores`` (G), ``df`` (tr H), ``rss``, ``best`` (the minimising
-        strength, refined by a bounded scalar minimisation in log λ when the grid is the
-        default), ``solutions`` (x for each strength, shape (L, p)).
-    """
-    A = np.asarray(A, dtype=float)
-    b = np.asarray(b, dtype=float)
-    n, p = A.shape
-    M = A.T @ A
-    M = M + 1e-12 * max(np.trace(M), 1e-300) / p * np.eye(p)
-    P = D.T @ D
-    nu, V = linalg.eigh(P, M + P)
-    nu = np.clip(nu, 0.0, 1.0)
-    mu = 1.0 - nu
-    c = V.T @ (A.T @ b)
-    AV = A @ V
-
-    def evaluate(lam):
-        lam = np.atleast_1d(np.asarray(lam, dtype=float))
-        den = mu[None] + lam[:, None] * nu[None]
-        coef = c[None] / den
-        x = coef @ V.T
-        res = b[None] - coef @ AV.T
-        rss = np.sum(res * res, axis=1)
-        df = np.sum(mu[None] / den, axis=1)
-        return n * rss / np.maximum(n - df, 1e-12) ** 2, df, rss, x
-
-    default = strengths is None
-    if default:
-        scale = np.trace(M) / max(np.trace(P), 1e-300)
-        strengths = scale * np.logspace(-6, 6, 200)
-    strengths = np.asarray(strengths, dtype=float)
-    scores, df, rss, x = evaluate(strengths)
-    i = int(np.argmin(scores))
-    best = float(strengths[i])
-    if default and 0 < i < strengths.size - 1:
-        lo, hi = np.log(strengths[i - 1]), np.log(strengths[i + 1])
-        r = optimize.minimize_scalar(lambda u: float(evaluate(np.exp(u))[0][0]),
-                                     bounds=(lo, hi), method="bounded",
-                                     options={"xatol": 1e-6})
-        if r.fun <= scores[i]:
-            best = float(np.exp(r.x))
-    return {"strengths": strengths, "scores": scores, "df": df, "rss": rss, "best": best,
-            "solutions": x}
-
-
-def _tikhonov_batch(Aw, bw, D, lam, lo, hi):
-    """x for each replicate: Aw (B, n, p) or (n, p), bw (B, n); bounded by BVLS."""
-    P = lam * (D.T @ D)
-    if Aw.ndim == 2:
-        Aw = np.broadcast_to(Aw, (bw.shape[0],) + Aw.shape)
-    if np.all(np.isinf(lo)) and np.all(np.isinf(hi)):
-        K = np.einsum("bni,bnj->bij", Aw, Aw) + P[None]
-        rhs = np.einsum("bni,bn->bi", Aw, bw)
-        try:
-            return np.linalg.solve(K, rhs[..., None])[..., 0]
-        except np.linalg.LinAlgError:
-            return np.stack([np.linalg.lstsq(K[i], rhs[i], rcond=None)[0]
-                             for i in range(K.shape[0])])
-    root = math.sqrt(lam) * D
-    out = np.empty((bw.shape[0], Aw.shape[2]))
-    for i in range(bw.shape[0]):  # one bounded solve per replicate
-        out[i] = optimize.lsq_linear(np.vstack([Aw[i], root]),
-                                     np.r_[bw[i], np.zeros(D.shape[0])],
-                                     bounds=(lo, hi), method="bvls").x
-    return out
-
-
-def _tv_admm(Aw, bw, D, lam, lo, hi):
-    """Total-variation solutions by ADMM for each replicate (module docstring).
-
-    Aw (B, n, p) or (n, p); bw (B, n); lam (B,). Returns x (B, p) and converged (B,).
-    """
-    B = bw.shape[0]
-    p = D.shape[1]
-    shared = Aw.ndim == 2
-    if shared:
-        AtA = Aw.T @ Aw
-        Atb = bw @ Aw
-        scale = np.trace(AtA) / p
-    else:
-        AtA = np.einsum("bni,bnj->bij", Aw, Aw)
-        Atb = np.einsum("bni,bn->bi", Aw, bw)
-        scale = np.trace(AtA, axis1=1, axis2=2) / p
-    # ρ = sqrt(λ · tr(AᵀA)/p): the geometric mean of the data and penalty curvatures,
-    # a few hundred iterations across the whole range of λ (measured)
-    lam = np.asarray(lam, dtype=float)
-    rho = np.maximum(np.sqrt(lam * np.asarray(scale, dtype=float)), 1e-12)
-    DtD = D.T @ D
-    if shared and np.all(rho == rho[0]):
-        # one matrix for every replicate: x-updates are one matrix product (BLAS)
-        Kinv1 = np.linalg.inv(AtA + rho[0] * (DtD + np.eye(p)))
-
-        def solve(v):
-            return v @ Kinv1.T
-    else:
-        Kinv = np.linalg.inv((AtA if not shared else AtA[None])
-                             + rho[:, None, None] * (DtD + np.eye(p))[None])
-
-        def solve(v):
-            return np.matmul(Kinv, v[:, :, None])[:, :, 0]
-    thr = (lam / rho)[:, None]
-    x = solve(Atb)
-    z1 = x @ D.T
-    z2 = np.clip(x, lo, hi)
-    u1 = np.zeros_like(z1)
-    u2 = np.zeros_like(z2)
-    eps_abs, eps_rel = ADMM_TOL
-    done = np.zeros(B, dtype=bool)
-    r_ = rho[:, None]
-    for it in range(1, ADMM_MAX_ITER + 1):
-        x = solve(Atb + r_ * ((z1 - u1) @ D + z2 - u2))
-        Dx = x @ D.T
-        z1_old, z2_old = z1, z2
-        v = Dx + u1
-        z1 = np.sign(v) * np.maximum(np.abs(v) - thr, 0.0)
-        z2 = np.clip(x + u2, lo, hi)
-        u1 = u1 + Dx - z1
-        u2 = u2 + x - z2
-        if it % 10 == 0:
-            r = np.sqrt(np.sum((Dx - z1) ** 2, axis=1) + np.sum((x - z2) ** 2, axis=1))
-            s = rho * np.sqrt(np.sum(((z1 - z1_old) @ D + z2 - z2_old) ** 2, axis=1))
-            big = np.maximum(np.sqrt(np.sum(Dx ** 2, axis=1) + np.sum(x ** 2, axis=1)),
-                             np.sqrt(np.sum(z1 ** 2, axis=1) + np.sum(z2 ** 2, axis=1)))
-            dual = rho * np.sqrt(np.sum((u1 @ D + u2) ** 2, axis=1))
-            tol_p = math.sqrt(p + D.shape[0]) * eps_abs + eps_rel * big
-            tol_d = math.sqrt(p) * eps_abs + eps_rel * np.maximum(dual, 1e-12)
-            done = (r <= tol_p) & (s <= tol_d)
-            if done.all():
-                break
-    return np.clip(x, lo, hi), done, z1
-
-
-def _tv_df(z1, x, order, lo, hi):
-    """Degrees of freedom of TV solutions: the number of free pieces.
-
-    The limit of the IRLS linearisation as its floor η → 0: fused differences (the exact
-    zeros of the ADMM's :math:`z_1 = Dx`) become constraints, leaving nonzero differences
-    + ``order`` free directions (for first differences the constant pieces; Tibshirani &
-    Taylor 2011, *Ann. Statist.* 39:1335–1371, the lasso's df for the fused case), less the
-    pieces held at a bound (first differences). z1, x of shape (B, q), (B, p).
-    """
-    nz = z1 != 0
-    df = nz.sum(axis=1) + order
-    if order == 1 and (np.isfinite(lo).any() or np.isfinite(hi).any()):
-        at = (x <= lo + 1e-7 * (1 + np.abs(lo))) | (x >= hi - 1e-7 * (1 + np.abs(hi)))
-        group = np.concatenate([np.zeros((x.shape[0], 1), int), np.cumsum(nz, axis=1)], 1)
-        for b in np.flatnonzero(at.any(axis=1)):  # few rows: those touching a bound
-            g = group[b]
-            stuck = np.bincount(g, weights=~at[b]) == 0   # a piece entirely at a bound
-            df[b] -= int(np.sum(stuck & (np.bincount(g) > 0)))
-    return df.astype(float)
-
-
-def _tv_lambda_max(Aw, bw, D):
-    """The smallest λ at which the TV solution lies in the null space of D (exact for
-    the unconstrained problem): ‖v‖∞ with Dᵀv = Aᵀ(b − A x_0), x_0 the best fit in
-    null(D)."""
-    N = linalg.null_space(D)
-    AN = Aw @ N
-    c = np.linalg.lstsq(AN, bw, rcond=None)[0]
-    r = bw - AN @ c
-    v = np.linalg.lstsq(D.T, Aw.T @ r, rcond=None)[0]
-    return max(float(np.max(np.abs(v))), 1e-12)
-
-
-# --------------------------------------------------------------------------- switches
-
-def switch_times(edges, values, share=SWITCH_SHARE):
-    """Switch times of a reconstructed history (module docstring).
-
-    Parameters
-    ----------
-    edges : array-like of shape (J + 1,)
-        Grid edges (time unit).
-    values : array-like of shape (J + 1,)
-        The diet before the grid, then one value per interval (‰).
-    share : float, default=SWITCH_SHARE
-        A switch changes the diet by more than this share of the largest change.
-
-    Returns
-    -------
-    ndarray
-        Switch times (time unit), increasing; empty when the history is constant or NaN.
-    """
-    e = np.asarray(edges, dtype=float)
-    v = np.asarray(values, dtype=float)
-    d = np.diff(v)                      # change at edges e_0 … e_{J-1}
-    at = e[:d.size]
-    if not np.all(np.isfinite(d)) or not np.any(d != 0):
-        return np.array([])
-    big = np.max(np.abs(d))
-    marked = np.abs(d) > _POOL_SHARE * big
-    sign = np.sign(d)
-    new_run = marked & ~np.r_[False, marked[:-1] & (sign[1:] == sign[:-1])]
-    run_id = np.cumsum(new_run) - 1
-    idx = np.flatnonzero(marked)
-    rid = run_id[idx]
-    total = np.bincount(rid, weights=d[idx])
-    mass = np.bincount(rid, weights=np.abs(d[idx]))
-    centre = np.bincount(rid, weights=np.abs(d[idx]) * at[idx]) / mass
-    keep = np.abs(total) > share * np.max(np.abs(total))
-    return centre[keep]
 
 
 # --------------------------------------------------------------------------- result
 
 @dataclass(frozen=True, eq=False)
 class DietReconstruction:
-    """A diet history reconstructed from a tissue record (made by :func:`reconstruct_diet`).
+    r"""A diet history reconstructed from a tissue record (made by :func:`reconstruct_diet`).
 
     Parameters
     ----------
@@ -790,6 +259,18 @@ class DietReconstruction:
         The point kinetics used (for :meth:`tissue`).
     profile : SegmentGeometry or None
         The segment profile's geometry (positions along the tissue), None for a series.
+    band_status : str
+        One of :data:`BAND_STATUSES`: ``too_few_residual_df`` when the band was refused
+        (``lower``/``upper`` NaN).
+    resample : str
+        How the replicate data were made: ``"parametric"`` (from the data's sd, or from the
+        residual sd) or ``"residual"`` (modified residuals).
+    residual_df : float
+        Residual degrees of freedom :math:`\nu = n - 2\,\mathrm{tr}\,H + \mathrm{tr}(HH^T)`
+        of the fit (NaN without replicates).
+    noise_scale : float
+        Factor (>= 1) by which the residuals widened the data's sd in a parametric band
+        (module docstring); 1 otherwise.
     """
 
     edges: np.ndarray
@@ -824,6 +305,10 @@ class DietReconstruction:
     bounds: tuple = (-math.inf, math.inf)
     kinetics: object = field(repr=False, default=None)
     profile: SegmentGeometry | None = field(repr=False, default=None)
+    band_status: str = "ok"
+    resample: str = "parametric"
+    residual_df: float = math.nan
+    noise_scale: float = 1.0
 
     # -- views ------------------------------------------------------------------------
     def fraction_b(self):
@@ -854,7 +339,8 @@ class DietReconstruction:
             Columns quantity (``diet``, and ``fraction_b`` with sources), time (start of
             the interval; -inf before the grid), end, then estimate, lower, upper, level,
             method (``"bootstrap"``), lower_status, upper_status (``ok``, ``at_bound`` at a
-            bound, ``not_available`` without replicates, ``failed`` when NaN), then
+            bound, ``not_available`` without replicates or with the band refused
+            (:attr:`band_status`), ``failed`` when NaN), then
             penalty, strength, status.
         """
         start = np.r_[-np.inf, self.edges[:-1]]
@@ -867,8 +353,8 @@ class DietReconstruction:
             frames.append(pd.DataFrame({
                 "quantity": name, "time": start, "end": end, "estimate": est, "lower": lo,
                 "upper": hi, "level": self.level, "method": "bootstrap",
-                "lower_status": _statuses(lo, blo, bhi, self.n_boot),
-                "upper_status": _statuses(hi, blo, bhi, self.n_boot),
+                "lower_status": _statuses(lo, blo, bhi, self.replicates.shape[0]),
+                "upper_status": _statuses(hi, blo, bhi, self.replicates.shape[0]),
                 "penalty": self.penalty, "strength": self.strength, "status": self.status}))
         return pd.concat(frames, ignore_index=True)
 
@@ -907,10 +393,10 @@ class DietReconstruction:
         ndarray
             δ (‰).
         """
-        t = _vector("t", t)
-        _edges(self.edges, t)
+        t = as_vector("t", t)
+        read_edges(self.edges, t)
         kin = self.kinetics
-        A = _operator(t, t, self.edges, *kin.arrays()[:3], kin.chain)[0]
+        A = window_operator(t, t, self.edges, *kin.arrays()[:3], kin.chain)[0]
         c, m = kin.affine(kin.separation)
         return c + m * (A @ self.estimate)
 
@@ -939,10 +425,17 @@ class DietReconstruction:
                          + f" {unit}")
         else:
             lines.append("switch times: none found")
-        if self.n_boot:
+        if self.band_status == "ok" and self.n_boot:
             what = "data and kinetics" if self.kinetics_included else "data"
+            how = ("modified residuals" if self.resample == "residual" else
+                   f"normal errors with the data's sd × {self.noise_scale:.3g}"
+                   if np.any(np.isfinite(self.sigma))
+                   else "normal errors with the residual sd")
             lines.append(f"{self.level:.0%} band: {self.n_boot - self.n_failed} replicates "
-                         f"resampling the {what} (kinetics: {self.kinetics_source})")
+                         f"resampling the {what} ({how}; kinetics: {self.kinetics_source})")
+        elif self.band_status == "too_few_residual_df":
+            lines.append(f"band: not estimated ({self.residual_df:.3g} residual degrees of "
+                         "freedom; give the data's sd for a parametric band)")
         if self.sources is not None:
             lines.append(f"sources: A = {self.sources[0]:g} ‰, B = {self.sources[1]:g} ‰ "
                          "(fraction of B in the table)")
@@ -964,177 +457,6 @@ def _statuses(v, lo, hi, n_boot):
     return out
 
 
-# --------------------------------------------------------------------------- segments
-
-@dataclass(frozen=True, eq=False)
-class SegmentGeometry:
-    r"""Where the segments of a profile lie along the tissue, and when they were formed.
-
-    Made by :func:`reconstruct_diet` from a segment profile; the formation intervals are
-    :func:`isoturnover.segments.formation_intervals` of these arguments.
-
-    Parameters
-    ----------
-    segment_start, segment_end : ndarray of shape (n,)
-        Distances of each segment's ends from :attr:`origin` (length unit of the growth
-        rate), in the order of the reconstruction's samples (by formation time).
-    sample_time : ndarray of shape (n,)
-        Time the tissue was sampled (time unit).
-    growth_rate : float or table of (time, rate)
-        Growth rate of the tissue (length per time unit).
-    formation_lag : float
-        Time from formation to emergence at the base (time unit).
-    origin : {"base", "tip"}
-        Where the distances are measured from.
-    tissue_length : ndarray of shape (n,) or None
-        Tissue length at sampling (with ``origin="tip"``).
-    """
-
-    segment_start: np.ndarray
-    segment_end: np.ndarray
-    sample_time: np.ndarray
-    growth_rate: object
-    formation_lag: float
-    origin: str
-    tissue_length: np.ndarray | None = None
-
-    @property
-    def single_sampling(self) -> bool:
-        """True when every segment comes from one tissue sampled once (one sampling time
-        and, from the tip, one tissue length): positions and times then map one to one."""
-        one = np.ptp(self.sample_time) == 0
-        if self.origin == "tip":
-            one = one and np.ptp(self.tissue_length) == 0
-        return bool(one)
-
-    def _anchor(self):
-        if not self.single_sampling:
-            raise DataError("the profile's segments were sampled at several times (or "
-                            "tissue lengths): a position along the tissue is not one time")
-        sched = growth_schedule(self.growth_rate)
-        top = float(sched.cumulative(self.sample_time[0] - self.formation_lag))
-        length = None if self.tissue_length is None else float(self.tissue_length[0])
-        return sched, top, length
-
-    def position(self, t):
-        r"""Distance from :attr:`origin` of the tissue formed at time ``t``.
-
-        The geometry of :func:`isoturnover.segments.formation_intervals` read backwards:
-        :math:`x = G(T - \ell) - G(t)` from the base, :math:`\Lambda - x` from the tip.
-
-        Parameters
-        ----------
-        t : array-like
-            Formation times (time unit); outside the tissue the growth law is extended.
-
-        Returns
-        -------
-        ndarray
-            Distances (length unit of the growth rate), shaped like ``t``.
-
-        Raises
-        ------
-        DataError
-            When the segments were sampled at several times (no single position axis).
-        """
-        sched, top, length = self._anchor()
-        x = top - sched.cumulative(np.asarray(t, dtype=float))
-        return x if self.origin == "base" else length - x
-
-    def time_at(self, x):
-        r"""Formation time of the tissue at distance ``x`` from :attr:`origin`.
-
-        :math:`t = G^{-1}(G(T - \ell) - x)` (``x`` from the base; :math:`\Lambda - x` from
-        the tip), the inverse of :meth:`position`.
-
-        Parameters
-        ----------
-        x : array-like
-            Distances (length unit of the growth rate).
-
-        Returns
-        -------
-        ndarray
-            Times (time unit), shaped like ``x``.
-
-        Raises
-        ------
-        DataError
-            When the segments were sampled at several times.
-        """
-        sched, top, length = self._anchor()
-        x = np.asarray(x, dtype=float)
-        return sched.inverse(top - (x if self.origin == "base" else length - x))
-
-    def describe(self, time_unit="d") -> str:
-        """One line: segments, where they lie, the growth rate and the lag.
-
-        Parameters
-        ----------
-        time_unit : str, default="d"
-
-        Returns
-        -------
-        str
-        """
-        g = growth_schedule(self.growth_rate).rates
-        rate = (f"{g[0]:g} length units per {time_unit}" if g.size == 1
-                else f"piecewise ({g.size} rows of time, rate)")
-        times = ", ".join(f"{v:g}" for v in np.unique(self.sample_time))
-        return (f"segment profile: {self.segment_start.size} segments from "
-                f"{np.min(self.segment_start):g} to {np.max(self.segment_end):g} length units "
-                f"from the {self.origin}, sampled at {times} {unit_word(time_unit)}; growth "
-                f"rate {rate}, formation lag {self.formation_lag:g} {unit_word(time_unit)}")
-
-
-_GEOMETRY = ("growth_rate", "segment_origin", "formation_lag", "tissue_length")
-
-
-def _is_profile(data):
-    return (isinstance(data, pd.DataFrame) and "segment_start" in data.columns
-            and "segment_end" in data.columns
-            and bool(data[["segment_start", "segment_end"]].notna().any().any()))
-
-
-def _profile_data(data, kinetics, sigma, windows, geometry):
-    """(t, y, sigma, windows, time unit, SegmentGeometry) of a segment profile: formation
-    midpoints, values and sd sorted by formation time, the formation intervals."""
-    if windows is not None:
-        raise DataError("'windows' is not used with a segment profile: its windows are the "
-                        "segments' formation intervals (from 'growth_rate', "
-                        "'formation_lag', 'segment_origin' and 'tissue_length')")
-    if sigma is not None:
-        raise DataError("'sigma' goes with arrays; a segment profile's sd is its 'sd' column")
-    fit = kinetics.fit if isinstance(kinetics, BootstrapResult) else kinetics
-    model = fit.model if isinstance(fit, TurnoverFit) else None
-    if getattr(model, "record", "points") != "segments":
-        model = None
-    attrs = {"growth_rate": "growth_rate", "segment_origin": "origin",
-             "formation_lag": "formation_lag", "tissue_length": "tissue_length"}
-    geo = {k: (getattr(model, attrs[k]) if v is None and model is not None else v)
-           for k, v in geometry.items()}
-    if geo["growth_rate"] is None:
-        raise DataError("'growth_rate' is needed for a segment profile (the tissue's growth "
-                        "rate, length per time unit: a number or a table of (time, rate)); "
-                        "give growth_rate= or a segment fit (TurnoverModel(record="
-                        "'segments')) as 'kinetics'")
-    origin = check_choice("segment_origin", geo["segment_origin"] or "base", ORIGINS)
-    lag = 0.0 if geo["formation_lag"] is None else geo["formation_lag"]
-    arr = segment_arrays(data)
-    t1, t2 = formation_intervals(arr["segment_start"], arr["segment_end"],
-                                 arr["sample_time"], geo["growth_rate"], formation_lag=lag,
-                                 origin=origin, tissue_length=geo["tissue_length"])
-    d = prepare_data((t1 + t2) / 2.0, arr["y"], arr["sigma"], arr["time_unit"],
-                     warn_repeats=False)
-    o = np.asarray(d["order"])
-    n = t1.size
-    length = geo["tissue_length"]
-    length = None if length is None else np.broadcast_to(
-        np.asarray(length, dtype=float).ravel(), (n,))[o].copy()
-    geom = SegmentGeometry(arr["segment_start"][o], arr["segment_end"][o],
-                           arr["sample_time"][o], geo["growth_rate"], float(lag), origin,
-                           length)
-    return d["t"], d["y"], d["sigma"], (t1[o], t2[o]), d["time_unit"], geom
 
 
 # --------------------------------------------------------------------------- main
@@ -1158,7 +480,7 @@ def _data(data, sigma, windows):
     if windows is None:
         a, b = t.copy(), t.copy()
     else:
-        a, b = _windows(windows)
+        a, b = read_windows(windows)
         if a.size != t.size:
             raise DataError(f"'windows' must have one window per sample ({t.size}); got "
                             f"{a.size}")
@@ -1172,7 +494,7 @@ def _box(bounds, sources):
         if not isinstance(sources, (tuple, list)) or len(sources) != 2:
             raise DataError(f"'sources' must be two end-member diet values (a, b) in ‰; got "
                             f"{sources!r}")
-        sources = (_number("'sources'[0]", sources[0]), _number("'sources'[1]", sources[1]))
+        sources = (as_number("'sources'[0]", sources[0]), as_number("'sources'[1]", sources[1]))
         if sources[0] == sources[1]:
             raise DataError(f"'sources' must differ; got {sources!r}")
     if bounds is None:
@@ -1181,8 +503,8 @@ def _box(bounds, sources):
         return (min(sources), max(sources)), sources
     if not isinstance(bounds, (tuple, list)) or len(bounds) != 2:
         raise DataError(f"'bounds' must be (lower, upper) diet values in ‰; got {bounds!r}")
-    lo = -math.inf if bounds[0] is None else _number("'bounds'[0]", bounds[0])
-    hi = math.inf if bounds[1] is None else _number("'bounds'[1]", bounds[1])
+    lo = -math.inf if bounds[0] is None else as_number("'bounds'[0]", bounds[0])
+    hi = math.inf if bounds[1] is None else as_number("'bounds'[1]", bounds[1])
     if not lo < hi:
         raise DataError(f"'bounds' must have lower < upper; got {bounds!r}")
     return (lo, hi), sources
@@ -1191,8 +513,9 @@ def _box(bounds, sources):
 def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, bounds=None,
                      sources=None, rng=None, sigma=None, windows=None, initial=None,
                      order=None, separation=None, n_boot=200, level=0.95,
-                     resample="residual", kinetics_uncertainty=True, growth_rate=None,
-                     segment_origin=None, formation_lag=None, tissue_length=None):
+                     resample="auto", kinetics_uncertainty=True, growth_rate=None,
+                     segment_origin=None, formation_lag=None, tissue_length=None,
+                     analytic_sd=None):
     r"""Reconstruct the diet history from a tissue record and known kinetics.
 
     Regularised least squares on the exact linear operator of the module docstring (the
@@ -1244,7 +567,11 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
     n_boot : int, default=200
         Replicates for the band (0: none).
     level : float, default=0.95
-    resample : {"residual", "parametric"}
+    resample : {"auto", "residual", "parametric"}
+        How the band's replicate data are made (module docstring): ``"auto"`` parametric
+        from the data's sd when they carry one, modified residuals otherwise; with the
+        noise from the residuals and fewer than :data:`MIN_RESIDUAL_DF` residual degrees
+        of freedom no band is given (``band_status``).
     kinetics_uncertainty : bool, default=True
         Also draw the kinetics for each replicate (when they carry an uncertainty).
     growth_rate : float or table of (time, rate), optional
@@ -1261,6 +588,9 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
     tissue_length : float, optional
         Segment profiles measured from the tip: the tissue's length at sampling (default
         the segment fit's).
+    analytic_sd : float, optional
+        The analytical (instrument) sd of every value (‰, > 0) for data that carry no sd:
+        used as their sd (weights, and the parametric band).
 
     Returns
     -------
@@ -1273,7 +603,7 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
         rate (``'growth_rate'``), or segment arguments with data that are not a profile.
     """
     penalty = check_choice("penalty", penalty, PENALTIES)
-    resample = check_choice("resample", resample, ("residual", "parametric"))
+    resample = check_choice("resample", resample, RESAMPLE)
     level = check_level(level)
     if isinstance(n_boot, bool) or not isinstance(n_boot, (int, np.integer)) or n_boot < 0:
         raise DataError(f"'n_boot' must be an integer >= 0; got {n_boot!r}")
@@ -1282,18 +612,18 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
     if order > 3:
         raise DataError(f"'order' must be 1, 2 or 3; got {order!r}")
     if strength is not None:
-        strength = _number("'strength'", strength)
+        strength = as_number("'strength'", strength)
         if strength < 0:
             raise DataError(f"'strength' must be >= 0; got {strength!r}")
-    kin, notes = _kinetics(kinetics, separation)
+    kin, notes = read_kinetics(kinetics, separation)
     geometry = {"growth_rate": growth_rate, "segment_origin": segment_origin,
                 "formation_lag": formation_lag, "tissue_length": tissue_length}
     profile = None
-    if _is_profile(data):
-        t, y, sig, (wa, wb), unit, profile = _profile_data(data, kinetics, sigma, windows,
+    if is_profile(data):
+        t, y, sig, (wa, wb), unit, profile = profile_data(data, kinetics, sigma, windows,
                                                            geometry)
     else:
-        given = [k for k in _GEOMETRY if geometry[k] is not None]
+        given = [k for k in GEOMETRY_ARGUMENTS if geometry[k] is not None]
         if given:
             raise DataError(f"'{given[0]}' goes with a segment profile (a samples frame with "
                             "'segment_start' and 'segment_end'); 'data' is not one")
@@ -1306,22 +636,30 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
     if isinstance(grid, (int, np.integer)) and not isinstance(grid, bool):
         nint = check_positive_int("grid", grid, 2)
         grid = np.linspace(float(np.min(wa)), float(np.max(wb)), nint + 1)
-    edges = _edges(grid, wb)
+    edges = read_edges(grid, wb)
     (lo_b, hi_b), sources = _box(bounds, sources)
     if initial is not None:
-        initial = _number("'initial'", initial)
+        initial = as_number("'initial'", initial)
     if not isinstance(rng, np.random.Generator):
         rng = np.random.default_rng(0 if rng is None else rng)
     n = t.size
+    if analytic_sd is not None:
+        analytic_sd = as_number("'analytic_sd'", analytic_sd)
+        if analytic_sd <= 0:
+            raise DataError(f"'analytic_sd' must be > 0 (‰); got {analytic_sd!r}")
+        if sig is not None:
+            raise DataError("'analytic_sd' is for data without an sd; these data carry one "
+                            "(an 'sd' column or sigma=): give one or the other")
+        sig = np.full(n, analytic_sd)
     has_sigma = sig is not None
     s_obs = sig if has_sigma else np.ones(n)
 
-    A_full = _operator(wa, wb, edges, *kin.arrays()[:3], kin.chain)[0]
+    A_full = window_operator(wa, wb, edges, *kin.arrays()[:3], kin.chain)[0]
     c0, m0 = kin.affine(kin.separation)
     z = (y - c0) / m0
     w = np.abs(m0) / s_obs
     p_full = A_full.shape[1]
-    D_full = _differences(p_full, order)
+    D_full = differences(p_full, order)
     if D_full.shape[0] < 1:
         raise DataError(f"'grid' has too few intervals for differences of order {order}")
     shift = 0.0 if initial is None else initial
@@ -1359,28 +697,29 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
             sig if has_sigma else np.full(n, np.nan), (wa, wb), np.full(n, np.nan),
             math.nan, initial is not None, sources, int(n_boot), 0, False,
             kin.source, gcv, np.empty((0, p_full)), unit, tuple(warns + [msg]),
-            (lo_b, hi_b), kin, profile)
+            (lo_b, hi_b), kin, profile, "none", resample, math.nan)
 
     use_tv = penalty == "total_variation" and strength != 0
     if use_tv:
         if strength is None:
-            lam_max = _tv_lambda_max(Aw, bw, D)
+            lam_max = tv_lambda_max(Aw, bw, D)
             lams = lam_max * np.logspace(-4, 0, _N_TV_GRID)
-            xs, conv, z1 = _tv_admm(Aw, np.broadcast_to(bw, (lams.size, n)).copy(), D, lams,
+            xs, conv, z1 = tv_admm(Aw, np.broadcast_to(bw, (lams.size, n)).copy(), D, lams,
                                     lo, hi)
             res = bw[None] - xs @ Aw.T
             rss = np.sum(res * res, axis=1)
-            dfs = _tv_df(z1, xs, order, lo, hi)
+            dfs = tv_df(z1, xs, order, lo, hi)
             scores = n * rss / np.maximum(n - dfs, 1e-12) ** 2
             scores[~conv] = np.inf
             i = int(np.argmin(scores))
             strength, x_hat, df, ok = float(lams[i]), xs[i], float(dfs[i]), bool(conv[i])
+            z1_hat = z1[i]
             gcv = pd.DataFrame({"strength": lams, "score": scores, "df": dfs})
             rule = "gcv_linearised"
         else:
-            xs, conv, z1 = _tv_admm(Aw, bw[None], D, np.array([strength]), lo, hi)
-            x_hat, ok = xs[0], bool(conv[0])
-            df = float(_tv_df(z1, xs, order, lo, hi)[0])
+            xs, conv, z1 = tv_admm(Aw, bw[None], D, np.array([strength]), lo, hi)
+            x_hat, ok, z1_hat = xs[0], bool(conv[0]), z1[0]
+            df = float(tv_df(z1, xs, order, lo, hi)[0])
         if not ok:
             status = "not_converged"
             warns.append(f"ADMM did not converge in {ADMM_MAX_ITER} iterations")
@@ -1392,13 +731,12 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
             gcv = pd.DataFrame({"strength": g["strengths"], "score": g["scores"],
                                 "df": g["df"]})
             rule = "gcv"
-        x_hat = _tikhonov_batch(Aw, bw[None], D, strength, lo, hi)[0]
+        x_hat = tikhonov_batch(Aw, bw[None], D, strength, lo, hi)[0]
         K = Aw.T @ Aw + strength * (D.T @ D)
         df = float(np.trace(np.linalg.lstsq(K, Aw.T @ Aw, rcond=None)[0]))
     fitted_w = Aw @ x_hat
     resid_w = bw - fitted_w
     dof = max(n - df, 1.0)
-    s_hat = float(math.sqrt(np.sum(resid_w ** 2) / dof))
     estimate = with_initial(x_hat)
     fitted = c0 + m0 * (A_full @ estimate)
     residual_sd = float(math.sqrt(np.sum((y - fitted) ** 2) / dof))
@@ -1407,17 +745,40 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
     reps = np.empty((0, p_full))
     n_failed = 0
     use_kin = bool(kinetics_uncertainty) and kin.draws is not None
+    if resample == "auto":
+        resample = "parametric" if has_sigma else "residual"
+    nu = math.nan
+    band_status = "ok" if n_boot else "none"
     if n_boot:
+        if use_tv:
+            H = pieces_influence(Aw, z1_hat, x_hat, lo, hi) if order == 1 else df
+        else:
+            H = tikhonov_influence(Aw, D, strength)
+        r_mod, nu = modified_residuals(resid_w, H)
+        s_hat = float(math.sqrt(np.sum(resid_w ** 2) / max(nu, 1e-12)))
+        # the data's sd is a floor: residuals with enough df that scatter more widen it
+        s_par = max(1.0, s_hat) if nu >= MIN_RESIDUAL_DF else 1.0
+    if n_boot and (resample == "residual" or not has_sigma):
+        # the noise comes from the residuals: their variance needs enough residual df
+        if nu < MIN_RESIDUAL_DF or r_mod.size < 2:
+            band_status = "too_few_residual_df"
+            warns.append(
+                f"no band: {nu:.3g} residual degrees of freedom (n - effective parameters; "
+                f"fewer than {MIN_RESIDUAL_DF:g}) leave the scatter of the data unknown, so "
+                "resampling the residuals would give a band of about zero width. Give the "
+                "data's sd (an 'sd' column, sigma= or analytic_sd=) for a parametric band, "
+                "or a coarser grid or a larger strength")
+            warnings.warn(warns[-1], IdentifiabilityWarning, stacklevel=2)
+    if band_status == "ok":
         B = int(n_boot)
         if resample == "residual":
-            r = (resid_w - resid_w.mean()) * math.sqrt(n / dof)
-            noise = r[rng.integers(0, n, (B, n))]
+            noise = r_mod[rng.integers(0, r_mod.size, (B, n))]
         else:
-            noise = (1.0 if has_sigma else s_hat) * rng.standard_normal((B, n))
-        y_star = fitted[None] + noise * s_obs[None] / abs(m0)  # back on the δ scale
+            noise = (s_par if has_sigma else s_hat) * rng.standard_normal((B, n))
+        y_star = fitted[None] + noise * s_obs[None]  # back on the δ scale (w = |m|/sd)
         if use_kin:
             kr, kf, kl, ks = kin.draws(rng, B)
-            Ab = _operator(wa, wb, edges, kr, kf, kl, kin.chain)
+            Ab = window_operator(wa, wb, edges, kr, kf, kl, kin.chain)
             cb, mb = kin.affine(ks)
             Ab = Ab if initial is None else Ab[:, :, 1:]
             wb_ = np.abs(mb)[:, None] / s_obs[None]
@@ -1426,22 +787,23 @@ def reconstruct_diet(data, kinetics, *, grid, penalty="smooth", strength=None, b
         else:
             Awb, bwb = Aw, (((y_star - c0) / m0) - shift) * w[None]
         if use_tv:
-            xb, conv, _ = _tv_admm(Awb, bwb, D, np.full(B, strength), lo, hi)
+            xb, conv, _ = tv_admm(Awb, bwb, D, np.full(B, strength), lo, hi)
             n_failed = int(np.sum(~conv))
             xb = xb[conv]
         else:
-            xb = _tikhonov_batch(Awb, bwb, D, strength, lo, hi)
+            xb = tikhonov_batch(Awb, bwb, D, strength, lo, hi)
         reps = with_initial(xb)
     if reps.shape[0]:
         a = (1 - level) / 2
         lower, upper = np.quantile(reps, [a, 1 - a], axis=0)
     else:
         lower = upper = np.full(p_full, np.nan)
-    if n_boot and n_failed:
+    if n_failed:
         warns.append(f"{n_failed} of {n_boot} replicates did not converge (left out)")
     return DietReconstruction(
         edges, estimate, lower, upper, level, penalty, order, float(strength), rule, status,
         cond, float(df), switch_times(edges, estimate), t, y,
         sig if has_sigma else np.full(n, np.nan), (wa, wb), fitted, residual_sd,
         initial is not None, sources, int(n_boot), n_failed, use_kin, kin.source, gcv,
-        reps, unit, tuple(warns), (lo_b, hi_b), kin, profile)
+        reps, unit, tuple(warns), (lo_b, hi_b), kin, profile, band_status, resample, nu,
+        s_par if band_status == "ok" and resample == "parametric" and has_sigma else 1.0)

@@ -18,6 +18,7 @@ import math
 import numpy as np
 import pandas as pd
 
+from .conventions import unit_word
 from .design import PLAN_CAUTION
 from .errors import DataError
 from .model import TurnoverModel
@@ -146,6 +147,10 @@ class SegmentPlan:
         :class:`~isoturnover.SimulationResult` by segment length.
     target : str
         The target quantity's name.
+    time_unit : str, default="d"
+        Time unit of the formation times (a code such as ``"d"``, or any label).
+    length_unit : str, default="mm"
+        Length unit of the segments (that of the growth rate).
 
     Attributes
     ----------
@@ -153,10 +158,12 @@ class SegmentPlan:
         The animal-care caution every plan carries.
     """
 
-    def __init__(self, rows, results, target):
+    def __init__(self, rows, results, target, time_unit="d", length_unit="mm"):
         self.rows = rows
         self.results = results
         self.target = target
+        self.time_unit = _unit("time_unit", time_unit)
+        self.length_unit = _unit("length_unit", length_unit)
         self.caution = PLAN_CAUTION
 
     def table(self) -> pd.DataFrame:
@@ -175,15 +182,21 @@ class SegmentPlan:
     def summary(self) -> str:
         """A printable account of the plan, ending with the animal-care caution.
 
+        One line per segment length, with its units: ``segments of 2 mm (40 segments, 4 days
+        each)``, then the relative half-width, coverage and failures of the simulated fits.
+
         Returns
         -------
         str
         """
-        lines = [f"Segment plan for {self.target}:"]
+        days = unit_word(self.time_unit)
+        lines = [f"Segment plan for {self.target} (lengths in {self.length_unit}, formation "
+                 f"times in {days}):"]
         for r in self.rows:
             lines.append(
-                f"  segments of {r['segment_length']:g} ({r['n_segments']} segments, "
-                f"{r['segment_time']:.3g} time units each): relative half-width "
+                f"  segments of {r['segment_length']:g} {self.length_unit} "
+                f"({r['n_segments']} segments, {r['segment_time']:.3g} {days} each): "
+                "relative half-width "
                 f"{100 * r['median_rel_half_width']:.1f} %, coverage "
                 f"{100 * r['coverage']:.1f} %, failures {100 * r['failure_rate']:.1f} %"
                 + ("" if r["resolvable"] else " — pool faster than one segment"))
@@ -196,8 +209,8 @@ class SegmentPlan:
 
 def plan_segments(truth, *, segment_lengths, tissue_length, sample_time, growth_rate, sd,
                   pools=1, formation_lag=0.0, n_sim=200, rng=None, level=0.95, n_jobs=1,
-                  quantity="half_life", pool=None, method="asymptotic",
-                  **model_options) -> SegmentPlan:
+                  quantity="half_life", pool=None, method="asymptotic", time_unit="d",
+                  length_unit="mm", **model_options) -> SegmentPlan:
     r"""Simulate segment profiles cut at several lengths and tabulate what each resolves.
 
     For each length :math:`L` the tissue (``tissue_length`` long at ``sample_time``) is cut
@@ -237,6 +250,12 @@ def plan_segments(truth, *, segment_lengths, tissue_length, sample_time, growth_
         Pool of the half-life (1 = fastest; default the slowest).
     method : str, default="asymptotic"
         Interval method of the fits.
+    time_unit : str, default="d"
+        Time unit of ``sample_time``, the rates and the growth rate (printed by the
+        summary).
+    length_unit : str, default="mm"
+        Length unit of the segments, the tissue and the growth rate (printed by the
+        summary).
     **model_options
         Other options of :class:`~isoturnover.TurnoverModel` (``structure``, ``diet``...).
 
@@ -264,6 +283,8 @@ def plan_segments(truth, *, segment_lengths, tissue_length, sample_time, growth_
     if np.any(lengths > total):
         raise DataError(f"'segment_lengths': {float(lengths.max()):g} is longer than the "
                         f"tissue ('tissue_length' = {total:g})")
+    time_unit = _unit("time_unit", time_unit)
+    length_unit = _unit("length_unit", length_unit)
     rows, results, target = [], {}, quantity
     for length in lengths.tolist():
         n = int(math.floor(total / length + 1e-9))
@@ -286,4 +307,12 @@ def plan_segments(truth, *, segment_lengths, tissue_length, sample_time, growth_
                      "median_rel_half_width": res.median_rel_half_width,
                      "failure_rate": res.failure_rate})
         results[length] = res
-    return SegmentPlan(rows, results, target)
+    return SegmentPlan(rows, results, target, time_unit, length_unit)
+
+
+def _unit(name, value):
+    if not isinstance(value, str) or not value.strip():
+        example = "'d'" if name == "time_unit" else "'mm'"
+        raise DataError(f"'{name}' must be a non-empty unit label such as {example}; got "
+                        f"{value!r:.40}")
+    return value.strip()

@@ -390,3 +390,26 @@ def test_plan_segments_bad_arguments():
         plan_segments(PLAN_TRUTH, segment_lengths=[100.0], **kw)
     with pytest.raises(DataError, match="'tissue_length' must be > 0"):
         plan_segments(PLAN_TRUTH, segment_lengths=[2.0], **{**kw, "tissue_length": -1.0})
+    with pytest.raises(DataError, match="'length_unit' must be a non-empty unit label"):
+        plan_segments(PLAN_TRUTH, segment_lengths=[2.0], length_unit="", **kw)
+    with pytest.raises(DataError, match="'time_unit' must be a non-empty unit label"):
+        plan_segments(PLAN_TRUTH, segment_lengths=[2.0], time_unit=3, **kw)
+
+
+def test_plan_segments_summary_names_its_units():
+    from isoturnover.segmentplan import plan_segments
+
+    plan = plan_segments(PLAN_TRUTH, segment_lengths=[2.0, 5.0], tissue_length=20.0,
+                         sample_time=T_SAMPLE, growth_rate=G_RATE, sd=0.15, n_sim=8, rng=3)
+    text = plan.summary()
+    # by hand: 20 mm in 2 mm and 5 mm pieces, 10 and 4 segments; at 0.5 mm/d a 2 mm segment
+    # takes 4 days to grow and a 5 mm one 10 days
+    assert "segments of 2 mm (10 segments, 4 days each)" in text
+    assert "segments of 5 mm (4 segments, 10 days each)" in text
+    assert "time units" not in text and "animal-care authority" in text
+    # the same numbers in other units: labels only (a time-unit code printed as its word)
+    plan = plan_segments(PLAN_TRUTH, segment_lengths=[2.0], tissue_length=20.0,
+                         sample_time=T_SAMPLE, growth_rate=G_RATE, sd=0.15, n_sim=4, rng=3,
+                         time_unit="h", length_unit="cm")
+    assert "segments of 2 cm (10 segments, 4 hours each)" in plan.summary()
+    assert plan.time_unit == "h" and plan.length_unit == "cm"
