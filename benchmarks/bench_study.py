@@ -14,11 +14,16 @@ isotopes, 12 sampling times, two-pool truth, a diet switch at day 0; fixed seed)
   time), and the share of each module in the profile's own time.
 
 Each configuration is run ``--repeats`` times after one warm-up; the fastest run is shown
-(other work on the machine only ever adds time).
+(other work on the machine only ever adds time). ``--save DIR`` keeps the ``results.csv`` of
+the ``--jobs 2`` run; ``--check FILE`` compares it with an earlier one (a run before a
+change): the largest relative difference of each numeric column that differs, and any text
+column that differs (estimates should agree to 1e-6 relative, profile bounds to the bound
+finder's tolerance).
 
 Run::
 
     python benchmarks/bench_study.py [--animals 50] [--repeats 2] [--profile]
+                                     [--save DIR] [--check OLD/results.csv]
 """
 
 from __future__ import annotations
@@ -29,11 +34,15 @@ import contextlib
 import cProfile
 import io
 import pstats
+import shutil
 import sys
 import tempfile
 import time
 import warnings
 from pathlib import Path
+
+import numpy as np
+import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
@@ -45,8 +54,9 @@ from isoturnover.cli import main as cli_main  # noqa: E402
 from isoturnover.report import write_report  # noqa: E402
 
 
-def run_cli(samples, diets, jobs):
-    """(wall s, CPU s of this process) of one ``isoturnover fit --no-figures`` run."""
+def run_cli(samples, diets, jobs, keep=None):
+    """(wall s, CPU s of this process) of one ``isoturnover fit --no-figures`` run; its
+    ``results.csv`` is copied into the folder ``keep`` when given."""
     with tempfile.TemporaryDirectory() as tmp:
         args = ["fit", str(samples), "--diets", str(diets), "--out", str(Path(tmp) / "out"),
                 "--no-figures", "--no-progress", "--jobs", str(jobs)]
@@ -55,9 +65,37 @@ def run_cli(samples, diets, jobs):
             warnings.simplefilter("ignore")
             code = cli_main(args)
         w, c = time.perf_counter() - w0, time.process_time() - c0
+        if keep is not None and code in (0, None):
+            Path(keep).mkdir(parents=True, exist_ok=True)
+            shutil.copy(Path(tmp) / "out" / "results.csv", Path(keep) / "results.csv")
     if code not in (0, None):
         raise SystemExit(f"isoturnover fit failed ({code})")
     return w, c
+
+
+def compare_results(old, new):
+    """Print how ``results.csv`` ``new`` differs from ``old`` (same rows and columns)."""
+    a, b = pd.read_csv(old), pd.read_csv(new)
+    if list(a.columns) != list(b.columns) or len(a) != len(b):
+        print(f"results differ in shape: {a.shape} against {b.shape}")
+        return
+    worst = 0.0
+    for c in a.columns:
+        x, y = a[c], b[c]
+        if pd.api.types.is_numeric_dtype(x) and pd.api.types.is_numeric_dtype(y):
+            x, y = x.to_numpy(dtype=float), y.to_numpy(dtype=float)
+            same = (x == y) | (np.isnan(x) & np.isnan(y))
+            with np.errstate(all="ignore"):
+                rel = np.where(same, 0.0, np.abs(x - y) / np.maximum(np.abs(x), 1e-300))
+            m = float(np.max(rel)) if rel.size else 0.0
+            if m > 0:
+                i = int(np.argmax(rel))
+                print(f"  {c:<32} max relative difference {m:.2e} (row {i + 2})")
+            worst = max(worst, m)
+        elif not (x.fillna("").astype(str) == y.fillna("").astype(str)).all():
+            print(f"  {c:<32} text differs in "
+                  f"{int((x.fillna('').astype(str) != y.fillna('').astype(str)).sum())} rows")
+    print(f"largest relative difference of a numeric column: {worst:.2e}")
 
 
 def run_phases(samples, diets, jobs):
@@ -107,6 +145,8 @@ def main(argv=None):
     ap.add_argument("--animals", type=int, default=50)
     ap.add_argument("--repeats", type=int, default=2)
     ap.add_argument("--profile", action="store_true", help="also profile the --jobs 1 run")
+    ap.add_argument("--save", help="folder to keep the --jobs 2 run's results.csv in")
+    ap.add_argument("--check", help="an earlier results.csv of the same study to compare with")
     args = ap.parse_args(argv)
     print(f"isoturnover {iso.__version__}")
     with tempfile.TemporaryDirectory() as tmp:
@@ -119,6 +159,12 @@ def main(argv=None):
         for jobs in (1, 2):
             best = min(run_cli(samples, diets, jobs) for _ in range(args.repeats))
             print(f"{jobs:>6}{best[0]:>11.2f}{best[1]:>15.2f}")
+        if args.save or args.check:
+            keep = Path(args.save) if args.save else Path(tmp) / "kept"
+            run_cli(samples, diets, 2, keep=keep)
+            if args.check:
+                print(f"results.csv against {args.check}:")
+                compare_results(args.check, keep / "results.csv")
         for jobs in (1, 2):
             runs = [run_phases(samples, diets, jobs) for _ in range(args.repeats)]
             best = min(runs, key=lambda r: sum(w for _, w, _ in r))

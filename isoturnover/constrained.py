@@ -164,13 +164,15 @@ class ConstrainedProblem:
             return math.nan
         return self.scale.to_u(v) - u_c if math.isfinite(v) else math.nan
 
-    def grad_h(self, z):
+    def grad_h(self, z, parts=None):
         """Gradient of the constraint function in the coordinates.
 
         Parameters
         ----------
         z : ndarray
             Internal coordinates.
+        parts : tuple of (ndarray, ndarray), optional
+            ``coords.theta(z, jac=True)`` when the caller has it already (θ and dθ/dz).
 
         Returns
         -------
@@ -179,7 +181,7 @@ class ConstrainedProblem:
         """
         self._spend()
         if self.grad is not None:
-            th, A = self.coords.theta(z, jac=True)
+            th, A = self.coords.theta(z, jac=True) if parts is None else parts
             if self.guard and not quantities.incorporation_rates_positive(self.kin, th):
                 return np.full(z.size, np.nan)
             with np.errstate(all="ignore"):
@@ -325,7 +327,7 @@ class ConstrainedProblem:
                 Jz = -(w[:, None] * (Jm @ A))
                 if extra is not None:
                     Jz = np.vstack([Jz, extra(th)[1] @ A])
-                gh = self.grad_h(zf)
+                gh = self.grad_h(zf, (th, A))
             dzj = -gh[rest] / gh[j]
             return Jz[:, rest] + Jz[:, [j]] * dzj[None, :]
 

@@ -75,7 +75,7 @@ class IntervalCache:
             self._cache[key] = make()
         return self._cache[key]
 
-    def cached_frame(self, name, *args):
+    def cached_frame(self, name, *args, copy=True):
         """A copy of the table ``getattr(self, name)(*args)``, computed once and kept.
 
         For the interval tables that several views of one fit show (``conf_int``,
@@ -89,13 +89,37 @@ class IntervalCache:
         *args
             Its arguments (hashable: level, method…); the same arguments must always give
             the same table.
+        copy : bool, default=True
+            Return a copy; ``False`` returns the kept table itself, for a caller that only
+            reads it (it must not be changed).
 
         Returns
         -------
         DataFrame
-            A copy of the kept table.
+            A copy of the kept table (the kept table with ``copy=False``).
         """
-        return self.cached(("frame", name, *args), lambda: getattr(self, name)(*args)).copy()
+        frame = self.cached(("frame", name, *args), lambda: getattr(self, name)(*args))
+        return frame.copy() if copy else frame
+
+    def __getstate__(self):
+        """The fit's attributes for pickling, without the kept copies of interval tables.
+
+        A fit travels back from a parallel worker pickled; pandas frames are slow to
+        unpickle, and every ``("frame", …)`` entry of the cache (:meth:`cached_frame`) is
+        rebuilt on request from the interval bounds that stay cached beside it, so those
+        entries are left out. Nothing computed is lost: no interval is computed again.
+
+        Returns
+        -------
+        dict
+            A shallow copy of the instance's ``__dict__``, its cache without frame entries.
+        """
+        state = self.__dict__.copy()
+        cache = state.get("_cache")
+        if cache:
+            state["_cache"] = {k: v for k, v in cache.items()
+                               if not (isinstance(k, tuple) and k and k[0] == "frame")}
+        return state
 
     def _forget(self, method):
         """Drop cached results made from the previous draws of ``method`` (new draws)."""

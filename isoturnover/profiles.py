@@ -486,6 +486,40 @@ def parameter_interval(state, name, level=0.95, *, max_evaluations=None) -> Inte
     done = _fixed_interval(state, name)
     if done is not None:
         return done
+    # each interval once per fit state (tables, summaries and reports all ask for them)
+    memo = getattr(state, "memo", None)
+    key = ("parameter_interval", name, round(level, 12), limit_evals)
+    if memo is not None and key in memo:
+        return memo[key]
+    mirror = _mirrored_fraction(state, name)
+    if mirror is not None:
+        # two pools: f2 = 1 − f1, so fixing f2 at c is fixing f1 at 1 − c — the same
+        # constrained refits; f2's profile is f1's mirrored (bounds and statuses swap)
+        other = parameter_interval(state, mirror, level, max_evaluations=max_evaluations)
+        iv = Interval(float(state.theta[j]), 1.0 - other.upper, 1.0 - other.lower,
+                      other.upper_status, other.lower_status)
+    else:
+        iv = _parameter_interval(state, name, j, level, limit_evals)
+    if memo is not None:
+        memo[key] = iv
+    return iv
+
+
+def _mirrored_fraction(state, name):
+    """The other fraction when ``name`` is the second of exactly two free, unbounded,
+    untied pool fractions (f2 = 1 − f1); None otherwise."""
+    fr = list(state.kinetics.fraction_names)
+    if len(fr) != 2 or name != fr[1]:
+        return None
+    ties = state.coords.ties
+    tied = set(ties.names) if ties is not None else set()
+    if any(nm in state.fixed or nm in state.engine.bounds or nm in tied for nm in fr):
+        return None
+    return fr[0]
+
+
+def _parameter_interval(state, name, j, level, limit_evals):
+    """:func:`parameter_interval` computed (checks, fixed parameters and the memo there)."""
     kin = state.kinetics
     est = float(state.theta[j])
     to_c, from_c, kind = parameter_scale(state, name)
@@ -550,20 +584,36 @@ def parameter_interval(state, name, level=0.95, *, max_evaluations=None) -> Inte
     label = {"rate": f"log_{name}", "fraction": f"logit_{name}"}.get(kind, name)
     j_full = full.labels.index(label) if label in full.labels else None
     bounds = state.engine.bounds
+    dz_dc0 = _profile_direction(engine, full, j_full, state.theta)
     results = []
     for direction in (-1, 1):
         limit = lo_limit if direction < 0 else hi_limit
-        warm = {"theta": state.theta}
+        warm = {"theta": state.theta, "c": c_hat, "dz": dz_dc0}
         budget = EvaluationBudget(limit_evals)
 
         def evaluate(c, warm=warm, budget=budget):
-            d, sol = deviance(c, warm["theta"], budget)
+            theta_start = warm["theta"]
+            if warm["dz"] is not None:
+                # predictor along the profile trace (Bates & Watts 1988): the free
+                # coordinates moved by dz/dc from the last inside point; the plain warm
+                # start when the predicted point leaves the model's domain
+                with np.errstate(all="ignore"):
+                    z_pred = full.z_from_theta(theta_start) + warm["dz"] * (c - warm["c"])
+                    th_pred = full.theta(z_pred)
+                if np.all(np.isfinite(th_pred)):
+                    theta_start = th_pred
+            d, sol = deviance(c, theta_start, budget)
             if not np.isfinite(d):
                 return math.nan, math.nan, False, ""
             if d <= crit:
                 # warm starts come from inside the interval only: a refit outside may sit
                 # in another basin, and stepping back from it can stay trapped there
-                warm["theta"] = sol.theta
+                if warm["dz"] is not None and c != warm["c"]:
+                    with np.errstate(all="ignore"):
+                        dz = (full.z_from_theta(sol.theta) - full.z_from_theta(warm["theta"])) \
+                            / (c - warm["c"])
+                    warm["dz"] = dz if np.all(np.isfinite(dz)) else None
+                warm["theta"], warm["c"] = sol.theta, c
             slope = math.nan
             if j_full is not None:
                 with np.errstate(all="ignore"):
@@ -586,6 +636,27 @@ def parameter_interval(state, name, level=0.95, *, max_evaluations=None) -> Inte
             bound = math.nan
         results.append((bound, status))
     return Interval(est, results[0][0], results[1][0], results[0][1], results[1][1])
+
+
+def _profile_direction(engine, full, j_full, theta):
+    r"""dz/dc of the constrained optimum at the estimate, in the anchored coordinates.
+
+    Of the quadratic approximation :math:`\tfrac12 \Delta z^T H \Delta z` with
+    :math:`H = J^T J`: fixing coordinate :math:`c = z_j` moves the others along
+    :math:`H^{-1} e_j / (H^{-1})_{jj}` (the column of the covariance, up to :math:`s^2`).
+    None when it cannot be computed (then the profile warm-starts without a predictor).
+    """
+    if j_full is None:
+        return None
+    with np.errstate(all="ignore"):
+        try:
+            _, J = engine.problem.evaluate(full, full.z_from_theta(theta))
+            col = np.linalg.solve(J.T @ J, np.eye(J.shape[1])[:, j_full])
+        except (np.linalg.LinAlgError, ValueError, FloatingPointError):
+            return None
+    if not (np.all(np.isfinite(col)) and col[j_full] > 0):
+        return None
+    return col / col[j_full]
 
 
 def check_budget(max_evaluations):

@@ -122,9 +122,18 @@ def time_to(kin, p: float, theta) -> float:
     if kin.structure == "parallel" and kin.growth_kind in (None, "exponential"):
         if len(ks) == 1:
             return -math.log(target) / float(ks[0]) + lag
-        tau = _parallel_root(np.asarray(ks, dtype=float),
-                             np.asarray(theta, dtype=float)[kin.fraction_index], target)
+        # profiles ask for τ at the same θ several times (the quantity, then its gradient)
+        # and at nearby θ: the last root of this model and p is kept on the kinetics'
+        # memo, returned for the same θ and the start of Newton's method otherwise
+        th = np.asarray(theta, dtype=float)
+        key, raw = ("time_to", float(p)), th.tobytes()
+        last = kin.memo.get(key)
+        if last is not None and last[0] == raw:
+            return last[1]
+        tau = _parallel_root(np.asarray(ks, dtype=float), th[kin.fraction_index], target,
+                             None if last is None else last[2])
         if tau is not None:
+            kin.memo[key] = (raw, tau + lag, tau)
             return tau + lag
 
     def g(tau):
@@ -142,21 +151,26 @@ def time_to(kin, p: float, theta) -> float:
     return math.inf
 
 
-def _parallel_root(ks, f, target):
+def _parallel_root(ks, f, target, tau0=None):
     r"""Root of :math:`R(\tau) = \sum_i f_i e^{-k_i \tau} = \text{target}` by Newton's method.
 
-    R is convex and decreasing, so Newton's iterates from :math:`\tau = 0` (where
-    :math:`R = 1 > \text{target}`) increase monotonically to the root (the tangent of a
-    convex function lies below it). Returns None when the iteration does not settle (a pool
-    of rate ~0 holding more than ``target``), and the caller falls back to bracketing.
+    R is convex and decreasing, so Newton's iterates from any :math:`\tau_0` with
+    :math:`R(\tau_0) \ge \text{target}` (:math:`\tau = 0`, where :math:`R = 1`, or a
+    nearby model's root ``tau0`` when it lies there) increase monotonically to the root
+    (the tangent of a convex function lies below it). Returns None when the iteration does
+    not settle (a pool of rate ~0 holding more than ``target``), and the caller falls back
+    to bracketing.
     """
     kl = [float(v) for v in ks]
     fl = [float(v) for v in f]
     if any(v < 0 for v in fl) or not 0 < target < 1:
         return None
     # plain floats: a handful of pools, where numpy's per-call cost would dominate
-    tau = 0.0
     pairs = list(zip(fl, kl))
+    tau = 0.0
+    if tau0 is not None and 0.0 < tau0 < math.inf and \
+            sum(fi * math.exp(-ki * tau0) for fi, ki in pairs) >= target:
+        tau = tau0  # left of the root: the same monotone iteration, a few steps from it
     for _ in range(200):
         R = 0.0
         dR = 0.0

@@ -59,6 +59,10 @@ class FitState:
     aic, aicc, bic : float
     n_criteria_params : int
     converged, optimizer_ok : bool
+    memo : dict
+        Results computed from this state and kept (profile intervals of parameters, by
+        :func:`~isoturnover.profiles.parameter_interval`): the state itself never changes,
+        so each is computed once whoever asks.
     """
 
     def __init__(self, engine, sol, fixed):
@@ -205,6 +209,7 @@ class FitState:
                   self.cov_z, self.cov_z0, self.A, self.covar, self.dead):
             if a is not None:
                 a.setflags(write=False)
+        st["memo"] = {}
         st["_frozen"] = True
 
     _frozen = False  # set at the end of __init__
