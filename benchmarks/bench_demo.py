@@ -24,9 +24,15 @@ times and the fastest run is printed (with its breakdown), with the CPU time of 
 and the load average: a wall time measured on a loaded machine says little by itself (the
 figure workers then get no spare core).
 
+The demo starts drawing each part's figures in worker processes while the next part is
+fitted, so with figures the wall time is less than the sum of the phases' work: the CPU time
+of the figure workers is printed beside it. ``--figure-costs`` also draws every kind of
+figure here, one at a time, and prints what each costs.
+
 Run::
 
-    python benchmarks/bench_demo.py [--repeats 2] [--skip-no-figures]
+    python benchmarks/bench_demo.py [--repeats 2] [--skip-no-figures] [--jobs 2]
+                                    [--figure-costs]
 """
 
 from __future__ import annotations
@@ -101,8 +107,10 @@ def _targets():
            (report, "write_report", "report")]
     out += [(plotting, name, "figures") for name in ("plot_overview", "plot_growth",
                                                        "plot_weights")]
-    # the report's own figure steps (PNG rendering; waiting for the parallel workers)
+    # the report's own figure steps (PNG rendering; waiting for the parallel workers), and
+    # the demo's figures started while the next parts are fitted (pickling them)
     out += [(report, name, "figures") for name in ("_render_figure", "render_figures")]
+    out.append((analysis, "_draw_ahead", "figures"))
     try:
         from isoturnover import reportfigures
     except ImportError:  # pragma: no cover - before the figures had a module of their own
@@ -133,9 +141,18 @@ def timed(phases):
             setattr(owner, name, fn)
 
 
+def _children_cpu():
+    """CPU seconds of the child processes that have ended (the report's figure workers)."""
+    import resource
+
+    r = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return r.ru_utime + r.ru_stime
+
+
 def run_demo_command(figures=True, jobs=1):
     """Seconds of wall time of one ``isoturnover demo`` run, and its phase breakdown."""
     phases = Phases()
+    child0 = _children_cpu()
     with tempfile.TemporaryDirectory() as tmp:
         args = ["demo", "--out", str(Path(tmp) / "out"), "--no-progress", "--jobs", str(jobs)]
         if not figures:
@@ -151,7 +168,58 @@ def run_demo_command(figures=True, jobs=1):
         if code not in (0, None):
             raise SystemExit(f"isoturnover demo failed ({code})")
         n_png = len(list((Path(tmp) / "out").rglob("*.png")))
-    return dt, dict(phases.totals), n_png, cpu, os.getloadavg()[0]
+    return dt, dict(phases.totals), n_png, cpu, os.getloadavg()[0], _children_cpu() - child0
+
+
+def figure_costs(repeats=2):
+    """Seconds to draw and render each kind of report figure, here, one at a time.
+
+    The demo is fitted once (nothing written); then every per-series figure, the weights
+    and the study overview are drawn and rendered to PNG in this process
+    (:func:`isoturnover.reportfigures.figure_png`), fastest of ``repeats``, so the figures'
+    share of the work is known whatever runs them in parallel.
+
+    Returns
+    -------
+    dict
+        kind -> (number of figures, seconds per figure).
+    """
+    from isoturnover import report, reportfigures
+    from isoturnover.analysis import run_demo
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        a = run_demo(None)
+        merged = a.merged()
+        series, _ = report._collect(merged)
+        jobs = {"overview": [], "segments": [], "growth": []}
+        for s in series:
+            if s.fit is None:
+                continue
+            jobs["overview"].append(s.fit)
+            if getattr(s.fit.model, "record", "points") == "segments":
+                jobs["segments"].append(s.fit)
+            g = getattr(s.fit.model, "growth", None)
+            if g is not None:
+                jobs["growth"].append((g, s.fit.time_unit, s.fit))
+        summaries = {s.name: s.fit.summary(a.level, "profile") for s in series
+                     if s.fit is not None}
+        half_lives = {k: sm.half_lives for k, sm in summaries.items()}
+        jobs["weights"] = [merged]
+        jobs["study"] = [report._study_table(series, half_lives)]
+        out = {}
+        for kind, payloads in jobs.items():
+            if not payloads:
+                continue
+            best = None
+            for _ in range(max(1, repeats)):
+                t0 = time.perf_counter()
+                for payload in payloads:
+                    reportfigures.figure_png(kind, payload, a.level)
+                dt = (time.perf_counter() - t0) / max(len(payloads), 1)
+                best = dt if best is None else min(best, dt)
+            out[kind] = (len(payloads), best)
+    return out
 
 
 def main(argv=None):
@@ -160,6 +228,9 @@ def main(argv=None):
     ap.add_argument("--skip-no-figures", action="store_true",
                     help="only the run with every figure")
     ap.add_argument("--jobs", type=int, default=1, help="the demo's --jobs (1)")
+    ap.add_argument("--figure-costs", action="store_true",
+                    help="also draw each kind of figure here, one at a time, and print its "
+                         "cost")
     args = ap.parse_args(argv)
     print(f"isoturnover {iso.__version__}")
     configs = [("demo, every figure", True)]
@@ -171,13 +242,20 @@ def main(argv=None):
             res = run_demo_command(figures, args.jobs)
             if best is None or res[0] < best[0]:
                 best = res
-        dt, totals, n_png, cpu, load = best
+        dt, totals, n_png, cpu, load, child = best
         print(f"\n{label}, --jobs {args.jobs}: {dt:.1f} s wall time ({n_png} PNG files), "
-              f"fastest of {args.repeats}; CPU time of this process {cpu:.1f} s (workers not "
-              f"counted); load average {load:.1f} on {os.cpu_count()} cores")
+              f"fastest of {args.repeats}; CPU time of this process {cpu:.1f} s, of the "
+              f"figure workers {child:.1f} s (fitting workers not counted); load average "
+              f"{load:.1f} on {os.cpu_count()} cores")
         for ph in PHASES:
             s = totals.get(ph, 0.0)
             print(f"  {ph:<10}{s:>8.1f} s {100 * s / dt:>6.1f} %")
+    if args.figure_costs:
+        costs = figure_costs(args.repeats)
+        total = sum(n * c for n, c in costs.values())
+        print(f"\nfigures drawn here one at a time: {total:.1f} s of CPU in all")
+        for kind, (n, c) in costs.items():
+            print(f"  {kind:<10}{n:>4} x {c:.3f} s = {n * c:5.1f} s")
 
 
 if __name__ == "__main__":

@@ -129,7 +129,7 @@ def plot_fit(fit, ax=None, *, band=True, level=0.95, show_switches=True, show_fl
     fit = check_fit(fit, "plot_fit")
     level = _check_level(level)
     show_model = _check_bool(show_model, "show_model")
-    ax = new_axes(ax)
+    ax = new_axes(ax, measured=True)
     curve_c = color or OKABE_ITO["blue"]
     data_c = color or OKABE_ITO["black"]
     t, y = fit.t, fit.y
@@ -211,7 +211,7 @@ def plot_residuals(fit, ax=None, studentized=True):
     fit = check_fit(fit, "plot_residuals")
     if not isinstance(studentized, (bool, np.bool_)):
         raise DataError(f"'studentized' must be True or False; got {studentized!r}")
-    ax = new_axes(ax)
+    ax = new_axes(ax, measured=True)
     infl = fit.influence()
     t = fit.t
     fl = infl["flagged"].to_numpy(dtype=bool)
@@ -330,7 +330,7 @@ def plot_progress(fit, ax=None, *, show_model=True):
         end = f"the second switch (t = {s1:g})" if np.isfinite(s1) else "the last sample"
         raise DataError(f"plot_progress: no sample between the first switch (t = {s0:g}) and "
                         f"{end}; the reaction progress plot needs samples after a switch")
-    ax = new_axes(ax)
+    ax = new_axes(ax, measured=True)
     tt, yy = t[inside], fit.y[inside]
     sd = None if fit.sigma is None else fit.sigma[inside]
     tab = reaction_progress(tt, yy, delta0=d0, delta_eq=deq, sd=sd)
@@ -496,7 +496,7 @@ def plot_pools(fit, ax=None, *, t_max=None):
         When ``t_max`` is not a positive number, or ``fit``/``ax`` are of the wrong kind.
     """
     fit = check_fit(fit, "plot_pools")
-    ax = new_axes(ax)
+    ax = new_axes(ax, measured=True)
     kin = fit.kinetics
     v = fit.values
     s0 = float(kin.switch_times[0])
@@ -610,7 +610,7 @@ def plot_growth(growth_fit, ax=None, *, turnover_fit=None, mass_unit=None, time_
                             "incorporation rates); pass a fit made with growth=…")
     unit_code = time_unit or (turnover_fit.time_unit if turnover_fit is not None else "d")
     mass_unit = _mass_unit(growth_fit, mass_unit)
-    ax = new_axes(ax)
+    ax = new_axes(ax, measured=True)
     t = np.asarray(growth_fit.t, dtype=float)
     m = np.asarray(growth_fit.mass, dtype=float)
     grid = np.linspace(float(t.min()), float(t.max()), 300)
@@ -738,7 +738,7 @@ def plot_weights(fitset, ax=None):
     while ncol > 1 and ncol * max(col_w) > room:
         ncol -= 1
     rows = -(-len(cands) // ncol) if cands else 0
-    ax = new_axes(ax, size=(width, 0.95 + 0.25 * n + 0.15 * rows))
+    ax = new_axes(ax, size=(width, 0.95 + 0.25 * n + 0.15 * rows), measured=True)
     colors = {c: series_color(i) for i, c in enumerate(cands)}
     drawn = set()
     for yi, r in enumerate(fitset.values()):
@@ -792,17 +792,21 @@ def plot_overview(fit, *, level=0.95):
     -------
     matplotlib Figure
         7 × 5 in (two journal columns): the fit across the top, residuals and reaction
-        progress below; constrained layout. The fit's label is the title, with isotope codes
-        in δ notation as on the axes (:func:`isoturnover.plotkit.series_title`); when it
-        names the model, the legends do not repeat it. Legends are placed when the figure
+        progress below; margins measured from the text
+        (:func:`isoturnover.plotkit.measured_margins`). The fit's label is the title, with
+        isotope codes in δ notation as on the axes
+        (:func:`isoturnover.plotkit.series_title`); when it names the model, the legends do
+        not repeat it. Legends are placed when the figure
         is drawn (once, on saving: :func:`isoturnover.plotkit.placing_layout`).
     """
     import matplotlib.pyplot as plt
 
     fit = check_fit(fit, "plot_overview")
-    fig = plt.figure(figsize=(DOUBLE[0], 5.0), layout=placing_layout())
+    fig = plt.figure(figsize=(DOUBLE[0], 5.0), layout=placing_layout(measured=True))
     try:
-        gs = fig.add_gridspec(2, 2)
+        # a guess near the measured margins (plotkit.measured_margins): one measurement
+        gs = fig.add_gridspec(2, 2, left=0.09, right=0.99, bottom=0.085, top=0.91,
+                              wspace=0.16, hspace=0.34)
         axes = [fig.add_subplot(gs[0, :]), fig.add_subplot(gs[1, 0]),
                 fig.add_subplot(gs[1, 1])]
         title = series_title(fit.label) if fit.label else ""

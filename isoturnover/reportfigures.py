@@ -112,6 +112,15 @@ def _worker_png(data, level, rc):
         return figure_png(kind, payload, level)
 
 
+def _lower_priority():
+    """A figure worker yields to the caller: the fitting and intervals the caller computes
+    meanwhile are the longer path, the figures fill the time a core would be idle."""
+    try:
+        os.nice(5)
+    except (AttributeError, OSError):  # pragma: no cover - no nice on this system
+        pass
+
+
 def _rc_changes():
     """The caller's rcParams that differ from those read at import (so workers match)."""
     import matplotlib as mpl
@@ -191,8 +200,9 @@ def _dumps(obj):
 class FigureJobs:
     """The report's figures, each drawn once: here, or by worker processes.
 
-    With workers, each figure is submitted at once to joblib's loky executor, so it is
-    drawn while the report's text is built; per-series figures can be submitted even
+    With workers (at a lower scheduling priority than the caller, whose work is the longer
+    path), each figure is submitted at once to joblib's loky executor, so it is drawn
+    while the report's text is built; per-series figures can be submitted even
     earlier (:meth:`draw_ahead`, while the rest of a study is fitted). PNG bytes do not
     depend on the number of workers: each figure is drawn the same way from the same
     pickled fit, with the caller's changed rcParams.
@@ -217,7 +227,8 @@ class FigureJobs:
             from joblib.externals.loky import ProcessPoolExecutor
 
             self.rc = _rc_changes()
-            self.executor = ProcessPoolExecutor(max_workers=workers)
+            self.executor = ProcessPoolExecutor(max_workers=workers,
+                                                initializer=_lower_priority)
 
     def add(self, name, kind, payload):
         """Add a figure (with workers: pickle it now and submit it).

@@ -698,3 +698,43 @@ def test_figure_with_pending_placement_pickles(fit1):
     assert type(again.get_layout_engine()).__name__ == "PlacingLayoutEngine"
     plt.close(fig)
     plt.close(again)
+
+
+def _inside_and_apart(fig):
+    """Every axes' text (tick labels, labels, titles, legend) inside the figure, and no two
+    axes' text boxes overlapping (checked on the drawn figure, matplotlib's own extents)."""
+    fig.canvas.draw()
+    r = fig.canvas.get_renderer()
+    fb = fig.bbox
+    boxes = []
+    for ax in fig.axes:
+        bb = ax.get_tightbbox(r)
+        assert bb.x0 >= fb.x0 - 1 and bb.y0 >= fb.y0 - 1, ax
+        assert bb.x1 <= fb.x1 + 1 and bb.y1 <= fb.y1 + 1, ax
+        boxes.append(bb)
+    return boxes
+
+
+def test_measured_margins_keep_the_text_inside_and_apart(fit2, growth_pair):
+    from isoturnover.plotkit import measured_margins
+
+    fig = P.plot_overview(fit2)
+    assert fig.get_layout_engine().measured
+    boxes = _inside_and_apart(fig)
+    a, b, c = boxes
+    assert a.y0 > max(b.y1, c.y1) - 1  # the top panel's text above the lower panels'
+    assert b.x1 < c.x0 + 1  # panel b's text left of panel c's
+    # a title: above every panel's text
+    t, y = one_pool_data()
+    f = iso.TurnoverModel(1, isotope="d13C").fit(t, y, warn=False, label="G01 / d13C: 1 pool")
+    fig = P.plot_overview(f)
+    top = _inside_and_apart(fig)[0]
+    assert fig.texts[0].get_window_extent().y0 >= top.y1 - 1
+    g, tf = growth_pair
+    ax = P.plot_growth(g, turnover_fit=tf, mass_unit="kg")
+    _inside_and_apart(ax.figure)  # the share axis on the right included
+    # axes that are not all on one grid: left to the constrained layout
+    fig2 = Figure()
+    fig2.add_axes((0.1, 0.1, 0.8, 0.8))
+    assert measured_margins(fig2) is False
+    plt.close("all")

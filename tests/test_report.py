@@ -460,6 +460,24 @@ def test_figures_identical_whatever_the_worker_count(fitset, tmp_path):
         encoding="utf-8").replace("two_figures", "one_figures")
 
 
+def test_figures_drawn_ahead_are_the_same_files(fitset, tmp_path):
+    from isoturnover.reportfigures import FigureJobs
+
+    plain = R.write_report(fitset, tmp_path / "plain", n_jobs=2)
+    jobs = FigureJobs(2, 0.95)
+    fits = [r.best for r in fitset.values() if r.best is not None]
+    for f in fits:  # started before the report is asked for, as the demo does
+        jobs.draw_ahead("overview", f)
+    assert len(jobs.ahead) == len(fits)
+    ahead = R.write_report(fitset, tmp_path / "ahead", n_jobs=2, figure_jobs=jobs)
+    assert jobs.ahead == {} and jobs.executor is None  # every one taken; workers shut down
+    assert [p.name for p in plain[2:]] == [p.name for p in ahead[2:]]
+    for a, b in zip(plain[2:], ahead[2:]):
+        assert a.read_bytes() == b.read_bytes(), a.name
+    with pytest.raises(iso.DataError, match="'figure_jobs' must be a FigureJobs"):
+        R.write_report(fitset, tmp_path / "bad", figure_jobs="workers")
+
+
 def test_figure_workers():
     from isoturnover.reportfigures import figure_workers
 
