@@ -273,3 +273,30 @@ def test_growth_share_curve_is_instantaneous_for_two_pools():
     # the per-pool rows stay k_g/(k_g + k_d,i) (by hand)
     tab = f.growth_share(method="asymptotic").set_index("quantity")
     assert tab.loc["pool_2", "estimate"] == pytest.approx(g / (g + v["k2"]), rel=1e-12)
+
+
+@pytest.mark.parametrize("curve", [
+    GrowthCurve("logistic", Winf=40.0, k=0.06, ti=30.0),
+    GrowthCurve("von_bertalanffy", Winf=60.0, k=0.02, W0=8.0),
+], ids=["logistic", "von_bertalanffy"])
+@pytest.mark.parametrize("pools", [1, 2])
+def test_mean_residence_time_with_a_growth_curve_equals_adaptive_quadrature(curve, pools):
+    # independent check: scipy.integrate.quad (adaptive) of 1 − F against the library's
+    # fixed composite Gauss–Legendre rule
+    from scipy.integrate import quad
+
+    from isoturnover.quantities import mean_residence_time, remaining_after_switch
+
+    diet = iso.DietHistory(-26.0, changes=[(0.0, -12.0)])
+    kin = TurnoverKinetics(pools, diet=diet, growth=curve)
+    k = [0.08] if pools == 1 else [0.3, 0.005]
+    f = [1.0] if pools == 1 else [0.4, 0.6]
+    theta = np.r_[2.0, k, f]
+    m = mean_residence_time(kin, theta, span=90.0)
+
+    def rem(x):
+        return float(remaining_after_switch(kin, np.array([x]), theta)[0])
+
+    pts = np.geomspace(1e-3, 1e4, 30)
+    ref = quad(rem, 0.0, 1e5, points=pts, limit=800, epsabs=1e-12, epsrel=1e-12)[0]
+    assert m == pytest.approx(ref, rel=1e-8)
