@@ -599,7 +599,7 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
             loss="linear", columns=None, diet_columns=None, mass_columns=None,
             switch_date=None, switch_dates=None, unit="delta", baseline=None,
             mass_unit=None, on_bad_rows="raise", scale="delta", growth_rate=None,
-            segment_origin="base", formation_lag=0.0) -> Analysis:
+            segment_origin="base", formation_lag=0.0, length_unit="mm") -> Analysis:
     """Fit every series of a samples table and choose its model (pools, separation) by AICc.
 
     Parameters
@@ -674,6 +674,8 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
         Where segment distances are measured from.
     formation_lag : float, default=0.0
         Time (≥ 0) from a segment's formation to its emergence at the base.
+    length_unit : str, default="mm"
+        Unit of the segment distances (see :func:`~isoturnover.fit_each`).
     on_bad_rows : {"raise", "drop"}, default="raise"
         A bad row of any table: an error naming file, row and column, or (``"drop"``) a
         warning listing every dropped row (see :func:`~isoturnover.read_samples`).
@@ -749,7 +751,7 @@ def analyse(samples, *, diets=None, masses=None, pools=(1, 2), structures=("para
                   separation=separation, initial=initial, fixed=fixed,
                   absolute_sigma=absolute_sigma, loss=loss, scale=scale,
                   growth_rate=growth_rate, segment_origin=segment_origin,
-                  formation_lag=formation_lag)
+                  formation_lag=formation_lag, length_unit=length_unit)
     return Analysis({"samples": fs}, level=level, ci=ci, n_boot=n_boot, seed=seed,
                     title=title, n_jobs=n_jobs)
 

@@ -18,6 +18,7 @@ from .conventions import check_level as _check_level
 from .derived import check_fit
 from .errors import ConvergenceWarning, DataError
 from .resampling import BootstrapResult
+from .segments import point_kinetics
 
 __all__ = ["band", "BAND_KINDS", "BAND_METHODS"]
 
@@ -95,7 +96,8 @@ def band(fit, t, level=0.95, kind="confidence", method="delta", boot=None, *, si
     -------
     DataFrame
         Columns time, fitted, se (delta method; NaN for bootstrap), lower, upper, level,
-        kind, method.
+        kind, method. For a segment fit, the band of the precursor's point response
+        (:meth:`~isoturnover.TurnoverFit.predict`), not of segment means.
     """
     check_fit(fit, "band", joint=True)
     level = _check_level(level)
@@ -107,7 +109,7 @@ def band(fit, t, level=0.95, kind="confidence", method="delta", boot=None, *, si
         raise DataError(f"'t' must be numeric; got {t!r:.60}") from None
     if tt.ndim != 1 or tt.size == 0 or not np.all(np.isfinite(tt)):
         raise DataError("'t' must be a non-empty one-dimensional array of finite times")
-    kin = fit.kinetics
+    kin = point_kinetics(fit.kinetics)  # a segment fit: the band of the point response
     fitted = fit.predict(tt)
     s_new = _new_sigma(fit, sigma, tt.size)
     s2 = 1.0 if fit.absolute_sigma else fit.s2

@@ -30,6 +30,7 @@ from .cliargs import (
     parse_growth_rate,
     parse_jobs,
     parse_kinetics_list,
+    parse_length_unit,
     parse_level,
     parse_n_sim,
     parse_names,
@@ -130,6 +131,8 @@ def build_parser() -> argparse.ArgumentParser:
       help="segment distances measured from the base (default) or the tip")
     a("--formation-lag", metavar="D", type=parse_non_negative, default=0.0,
       help="time from formation to emergence at the base (default 0)")
+    a("--length-unit", metavar="U", type=parse_length_unit, default="mm",
+      help="length unit of segments and growth rates (default mm)")
     a("--drop-bad-rows", action="store_true",
       help="drop bad rows with a warning listing each (default: stop)")
     a("--mass-unit", metavar="UNIT", default=None,
@@ -442,7 +445,8 @@ def _cmd_fit(args, out):
                 on_bad_rows="drop" if args.drop_bad_rows else "raise", scale=args.scale,
                 switch_date=args.switch_date, switch_dates=args.switch_dates,
                 unit=args.unit, baseline=args.baseline, growth_rate=args.growth_rate,
-                segment_origin=args.segment_origin, formation_lag=args.formation_lag)
+                segment_origin=args.segment_origin, formation_lag=args.formation_lag,
+                length_unit=args.length_unit)
     if a.n_fitted() == 0:
         reasons = "; ".join(f"{' / '.join(map(str, k[1:]))}: {why}"
                             for k, why in list(a.failures().items())[:10])

@@ -12,7 +12,7 @@ import argparse
 __all__ = ["whole_number", "real_number", "fail", "parse_baseline", "parse_column_map",
            "parse_count", "parse_date_format",
            "parse_delta", "parse_fix", "parse_fraction", "parse_fractions", "parse_growth_curve",
-           "parse_growth_rate",
+           "parse_growth_rate", "parse_length_unit",
            "parse_jobs", "parse_kinetics_list", "parse_level", "parse_n_sim",
            "parse_non_negative", "parse_number", "parse_number_list", "parse_pairs",
            "parse_pool_count", "parse_pools", "parse_positive", "parse_positive_int",
@@ -576,3 +576,30 @@ def parse_names(text):
     if not all(names) or len(set(names)) < len(names):
         fail(text, "must be distinct names separated by commas, such as G01,G02")
     return names
+
+
+def parse_length_unit(text):
+    """Parse ``--length-unit U``: the unit of segment distances, a short label (``mm``).
+
+    Parameters
+    ----------
+    text : str
+        The argument as typed.
+
+    Returns
+    -------
+    str
+        The unit (:func:`~isoturnover.segments.check_length_unit`).
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        When ``text`` is empty or longer than 20 characters.
+    """
+    from .errors import DataError
+    from .segments import check_length_unit
+
+    try:
+        return check_length_unit(text, "--length-unit")
+    except DataError:
+        fail(text, "--length-unit must be a short unit label such as mm or cm")

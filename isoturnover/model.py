@@ -31,7 +31,13 @@ from .engine import (
 from .errors import DataError, DataWarning
 from .kinetics import MAX_POOLS, TurnoverKinetics
 from .results import TurnoverFit
-from .segments import SegmentKinetics, formation_intervals, growth_schedule, segment_arrays
+from .segments import (
+    SegmentKinetics,
+    check_length_unit,
+    formation_intervals,
+    growth_schedule,
+    segment_arrays,
+)
 
 __all__ = ["TurnoverModel", "LOSSES", "RECORDS", "fit_power_dilution"]
 
@@ -94,6 +100,10 @@ class TurnoverModel:
         With ``record="segments"``: segment distances measured from the base or the tip.
     tissue_length : float or array-like, optional
         With ``origin="tip"``: the tissue's length at sampling.
+    length_unit : str, default="mm"
+        With ``record="segments"``: the unit of segment distances, tissue length and growth
+        rate (length per time unit), for labels, summaries and figures. Millimetres are
+        common practice for hair, feathers and whiskers.
 
     Raises
     ------
@@ -114,7 +124,8 @@ class TurnoverModel:
     def __init__(self, pools=1, *, structure="parallel", growth=None, lag=False, diet=None,
                  separation="difference", scale="delta", isotope=None, initial="equilibrium",
                  per_diet_separation=False, propagate_growth=True, record="points",
-                 growth_rate=None, formation_lag=0.0, origin="base", tissue_length=None):
+                 growth_rate=None, formation_lag=0.0, origin="base", tissue_length=None,
+                 length_unit="mm"):
         self.pools = pools
         self.structure = structure
         self.growth = growth
@@ -131,6 +142,7 @@ class TurnoverModel:
         self.formation_lag = formation_lag
         self.origin = origin
         self.tissue_length = tissue_length
+        self.length_unit = length_unit
         self._kin = None
         self._kin_key = None
 
@@ -144,7 +156,8 @@ class TurnoverModel:
             The constructor's arguments by name (``pools``, ``structure``, ``growth``,
             ``lag``, ``diet``, ``separation``, ``scale``, ``isotope``, ``initial``,
             ``per_diet_separation``, ``propagate_growth``; with ``record="segments"`` also
-            ``record``, ``growth_rate``, ``formation_lag``, ``origin``, ``tissue_length``); a
+            ``record``, ``growth_rate``, ``formation_lag``, ``origin``, ``tissue_length``,
+            ``length_unit``); a
             diet history as its ``to_dict()``, a growth curve object as
             ``{"curve": curve.to_dict()}``.
         """
@@ -158,7 +171,8 @@ class TurnoverModel:
             seg = {"record": "segments", "growth_rate": gr.tolist(),
                    "formation_lag": float(self.formation_lag), "origin": self.origin,
                    "tissue_length": None if self.tissue_length is None
-                   else np.asarray(self.tissue_length, dtype=float).tolist()}
+                   else np.asarray(self.tissue_length, dtype=float).tolist(),
+                   "length_unit": str(self.length_unit)}
         return {
             "pools": int(self.pools) if not isinstance(self.pools, bool) else self.pools,
             "structure": self.structure,
@@ -479,7 +493,9 @@ class TurnoverModel:
         segment_start, segment_end : array-like of shape (n,), optional
             With ``record="segments"`` and arrays: distances of each segment's ends from the
             model's ``origin`` (``t_or_frame`` then holds the sampling time(s)); a frame
-            gives them as columns. The fit's ``t`` are the segments' formation midpoints.
+            gives them as columns. The fit's ``t`` are the segments' formation midpoints;
+            its ``data_info`` records each point's ``sample_time``, ``segment_start`` and
+            ``segment_end`` (what :func:`~isoturnover.plot_segments` draws).
 
         Returns
         -------
@@ -565,6 +581,7 @@ class TurnoverModel:
         """(SegmentKinetics, data) of a segment series: each segment's formation interval
         from the model's growth rate, lag and origin; the engine fits the midpoints."""
         growth_schedule(self.growth_rate)  # names a missing or bad growth rate first
+        check_length_unit(self.length_unit)
         arr = segment_arrays(t_or_frame, y, sigma, segment_start, segment_end)
         t1, t2 = formation_intervals(arr["segment_start"], arr["segment_end"],
                                      arr["sample_time"], self.growth_rate,
@@ -573,6 +590,10 @@ class TurnoverModel:
         kin = SegmentKinetics(self.kinetics, t1, t2)
         data = prepare_data((t1 + t2) / 2.0, arr["y"], arr["sigma"],
                             time_unit or arr["time_unit"], warn_repeats=False)
+        # the segments themselves, each point's, for figures and the saved record
+        data["info"] = {**data["info"], "record": "segments", **{
+            k: np.broadcast_to(arr[k], arr["y"].shape).astype(float).tolist()
+            for k in ("sample_time", "segment_start", "segment_end")}}
         return kin, data
 
 

@@ -30,7 +30,7 @@ from .plotkit import (
     time_unit_word,
     tissue_label,
 )
-from .segments import formation_intervals, growth_schedule
+from .segments import check_length_unit, formation_intervals, growth_schedule
 
 __all__ = ["plot_segments", "segment_geometry"]
 
@@ -119,7 +119,8 @@ def plot_segments(fit, ax=None, *, segment_start=None, segment_end=None, sample_
     segment_start, segment_end, sample_time : array-like, optional
         The segments (see :func:`segment_geometry`); default those the fit recorded.
     length_unit : str, optional
-        Unit of the distances (``"mm"``), for the axis label.
+        Unit of the distances, for the axis label and the growth rate; default the model's
+        ``length_unit`` (``"mm"`` unless set).
 
     Returns
     -------
@@ -138,8 +139,10 @@ def plot_segments(fit, ax=None, *, segment_start=None, segment_end=None, sample_
         ``ax``.
     """
     g = segment_geometry(fit, segment_start, segment_end, sample_time)
-    ax = new_axes(ax, size=SIZE)
     model = fit.model
+    length_unit = check_length_unit(getattr(model, "length_unit", "mm") if length_unit is None
+                                    else length_unit)
+    ax = new_axes(ax, size=SIZE)
     a, b, y, sd = g["start"], g["end"], g["y"], g["sd"]
     mid = (a + b) / 2.0
     fitted = fit.predict_segments(a, b, sample_time=g["sample_time"],
@@ -175,9 +178,8 @@ def plot_segments(fit, ax=None, *, segment_start=None, segment_end=None, sample_
         switches = np.asarray(fit.kinetics.switch_times, dtype=float)
         at = place_of(switches) if switches.size else np.array([])
         x = np.union1d(x, at[(at > lo) & (at < hi)])
-        kin = model.kinetics                     # the point model (not the segment means)
-        theta = np.array([fit.values[n] for n in kin.param_names])
-        ax.plot(x, kin.evaluate(time_at(x), theta), color=_POINT, lw=0.9, ls="--",
+        # fit.predict is the point model at every time (never a segment mean)
+        ax.plot(x, fit.predict(time_at(x)), color=_POINT, lw=0.9, ls="--",
                 label="precursor at formation (point model)")
         first = True
         for xs in at:
@@ -189,14 +191,14 @@ def plot_segments(fit, ax=None, *, segment_start=None, segment_end=None, sample_
         top.set_xlabel(f"formation time ({time_unit_word(fit)})", fontsize=TICK_PT + 1)
         top.tick_params(labelsize=TICK_PT)
         ax.set_xlim(lo, hi)
-        if model.origin == "base":
-            rate = np.unique(sched.rates)
-            note = (f"growth rate {rate[0]:.3g}" + (f" {length_unit}" if length_unit else "")
-                    + f" per {time_unit_word(fit).rstrip('s')}" if rate.size == 1
-                    else "piecewise growth rate")
-            ax.set_title(note, fontsize=LEGEND_PT, loc="right", pad=18, color=GREY)
-    unit = f" ({length_unit})" if length_unit else ""
-    style_axes(ax, f"Distance from the {where} of the tissue{unit}", tissue_label(fit))
+        rate = np.unique(sched.rates)
+        per = f"{length_unit} per {time_unit_word(fit).rstrip('s')}"
+        note = (f"growth rate {rate[0]:.3g} {per}" if rate.size == 1
+                else f"piecewise growth rate ({per})")
+        if length is not None:
+            note += f"; tissue {length:g} {length_unit} long"
+        ax.set_title(note, fontsize=LEGEND_PT, loc="right", pad=18, color=GREY)
+    style_axes(ax, f"Distance from the {where} ({length_unit})", tissue_label(fit))
     if fit.label:
         ax.set_title(series_title(fit.label), fontsize=TICK_PT + 1, loc="left", pad=18)
     ax.spines[["right", "top"]].set_visible(False)

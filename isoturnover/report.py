@@ -795,24 +795,29 @@ def _write(series, fitset, jobs, *, title, level, method, figures, overwrite, bo
             entries = []
             name = f"{i:02d}_{slug(s.name)}.png"
             jobs.add(name, "overview", s.fit)
+            is_seg = getattr(s.fit.model, "record", "points") == "segments"
             entries.append((name, f"Fit of {s.name}",
                             f"{s.name}: (a) data, fitted curve and {pct_text(level)} confidence "
                             "band (dashed lines: diet switches; squares: flagged points, kept "
                             "in the fit); (b) studentized residuals with ±2 and ±3 guides; "
-                            "(c) reaction progress ln(1 − F) with the fitted curve."))
-            if getattr(s.fit.model, "record", "points") == "segments" and \
-                    s.fit.data_info.get("segment_start") is not None:
+                            "(c) reaction progress ln(1 − F) with the fitted curve."
+                            + (" Segments are points at their formation midpoints; the curve "
+                               "and band are the precursor's point response (the fitted "
+                               "segment means, which the residuals use, are in the segment "
+                               "profile below)." if is_seg else "")))
+            if is_seg and s.fit.data_info.get("segment_start") is not None:
                 sname = f"{i:02d}_{slug(s.name)}_segments.png"
                 jobs.add(sname, "segments", s.fit)
+                lu = getattr(s.fit.model, "length_unit", "mm")
                 entries.append((sname, f"Segment profile of {s.name}",
-                                f"{s.name}: δ along the tissue (distance in the length unit "
-                                "of the growth rate; top axis: formation time). Thick bars: "
-                                "measured segments over their length; thin black bars: fitted "
-                                "segment means (the model averaged over each segment's "
-                                "formation interval); dashed line: the precursor at the "
-                                "instant each place formed; dotted lines: tissue formed at a "
-                                "diet switch. In the overview above, each segment is a point "
-                                "at its formation midpoint."))
+                                f"{s.name}: δ along the tissue (distance from the "
+                                f"{s.fit.model.origin} in {lu}, growth rate in {lu} per "
+                                f"{unit_word(s.fit.time_unit)[:-1]}; top axis: formation "
+                                "time). Thick bars: measured segments over their length; "
+                                "thin black bars: fitted segment means (the model averaged "
+                                "over each segment's formation interval); dashed line: the "
+                                "precursor's point response at the instant each place "
+                                "formed; dotted lines: tissue formed at a diet switch."))
             g = getattr(s.fit.model, "growth", None)
             if g is not None and hasattr(g, "t") and hasattr(g, "mass"):
                 tf = s.fit if hasattr(s.fit, "growth_share_curve") else None

@@ -31,7 +31,7 @@ from .growthdilution import (
 )
 from .intervalcache import IntervalCache
 from .records import FitRecord
-from .segments import SegmentPredictions, resolution_notes
+from .segments import SegmentPredictions, point_kinetics, resolution_notes
 from .summary import (
     LmfitViews,
     Summary,
@@ -127,7 +127,10 @@ class TurnoverFit(LmfitViews, GrowthDilution, IntervalCache, FitRecord, SegmentP
 
     # -- predictions ---------------------------------------------------------------------
     def predict(self, t) -> np.ndarray:
-        """Fitted tissue δ at given times.
+        """Fitted tissue δ at given times: the point model δ(t) at every ``t``.
+
+        A segment fit gives the precursor's response, also at a formation midpoint (segment
+        means: :meth:`predict_segments`; :attr:`best_fit`, :attr:`residuals` stay those).
 
         Parameters
         ----------
@@ -140,7 +143,7 @@ class TurnoverFit(LmfitViews, GrowthDilution, IntervalCache, FitRecord, SegmentP
             δ (‰), of the shape of ``t`` (at least 1-d).
         """
         t = finite_array("t", t)
-        return self.kinetics.evaluate(t.ravel(), self._theta).reshape(t.shape)
+        return point_kinetics(self.kinetics).evaluate(t.ravel(), self._theta).reshape(t.shape)
 
     # -- interval machinery (cached) ----------------------------------------------------
     def _implicit_fixed(self):

@@ -291,7 +291,8 @@ def plan_segments(truth, *, segment_lengths, tissue_length, sample_time, growth_
         a = np.arange(n) * length
         prof = SegmentProfile(pools, segment_start=a, segment_end=a + length,
                               sample_time=sample_time, growth_rate=growth_rate,
-                              formation_lag=formation_lag, **model_options)
+                              formation_lag=formation_lag, length_unit=length_unit,
+                              **model_options)
         res = simulate_design(prof, truth, prof.midpoints, sd=sd, n_sim=n_sim, rng=rng,
                               level=level, n_jobs=n_jobs, quantity=quantity, pool=pool,
                               method=method)

@@ -57,7 +57,7 @@ import math
 import numpy as np
 from scipy.special import exprel
 
-from .conventions import check_choice
+from .conventions import check_choice, unit_word
 from .errors import DataError
 from .kinetics import TurnoverKinetics
 from .responses import chain_terms
@@ -70,6 +70,9 @@ __all__ = [
     "segment_means",
     "check_segment_kinetics",
     "SegmentKinetics",
+    "point_kinetics",
+    "check_length_unit",
+    "segment_data_text",
     "segment_arrays",
     "resolution_notes",
     "SegmentPredictions",
@@ -489,8 +492,11 @@ class SegmentKinetics(TurnoverKinetics):
     The engine fits one array of times; for a segment series that array holds each
     segment's formation midpoint :math:`(t_1 + t_2)/2`, and :meth:`evaluate` returns the
     exact mean over :math:`[t_1, t_2]` (:func:`segment_means`) at those times and the point
-    model anywhere else (a fitted curve drawn on a grid is the precursor's point response).
-    Everything else (parameters, rates, levels) is the point model's.
+    model anywhere else. That is for the engine (residuals, Jacobian, fitted values at the
+    fit's own times) only: a curve at other times, :meth:`TurnoverFit.predict
+    <isoturnover.TurnoverFit.predict>` and the bands, use :attr:`point_model` (through
+    :func:`point_kinetics`), so a grid time that happens to equal a midpoint gives no
+    segment mean. Everything else (parameters, rates, levels) is the point model's.
 
     Parameters
     ----------
@@ -501,6 +507,9 @@ class SegmentKinetics(TurnoverKinetics):
 
     Attributes
     ----------
+    point_model : TurnoverKinetics
+        ``base`` (or, if it is a segment model, its point model): the precursor's point
+        response, with the same parameters.
     midpoints : ndarray
         Distinct formation midpoints, increasing (the times the engine fits).
     formation_start, formation_end : ndarray
@@ -541,6 +550,7 @@ class SegmentKinetics(TurnoverKinetics):
                 "them as separate series")
         self.midpoints, self.formation_start, self.formation_end = mid, t1, t2
         self.durations = t2 - t1
+        self.point_model = point_kinetics(base)  # a segment model's own point model
 
     def evaluate(self, t, theta, jacobian: bool = False):
         """Segment means at the formation midpoints, the point model elsewhere.
@@ -583,9 +593,85 @@ class SegmentKinetics(TurnoverKinetics):
         return y, J
 
 
+def point_kinetics(kin):
+    """The point model of a kinetic model: a segment model's :attr:`~SegmentKinetics.
+    point_model`, any other model itself.
+
+    Parameters
+    ----------
+    kin : TurnoverKinetics
+        A fit's kinetics.
+
+    Returns
+    -------
+    TurnoverKinetics
+        A model whose ``evaluate(t, theta)`` is the point response δ(t) at every ``t``
+        (never a segment mean), with the same parameters as ``kin``.
+    """
+    return kin.point_model if isinstance(kin, SegmentKinetics) else kin
+
+
 # ----------------------------------------------------------------------------------------
 # Data and notes
 # ----------------------------------------------------------------------------------------
+def check_length_unit(length_unit, name: str = "length_unit") -> str:
+    """A segment length unit: a short non-empty label such as ``"mm"``.
+
+    Parameters
+    ----------
+    length_unit : str
+        Unit of the segment distances (labels of axes, growth rates and reports).
+    name : str, default="length_unit"
+        Name of the argument, for messages.
+
+    Returns
+    -------
+    str
+        The unit, stripped of surrounding blanks.
+
+    Raises
+    ------
+    DataError
+        When it is not a string of 1–20 characters on one line.
+    """
+    u = length_unit.strip() if isinstance(length_unit, str) else None
+    if not u or len(u) > 20 or "\n" in u:
+        raise DataError(f"'{name}' must be a short unit label such as 'mm' or 'cm'; got "
+                        f"{length_unit!r:.60}")
+    return u
+
+
+def segment_data_text(fit) -> str | None:
+    """The data line of a segment fit's summary, or None for other fits.
+
+    Parameters
+    ----------
+    fit : TurnoverFit
+        A fit; a segment fit (``record="segments"``) gives a line.
+
+    Returns
+    -------
+    str or None
+        For example ``"24 segments (0–96 mm), formed over days -60 to 180"``: the number
+        of points fitted, the span of the segment ends (when the fit recorded them) in the
+        model's length unit, and the span of the formation intervals.
+    """
+    kin = fit.kinetics
+    if not isinstance(kin, SegmentKinetics):
+        return None
+    info = fit.data_info
+    span = ""
+    if info.get("segment_start") is not None and info.get("segment_end") is not None:
+        lo = float(np.min(np.asarray(info["segment_start"], dtype=float)))
+        hi = float(np.max(np.asarray(info["segment_end"], dtype=float)))
+        unit = getattr(fit.model, "length_unit", "mm")
+        span = f" ({lo:g}–{hi:g} {unit})"
+    n = int(fit.nobs)
+    return (f"{n} segment{'s' if n != 1 else ''}{span}, formed over "
+            f"{unit_word(fit.time_unit)} {float(np.min(kin.formation_start)):g} to "
+            f"{float(np.max(kin.formation_end)):g}")
+
+
 def segment_arrays(t_or_frame, y=None, sigma=None, segment_start=None, segment_end=None):
     """Sampling times, segment ends, values and sd of one segment series.
 

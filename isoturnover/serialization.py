@@ -31,7 +31,13 @@ from .growthfit import load_growth
 from .growthlaws import check_curve_values, curve_law
 from .model import RECORDS, TurnoverModel
 from .results import TurnoverFit
-from .segments import ORIGINS, SegmentKinetics, formation_intervals, growth_schedule
+from .segments import (
+    ORIGINS,
+    SegmentKinetics,
+    check_length_unit,
+    formation_intervals,
+    growth_schedule,
+)
 
 __all__ = ["load_fit", "parse_json", "read_json", "MAX_DEPTH", "FORMAT_VERSION"]
 
@@ -43,7 +49,8 @@ MAX_DEPTH = 64
 FORMAT_VERSION = 1
 
 # Options of a segment fit (record="segments"), written only by such fits.
-_SEGMENT_KEYS = ("record", "growth_rate", "formation_lag", "origin", "tissue_length")
+_SEGMENT_KEYS = ("record", "growth_rate", "formation_lag", "origin", "tissue_length",
+                 "length_unit")
 # The model's options as TurnoverModel.config() writes them (the constructor's arguments).
 _MODEL_KEYS = tuple(TurnoverModel().config()) + _SEGMENT_KEYS
 # Options that records written before they existed lack (the default is what those fits used).
@@ -427,7 +434,8 @@ def _check_model(c: _Checker, m: dict, path: str) -> TurnoverModel:
 
 def _check_segment_options(c: _Checker, m: dict, path: str) -> None:
     """The options of a segment fit: record, growth rate (a number or (time, rate) rows),
-    formation lag (≥ 0), origin, tissue length (numbers or null)."""
+    formation lag (≥ 0), origin, tissue length (numbers or null), length unit (a short
+    label; "mm" in records written before it was stored)."""
     if c.text(m["record"], f"{path}.record", choices=RECORDS) != "segments":
         return
     for key in ("growth_rate", "formation_lag", "origin"):
@@ -449,6 +457,11 @@ def _check_segment_options(c: _Checker, m: dict, path: str) -> None:
         c.numbers(tl, f"{path}.tissue_length", positive=True)
     else:
         c.number(tl, f"{path}.tissue_length", none=True, positive=True)
+    if "length_unit" in m:
+        try:
+            check_length_unit(c.text(m["length_unit"], f"{path}.length_unit"))
+        except DataError as e:
+            c.rebuilt(f"{path}.length_unit", e)
 
 
 def _segment_kinetics(c: _Checker, model, dd: dict, data_t, path: str):

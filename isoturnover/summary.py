@@ -23,6 +23,7 @@ import pandas as pd
 
 from . import quantities
 from .conventions import INTERVAL_COLUMNS, check_level, check_method, unit_word
+from .segments import segment_data_text
 
 __all__ = ["Summary", "fit_table", "fit_notes", "influence_table", "LmfitViews",
            "fixed_by_construction", "mean_residence_time_names", "growth_share_note",
@@ -443,8 +444,8 @@ class Summary:
         else:
             weighting = "weights 1/σ² (relative); residual variance estimated"
         rows = [
-            ("Data", f"{f.label + ': ' if f.label else ''}{f.nobs} time points, "
-                     f"t = {f.t.min():g} to {f.t.max():g} {unit}"),
+            ("Data", f"{f.label + ': ' if f.label else ''}" + (segment_data_text(f) or (
+                f"{f.nobs} time points, t = {f.t.min():g} to {f.t.max():g} {unit}"))),
             ("Model", f.model.describe()),
             ("Method", f"least squares ({'robust, ' + f.loss if f.loss != 'linear' else 'linear'}"
                        f" loss), {f.starts_tried} start(s); intervals: "

@@ -24,8 +24,10 @@ from isoturnover.errors import DataError, DesignWarning
 from isoturnover.kinetics import TurnoverKinetics
 from isoturnover.segments import (
     SegmentKinetics,
+    check_length_unit,
     formation_intervals,
     growth_schedule,
+    point_kinetics,
     segment_means,
 )
 
@@ -217,6 +219,37 @@ def test_frame_and_arrays_give_the_same_fit():
     assert np.allclose(f1.state.theta, f2.state.theta, rtol=1e-8)
 
 
+def test_predict_of_a_segment_fit_is_the_point_model_everywhere():
+    y = whisker(np.random.default_rng(5))
+    fit = iso.TurnoverModel(2, record="segments", growth_rate=G_RATE).fit(
+        T_SAMPLE, y, segment_start=A, segment_end=B, warn=False)
+    th = fit.state.theta
+    assert point_kinetics(fit.kinetics) is fit.kinetics.point_model
+    assert point_kinetics(TurnoverKinetics(1)).__class__ is TurnoverKinetics
+    grid = np.r_[fit.t[::7], np.linspace(-40.0, 120.0, 9)]   # midpoints among grid times
+    # source: the point model itself at the fitted parameters
+    np.testing.assert_allclose(fit.predict(grid), TurnoverKinetics(2).evaluate(grid, th),
+                               rtol=0, atol=1e-12)
+    # the fitted values stay the exact segment means (segment_means, quadrature-checked)
+    t1, t2 = formation_intervals(A, B, T_SAMPLE, G_RATE)
+    order = np.argsort((t1 + t2) / 2.0)
+    means = segment_means(TurnoverKinetics(2), th, t1[order], t2[order])
+    np.testing.assert_allclose(fit.best_fit, means, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(fit.residuals, fit.y - means, rtol=0, atol=1e-12)
+    # a fit on arrays records each point's segment (what plot_segments draws)
+    info = fit.data_info
+    assert info["sample_time"] == [T_SAMPLE] * A.size
+    assert info["segment_start"] == A.tolist() and info["segment_end"] == B.tolist()
+    assert fit.model.length_unit == "mm" and "length_unit" in fit.model.config()
+
+
+def test_check_length_unit():
+    assert check_length_unit(" mm ") == "mm"
+    for bad in ("", "   ", None, 3, "x" * 21, "m\nm"):
+        with pytest.raises(DataError, match="'length_unit'"):
+            check_length_unit(bad)
+
+
 def test_point_fit_predict_segments():
     t = np.array([0.0, 3, 7, 14, 28, 56, 90])
     y = -12.0 - 13.0 * np.exp(-0.05 * t) + 0.01 * np.sin(t)
@@ -356,6 +389,10 @@ def test_segment_profile_is_planned_by_the_design_tools():
     y = segment_means(TurnoverKinetics(1), theta, t1, t2) + 1e-4 * np.sin(A)
     fit = prof.fit(prof.midpoints[::-1], y[::-1], warn=False)
     assert abs(fit.values["k1"] - PLAN_TRUTH["k1"]) < 1e-3
+    # its predict is the point model at the midpoints too (source: TurnoverKinetics itself)
+    assert type(fit.kinetics.point_model) is TurnoverKinetics
+    np.testing.assert_allclose(fit.predict(prof.midpoints), TurnoverKinetics(1).evaluate(
+        prof.midpoints, fit.state.theta), rtol=0, atol=1e-12)
     with pytest.raises(DataError, match="not a formation midpoint"):
         prof.fit(prof.midpoints + 0.1, y)
 

@@ -205,6 +205,19 @@ def test_formation_lag_and_tip_origin(hair, diets, fitset):
                       segment_origin="tip")[KEYS[0]].best
     assert from_tip.values == pytest.approx(base.values, rel=1e-8)
     assert from_tip.model.origin == "tip" and from_tip.model.tissue_length == 96.0
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from isoturnover.plotsegments import plot_segments
+
+    ax = plot_segments(from_tip)
+    try:
+        assert ax.get_xlabel() == "Distance from the tip (mm)"
+        assert ax.get_title(loc="right") == "growth rate 0.4 mm per day; tissue 96 mm long"
+    finally:
+        plt.close(ax.figure)
 
 
 # ----------------------------------------------------------------------------------------
@@ -253,7 +266,7 @@ def test_load_refuses_damaged_segment_records(fitset):
 
 
 def test_a_direct_model_fit_saves_and_loads(hair, diets):
-    """A TurnoverModel segment fit (no recorded segment ends): rebuilt from its intervals."""
+    """A TurnoverModel segment fit: rebuilt from its intervals and its recorded segments."""
     g1 = hair[hair["subject"] == "G05"]
     model = iso.TurnoverModel(1, diet=_diet(diets, "B"), record="segments",
                               growth_rate=GROWTH)
@@ -275,6 +288,8 @@ def test_cli_help_lists_the_segment_options():
     assert p.parse_args(["fit", "x.csv", "--growth-rate", "0.4"]).growth_rate == 0.4
     a = p.parse_args(["fit", "x.csv"])
     assert (a.growth_rate, a.segment_origin, a.formation_lag) == (None, "base", 0.0)
+    assert a.length_unit == "mm" and "--length-unit" in text
+    assert p.parse_args(["fit", "x.csv", "--length-unit", " cm "]).length_unit == "cm"
 
 
 @pytest.mark.parametrize("argv, what", [
@@ -282,6 +297,8 @@ def test_cli_help_lists_the_segment_options():
     (["--growth-rate", "-0.4"], "--growth-rate"),
     (["--segment-origin", "root"], "--segment-origin"),
     (["--formation-lag", "-2"], "--formation-lag"),
+    (["--length-unit", ""], "--length-unit"),
+    (["--length-unit", "x" * 21], "--length-unit"),
 ])
 def test_cli_bad_segment_options(argv, what, tmp_path, capsys):
     with pytest.raises(SystemExit) as e:                     # argparse's exit
@@ -331,10 +348,14 @@ def test_cli_segment_origin_tip(tmp_path, capsys, hair, fitset):
     assert main(["fit", str(path), "--diets", str(demo_path("goat_diets")), "--pools", "1",
                  "--per-diet-separation", "no", "--growth-rate", "hair=0.4",
                  "--segment-origin", "tip", "--no-figures", "--no-progress",
-                 "--out", str(out)]) == 0
+                 "--length-unit", "cm", "--out", str(out)]) == 0
     tab = pd.read_csv(out / "results.csv")
     assert tab["half_life_1"].iloc[0] == pytest.approx(
         fitset[KEYS[3]].fits["1 pool"].half_lives()["half_life"].iloc[0], rel=1e-6)
+    # the unit is a label: carried into the saved fits and the report's data line
+    assert {e["fit"].model.length_unit for e in iso.load_fits(out / "fits.json")} == {"cm"}
+    assert "24 segments (0–96 cm), formed over days -60 to 180" in (
+        out / "report.md").read_text(encoding="utf-8")
     capsys.readouterr()
 
 
@@ -367,7 +388,8 @@ def test_plot_segments_draws_the_profile(fitset):
         assert labels[:2] == ["measured segment", "fitted segment mean"]
         assert "precursor at formation (point model)" in labels
         assert "formed at a diet switch" in labels
-        assert ax.get_xlabel() == "Distance from the base of the tissue (mm)"
+        assert ax.get_xlabel() == "Distance from the base (mm)"
+        assert ax.get_title(loc="right") == "growth rate 0.4 mm per day"
         # diet switches at days 0 and 120 lie at (180 - s) * 0.4 mm from the base: 72, 24
         xs = sorted(ln.get_xdata()[0] for ln in ax.get_lines() if ln.get_linestyle() == ":")
         np.testing.assert_allclose(xs, [24.0, 72.0])
@@ -392,8 +414,6 @@ def test_plot_segments_refuses_what_it_cannot_draw(hair, diets, fitset):
         plot_segments(point)
     direct = _quiet(iso.TurnoverModel(1, diet=_diet(diets, "A"), record="segments",
                                       growth_rate=GROWTH).fit, hair[hair["subject"] == "G01"])
-    with pytest.raises(DataError, match="does not record its segments"):
-        plot_segments(direct)
     with pytest.raises(DataError, match="do not give the fit's"):
         plot_segments(direct, segment_start=[0.0], segment_end=[4.0], sample_time=180.0)
 
@@ -409,3 +429,103 @@ def test_report_has_a_segment_figure(tmp_path, hair, diets):
     assert any(n.endswith("_segments.png") for n in figs)
     md = (tmp_path / "r" / "report.md").read_text(encoding="utf-8")
     assert "Segment profile of" in md and "formation time" in md
+
+
+# ----------------------------------------------------------------------------------------
+# length unit, direct fits, predict
+# ----------------------------------------------------------------------------------------
+def test_length_unit_travels_with_the_fit(hair, diets, fitset):
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from isoturnover.plotsegments import plot_segments
+
+    f_mm = fitset[KEYS[0]].best
+    assert f_mm.model.length_unit == "mm"                     # the default
+    fs = _quiet(iso.fit_each, hair[hair["subject"] == "G01"], diets=diets, pools=1,
+                growth_rate=GROWTH, length_unit="cm")
+    f = fs[KEYS[0]].best
+    assert f.model.length_unit == "cm"
+    # source, by hand: cut on day 180 at 0.4 per day, the 96-long profile was formed from
+    # day 180 - 96/0.4 = -60 to day 180 (no lag)
+    data = dict(f.summary().header)["Data"]
+    assert data.endswith("24 segments (0–96 cm), formed over days -60 to 180")
+    d = json.loads(f.to_json())
+    assert d["model"]["length_unit"] == "cm"
+    assert iso.load_fit(d).model.length_unit == "cm"
+    old = json.loads(json.dumps(d))
+    del old["model"]["length_unit"]                       # a record from before the unit
+    assert iso.load_fit(old).model.length_unit == "mm"
+    bad = json.loads(json.dumps(d))
+    bad["model"]["length_unit"] = ""
+    with pytest.raises(DataError, match=r"d\.model\.length_unit"):
+        iso.load_fit(bad)
+    ax = plot_segments(f)
+    try:
+        assert ax.get_xlabel() == "Distance from the base (cm)"
+        assert ax.get_title(loc="right") == "growth rate 0.4 cm per day"
+    finally:
+        plt.close(ax.figure)
+    with pytest.raises(DataError, match="'length_unit'"):
+        iso.fit_each(hair, diets=diets, growth_rate=GROWTH, length_unit="")
+    with pytest.raises(DataError, match="'length_unit'"):
+        iso.TurnoverModel(1, record="segments", growth_rate=GROWTH, length_unit=5).fit(
+            hair[hair["subject"] == "G01"], warn=False)
+
+
+def test_a_direct_model_fit_records_its_segments(hair, diets):
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from isoturnover.plotsegments import plot_segments, segment_geometry
+
+    g1 = hair[hair["subject"] == "G01"]
+    f = _quiet(iso.TurnoverModel(1, diet=_diet(diets, "A"), record="segments",
+                                 growth_rate=GROWTH).fit, g1)
+    info = f.data_info
+    assert info["record"] == "segments" and info["sample_time"] == [180.0] * 24
+    np.testing.assert_array_equal(np.sort(info["segment_start"]), np.sort(g1["segment_start"]))
+    np.testing.assert_array_equal(np.sort(info["segment_end"]), np.sort(g1["segment_end"]))
+    d = json.loads(f.to_json())
+    assert d["data"]["segments"]["segment_start"] == info["segment_start"]
+    g = iso.load_fit(d)
+    for fit in (f, g):                                    # drawn without passing segments
+        ax = plot_segments(fit)
+        plt.close(ax.figure)
+        np.testing.assert_array_equal(np.sort(segment_geometry(fit)["y"]), np.sort(fit.y))
+
+
+def test_predict_is_the_point_response_and_the_fit_keeps_segment_means(fitset):
+    from isoturnover.bands import band
+    from isoturnover.segments import segment_means
+
+    f = fitset[KEYS[1]].best
+    th = f.state.theta
+    point = f.model.kinetics                              # the point model (TurnoverKinetics)
+    assert type(point).__name__ == "TurnoverKinetics"
+    g = f.data_info
+    t1, t2 = formation_intervals(g["segment_start"], g["segment_end"], g["sample_time"],
+                                 GROWTH)
+    order = np.argsort((t1 + t2) / 2.0)
+    # source: the exact segment means (segment_means; quadrature-checked in test_segments)
+    means = segment_means(point, th, t1[order], t2[order])
+    np.testing.assert_allclose(f.t, ((t1 + t2) / 2.0)[order], rtol=0, atol=1e-12)
+    # predict at the formation midpoints is the point model there, not the segment mean
+    np.testing.assert_allclose(f.predict(f.t), point.evaluate(f.t, th), rtol=0, atol=1e-12)
+    assert np.max(np.abs(f.predict(f.t) - means)) > 0.05   # they differ where δ curves
+    # fitted values, residuals and the RSS stay those of the segment means
+    np.testing.assert_allclose(f.best_fit, means, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(f.residuals, f.y - means, rtol=0, atol=1e-12)
+    w = 1.0 / np.asarray(f.sigma) ** 2                    # weights 1/sd² (the demo's sd)
+    assert f.rss == pytest.approx(float(np.sum(w * (f.y - means) ** 2)), rel=1e-10)
+    np.testing.assert_allclose(f.influence()["fitted"].to_numpy(), means, rtol=0, atol=1e-12)
+    # the band is the point response's: continuous through a midpoint (no jump to a mean)
+    m = float(f.t[12])
+    b = band(f, [m - 1e-7, m, m + 1e-7])
+    np.testing.assert_allclose(b["fitted"], point.evaluate(b["time"].to_numpy(), th),
+                               rtol=0, atol=1e-12)
+    assert np.ptp(b["se"]) < 1e-5 and np.ptp(b["fitted"]) < 1e-5
