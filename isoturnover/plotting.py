@@ -151,9 +151,12 @@ def plot_fit(fit, ax=None, *, band=True, level=0.95, show_switches=True, show_fl
         else:
             ax.plot([], [], linestyle="none",
                     label="confidence band not available (covariance singular)")
+    # a segment fit's curve is the precursor's point response (its points are segment means)
+    what = "precursor (point response)" if getattr(fit.model, "record", "points") == \
+        "segments" else "fitted"
     ax.plot(grid, fitted, color=curve_c, linewidth=1.3,
-            label=f"{name}: fitted" if name else
-            (f"fitted ({model_name(fit)})" if show_model else "fitted"))
+            label=f"{name}: {what}" if name else
+            (f"{what} ({model_name(fit)})" if show_model else what))
     ekw = dict(fmt="o", markersize=3.5, color=data_c, markerfacecolor=data_c,
                markeredgewidth=0.5, elinewidth=0.8, capsize=1.5, label=name or "data",
                zorder=4)
