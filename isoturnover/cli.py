@@ -290,6 +290,8 @@ def _clock_parser(sub, common):
       help="largest plausible |old - new| (‰) when the old diet is unknown")
     a("--columns", metavar="MAP", type=parse_column_map(FIELD_COLUMNS, "subject=animal"),
       help="field column names, e.g. subject=animal,value=d13C")
+    a("--drop-bad-rows", action="store_true",
+      help="drop bad field rows with a warning listing each (default: stop)")
     a("--ci", metavar="METHOD", choices=("profile", "asymptotic"), default="profile",
       help="intervals of the captive half-lives: profile (default) or asymptotic")
     a("--level", metavar="P", type=parse_level, default=0.95,
@@ -575,7 +577,8 @@ def _cmd_clock(args, out):
         run = run_clock(args.field, args.fits, new=args.new, old=args.old, sd=args.sd,
                         subjects=args.subjects, part=args.part, isotope=args.isotope,
                         rate_cv=args.rate_cv, level=args.level, max_offset=args.max_offset,
-                        columns=args.columns, ci=args.ci)
+                        columns=args.columns, ci=args.ci,
+                        on_bad_rows="drop" if args.drop_bad_rows else "raise")
     except DataError as e:  # name the options, not the library's arguments
         msg = str(e)
         for name, option in _CLOCK_OPTIONS.items():

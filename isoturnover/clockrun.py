@@ -573,7 +573,7 @@ def _per_tissue(name, mapping, tissue, isotope):
 
 def run_clock(field_table, fits, *, new=None, old=None, sd=None, subjects=None, part=None,
               isotope=None, rate_cv=None, level=0.95, max_offset=None, columns=None,
-              ci="profile") -> ClockRun:
+              ci="profile", on_bad_rows="raise") -> ClockRun:
     """Date the diet change of every animal of a field table with a previous run's fits.
 
     Parameters
@@ -601,6 +601,9 @@ def run_clock(field_table, fits, *, new=None, old=None, sd=None, subjects=None, 
         Column mapping of the field table.
     ci : str, default="profile"
         Interval method of the captive half-lives pooled.
+    on_bad_rows : {"raise", "drop"}, default="raise"
+        A bad field row is an error naming file, row and column, or is dropped with a
+        warning listing it (:func:`read_field`).
 
     Returns
     -------
@@ -613,7 +616,7 @@ def run_clock(field_table, fits, *, new=None, old=None, sd=None, subjects=None, 
         row without sd or new value, an animal with one tissue and no old value.
     """
     level = check_level(level)
-    frame = read_field(field_table, columns=columns)
+    frame = read_field(field_table, columns=columns, on_bad_rows=on_bad_rows)
     where = frame.attrs["source"]
     if isotope is not None:
         frame = frame[frame["isotope"].isna() | (frame["isotope"] == isotope)]

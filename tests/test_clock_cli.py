@@ -132,6 +132,15 @@ def test_bad_cell_is_one_line_naming_file_row_column(tmp_path, fits_json, capsys
     line = _one_error_line(capsys.readouterr().err)
     assert "field.csv, row 5, column 'value'" in line and "'abc' is not a number" in line
     assert not out.exists()
+    # with --drop-bad-rows the row is dropped with a warning naming it, the rest dated (the
+    # old diet given: the animal left with one tissue needs it)
+    code = main(["clock", str(f), "--fits", str(fits_json), "--new", NEW, "--old",
+                 "plasma=-25.5,red_cells=-26", "--out", str(out), "--no-figures",
+                 "--drop-bad-rows"])
+    assert code == 0
+    assert "dropped 1 of 24 rows" in capsys.readouterr().err
+    got = pd.read_csv(out / "clock.csv")
+    assert len(got) == len(pd.read_csv(demo_path("field_samples"))["subject"].unique())
 
 
 def test_missing_fits_file(tmp_path, capsys):
