@@ -43,11 +43,11 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from .conventions import INTERVAL_COLUMNS, check_choice, check_level
 from .equilibration import CAUTION
 from .errors import DataError, DataWarning
+from .lazystats import stats
 
 __all__ = ["AllometryFit", "fit_allometry", "SLOPES"]
 

@@ -11,12 +11,12 @@ import warnings
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from .conventions import check_choice as _choice
 from .conventions import check_level as _check_level
 from .derived import check_fit
 from .errors import ConvergenceWarning, DataError
+from .lazystats import stats
 from .resampling import BootstrapResult
 from .segments import point_kinetics
 

@@ -69,11 +69,12 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import optimize, stats
+from scipy import optimize
 
 from .conventions import CAUTION, check_choice, check_level, unit_word
 from .errors import DataError, DataWarning
 from .kinetics import MAX_POOLS, TurnoverKinetics
+from .lazystats import stats
 from .population import PopulationEstimate, RandomEffects
 from .results import TurnoverFit
 

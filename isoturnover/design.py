@@ -53,11 +53,12 @@ import math
 
 import numpy as np
 import pandas as pd
-from scipy import optimize, stats
+from scipy import optimize
 
 from .conventions import CAUTION, check_choice, check_level, check_positive_int, unit_word
 from .designmodel import ModelSpec, model_spec, prior_points
 from .errors import DataError
+from .lazystats import stats
 
 __all__ = ["design_schedule", "evaluate_design", "Design", "CRITERIA", "SD_GUIDANCE",
            "PLAN_CAUTION", "ModelSpec", "model_spec", "prior_points", "target_variance"]

@@ -17,7 +17,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, stats
+from scipy import optimize, special
 
 from . import quantities
 from .conventions import unit_word
@@ -28,10 +28,11 @@ from .errors import (
     GoodnessOfFitWarning,
     IdentifiabilityWarning,
 )
+from .projection import DRIFT_LIMIT
 
-__all__ = ["TrustNote", "trust_notes", "slowest_rate", "plateau_time", "unresolved_rates",
-           "open_unresolved", "after_switch_reason", "first_diet_half_lives", "FAST_LIMIT",
-           "CHI2_ALPHA", "EQUILIBRIUM_HALF_LIVES"]
+__all__ = ["TrustNote", "trust_notes", "drift_reason", "slowest_rate", "plateau_time",
+           "unresolved_rates", "open_unresolved", "after_switch_reason",
+           "first_diet_half_lives", "FAST_LIMIT", "CHI2_ALPHA", "EQUILIBRIUM_HALF_LIVES"]
 
 LN2 = math.log(2.0)
 
@@ -57,7 +58,8 @@ class TrustNote:
     code : str
         Short name of the signal (``"at_bound"``, ``"unidentifiable"``, ``"pools_close"``,
         ``"tiny_pool"``, ``"correlation"``, ``"no_sample_after_switch"``, ``"few_points"``,
-        ``"plateau_not_reached"``, ``"first_diet_start"``, ``"not_converged"``, ``"singular"``,
+        ``"plateau_not_reached"``, ``"first_diet_start"``, ``"not_converged"``,
+        ``"linear_drift"`` (:func:`drift_reason`), ``"singular"``,
         ``"growth_dominates"``, ``"mass_coverage"``, ``"chi2_high"``).
     category : type
         The warning class it is issued as (a subclass of
@@ -100,7 +102,8 @@ def trust_notes(fit) -> list:
     (equilibrium with it assumed; the note gives :func:`first_diet_half_lives` and offers
     ``initial="free"`` below :data:`EQUILIBRIUM_HALF_LIVES`), and, with σ known, the χ² test
     of the weighted residual sum of squares on the fit's degrees of freedom,
-    :math:`P(\\chi^2_{dof} \\ge RSS) <` :data:`CHI2_ALPHA` (``scipy.stats.chi2.sf``).
+    :math:`P(\\chi^2_{dof} \\ge RSS) <` :data:`CHI2_ALPHA` (``scipy.special.chdtrc``, the
+    function behind ``scipy.stats.chi2.sf``).
 
     Parameters
     ----------
@@ -125,6 +128,9 @@ def trust_notes(fit) -> list:
     if not fit.state.optimizer_ok:
         notes.append(TrustNote("not_converged", ConvergenceWarning,
                                f"the optimizer did not converge ({fit.message})"))
+    drift = drift_reason(fit)
+    if drift:
+        notes.append(TrustNote("linear_drift", IdentifiabilityWarning, drift))
     elif fit.nvarys and fit.state.cov_ok and fit.state.dead.any():
         def plain(lab):
             if lab.startswith("log_gap_"):
@@ -283,7 +289,7 @@ def trust_notes(fit) -> list:
                     f"samples run from {t_lo:g} to {t_hi:g}: growth is extrapolated"))
     if fit.absolute_sigma and fit.dof > 0:
         # χ² test of the weighted RSS on the fit's degrees of freedom (scipy)
-        p_chi2 = float(stats.chi2.sf(fit.rss, fit.dof))
+        p_chi2 = float(special.chdtrc(fit.dof, fit.rss))
         if p_chi2 < CHI2_ALPHA:
             notes.append(TrustNote(
                 "chi2_high", GoodnessOfFitWarning,
@@ -293,6 +299,43 @@ def trust_notes(fit) -> list:
                 "(usual for living animals); the intervals are too narrow — refit with "
                 "absolute_sigma=False"))
     return notes
+
+
+def drift_reason(fit) -> str:
+    r"""Why a fit's slowest pool is not reported as a pool: its rate ran to 0 ("" if not).
+
+    The variable-projection fit (:meth:`isoturnover.engine.Engine.fit_projected`) stops
+    when the slowest rate heads to its lower bound 0, with
+    :math:`k_{min}\tau_{max}` below :data:`~isoturnover.projection.DRIFT_LIMIT` (0.01;
+    :math:`\tau_{max}` the last time after the switch): the pool's exponential is then a
+    straight line over the sampling (:math:`b e^{-k\tau} \approx b - bk\tau`), a linear
+    drift when the levels are free (its amplitude and the plateau run off together), a
+    constant offset when the total change is fixed. Such a fit is returned unconverged and
+    flagged rather than searched further (the search only creeps towards :math:`k = 0` until
+    its evaluation limit); its sum of squares and information criteria are those of the
+    point where it stopped, within a relative :math:`O(k_{min}\tau_{max})` of the limit.
+    :func:`~isoturnover.fit_each` keeps it in the comparison but never chooses it.
+
+    Parameters
+    ----------
+    fit : TurnoverFit
+        A finished fit.
+
+    Returns
+    -------
+    str
+        The reason, naming the rate and :math:`k\tau_{max}`; "" for any other fit.
+    """
+    info = fit.state.solution.extra.get("drift")
+    if not info:
+        return ""
+    unit = unit_word(fit.time_unit)
+    return (f"the slowest rate runs to 0: {info['rate']}·τ_max = {info['k_tau']:.2g} "
+            f"(< {DRIFT_LIMIT:g}; τ_max the last sample, in {unit} after the switch); over the "
+            "sampling this pool is a linear drift (or a constant offset), not a pool: its "
+            "rate, half-life and fraction are not determined, and fit_each does not choose "
+            "this model; the fit stopped there (not converged), its RSS within a relative "
+            "O(k·τ_max) of the drift's limit")
 
 
 def first_diet_half_lives(fit):

@@ -23,7 +23,7 @@ from .coordinates import Coordinates, Ties
 from .errors import DataError, DataWarning, FitError
 from .inputs import as_1d, check_growth_coverage, check_names, prepare_data
 from .kinetics import TurnoverKinetics
-from .projection import level_constraints, project_exponentials
+from .projection import DRIFT_LIMIT, level_constraints, project_exponentials
 from .starts import general_starts, projected_rate_starts, step_linear_starts
 from .state import FitState
 
@@ -292,7 +292,7 @@ class Problem:
             return None
         tau = self.t - float(kin.switch_times[0])
         pf = project_exponentials(tau, self.y, self.w, k0, C=C, d=d)
-        if pf is None or not pf.converged:
+        if pf is None or not (pf.converged or pf.drift):
             return None
         # the constraints involve only Σ b: pools may change places, sort by rate (plain
         # floats: a handful of numbers)
@@ -322,10 +322,25 @@ class Problem:
         r, J, th_z, A = self.evaluate_parts(coords, z)
         cost = float(r @ r)
         # the model must reproduce the projected fit (same sum of squares), and the full
-        # problem's gradient must vanish there
-        if not (math.isfinite(cost) and abs(cost - pf.rss) <= 1e-7 * cost + 1e-12
+        # problem's gradient must vanish there; at a drift the pool amplitudes are large
+        # (about the change over kτ_max) and the reduced φ = y·y − c·h loses digits to
+        # cancellation, so only gross disagreement is refused and the cost is the full
+        # problem's
+        rel = 1e-4 if pf.drift else 1e-7
+        if not (math.isfinite(cost) and abs(cost - pf.rss) <= rel * cost + 1e-12
                 * float(self.w @ self.w)):
             return None
+        if pf.drift:
+            # stopped where the slowest rate heads to 0 (projection.DRIFT_LIMIT): returned
+            # flagged and not converged, at the drift's limit; no search continues from it
+            k_tau = k[-1] * float(tau.max())
+            name = kin.rate_names[-1]
+            sol = Solution(z, th_z, cost, 0, pf.n_eval,
+                           f"stopped: the slowest rate runs to 0 ({name}·τ_max = {k_tau:.2g} "
+                           f"< {DRIFT_LIMIT:g}), a linear drift rather than a pool", False, J)
+            sol.extra["drift"] = {"rate": name, "k_tau": k_tau, "limit": DRIFT_LIMIT}
+            sol.extra["evaluated"] = (z, r, A)
+            return sol
         tol = 1e-12 * max(cost, 1e-300)
         if not all(g * g <= tol * s + 1e-300 for g, s in zip((r @ J).tolist(),
                                                              (J * J).sum(axis=0).tolist())):
@@ -738,6 +753,14 @@ class Engine:
         domain (over 200 seeded two- and three-pool series the second start never found a
         lower minimum).
 
+        When the slowest rate runs to 0 from every start tried (a linear drift; see
+        :data:`~isoturnover.projection.DRIFT_LIMIT`), the search stops there: the solution
+        where the iteration stopped (lowest sum of squares) is returned unconverged, with
+        ``extra["drift"]`` (the rate, :math:`k\tau_{max}` and the limit), instead of the
+        multi-start search in the coordinates, which would only creep towards :math:`k = 0`
+        until its evaluation limit. Its sum of squares (hence its information criteria) is
+        that of the stopping point, within a relative :math:`O(k\tau_{max})` of the limit.
+
         Parameters
         ----------
         coords : Coordinates
@@ -750,10 +773,15 @@ class Engine:
         n = self.kin.pools
         tau = self.t - float(self.kin.switch_times[0])
         starts = projected_rate_starts(tau, self.y, self.w, n, 1 if n == 1 else 2)
+        drift = None
         for tried, k0 in enumerate(starts, 1):
             sol = self.problem.solve_projected(coords, k0)
-            if sol is not None:
+            if sol is not None and "drift" not in sol.extra:
                 return sol, tried
+            if sol is not None and (drift is None or sol.cost < drift[0].cost):
+                drift = (sol, tried)
+        if drift is not None:
+            return drift[0], len(starts)
         return None, 0
 
     def _joint_block_weights(self, coords, sol):

@@ -61,7 +61,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from . import quantities
 from .conventions import (
@@ -75,6 +74,7 @@ from .conventions import (
 )
 from .errors import DataError
 from .kinetics import MAX_POOLS, TurnoverKinetics
+from .lazystats import stats
 from .population import PopulationEstimate, RandomEffects
 from .responses import chain_terms
 

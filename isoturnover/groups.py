@@ -23,7 +23,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy import special
 
 from .conventions import (
     check_choice,
@@ -33,14 +33,14 @@ from .conventions import (
     check_name_tuple,
     check_pool_numbers,
 )
-from .diagnostics import after_switch_reason
+from .diagnostics import after_switch_reason, drift_reason
 from .diet import diet_for_series
 from .engine import Coordinates, check_names
 from .errors import DataError, DataWarning, IsoturnoverWarning
 from .kinetics import MAX_POOLS
 from .model import LOSSES, TurnoverModel
 from .population import population_estimate
-from .segments import ORIGINS, formation_intervals, growth_schedule
+from .segments import ORIGINS, check_length_unit, formation_intervals, growth_schedule
 from .selection import CRITERIA, compare
 from .seriesrows import (
     SERIES_ERRORS,
@@ -438,7 +438,7 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
              separation="difference", initial="equilibrium", fixed=None, absolute_sigma=False,
              loss="linear", growth_curve="logistic", progress=False,
              per_diet_separation=False, n_jobs=1, scale="delta", growth_rate=None,
-             segment_origin="base", formation_lag=0.0) -> FitSet:
+             segment_origin="base", formation_lag=0.0, length_unit="mm") -> FitSet:
     """Fit every series of a samples table with every candidate model; choose one each.
 
     Parameters
@@ -520,6 +520,9 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     formation_lag : float, default=0.0
         Time (≥ 0, the samples' time unit) from formation to emergence at the base, for
         every segment series.
+    length_unit : str, default="mm"
+        Unit of ``segment_start``/``segment_end`` (and of ``growth_rate``'s length), carried
+        by the segment fits into their summaries, figures and saved records.
 
     Returns
     -------
@@ -533,8 +536,8 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
         ``loss``, ``level``, ``method``, ``fixed``, ``n_jobs``, model options), before any
         series is fitted: an empty, repeated or wrong-typed ``pools``, ``by`` or
         ``structures`` too; samples with segments whose tissue has no growth rate (the
-        message names the tissue), a bad ``growth_rate``, ``segment_origin`` or
-        ``formation_lag``.
+        message names the tissue), a bad ``growth_rate``, ``segment_origin``,
+        ``formation_lag`` or ``length_unit``.
 
     Notes
     -----
@@ -550,6 +553,13 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     candidate is ``"too_few_points"`` with every candidate's reason. With a single
     candidate no choice is made: its fit is kept (status ``"ok"``) and its row's reason
     says that its criterion is undefined.
+
+    A candidate whose slowest rate ran to 0 (a linear drift over the sampling:
+    :func:`~isoturnover.diagnostics.drift_reason`, trust note ``"linear_drift"``) is
+    flagged, not reported: it keeps its row and its place in the comparison (its criterion
+    from where the fit stopped, so the Akaike weights are those of every fitted
+    candidate), but it is never chosen; its row has status ``"not_eligible"`` with the
+    reason, and the best of the other candidates is chosen.
     """
     from .data import average_replicates, read_samples
 
@@ -570,6 +580,7 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
                         separation=separation, initial=initial)
     segment_origin = check_choice("segment_origin", segment_origin, ORIGINS)
     formation_lag = _check_formation_lag(formation_lag)
+    length_unit = check_length_unit(length_unit)
     s = _validated(read_samples, samples, "samples", time_unit=_unit_of(samples))
     for col in by:
         if col not in s.columns:
@@ -606,7 +617,8 @@ def fit_each(samples, *, by=_KEYS, pools=(1, 2), structures=("parallel",), diets
     options = dict(masses=masses, criterion=criterion, lag=lag, separation=separation,
                    initial=initial, fixed=fixed, absolute_sigma=absolute_sigma, loss=loss,
                    growth_curve=growth_curve, time_unit=time_unit, scale=scale,
-                   segment_origin=segment_origin, formation_lag=formation_lag)
+                   segment_origin=segment_origin, formation_lag=formation_lag,
+                   length_unit=length_unit)
     tasks = [(d, key, dict(zip(by, key))) for d, key in zip(data, groups)]
     if workers == 1 or len(tasks) < 2:
         done = [_fit_one(d, key, key_map, cands, options)
@@ -790,7 +802,7 @@ def _progress(items, progress, desc, total=None):
 
 def _fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation,
                 initial, fixed, absolute_sigma, loss, growth_curve, time_unit, scale="delta",
-                segment_origin="base", formation_lag=0.0):
+                segment_origin="base", formation_lag=0.0, length_unit="mm"):
     res = SeriesResult(key=key, group=data.group)
     t, y, sd = data.t, data.y, data.sd
     n = len(t)
@@ -802,6 +814,7 @@ def _fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation
         res.record = "segments"
         seg = {"record": "segments", "growth_rate": data.growth_rate,
                "formation_lag": formation_lag, "origin": segment_origin,
+               "length_unit": length_unit,
                "tissue_length": (float(np.max(data.segment_end))
                                  if segment_origin == "tip" else None)}
         try:
@@ -913,6 +926,17 @@ def _fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation
     res.comparison = cmp
     not_eligible = cmp.attrs.get("not_eligible", {})
     res.reasons.update(not_eligible)
+    # a fit stopped where its slowest rate runs to 0 (a linear drift) keeps its place in
+    # the comparison (criterion at the stopping point) but is never chosen
+    drift = {lab: why for lab, f in fitted.items() if (why := drift_reason(f))}
+    res.reasons.update(drift)
+    if drift and cmp["best"].any():
+        crit = cmp[criterion].to_numpy(dtype=float)
+        ok = np.isfinite(crit) & ~cmp["label"].isin(list(drift)).to_numpy()
+        best = np.zeros(crit.size, dtype=bool)
+        if ok.any():
+            best[int(np.argmin(np.where(ok, crit, np.inf)))] = True
+        cmp["best"] = best
     if len(res.reasons) == 1 and len(fitted) == 1:
         # one candidate asked for: no choice is made, so it is kept even when its
         # criterion is undefined (its row's reason says so)
@@ -953,7 +977,8 @@ def _has_change(fit):
     if fit.rss <= 0:
         return True
     F = ((rss0 - fit.rss) / (p1 - 1)) / (fit.rss / dof)
-    return bool(stats.f.sf(F, p1 - 1, dof) < 0.05)
+    # P(F_{p1-1, dof} ≥ F): scipy.special.fdtrc, the function scipy.stats.f.sf calls
+    return bool(special.fdtrc(p1 - 1, dof, F) < 0.05)
 
 
 def _n_free(model, fixed):

@@ -38,13 +38,16 @@ import html
 import math
 from collections.abc import Iterator, Mapping
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
-import lmfit
 import numpy as np
 import pandas as pd
 
 from .errors import DataError
 from .growthlaws import CURVES, check_curve_values, curve_law
+
+if TYPE_CHECKING:  # annotations only; lmfit is imported where it is used
+    import lmfit
 
 __all__ = [
     "CURVES",
@@ -143,6 +146,8 @@ class GrowthCurve:
     @property
     def params(self) -> lmfit.Parameters:
         """The values as :class:`lmfit.Parameters` (all fixed, no errors)."""
+        import lmfit  # on first use: lmfit imports scipy.stats and matplotlib
+
         p = lmfit.Parameters()
         for name, v in zip(self._curve.params, self._values, strict=True):
             p.add(name, value=float(v), vary=False)

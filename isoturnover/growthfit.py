@@ -27,11 +27,10 @@ import hashlib
 import math
 import warnings
 from collections.abc import Mapping
+from typing import TYPE_CHECKING
 
-import lmfit
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from .conventions import INTERVAL_COLUMNS, check_level
 from .engine import relative_sigma, sigma_scale_message
@@ -52,7 +51,11 @@ from .growth import (
     curve_law,
 )
 from .growthproblem import SOLVE_MAX_NFEV, CurveProblem, check_mass_data, growth_response
+from .lazystats import stats
 from .profiles import find_bound
+
+if TYPE_CHECKING:  # annotations only; lmfit is imported where it is used
+    import lmfit
 
 __all__ = [
     "SCALES",
@@ -259,6 +262,8 @@ class GrowthFit(GrowthCurve):
     def params(self) -> lmfit.Parameters:
         """Values, stderr from :math:`s^2 (J^T J)^{-1}` with :math:`s^2 = RSS/(n - p)`, and
         correlations, as :class:`lmfit.Parameters`; fixed parameters have ``vary=False``."""
+        import lmfit  # on first use: lmfit imports scipy.stats and matplotlib
+
         se = self.stderr
         p = lmfit.Parameters()
         for name, v, vary, s in zip(self.param_names, self._values, self._vary, se, strict=True):

@@ -12,8 +12,8 @@ from __future__ import annotations
 import difflib
 import math
 import warnings
+from typing import TYPE_CHECKING
 
-import lmfit
 import numpy as np
 
 from .conventions import check_choice
@@ -38,6 +38,9 @@ from .segments import (
     growth_schedule,
     segment_arrays,
 )
+
+if TYPE_CHECKING:  # annotations only; lmfit is imported where it is used
+    import lmfit
 
 __all__ = ["TurnoverModel", "LOSSES", "RECORDS", "fit_power_dilution"]
 
@@ -308,6 +311,8 @@ class TurnoverModel:
             varying = set(g.covariance.index)
             for nm, v in zip(g.param_names, g.values):
                 growth_fixed[f"growth_{nm}"] = (float(v), nm in varying)
+        import lmfit  # on first use: lmfit imports scipy.stats and matplotlib
+
         ps = lmfit.Parameters()
         for nm in names:
             if nm in kin.rate_names:
@@ -328,6 +333,8 @@ class TurnoverModel:
 
     def _read_params(self, params):
         """(fixed, init, ties, bounds) from an lmfit.Parameters; see :meth:`make_params`."""
+        import lmfit
+
         kin = self.kinetics
         names = kin.param_names
         if not isinstance(params, lmfit.Parameters):

@@ -14,10 +14,10 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from .conventions import check_choice, check_level
 from .errors import DataError, DataWarning
+from .lazystats import stats
 from .popinputs import (
     arg_label,
     check_vector,

@@ -42,7 +42,32 @@ import math
 
 import numpy as np
 
-__all__ = ["ProjectedFit", "project_exponentials", "level_constraints"]
+__all__ = ["ProjectedFit", "project_exponentials", "level_constraints", "DRIFT_LIMIT",
+           "DRIFT_STOP", "DRIFT_FLAT"]
+
+#: :math:`k_{min}\,\tau_{max}` (slowest rate times the last time after the switch) below
+#: which the slowest exponential barely bends over the data (the trust notes' "barely
+#: moves", :math:`k \cdot span < 0.01`): :math:`e^{-k\tau} = 1 - k\tau + O((k\tau)^2)`,
+#: its curvature a relative :math:`k\tau/2 < 0.5\,\%` of its own change. An iteration of
+#: :func:`project_exponentials` that ends unconverged (evaluation budget spent, or no step
+#: lowers φ beyond rounding) with the slowest rate below it is a *drift*: with free levels
+#: the pool's amplitude grows without bound as its rate falls (:math:`b\,e^{-k\tau} \to
+#: b - bk\tau`, a linear drift); with a fixed total change the pool becomes a constant
+#: offset. The sum of squares only creeps towards its limit at :math:`k = 0` (relative
+#: :math:`O(k\tau_{max})` above it), which no search reaches. (A rule of the project, not
+#: a published cut-off.)
+DRIFT_LIMIT = 1e-2
+
+#: A step that lowers the slowest rate to :math:`k_{min}\tau_{max} <` ``DRIFT_STOP`` ends the
+#: iteration at once as a drift (a half-life above about 6,900 sampling spans): the sum of
+#: squares is then within a relative :math:`O(10^{-4})` of its limit, and further steps
+#: only trade digits lost to cancellation (the amplitudes grow as :math:`1/k`).
+DRIFT_STOP = 1e-4
+
+#: A step that lowers the slowest rate, already below :data:`DRIFT_LIMIT`, while φ falls by
+#: less than this relative amount also ends the iteration as a drift: the sum of squares is
+#: flat along the way to :math:`k = 0` (what is left is rounding of the large amplitudes).
+DRIFT_FLAT = 1e-8
 
 
 class ProjectedFit:
@@ -62,16 +87,21 @@ class ProjectedFit:
         Number of evaluations of the reduced problem.
     converged : bool
         Newton's iteration met its tolerance within the iteration budget.
+    drift : bool
+        The slowest rate ran to 0 (:data:`DRIFT_LIMIT`, :data:`DRIFT_STOP`; ``converged``
+        is then False): the fit is where the iteration stopped, its sum of squares within a
+        relative :math:`O(k_{min}\tau_{max})` of the drift's limit.
     """
 
-    __slots__ = ("rates", "linear", "rss", "n_eval", "converged")
+    __slots__ = ("rates", "linear", "rss", "n_eval", "converged", "drift")
 
-    def __init__(self, rates, linear, rss, n_eval, converged):
+    def __init__(self, rates, linear, rss, n_eval, converged, drift=False):
         self.rates = rates
         self.linear = linear
         self.rss = rss
         self.n_eval = n_eval
         self.converged = converged
+        self.drift = drift
 
 
 # -- small dense algebra in plain floats (matrices of order ≤ 4: cheaper than LAPACK calls)
@@ -281,7 +311,8 @@ def level_constraints(c0, M, cols, n):
     return c0, P, cols, C, d
 
 
-def project_exponentials(t, y, w, rates0, *, C=None, d=None, max_eval=None, xtol=1e-6):
+def project_exponentials(t, y, w, rates0, *, C=None, d=None, max_eval=None, xtol=1e-6,
+                         detect_drift=True):
     r"""Least-squares fit of :math:`a + \sum_i b_i e^{-k_i t^+}` by variable projection.
 
     Parameters
@@ -304,6 +335,18 @@ def project_exponentials(t, y, w, rates0, *, C=None, d=None, max_eval=None, xtol
         Converged when an undamped Newton step changes no log-rate by more than ``xtol``
         (Newton converges quadratically, so the log-rates are then within about
         ``xtol**2`` of the minimum).
+    detect_drift : bool, default=True
+        Stop at a drift (Notes); False iterates to the budget as without the rule.
+
+    Notes
+    -----
+    The iteration ends as a drift (``drift=True``, unconverged) when the slowest rate heads
+    to 0: an accepted step lowers its log-rate to :math:`k_{min} \max_i t_i^+ <`
+    :data:`DRIFT_STOP`, or below :data:`DRIFT_LIMIT` with φ flat to a relative
+    :data:`DRIFT_FLAT`; a step is refused below :data:`DRIFT_LIMIT` (φ no longer falls
+    beyond the rounding of the large amplitudes); or the budget runs out below
+    :data:`DRIFT_LIMIT` (see there). The minimum is then
+    at the boundary :math:`k = 0`, which the iteration can only approach.
 
     Returns
     -------
@@ -315,14 +358,20 @@ def project_exponentials(t, y, w, rates0, *, C=None, d=None, max_eval=None, xtol
     red = _Reduced(t, y, w, n, C, d)
     if max_eval is None:
         max_eval = 40 + 20 * n
+    # log-rates below which the drift rules apply (-inf: never)
+    span = max(float(red.tp.max()), 1e-300)
+    u_stop, u_drift = ((math.log(DRIFT_STOP / span), math.log(DRIFT_LIMIT / span))
+                       if detect_drift else (-math.inf, -math.inf))
     if n == 1 and red.N is None:
-        return _project_one(red, float(rates0[0]), max_eval, xtol)
-    return _project_general(red, rates0, max_eval, xtol)
+        return _project_one(red, float(rates0[0]), max_eval, xtol, u_stop, u_drift)
+    return _project_general(red, rates0, max_eval, xtol, u_stop, u_drift)
 
 
-def _project_general(red, rates0, max_eval, xtol):
+def _project_general(red, rates0, max_eval, xtol, u_stop=-math.inf, u_drift=-math.inf):
     """The Newton iteration of :func:`project_exponentials` on the reduced problem ``red``
-    for any number of pools and constraints (lists of floats: matrices of order ≤ 4)."""
+    for any number of pools and constraints (lists of floats: matrices of order ≤ 4);
+    ``u_stop``, ``u_drift``: the log-rates of :data:`DRIFT_STOP` and :data:`DRIFT_LIMIT`
+    (−inf: no drift rule)."""
     n = red.n
     u = [math.log(float(k)) for k in rates0]
     cur = red.at([math.exp(v) for v in u])
@@ -331,7 +380,7 @@ def _project_general(red, rates0, max_eval, xtol):
         return None
     c, phi, M, L = cur
     lam = 0.0
-    converged = False
+    converged = drift = False
     big = 0.0
     while n_eval < max_eval and not converged:
         g, H = red.newton_parts(c, M, L)
@@ -358,24 +407,32 @@ def _project_general(red, rates0, max_eval, xtol):
             # accepted when φ does not rise beyond that
             if new is not None and new[1] <= phi + 1e-13 * red.yy:
                 accepted = True
+                low_before, phi_before = min(u), phi
                 u, (c, phi, M, L) = u_new, new
                 if lam == 0.0 and big <= xtol:
                     converged = True
+                elif min(u) < low_before and (min(u) < u_stop or (
+                        min(u) < u_drift and phi_before - phi <= DRIFT_FLAT * phi_before)):
+                    drift = True  # the slowest rate heads to 0 (DRIFT_STOP, DRIFT_FLAT)
                 lam = 0.0 if lam <= 1e-6 else lam / 10.0
                 break
+            if min(u) < u_drift:
+                break  # a drift: below DRIFT_LIMIT a refused step is rounding, not a minimum
             lam = max(lam * 10.0, 1e-3)
         if not accepted:
-            # nothing lowers φ within rounding: a minimum if the Newton step was tiny
-            converged = big <= 1e-6
+            # nothing lowers φ within rounding: a minimum if the Newton step was tiny, a
+            # drift when the slowest rate has run below DRIFT_LIMIT (stalled by rounding)
+            converged = big <= 1e-6 and not min(u) < u_drift
             break
-        if converged:
+        if converged or drift:
             break
+    drift = drift or (not converged and min(u) < u_drift)
     lin = np.array(c, dtype=float)
     lin[0] += red.ybar
-    return ProjectedFit(np.exp(u), lin, float(phi), n_eval, converged)
+    return ProjectedFit(np.exp(u), lin, float(phi), n_eval, converged, drift)
 
 
-def _project_one(red, k0, max_eval, xtol):
+def _project_one(red, k0, max_eval, xtol, u_stop=-math.inf, u_drift=-math.inf):
     """:func:`project_exponentials` for one pool and no constraint, in plain floats.
 
     The general loop written out for the scalar log-rate and the 2 × 2 linear block
@@ -421,9 +478,9 @@ def _project_one(red, k0, max_eval, xtol):
         return None
     c0, c1, phi, M, L = cur
     lam = 0.0
-    converged = False
+    converged = drift = False
     big = 0.0
-    while n_eval < max_eval and not converged:
+    while n_eval < max_eval and not converged and not drift:
         # gradient and exact Hessian of φ/2 in ln k (module docstring, n = 1)
         P, E = M[2], M[3]
         rP = P[4] - (c0 * P[0] + c1 * P[1])
@@ -458,17 +515,25 @@ def _project_one(red, k0, max_eval, xtol):
             # accepted when φ does not rise beyond that
             if new is not None and new[2] <= phi + 1e-13 * yy:
                 accepted = True
+                low_before, phi_before = u, phi
                 u = u_new
                 c0, c1, phi, M, L = new
                 if lam == 0.0 and big <= xtol:
                     converged = True
+                elif u < low_before and (u < u_stop or (
+                        u < u_drift and phi_before - new[2] <= DRIFT_FLAT * phi_before)):
+                    drift = True  # the rate heads to 0 (DRIFT_STOP, DRIFT_FLAT)
                 lam = 0.0 if lam <= 1e-6 else lam / 10.0
                 break
+            if u < u_drift:
+                break  # a drift: below DRIFT_LIMIT a refused step is rounding, not a minimum
             lam = max(lam * 10.0, 1e-3)
         if not accepted:
-            # nothing lowers φ within rounding: a minimum if the Newton step was tiny
-            converged = big <= 1e-6
+            # nothing lowers φ within rounding: a minimum if the Newton step was tiny, a
+            # drift when the rate has run below DRIFT_LIMIT (stalled by rounding)
+            converged = big <= 1e-6 and not u < u_drift
             break
+    drift = drift or (not converged and u < u_drift)
     lin = np.array([c0, c1], dtype=float)
     lin[0] += red.ybar
-    return ProjectedFit(np.exp([u]), lin, float(phi), n_eval, converged)
+    return ProjectedFit(np.exp([u]), lin, float(phi), n_eval, converged, drift)

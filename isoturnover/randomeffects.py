@@ -10,10 +10,11 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import optimize, stats
+from scipy import optimize
 
 from .conventions import check_choice, check_level
 from .errors import DataError
+from .lazystats import stats
 from .popinputs import (
     check_vector,
     design_matrix,

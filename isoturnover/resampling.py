@@ -35,7 +35,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from .conventions import check_choice as _choice
 from .conventions import check_level as _check_level
@@ -51,6 +50,7 @@ from .derived import (
 )
 from .engine import Problem
 from .errors import ConvergenceWarning, DataError
+from .lazystats import stats
 
 try:  # optional: parallel bootstrap
     import joblib as _joblib

@@ -46,7 +46,7 @@ import warnings
 
 import numpy as np
 import pandas as pd
-from scipy import sparse, special, stats
+from scipy import sparse, special
 
 from .conventions import check_choice, check_level, check_method, check_positive_int
 from .data import read_samples
@@ -68,6 +68,7 @@ from .jointproblem import (
     safe_label,
     start_coordinates,
 )
+from .lazystats import stats
 from .model import TurnoverModel
 
 try:  # optional (the "fast" extra): parallel bootstrap refits

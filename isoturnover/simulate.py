@@ -24,12 +24,13 @@ import warnings
 
 import numpy as np
 import pandas as pd
-from scipy import optimize, stats
+from scipy import optimize
 
 from .conventions import check_choice, check_level, check_positive_int
 from .design import PLAN_CAUTION, Design, evaluate_design, model_spec
 from .errors import DataError, IsoturnoverError
 from .groups import parallel_workers
+from .lazystats import stats
 from .model import TurnoverModel
 
 try:  # optional (the "fast" extra): parallel simulations

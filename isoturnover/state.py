@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import special, stats
+from scipy import special
 
 __all__ = ["FitState"]
 
@@ -203,7 +203,7 @@ class FitState:
                                 else math.nan)
         st["bic"] = base + k * math.log(n_ic)
         st["redchi"] = self.rss / self.dof if self.dof > 0 else math.nan
-        st["chisqr_pvalue"] = (float(stats.chi2.sf(self.rss, self.dof))
+        st["chisqr_pvalue"] = (float(special.chdtrc(self.dof, self.rss))
                               if self.absolute_sigma and self.dof > 0 else None)
         for a in (self.z, self.theta, self.jac_z, self.t, self.y, self.sigma, self.w,
                   self.cov_z, self.cov_z0, self.A, self.covar, self.dead):

@@ -84,7 +84,12 @@ def test_table_has_a_row_for_every_series_and_candidate(fitset, table):
                 "chosen", "delta0", "delta_eq", "half_life_1", "lower_1", "upper_1",
                 "time_to_95", "rate_kind"):
         assert col in table.columns, col
-    assert set(table["status"]) == {"ok", "too_few_points", "no_change"}
+    assert set(table["status"]) == {"ok", "too_few_points", "no_change", "not_eligible"}
+    # not eligible here: only two-pool candidates whose slow rate ran to 0 (a linear drift
+    # on one-pool data: flagged, kept in the comparison, never chosen)
+    ne = table[table["status"] == "not_eligible"]
+    assert len(ne) and (ne["candidate"] == "2 pools").all() and not ne["chosen"].any()
+    assert ne["reason"].str.contains("linear drift").all()
     assert (table["interval_method"].dropna() == "asymptotic").all()
 
 
@@ -109,7 +114,10 @@ def test_bad_series_carry_status_and_reason(fitset, table):
     assert fitset[FLAT].status == "no_change" and fitset[FLAT].best is None
     # every other series fitted
     ok = table[~table.index.isin(short.index.union(flat.index))]
-    assert (ok["status"] == "ok").all()
+    # (a two-pool candidate whose slow rate ran to 0 is flagged not eligible: a linear drift)
+    drift = ok["reason"].fillna("").str.contains("linear drift")
+    assert (ok.loc[~drift, "status"] == "ok").all()
+    assert (ok.loc[drift, "status"] == "not_eligible").all()
     assert "22 fitted, 2 not fitted" in repr(fitset)
 
 

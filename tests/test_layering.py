@@ -21,7 +21,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "isoturnover"
 
 # Layer of every module, lowest first. A module may import any module of a lower layer.
 LAYERS = {
-    "errors": 0,
+    "errors": 0, "lazystats": 0,
     "conventions": 1,
     "isotopes": 1, "references": 1,
     "tables": 2, "sampletimes": 2, "diet": 2, "data": 2, "demo": 2, "progress": 2, "growth": 2,
