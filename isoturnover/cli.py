@@ -14,6 +14,7 @@ warnings keep Python's own handling.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import warnings
 
@@ -103,8 +104,8 @@ def build_parser() -> argparse.ArgumentParser:
                        formatter_class=_formatter,
                        description="Fit the invented demo experiment (goats, breath, hair, fish) "
                        "and write results, figures and a report.")
-    d.add_argument("--jobs", metavar="N", type=parse_jobs, default=1,
-                   help="parallel worker processes (-1: all cores; default 1)")
+    d.add_argument("--jobs", metavar="N", type=parse_jobs, default=None,
+                   help="parallel worker processes (-1: all cores; default 2, or 1 on one core)")
     _add_common(d)
 
     f = sub.add_parser("fit", parents=[common], help="fit every series of a samples file",
@@ -418,6 +419,12 @@ def _cmd_demo(args, out):
     from .analysis import run_demo
     from .groups import parallel_workers
 
+    if args.jobs is None:  # the demo's default: two workers where there are two cores
+        try:
+            cores = len(os.sched_getaffinity(0))
+        except AttributeError:  # pragma: no cover - not on Linux
+            cores = os.cpu_count() or 1
+        args.jobs = min(2, cores)
     jobs = parallel_workers(args.jobs, "--jobs")  # 1 (after one warning) without joblib
     a = run_demo(out, force=args.force, progress=_progress_default(args),
                  figures=not args.no_figures, n_jobs=jobs)

@@ -280,7 +280,7 @@ def test_demo_accepts_jobs_and_passes_it_on(tmp_path, capsys, monkeypatch):
     from isoturnover.cli import build_parser
 
     assert build_parser().parse_args(["demo", "--jobs", "-1"]).jobs == -1
-    assert build_parser().parse_args(["demo"]).jobs == 1
+    assert build_parser().parse_args(["demo"]).jobs is None  # two workers on two cores
     seen = []
 
     def stop_at_the_first_part(samples, **kwargs):
@@ -292,6 +292,12 @@ def test_demo_accepts_jobs_and_passes_it_on(tmp_path, capsys, monkeypatch):
     assert code == 2 and seen == [2], err
     assert err.splitlines() == ["error: stopped after the first part (test)"]
     assert not (tmp_path / "o").exists()
+    # without --jobs: two workers where two cores are available, else one
+    monkeypatch.setattr("os.sched_getaffinity", lambda pid: {0, 1, 2, 3}, raising=False)
+    run(["demo", "--out", str(tmp_path / "o2")], capsys)
+    monkeypatch.setattr("os.sched_getaffinity", lambda pid: {0}, raising=False)
+    run(["demo", "--out", str(tmp_path / "o3")], capsys)
+    assert seen[1:] == [2, 1]
 
 
 def iso_data_error(message):
