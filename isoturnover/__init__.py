@@ -35,6 +35,7 @@ from .errors import (
 from .groups import FitSet, fit_each
 from .growth import GrowthCurve
 from .growthfit import GrowthFit, fit_growth, fit_growth_each, load_growth
+from .growthrate import GrowthRateFit, fit_growth_rate
 from .inverse import DietReconstruction, reconstruct_diet
 from .model import TurnoverModel, fit_power_dilution
 from .plotinverse import plot_reconstruction
@@ -97,6 +98,8 @@ __all__ = [
     "DietReconstruction",
     "plot_reconstruction",
     "formation_intervals",
+    "fit_growth_rate",
+    "GrowthRateFit",
     "plan_segments",
     "SegmentPlan",
     "SegmentProfile",

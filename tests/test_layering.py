@@ -38,7 +38,7 @@ LAYERS = {
     "intervalcache": 7, "records": 7,
     "model": 8, "selection": 8, "serialization": 8, "seriesrows": 8, "inverse": 8,
     "dietoperator": 8, "dietsolvers": 8, "dietprofile": 8,
-    "groups": 9, "seriesfit": 9, "sharedfit": 9, "designmodel": 9,
+    "groups": 9, "seriesfit": 9, "sharedfit": 9, "designmodel": 9, "growthrate": 9,
     "plotting": 10, "plotkit": 10, "plotstudy": 10, "design": 10, "simulate": 10,
     "plotplan": 10, "plotpop": 10, "clocks": 10, "plotinverse": 10, "plotsegments": 10,
     "report": 11, "reportfigures": 11, "planreport": 11, "segmentplan": 11,
