@@ -558,8 +558,10 @@ def _fmt(x: float) -> str:
     return "inf" if math.isinf(x) else f"{x:.3g}"
 
 
-def _per_tissue(name, mapping, tissue, isotope):
-    """A value of ``mapping`` for (tissue, isotope): key (tissue, isotope), else tissue."""
+def _per_tissue(name, mapping, tissue, isotope, isotopes=()):
+    """A value of ``mapping`` for (tissue, isotope): key (tissue, isotope), else tissue —
+    refused when the field rows hold the tissue in several ``isotopes`` (a δ13C plateau
+    must not be used for δ15N)."""
     if mapping is None:
         return math.nan
     if not isinstance(mapping, dict):
@@ -567,7 +569,16 @@ def _per_tissue(name, mapping, tissue, isotope):
                         f"{type(mapping).__name__}")
     for key in ((tissue, isotope), tissue):
         if key in mapping:
-            return float(mapping[key])
+            if key == tissue and len(set(isotopes)) > 1:
+                raise DataError(
+                    f"'{name}' (--{name}) gives one value for tissue {tissue!r}, but the field "
+                    f"rows hold it in {', '.join(sorted(map(str, set(isotopes))))}: give one "
+                    f"per isotope ({tissue}:{isotope}=…) or choose the rows with --isotope")
+            try:
+                return float(mapping[key])
+            except (TypeError, ValueError):
+                raise DataError(f"'{name}' (--{name}): the value for {key!r} must be a number "
+                                f"(δ, ‰); got {mapping[key]!r}") from None
     return math.nan
 
 
@@ -633,12 +644,14 @@ def run_clock(field_table, fits, *, new=None, old=None, sd=None, subjects=None, 
             raise DataError(f"{r.where}, column 'tissue': {got}")
         iso_col.append(got[1])
     frame = frame.assign(isotope=iso_col)
+    isotopes_of = frame.groupby("tissue")["isotope"].agg(lambda x: tuple(x.unique())).to_dict()
     for c, given, what in (("sd", sd, "--sd (sd=)"), ("new", new, "--new (new=)")):
         vals = frame[c].to_numpy(float).copy()
         for j, r in enumerate(frame.itertuples()):
             if not np.isfinite(vals[j]):
                 v = (float(given) if c == "sd" and given is not None else
-                     _per_tissue(c, given, r.tissue, r.isotope) if c == "new" else math.nan)
+                     _per_tissue(c, given, r.tissue, r.isotope, isotopes_of[r.tissue])
+                     if c == "new" else math.nan)
                 if not np.isfinite(v):
                     raise DataError(f"{r.where}, column {c!r}: blank, and {what} gives no "
                                     f"value for tissue {r.tissue!r}")
@@ -647,7 +660,7 @@ def run_clock(field_table, fits, *, new=None, old=None, sd=None, subjects=None, 
     olds = frame["old"].to_numpy(float).copy()
     for j, r in enumerate(frame.itertuples()):
         if not np.isfinite(olds[j]):
-            olds[j] = _per_tissue("old", old, r.tissue, r.isotope)
+            olds[j] = _per_tissue("old", old, r.tissue, r.isotope, isotopes_of[r.tissue])
     frame["old"] = olds
     kin, pop, krows = {}, {}, []
     for key in sorted(set(zip(frame["tissue"], frame["isotope"]))):

@@ -326,7 +326,7 @@ def drift_reason(fit) -> str:
     str
         The reason, naming the rate and :math:`k\tau_{max}`; "" for any other fit.
     """
-    info = fit.state.solution.extra.get("drift")
+    info = fit.state.solution.extra.get("drift") or _stalled_drift(fit)
     if not info:
         return ""
     unit = unit_word(fit.time_unit)
@@ -336,6 +336,23 @@ def drift_reason(fit) -> str:
             "rate, half-life and fraction are not determined, and fit_each does not choose "
             "this model; the fit stopped there (not converged), its RSS within a relative "
             "O(k·τ_max) of the drift's limit")
+
+
+def _stalled_drift(fit):
+    """The drift of a fit that stopped unconverged outside the projection (the general
+    search at its evaluation limit) with its slowest rate below the drift limit: the same
+    reading as the projection's own stop. Not for growth models, whose incorporation rate
+    stays positive when the catabolic one runs to 0."""
+    kin = fit.kinetics
+    if fit.state.optimizer_ok or not kin.rate_names or kin.growth_kind is not None:
+        return None
+    v = fit.values
+    name = min(kin.rate_names, key=lambda nm: v[nm])
+    tau = float(np.max(fit.t)) - float(kin.switch_times[0])
+    k_tau = float(v[name]) * tau
+    if not (tau > 0 and np.isfinite(k_tau) and k_tau < DRIFT_LIMIT):
+        return None
+    return {"rate": name, "k_tau": k_tau}
 
 
 def first_diet_half_lives(fit):

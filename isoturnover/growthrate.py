@@ -330,7 +330,9 @@ def fit_growth_rate(segments, model, *, bounds, level=0.95, time_unit="d",
                         arr["sample_time"], arr["y"], arr["sigma"], time_unit=time_unit,
                         segment_start=arr["segment_start"], segment_end=arr["segment_end"],
                         warn=False)
-                val = float(f.rss) if math.isfinite(f.rss) else math.inf
+                # a fit the optimizer did not finish has no profile value: counted failed
+                ok = math.isfinite(f.rss) and bool(f.state.optimizer_ok)
+                val = float(f.rss) if ok else math.inf
             except FitError:
                 f, val = None, math.inf
             except DataError as e:  # the data cannot be fitted by this model at all
@@ -364,6 +366,8 @@ def fit_growth_rate(segments, model, *, bounds, level=0.95, time_unit="d",
         prev = g_hat
         for g in outer:
             r = rss(g)
+            if not math.isfinite(r):  # a failed fit is not "above the cut": no bound here
+                return math.nan, "failed"
             if r > cut:
                 try:
                     u = optimize.brentq(
@@ -371,6 +375,9 @@ def fit_growth_rate(segments, model, *, bounds, level=0.95, time_unit="d",
                         math.log(g), xtol=1e-13, rtol=4 * np.finfo(float).eps)
                 except (ValueError, RuntimeError):
                     return math.nan, "failed"
+                inside = [v for h, v in cache.items() if min(prev, g) < h < max(prev, g)]
+                if not all(math.isfinite(v) for v in inside):
+                    return math.nan, "failed"  # a fit failed within the bracket
                 return math.exp(u), "ok"
             prev = g
         return None, "open"

@@ -28,8 +28,8 @@ from .selection import compare
 from .seriesrows import SERIES_ERRORS, candidate_row, growth_for_series
 
 __all__ = ["SeriesResult", "STATUS", "SERIES_KEYS", "PER_DIET_LABEL", "candidates",
-           "per_diet_applies", "check_formation_lag", "attach_growth_rates", "attach_diets",
-           "fit_one", "fit_one_in_worker", "warm_series", "fit_series"]
+           "check_formation_lag", "attach_growth_rates", "attach_diets", "fit_one",
+           "fit_one_in_worker", "warm_series", "fit_series"]
 
 #: Status of a series (:attr:`SeriesResult.status`) and of a row of
 #: :meth:`~isoturnover.groups.FitSet.table`: ``"not_eligible"`` marks a fitted candidate
@@ -105,7 +105,24 @@ PER_DIET_LABEL = ", separation per diet"
 def candidates(pools, structures, per_diet, **options):
     """(label, structure, pools, per_diet, optional) of every candidate; ``per_diet="auto"``
     adds after each its optional variant with one separation per diet value. Each model's
-    options are checked here, once (a DataError before any series, not a failed row each)."""
+    options are checked here, once (a DataError before any series, not a failed row each).
+
+    Parameters
+    ----------
+    pools : sequence of int
+        Numbers of parallel pools to try.
+    structures : sequence of {"parallel", "chain"}
+        Model structures to try.
+    per_diet : bool or "auto"
+        One separation per diet value: never, always, or as an optional variant.
+    **options
+        Model options (``lag``, ``separation``, ``initial``) checked once here.
+
+    Returns
+    -------
+    list of tuple
+        ``(label, structure, pools, per_diet, optional)`` of every candidate.
+    """
     auto = isinstance(per_diet, str) and per_diet == "auto"
     if not (auto or isinstance(per_diet, (bool, np.bool_))):
         raise DataError(f"'per_diet_separation' must be True, False or 'auto'; got "
@@ -122,7 +139,7 @@ def candidates(pools, structures, per_diet, **options):
     return out
 
 
-def per_diet_applies(diet, initial, separation):
+def _per_diet_applies(diet, initial, separation):
     """Whether one separation per diet value adds parameters to this diet history's model:
     two or more distinct known values among the diets it uses. Never without diets."""
     try:
@@ -133,7 +150,17 @@ def per_diet_applies(diet, initial, separation):
     return diet is not None and n[1] > n[0]
 
 def check_formation_lag(lag):
-    """``formation_lag`` as a float ≥ 0, else a DataError naming it."""
+    """``formation_lag`` as a float ≥ 0, else a DataError naming it.
+
+    Parameters
+    ----------
+    lag : float
+        The formation lag (time unit), ``>= 0``.
+
+    Returns
+    -------
+    float
+    """
     try:
         v = float(lag)
     except (TypeError, ValueError):
@@ -146,7 +173,21 @@ def check_formation_lag(lag):
 def attach_growth_rates(data, growth_rate):
     """The growth rate of every segment series (its ``growth_rate`` column, else the
     argument's entry for its tissue, else the argument's one value), checked before any
-    fit; a DataError names the tissues that have segments and no growth rate."""
+    fit; a DataError names the tissues that have segments and no growth rate.
+
+    Parameters
+    ----------
+    data : list
+        The series' arrays (:func:`~isoturnover.seriesrows.series_data`), changed in place
+        (``growth_rate``).
+    growth_rate : float, mapping or table, optional
+        One rate, a rate per tissue, or a (time, rate) table (length per time unit).
+
+    Raises
+    ------
+    DataError
+        A bad rate, or segment series with no rate (naming the tissues).
+    """
     per_tissue = isinstance(growth_rate, Mapping) and set(growth_rate) != {"time", "rate"}
     if per_tissue:
         for tissue, v in growth_rate.items():
@@ -178,7 +219,21 @@ def attach_growth_rates(data, growth_rate):
 
 def attach_diets(data, groups, by, diets, initial, separation):
     """The diet history of every series (by subject, else by group, and isotope), built
-    once for each distinct match, with whether a separation per diet value applies."""
+    once for each distinct match, with whether a separation per diet value applies.
+
+    Parameters
+    ----------
+    data : list
+        The series' arrays, changed in place (``diet``, ``per_diet``, diet status).
+    groups : dict
+        Key → row positions of every series.
+    by : tuple of str
+        The columns that define a series.
+    diets : DataFrame
+        A checked diets table (:func:`~isoturnover.read_diets`).
+    initial, separation : str
+        Model options, for whether a separation per diet value applies.
+    """
     subject_col = "subject" in diets.columns
     memo, applies = {}, {}
     for d, key in zip(data, groups):
@@ -198,7 +253,7 @@ def attach_diets(data, groups, by, diets, initial, separation):
             continue
         d.diet = diet
         if id(diet) not in applies:
-            applies[id(diet)] = per_diet_applies(diet, initial, separation)
+            applies[id(diet)] = _per_diet_applies(diet, initial, separation)
         d.per_diet = applies[id(diet)]
 
 
@@ -210,14 +265,33 @@ def fit_one(data, key, key_map, cands, options, warm=None):
     :meth:`FitSet.table` (the chosen one with ``method``'s intervals, the others with
     asymptotic ones), the chosen fit's :meth:`~isoturnover.TurnoverFit.table` and summary —
     and travels back cached on the fits, so the main process only assembles them.
+
+    Parameters
+    ----------
+    data : object
+        The series' arrays.
+    key : tuple
+        Its key (values of the ``by`` columns).
+    key_map : dict
+        Column → value of the key.
+    cands : list
+        The candidates (:func:`candidates`).
+    options : dict
+        Keyword arguments of :func:`fit_series`.
+    warm : tuple (level, method), optional
+        Compute ahead what the outputs show (:func:`warm_series`).
+
+    Returns
+    -------
+    SeriesResult
     """
     if data.error is not None:
-        return all_failed(SeriesResult(key=key, nobs=0, group=data.group), cands,
+        return _all_failed(SeriesResult(key=key, nobs=0, group=data.group), cands,
                            "failed", data.error)
     try:
         res = fit_series(data, key, key_map, cands, **options)
     except SERIES_ERRORS as e:
-        return all_failed(SeriesResult(key=key, nobs=0, group=data.group), cands,
+        return _all_failed(SeriesResult(key=key, nobs=0, group=data.group), cands,
                            "failed", f"series failed: {e}")
     if warm is not None and res.best is not None:
         warm_series(res, *warm)
@@ -256,7 +330,18 @@ def warm_series(res, level, method):
 def fit_one_in_worker(data, key, key_map, cands, options, warm=None):
     """:func:`fit_one` in a worker process, with the warnings it issued as (message,
     category) pairs: a worker knows nothing of the caller's warning filters, so they are
-    issued again in the main process."""
+    issued again in the main process.
+
+    Parameters
+    ----------
+    data, key, key_map, cands, options, warm
+        As for :func:`fit_one`.
+
+    Returns
+    -------
+    tuple (SeriesResult, list of (str, type))
+        The result and the warnings issued.
+    """
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("default")
         res = fit_one(data, key, key_map, cands, options, warm=warm)
@@ -265,6 +350,34 @@ def fit_one_in_worker(data, key, key_map, cands, options, warm=None):
 def fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation,
                 initial, fixed, absolute_sigma, loss, growth_curve, time_unit, scale="delta",
                 segment_origin="base", formation_lag=0.0, length_unit="mm"):
+    """Fit every candidate model to one series and choose one by the criterion.
+
+    Series that cannot be fitted (no sample after the switch, no change, a failed diet or
+    growth curve, several subjects sampled repeatedly) are returned with a status and a
+    reason; candidates with too few points or undefined criteria are listed, not chosen;
+    a fit whose slowest rate runs to 0 (:func:`~isoturnover.diagnostics.drift_reason`) is
+    compared but never chosen.
+
+    Parameters
+    ----------
+    data : object
+        The series' arrays (times, values, sd, diet, segments).
+    key : tuple
+        Its key.
+    key_map : dict
+        Column → value of the key.
+    cands : list
+        The candidates (:func:`candidates`).
+    **options
+        ``masses``, ``criterion``, ``lag``, ``separation``, ``initial``, ``fixed``,
+        ``absolute_sigma``, ``loss``, ``growth_curve``, ``time_unit``, ``scale``,
+        ``segment_origin``, ``formation_lag``, ``length_unit``: as for
+        :func:`~isoturnover.fit_each`.
+
+    Returns
+    -------
+    SeriesResult
+    """
     res = SeriesResult(key=key, group=data.group)
     t, y, sd = data.t, data.y, data.sd
     n = len(t)
@@ -285,30 +398,30 @@ def fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation,
                                          origin=segment_origin,
                                          tissue_length=seg["tissue_length"])
         except SERIES_ERRORS as e:
-            return all_failed(res, cands, "failed", f"segments could not be placed: {e}")
+            return _all_failed(res, cands, "failed", f"segments could not be placed: {e}")
         t_formed = (t1 + t2) / 2.0
     subjects = sorted(set(data.subject.tolist()))
-    if "subject" not in key_map and len(subjects) > 1 and repeated(data.subject, t):
+    if "subject" not in key_map and len(subjects) > 1 and _repeated(data.subject, t):
         msg = ("several subjects sampled repeatedly in one series: add 'subject' to 'by' "
                "(destructive designs have one sampling time per animal)")
-        return all_failed(res, cands, "failed", msg)
+        return _all_failed(res, cands, "failed", msg)
     diet = data.diet
     if data.diet_status:
-        return all_failed(res, cands, data.diet_status, data.diet_reason)
+        return _all_failed(res, cands, data.diet_status, data.diet_reason)
     growth = None
     if masses is not None and not seg:
         growth, why = growth_for_series(masses, data.subject, growth_curve)
         if growth is None:
-            return all_failed(res, cands, "failed", why)
+            return _all_failed(res, cands, "failed", why)
     # does any sample follow the switch? (before "no change": that is why there is none)
     # (a single diet has no switch: every candidate says so as "model not valid")
     switch = float(diet.switch_times[0]) if diet is not None and diet.n_diets > 1 else 0.0
     why = after_switch_reason(t_formed, switch, time_unit)
     if why is not None:
-        return all_failed(res, cands, "too_few_points", why)
+        return _all_failed(res, cands, "too_few_points", why)
     # is there a change at all? (one point alone is too few points, said per candidate)
     if n > 1 and np.ptp(y) == 0:
-        return all_failed(res, cands, "no_change", "all values are equal: nothing to fit")
+        return _all_failed(res, cands, "no_change", "all values are equal: nothing to fit")
     ok_any = False
     # an optional (per-diet) variant only where the diets give it more separations, and
     # only where it can be chosen: valid with 'fixed', its criterion defined
@@ -322,7 +435,7 @@ def fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation,
                               isotope=data.isotope if scale == "atom_fraction" else None,
                               **seg)
         try:
-            n_free = free_count(model, fixed)
+            n_free = _free_count(model, fixed)
         except SERIES_ERRORS as e:
             if optional:
                 continue
@@ -349,7 +462,7 @@ def fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation,
             res.fits[label] = None
             res.reasons[label] = f"fit failed: {e}"
             continue
-        if optional and too_few(f, criterion):
+        if optional and _too_few(f, criterion):
             continue
         # the fit was made on arrays: record where they came from (as a frame fit does)
         f.data_info.update({
@@ -374,7 +487,7 @@ def fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation,
     fitted = {k: f for k, f in res.fits.items() if f is not None}
     # a change test: does the simplest fit explain more than a constant?
     simplest = min(fitted.values(), key=lambda f: f.nvarys)
-    if not has_change(simplest):
+    if not _has_change(simplest):
         res.status = "no_change"
         res.reason = ("no detectable change over the sampling period (F-test of the fitted "
                       "curve against a constant, p > 0.05)")
@@ -399,7 +512,7 @@ def fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation,
         if ok.any():
             best[int(np.argmin(np.where(ok, crit, np.inf)))] = True
         cmp["best"] = best
-    if len(res.reasons) == 1 and len(fitted) == 1:
+    if len(res.reasons) == 1 and len(fitted) == 1 and not drift:
         # one candidate asked for: no choice is made, so it is kept even when its
         # criterion is undefined (its row's reason says so)
         res.chosen = next(iter(fitted))
@@ -407,7 +520,7 @@ def fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation,
         return res
     if not cmp["best"].any():
         # nothing can be chosen: a listed failure with every candidate's reason
-        short = all(too_few(fitted[lab], criterion) for lab in not_eligible) and all(
+        short = not drift and all(_too_few(fitted[lab], criterion) for lab in not_eligible) and all(
             "time point" in why for lab, why in res.reasons.items() if lab not in fitted)
         res.status = "too_few_points" if short else "failed"
         name = {"aicc": "AICc", "aic": "AIC", "bic": "BIC"}[criterion]
@@ -421,13 +534,13 @@ def fit_series(data, key, key_map, cands, *, masses, criterion, lag, separation,
     return res
 
 
-def too_few(fit, criterion):
+def _too_few(fit, criterion):
     """Whether a fit's criterion is undefined for want of points (AICc, n − k − 1 ≤ 0)."""
     k = int(getattr(fit, "n_criteria_params", fit.nvarys))
     return criterion == "aicc" and int(fit.nobs) - k - 1 <= 0
 
 
-def has_change(fit):
+def _has_change(fit):
     """F-test: fitted curve vs a constant (weighted mean)."""
     w = 1.0 / fit.sigma if fit.sigma is not None else np.ones(fit.nobs)
     ybar = np.sum(w**2 * fit.y) / np.sum(w**2)
@@ -443,14 +556,14 @@ def has_change(fit):
     return bool(special.fdtrc(p1 - 1, dof, F) < 0.05)
 
 
-def free_count(model, fixed):
+def _free_count(model, fixed):
     # 'fixed' names or values that do not suit this candidate (k2 for one pool, say) raise
     # a DataError: a reason for this candidate's row
     kin = model.kinetics
     return Coordinates(kin, check_names(fixed, kin, "fixed")).size
 
 
-def all_failed(res, cands, status, reason):
+def _all_failed(res, cands, status, reason):
     res.status = status
     res.reason = reason
     for label, *_, optional in cands:  # an optional variant was never tried: not listed
@@ -461,7 +574,7 @@ def all_failed(res, cands, status, reason):
     return res
 
 
-def repeated(subject, t) -> bool:
+def _repeated(subject, t) -> bool:
     """Whether some subject of a series was sampled at two or more distinct times."""
     seen = {}
     for s, ti in zip(subject.tolist(), t.tolist()):

@@ -271,3 +271,19 @@ def test_part_and_isotope_select(fits_json):
     r = run_clock(demo_path("field_samples"), fits_json, part=parts.pop(), isotope="d13C",
                   **base)
     assert len(r.results) == 12
+
+
+def test_a_tissue_wide_plateau_is_refused_for_a_tissue_in_several_isotopes():
+    # a δ13C plateau must not silently stand for δ15N: a tissue-only key is refused when the
+    # field rows hold the tissue in two isotopes, a (tissue, isotope) key is taken
+    from isoturnover.clockrun import _per_tissue
+
+    with pytest.raises(DataError, match=r"'new' \(--new\) gives one value for tissue "
+                                        r"'plasma', but the field rows hold it in d13C, d15N"):
+        _per_tissue("new", {"plasma": -10.5}, "plasma", "d15N", ("d13C", "d15N"))
+    assert _per_tissue("new", {("plasma", "d15N"): 6.0, "plasma": -10.5}, "plasma", "d15N",
+                       ("d13C", "d15N")) == 6.0
+    assert _per_tissue("new", {"plasma": -10.5}, "plasma", "d13C", ("d13C",)) == -10.5
+    with pytest.raises(DataError, match=r"'old' \(--old\): the value for 'plasma' must be a "
+                                        r"number"):
+        _per_tissue("old", {"plasma": "abc"}, "plasma", "d13C", ("d13C",))

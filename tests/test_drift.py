@@ -119,3 +119,22 @@ def test_normal_two_pool_fit_unchanged():
     ref = least_squares(res, p0, xtol=1e-15, ftol=1e-15, gtol=1e-15, x_scale="jac")
     np.testing.assert_allclose(p0, ref.x, rtol=1e-7)
     assert fit.rss == pytest.approx(float(ref.fun @ ref.fun), rel=1e-12)
+
+
+@pytest.mark.parametrize("pools", [1, (1, 2)])
+def test_a_straight_line_is_never_reported_as_a_pool(pools):
+    # a straight line (no curvature over the sampling): the one-pool candidate drifts in the
+    # projection and a two-pool one stalls in the general search with both rates near 0; no
+    # candidate is chosen and the series says why (status failed, not too_few_points)
+    rng = np.random.default_rng(3)
+    t = np.array([0, 2, 5, 10, 15, 20, 30, 40, 50.0])
+    y = -25 + 0.03 * t + rng.normal(0, 0.05, t.size)
+    df = pd.DataFrame({"subject": "A", "tissue": "x", "isotope": "d13C", "time": t,
+                       "value": y})
+    fs = iso.fit_each(df, pools=pools)
+    res = next(iter(fs.values()))
+    assert res.chosen is None and res.status == "failed"
+    assert "runs to 0" in res.reason
+    tab = fs.table()
+    assert not tab["chosen"].any()
+    assert tab["reason"].str.contains("runs to 0").all()

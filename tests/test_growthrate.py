@@ -208,3 +208,30 @@ def test_refusals(g05):
                                         "parameters but only 3"):
         fit_growth_rate(few, iso.TurnoverModel(2, diet=diet, record="segments",
                                                growth_rate=0.4), bounds=(0.05, 2.0))
+
+
+def test_a_fit_failing_along_the_profile_makes_that_bound_failed(g05, monkeypatch):
+    # a fit that fails beyond ĝ is not "above the cut": the bound on that side is failed,
+    # never ok (the other side unchanged)
+    import isoturnover.growthrate as gr
+    from isoturnover.errors import FitError
+
+    prof, diet = g05
+    real = gr._with_rate
+
+    class Failing:
+        def __init__(self, model):
+            self.model = model
+
+        def fit(self, *a, **k):
+            raise FitError("failed on purpose (test)")
+
+    def with_rate(model, g):
+        m = real(model, g)
+        return Failing(m) if g > 0.4015 else m
+
+    monkeypatch.setattr(gr, "_with_rate", with_rate)
+    model = iso.TurnoverModel(1, diet=diet, record="segments", growth_rate=0.25)
+    r = fit_growth_rate(prof, model, bounds=(0.1, 2.0))
+    assert r.upper_status == "failed" and r.status == "failed"
+    assert r.lower_status == "ok" and r.lower < GROWTH
