@@ -41,7 +41,7 @@ LAYERS = {
     "groups": 9, "seriesfit": 9, "sharedfit": 9, "designmodel": 9, "growthrate": 9,
     "plotting": 10, "plotkit": 10, "plotstudy": 10, "design": 10, "simulate": 10,
     "plotplan": 10, "plotpop": 10, "clocks": 10, "plotinverse": 10, "plotsegments": 10,
-    "report": 11, "reportfigures": 11, "planreport": 11, "segmentplan": 11,
+    "report": 11, "reportmethods": 11, "reportfigures": 11, "planreport": 11, "segmentplan": 11,
     "analysis": 12, "cliargs": 12, "clockrun": 12,
     "cli": 13,
     "__main__": 14, "__init__": 14,
@@ -69,7 +69,7 @@ SAME_LAYER = {("isotopes", "conventions"), ("data", "diet"), ("demo", "data"),
               ("inverse", "dietoperator"), ("inverse", "dietsolvers"),
               ("inverse", "dietprofile"),
               ("sharedfit", "groups"), ("clockrun", "analysis"),
-              ("groups", "seriesfit")}
+              ("groups", "seriesfit"), ("report", "reportmethods")}
 
 
 def _modules():
