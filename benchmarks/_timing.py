@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import time
 
 
@@ -29,3 +30,32 @@ def per_call(fn, repeats: int, min_time: float) -> float:
             fn()
         times.append((time.perf_counter() - t0) / n)
     return min(times)
+
+
+def interleaved(fns, repeats, min_time):
+    """Fastest seconds per call of each of ``fns`` (name -> callable), batches taking turns.
+
+    Each batch is sized to last at least ``min_time``; in each of ``repeats`` rounds every
+    candidate runs one batch, and the fastest batch of each counts.
+    """
+    sizes = {}
+    for name, fn in fns.items():
+        fn()  # warm up
+        n = 1
+        while True:
+            t0 = time.perf_counter()
+            for _ in range(n):
+                fn()
+            if time.perf_counter() - t0 >= min_time:
+                break
+            n *= 2
+        sizes[name] = n
+    best = dict.fromkeys(fns, math.inf)
+    for _ in range(repeats):
+        for name, fn in fns.items():
+            n = sizes[name]
+            t0 = time.perf_counter()
+            for _ in range(n):
+                fn()
+            best[name] = min(best[name], (time.perf_counter() - t0) / n)
+    return best

@@ -37,12 +37,12 @@ from __future__ import annotations
 import argparse
 import math
 import platform
-import time
 import warnings
 
 import lmfit
 import numpy as np
 import scipy
+from _timing import interleaved
 from scipy.optimize import curve_fit
 
 import isoturnover as iso
@@ -105,35 +105,6 @@ def check_agreement(pools, t, y, p_true):
     params, residual = lmfit_setup(pools, t, y, p_true)
     r_lm = float(np.sum(lmfit.minimize(residual, params).residual ** 2))
     return fit.rss, r_cf, r_lm
-
-
-def interleaved(fns, repeats, min_time):
-    """Fastest seconds per call of each of ``fns`` (name -> callable), batches taking turns.
-
-    Each batch is sized to last at least ``min_time``; in each of ``repeats`` rounds every
-    candidate runs one batch, and the fastest batch of each counts.
-    """
-    sizes = {}
-    for name, fn in fns.items():
-        fn()  # warm up
-        n = 1
-        while True:
-            t0 = time.perf_counter()
-            for _ in range(n):
-                fn()
-            if time.perf_counter() - t0 >= min_time:
-                break
-            n *= 2
-        sizes[name] = n
-    best = dict.fromkeys(fns, math.inf)
-    for _ in range(repeats):
-        for name, fn in fns.items():
-            n = sizes[name]
-            t0 = time.perf_counter()
-            for _ in range(n):
-                fn()
-            best[name] = min(best[name], (time.perf_counter() - t0) / n)
-    return best
 
 
 def main(argv=None):

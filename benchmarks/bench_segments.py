@@ -24,9 +24,9 @@ from __future__ import annotations
 import argparse
 import math
 import platform
-import time
 
 import numpy as np
+from _timing import interleaved
 
 import isoturnover as iso
 from isoturnover.kinetics import TurnoverKinetics
@@ -42,31 +42,6 @@ CASES = {
     "2 pools": (dict(pools=2), [-22.0, -16.0, LN2 / 6.0, LN2 / 45.0, 0.4, 0.6]),
     "chain": (dict(structure="chain"), [-22.0, -16.0, 0.3, 0.05]),
 }
-
-
-def interleaved(fns, repeats, min_time):
-    """Fastest seconds per call of each of ``fns`` (name -> callable), batches taking turns."""
-    sizes = {}
-    for name, fn in fns.items():
-        fn()  # warm up
-        n = 1
-        while True:
-            t0 = time.perf_counter()
-            for _ in range(n):
-                fn()
-            if time.perf_counter() - t0 >= min_time:
-                break
-            n *= 2
-        sizes[name] = n
-    best = dict.fromkeys(fns, math.inf)
-    for _ in range(repeats):
-        for name, fn in fns.items():
-            n = sizes[name]
-            t0 = time.perf_counter()
-            for _ in range(n):
-                fn()
-            best[name] = min(best[name], (time.perf_counter() - t0) / n)
-    return best
 
 
 def main(argv=None):
