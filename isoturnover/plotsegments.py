@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .dietprofile import SegmentGeometry
 from .errors import DataError
 from .plotkit import (
     GREY,
@@ -154,24 +155,15 @@ def plot_segments(fit, ax=None, *, segment_start=None, segment_end=None, sample_
         ax.errorbar(mid, y, yerr=sd, fmt="none", ecolor=_DATA, elinewidth=0.7, capsize=0)
     ax.hlines(fitted, a, b, color=_FIT, lw=1.1, label="fitted segment mean")
 
-    one_time = np.ptp(g["sample_time"]) == 0
     where = "base" if model.origin == "base" else "tip"
-    if one_time:
+    length = (None if model.origin == "base" else
+              float(np.max(np.broadcast_to(model.tissue_length, a.shape))))
+    geo = SegmentGeometry(a, b, np.broadcast_to(g["sample_time"], a.shape),
+                          model.growth_rate, float(model.formation_lag), model.origin,
+                          None if length is None else np.full(a.shape, length))
+    if geo.single_sampling:
         sched = growth_schedule(model.growth_rate)
-        T = float(g["sample_time"][0])
-        g_end = float(sched.cumulative(T - float(model.formation_lag)))
-        length = (None if model.origin == "base" else
-                  float(np.max(np.broadcast_to(model.tissue_length, a.shape))))
-
-        def to_base(x):
-            x = np.asarray(x, dtype=float)
-            return x if length is None else length - x
-
-        def time_at(x):
-            return sched.inverse(g_end - to_base(x))
-
-        def place_of(t):
-            return to_base(g_end - sched.cumulative(t))
+        time_at, place_of = geo.time_at, geo.position
 
         lo, hi = float(min(a.min(), b.min())), float(max(a.max(), b.max()))
         x = np.linspace(lo, hi, 600)
