@@ -80,6 +80,26 @@ def _outputs(nb):
     return "\n".join(parts), html_tables, errors
 
 
+def _check_committed_clean(name):
+    """The committed notebook: valid, no outputs, python3 kernel, labelled invented, ending
+    with the animal-care caution."""
+    committed = _read(name)
+    nbformat.validate(committed)
+    assert all(not c.outputs and c.execution_count is None
+               for c in committed.cells if c.cell_type == "code")
+    assert committed.metadata.get("kernelspec", {}).get("name") == "python3"
+    markdown = [" ".join(c.source.split()) for c in committed.cells
+                if c.cell_type == "markdown"]
+    assert "data are invented" in markdown[0]
+    assert "animal-care authority" in markdown[-1] and "not replace it" in markdown[-1]
+
+
+def _check_wrote_nothing(work, tmp):
+    """Nothing written: not in the work dir, no figure or table in the temporary folder."""
+    assert list(work.iterdir()) == []
+    assert not [p for p in tmp.rglob("*") if p.suffix in (".png", ".csv", ".md", ".html")]
+
+
 def test_diet_switch_notebook_runs(tmp_path, monkeypatch):
     nb, work, tmp = _execute("01_diet_switch.ipynb", tmp_path, monkeypatch)
     text, tables, errors = _outputs(nb)
@@ -121,15 +141,7 @@ def test_field_plan_notebook_runs_committed_clean(tmp_path, monkeypatch):
     from isoturnover.design import PLAN_CAUTION
 
     name = "04_field_plan.ipynb"
-    committed = _read(name)
-    nbformat.validate(committed)
-    assert all(not c.outputs and c.execution_count is None
-               for c in committed.cells if c.cell_type == "code")
-    assert committed.metadata.get("kernelspec", {}).get("name") == "python3"
-    markdown = [" ".join(c.source.split()) for c in committed.cells
-                if c.cell_type == "markdown"]
-    assert "data are invented" in markdown[0]
-    assert "animal-care authority" in markdown[-1] and "not replace it" in markdown[-1]
+    _check_committed_clean(name)
     nb, work, tmp = _execute(name, tmp_path, monkeypatch)
     text, tables, errors = _outputs(nb)
     assert errors == []
@@ -152,15 +164,7 @@ def test_population_notebook_runs_committed_clean(tmp_path, monkeypatch):
     from isoturnover.conventions import CAUTION
 
     name = "03_population.ipynb"
-    committed = _read(name)
-    nbformat.validate(committed)
-    assert all(not c.outputs and c.execution_count is None
-               for c in committed.cells if c.cell_type == "code")
-    assert committed.metadata.get("kernelspec", {}).get("name") == "python3"
-    markdown = [" ".join(c.source.split()) for c in committed.cells
-                if c.cell_type == "markdown"]
-    assert "data are invented" in markdown[0]
-    assert "animal-care authority" in markdown[-1] and "not replace it" in markdown[-1]
+    _check_committed_clean(name)
     nb, work, tmp = _execute(name, tmp_path, monkeypatch)
     text, tables, errors = _outputs(nb)
     assert errors == []
@@ -175,23 +179,13 @@ def test_population_notebook_runs_committed_clean(tmp_path, monkeypatch):
     assert "Population half-life from 8 animals" in text
     assert "prediction interval" in text and "x axis: Half-life (days)" in text
     assert " ".join(CAUTION.split()) in " ".join(text.split())
-    # nothing written: not in the work dir, no figure or table in the temporary folder
-    assert list(work.iterdir()) == []
-    assert not [p for p in tmp.rglob("*") if p.suffix in (".png", ".csv", ".md", ".html")]
+    _check_wrote_nothing(work, tmp)
 
 def test_field_clock_notebook_runs_committed_clean(tmp_path, monkeypatch):
     from isoturnover.conventions import CAUTION
 
     name = "05_field_clock.ipynb"
-    committed = _read(name)
-    nbformat.validate(committed)
-    assert all(not c.outputs and c.execution_count is None
-               for c in committed.cells if c.cell_type == "code")
-    assert committed.metadata.get("kernelspec", {}).get("name") == "python3"
-    markdown = [" ".join(c.source.split()) for c in committed.cells
-                if c.cell_type == "markdown"]
-    assert "data are invented" in markdown[0]
-    assert "animal-care authority" in markdown[-1] and "not replace it" in markdown[-1]
+    _check_committed_clean(name)
     nb, work, tmp = _execute(name, tmp_path, monkeypatch)
     text, tables, errors = _outputs(nb)
     assert errors == []
@@ -205,24 +199,14 @@ def test_field_clock_notebook_runs_committed_clean(tmp_path, monkeypatch):
     assert "W01 -> too_early" in text and "W12 -> equilibrated" in text
     assert "x axis: time since the diet change (days)" in text
     assert " ".join(CAUTION.split()) in " ".join(text.split())
-    # nothing written: not in the work dir, no figure or table in the temporary folder
-    assert list(work.iterdir()) == []
-    assert not [p for p in tmp.rglob("*") if p.suffix in (".png", ".csv", ".md", ".html")]
+    _check_wrote_nothing(work, tmp)
 
 
 def test_segments_notebook_runs_committed_clean(tmp_path, monkeypatch):
     from isoturnover.conventions import CAUTION
 
     name = "06_segments.ipynb"
-    committed = _read(name)
-    nbformat.validate(committed)
-    assert all(not c.outputs and c.execution_count is None
-               for c in committed.cells if c.cell_type == "code")
-    assert committed.metadata.get("kernelspec", {}).get("name") == "python3"
-    markdown = [" ".join(c.source.split()) for c in committed.cells
-                if c.cell_type == "markdown"]
-    assert "data are invented" in markdown[0]
-    assert "animal-care authority" in markdown[-1] and "not replace it" in markdown[-1]
+    _check_committed_clean(name)
     nb, work, tmp = _execute(name, tmp_path, monkeypatch)
     text, tables, errors = _outputs(nb)
     assert errors == []
@@ -240,9 +224,7 @@ def test_segments_notebook_runs_committed_clean(tmp_path, monkeypatch):
     assert "segment profile: 24 segments from 0 to 96" in text
     assert "top axis: ['distance from the base of the tissue (mm)']" in text
     assert " ".join(CAUTION.split()) in " ".join(text.split())
-    # nothing written: not in the work dir, no figure or table in the temporary folder
-    assert list(work.iterdir()) == []
-    assert not [p for p in tmp.rglob("*") if p.suffix in (".png", ".csv", ".md", ".html")]
+    _check_wrote_nothing(work, tmp)
 
 
 @pytest.mark.parametrize("name", NAMES)
